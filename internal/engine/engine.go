@@ -1,0 +1,781 @@
+// Package engine is quern's only contact with gorgonia. It builds a graph once
+// per phase and batch size, binds batches by writing straight into the
+// graph's input tensors, runs the tape machine, copies gradients into the
+// parameters' own buffers and resets the machine, so that no other package
+// sees Let, RunAll, Reset, dtypes or broadcasting patterns.
+//
+// Graph construction methods record the first error and return a poisoned
+// node afterwards; Compile reports that error. This keeps model code linear.
+//
+// Traps handled here, each observed with gorgonia v0.9.18:
+//   - gorgonia's initialisers, GaussianRandomNode and Dropout seed from the
+//     clock: parameters are filled by package layers from math/rand/v2 and
+//     random inputs (noise, dropout masks) are fed in as ordinary inputs.
+//   - A machine that is not Reset after RunAll returns the previous values:
+//     Run always resets, even on error.
+//   - Graph construction touches package-level constant nodes (Rectify's
+//     zero, for instance): all construction is serialised by buildMu.
+//   - Grad may only be called once per graph: Compile calls it once for the
+//     whole parameter list.
+//   - Gradient values are copied out each run into the parameter's buffer,
+//     replacing (not adding to) the previous gradient unless Accumulate is
+//     asked for.
+package engine
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"sync"
+
+	"github.com/quernlab/quern/layers"
+	G "gorgonia.org/gorgonia"
+	"gorgonia.org/tensor"
+)
+
+// buildMu serialises graph construction and compilation: gorgonia shares
+// package-level constant nodes between graphs.
+var buildMu sync.Mutex
+
+// ErrNonFinite is wrapped by errors for a NaN or infinite loss or gradient.
+var ErrNonFinite = errors.New("non-finite value")
+
+// ErrNoGradient is wrapped when a trainable parameter gets no gradient.
+var ErrNoGradient = errors.New("parameter has no gradient")
+
+// Graph is a computation under construction.
+type Graph struct {
+	g       *G.ExprGraph
+	prec    layers.Precision
+	dt      tensor.Dtype
+	params  []*layers.Param
+	pnodes  map[*layers.Param]*G.Node
+	inputs  []*inputSlot
+	byName  map[string]*inputSlot
+	err     error
+	unlock  func()
+	compild bool
+}
+
+type inputSlot struct {
+	name       string
+	rows, cols int
+	node       *G.Node
+	t          *tensor.Dense
+	f32        []float32
+	f64        []float64
+}
+
+// Node is a value in a Graph: a matrix of Rows x Cols, or a scalar (0 x 0).
+type Node struct {
+	n          *G.Node
+	g          *Graph
+	rows, cols int
+}
+
+// Rows is the node's row count (0 for a scalar).
+func (n *Node) Rows() int { return n.rows }
+
+// Cols is the node's column count (0 for a scalar).
+func (n *Node) Cols() int { return n.cols }
+
+// IsScalar reports whether the node is a scalar.
+func (n *Node) IsScalar() bool { return n.rows == 0 && n.cols == 0 }
+
+// NewGraph starts a graph in the given precision. The caller must Compile
+// or Discard it: construction holds a package-wide lock until then.
+func NewGraph(prec layers.Precision) *Graph {
+	buildMu.Lock()
+	gr := &Graph{g: G.NewGraph(), prec: prec, pnodes: map[*layers.Param]*G.Node{}, byName: map[string]*inputSlot{}, unlock: buildMu.Unlock}
+	switch prec {
+	case layers.Float32:
+		gr.dt = tensor.Float32
+	case layers.Float64:
+		gr.dt = tensor.Float64
+	default:
+		gr.err = fmt.Errorf("engine: unknown precision %v", prec)
+		gr.dt = tensor.Float32
+	}
+	return gr
+}
+
+// Err returns the first construction error.
+func (gr *Graph) Err() error { return gr.err }
+
+// Discard abandons construction and releases the build lock.
+func (gr *Graph) Discard() {
+	if gr.unlock != nil {
+		gr.unlock()
+		gr.unlock = nil
+	}
+}
+
+func (gr *Graph) fail(op string, err error) *Node {
+	if gr.err == nil {
+		gr.err = fmt.Errorf("engine: %s: %w", op, err)
+	}
+	return &Node{g: gr}
+}
+
+func (gr *Graph) ok(ns ...*Node) bool {
+	if gr.err != nil {
+		return false
+	}
+	for _, n := range ns {
+		if n == nil || n.n == nil {
+			gr.fail("operand", errors.New("nil node"))
+			return false
+		}
+		if n.g != gr {
+			gr.fail("operand", errors.New("node belongs to another graph"))
+			return false
+		}
+	}
+	return true
+}
+
+func (gr *Graph) wrap(op string, n *G.Node, err error, rows, cols int) *Node {
+	if err != nil {
+		return gr.fail(op, err)
+	}
+	return &Node{n: n, g: gr, rows: rows, cols: cols}
+}
+
+// Input declares a rows x cols input that is filled before each run through
+// Program.Input32 or Program.Input64.
+func (gr *Graph) Input(name string, rows, cols int) *Node {
+	if gr.err != nil {
+		return &Node{g: gr}
+	}
+	if _, dup := gr.byName[name]; dup {
+		return gr.fail("input", fmt.Errorf("duplicate input %q", name))
+	}
+	if rows <= 0 || cols <= 0 {
+		return gr.fail("input", fmt.Errorf("input %q has shape %dx%d", name, rows, cols))
+	}
+	s := &inputSlot{name: name, rows: rows, cols: cols}
+	if gr.prec == layers.Float64 {
+		s.f64 = make([]float64, rows*cols)
+		s.t = tensor.New(tensor.WithShape(rows, cols), tensor.WithBacking(s.f64))
+	} else {
+		s.f32 = make([]float32, rows*cols)
+		s.t = tensor.New(tensor.WithShape(rows, cols), tensor.WithBacking(s.f32))
+	}
+	s.node = G.NewMatrix(gr.g, gr.dt, G.WithShape(rows, cols), G.WithName("in:"+name), G.WithValue(s.t))
+	gr.inputs = append(gr.inputs, s)
+	gr.byName[name] = s
+	return &Node{n: s.node, g: gr, rows: rows, cols: cols}
+}
+
+// Param returns the node for p, whose storage the graph reads in place. The
+// same parameter always maps to the same node within a graph.
+func (gr *Graph) Param(p *layers.Param) *Node {
+	if gr.err != nil {
+		return &Node{g: gr}
+	}
+	r, c := p.Shape()
+	if n, ok := gr.pnodes[p]; ok {
+		return &Node{n: n, g: gr, rows: r, cols: c}
+	}
+	if p.Precision() != gr.prec {
+		return gr.fail("param", fmt.Errorf("parameter %q is %v, graph is %v", p.Name(), p.Precision(), gr.prec))
+	}
+	var t *tensor.Dense
+	if gr.prec == layers.Float64 {
+		t = tensor.New(tensor.WithShape(r, c), tensor.WithBacking(p.F64()))
+	} else {
+		t = tensor.New(tensor.WithShape(r, c), tensor.WithBacking(p.F32()))
+	}
+	n := G.NewMatrix(gr.g, gr.dt, G.WithShape(r, c), G.WithName("p:"+p.Name()), G.WithValue(t))
+	gr.pnodes[p] = n
+	gr.params = append(gr.params, p)
+	return &Node{n: n, g: gr, rows: r, cols: c}
+}
+
+// Const returns a scalar constant.
+func (gr *Graph) Const(v float64) *Node {
+	if gr.err != nil {
+		return &Node{g: gr}
+	}
+	var n *G.Node
+	if gr.prec == layers.Float64 {
+		n = G.NewConstant(v)
+	} else {
+		n = G.NewConstant(float32(v))
+	}
+	return &Node{n: n, g: gr}
+}
+
+func sameShape(op string, a, b *Node) error {
+	if a.rows != b.rows || a.cols != b.cols {
+		return fmt.Errorf("%s: shapes %dx%d and %dx%d differ", op, a.rows, a.cols, b.rows, b.cols)
+	}
+	return nil
+}
+
+// MatMul is the matrix product a b.
+func (gr *Graph) MatMul(a, b *Node) *Node {
+	if !gr.ok(a, b) {
+		return &Node{g: gr}
+	}
+	if a.IsScalar() || b.IsScalar() || a.cols != b.rows {
+		return gr.fail("matmul", fmt.Errorf("shapes %dx%d and %dx%d do not chain", a.rows, a.cols, b.rows, b.cols))
+	}
+	n, err := G.Mul(a.n, b.n)
+	return gr.wrap("matmul", n, err, a.rows, b.cols)
+}
+
+// AddRow adds the 1 x cols row r to every row of x.
+func (gr *Graph) AddRow(x, r *Node) *Node {
+	if !gr.ok(x, r) {
+		return &Node{g: gr}
+	}
+	if r.rows != 1 || r.cols != x.cols {
+		return gr.fail("addrow", fmt.Errorf("row %dx%d does not fit %dx%d", r.rows, r.cols, x.rows, x.cols))
+	}
+	n, err := G.BroadcastAdd(x.n, r.n, nil, []byte{0})
+	return gr.wrap("addrow", n, err, x.rows, x.cols)
+}
+
+// MulRow multiplies every row of x element-wise by the 1 x cols row r.
+func (gr *Graph) MulRow(x, r *Node) *Node {
+	if !gr.ok(x, r) {
+		return &Node{g: gr}
+	}
+	if r.rows != 1 || r.cols != x.cols {
+		return gr.fail("mulrow", fmt.Errorf("row %dx%d does not fit %dx%d", r.rows, r.cols, x.rows, x.cols))
+	}
+	n, err := G.BroadcastHadamardProd(x.n, r.n, nil, []byte{0})
+	return gr.wrap("mulrow", n, err, x.rows, x.cols)
+}
+
+func (gr *Graph) binary(op string, a, b *Node, f func(a, b *G.Node) (*G.Node, error)) *Node {
+	if !gr.ok(a, b) {
+		return &Node{g: gr}
+	}
+	if a.IsScalar() != b.IsScalar() {
+		// scalar with matrix: gorgonia broadcasts scalars itself.
+		n, err := f(a.n, b.n)
+		r, c := a.rows, a.cols
+		if a.IsScalar() {
+			r, c = b.rows, b.cols
+		}
+		return gr.wrap(op, n, err, r, c)
+	}
+	if err := sameShape(op, a, b); err != nil {
+		return gr.fail(op, err)
+	}
+	n, err := f(a.n, b.n)
+	return gr.wrap(op, n, err, a.rows, a.cols)
+}
+
+// Add is a + b element-wise (either may be a scalar).
+func (gr *Graph) Add(a, b *Node) *Node { return gr.binary("add", a, b, G.Add) }
+
+// Sub is a - b element-wise (either may be a scalar).
+func (gr *Graph) Sub(a, b *Node) *Node { return gr.binary("sub", a, b, G.Sub) }
+
+// Mul is a * b element-wise (either may be a scalar).
+func (gr *Graph) Mul(a, b *Node) *Node {
+	if a != nil && b != nil && (a.IsScalar() || b.IsScalar()) {
+		return gr.binary("mul", a, b, G.Mul)
+	}
+	return gr.binary("mul", a, b, G.HadamardProd)
+}
+
+// Div is a / b element-wise (either may be a scalar).
+func (gr *Graph) Div(a, b *Node) *Node { return gr.binary("div", a, b, G.HadamardDiv) }
+
+// Scale is c * x.
+func (gr *Graph) Scale(x *Node, c float64) *Node { return gr.Mul(gr.Const(c), x) }
+
+// Shift is x + c.
+func (gr *Graph) Shift(x *Node, c float64) *Node { return gr.Add(x, gr.Const(c)) }
+
+func (gr *Graph) unary(op string, x *Node, f func(*G.Node) (*G.Node, error)) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	n, err := f(x.n)
+	return gr.wrap(op, n, err, x.rows, x.cols)
+}
+
+// Neg is -x.
+func (gr *Graph) Neg(x *Node) *Node { return gr.unary("neg", x, G.Neg) }
+
+// Exp is exp(x).
+func (gr *Graph) Exp(x *Node) *Node { return gr.unary("exp", x, G.Exp) }
+
+// Log is the natural logarithm.
+func (gr *Graph) Log(x *Node) *Node { return gr.unary("log", x, G.Log) }
+
+// Log1p is log(1+x).
+func (gr *Graph) Log1p(x *Node) *Node { return gr.unary("log1p", x, G.Log1p) }
+
+// Square is x*x.
+func (gr *Graph) Square(x *Node) *Node { return gr.unary("square", x, G.Square) }
+
+// Sqrt is the square root.
+func (gr *Graph) Sqrt(x *Node) *Node { return gr.unary("sqrt", x, G.Sqrt) }
+
+// Abs is |x|.
+func (gr *Graph) Abs(x *Node) *Node { return gr.unary("abs", x, G.Abs) }
+
+// Tanh is the hyperbolic tangent.
+func (gr *Graph) Tanh(x *Node) *Node { return gr.unary("tanh", x, G.Tanh) }
+
+// Sigmoid is 1/(1+exp(-x)).
+func (gr *Graph) Sigmoid(x *Node) *Node { return gr.unary("sigmoid", x, G.Sigmoid) }
+
+// Softplus is log(1+exp(x)), stable for large |x|.
+func (gr *Graph) Softplus(x *Node) *Node { return gr.unary("softplus", x, G.Softplus) }
+
+// ReLU is max(0, x).
+func (gr *Graph) ReLU(x *Node) *Node { return gr.unary("relu", x, G.Rectify) }
+
+// LeakyReLU is x for x >= 0 and slope*x otherwise, written as
+// relu(x) - slope*relu(-x).
+func (gr *Graph) LeakyReLU(x *Node, slope float64) *Node {
+	return gr.Sub(gr.ReLU(x), gr.Scale(gr.ReLU(gr.Neg(x)), slope))
+}
+
+// ELU is x for x > 0 and exp(x)-1 otherwise, written as
+// relu(x) - relu(1-exp(x)).
+func (gr *Graph) ELU(x *Node) *Node {
+	one := gr.Const(1)
+	return gr.Sub(gr.ReLU(x), gr.ReLU(gr.Sub(one, gr.Exp(x))))
+}
+
+// Activate applies a layers activation.
+func (gr *Graph) Activate(x *Node, a layers.Activation, slope float64) *Node {
+	switch a {
+	case layers.Identity:
+		return x
+	case layers.ReLU:
+		return gr.ReLU(x)
+	case layers.LeakyReLU:
+		return gr.LeakyReLU(x, slope)
+	case layers.ELU:
+		return gr.ELU(x)
+	case layers.Tanh:
+		return gr.Tanh(x)
+	case layers.Sigmoid:
+		return gr.Sigmoid(x)
+	case layers.Softplus:
+		return gr.Softplus(x)
+	}
+	return gr.fail("activate", fmt.Errorf("unknown activation %v", a))
+}
+
+// Sum adds every element into a scalar.
+func (gr *Graph) Sum(x *Node) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	if x.IsScalar() {
+		return x
+	}
+	n, err := G.Sum(x.n, 0, 1)
+	return gr.wrap("sum", n, err, 0, 0)
+}
+
+// Mean averages every element into a scalar.
+func (gr *Graph) Mean(x *Node) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	if x.IsScalar() {
+		return x
+	}
+	return gr.Scale(gr.Sum(x), 1/float64(x.rows*x.cols))
+}
+
+// SumCols adds across columns, giving a rows x 1 column.
+func (gr *Graph) SumCols(x *Node) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	n, err := G.Sum(x.n, 1)
+	if err != nil {
+		return gr.fail("sumcols", err)
+	}
+	n, err = G.Reshape(n, tensor.Shape{x.rows, 1})
+	return gr.wrap("sumcols", n, err, x.rows, 1)
+}
+
+// SumRows adds down rows, giving a 1 x cols row.
+func (gr *Graph) SumRows(x *Node) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	n, err := G.Sum(x.n, 0)
+	if err != nil {
+		return gr.fail("sumrows", err)
+	}
+	n, err = G.Reshape(n, tensor.Shape{1, x.cols})
+	return gr.wrap("sumrows", n, err, 1, x.cols)
+}
+
+// Dense applies an affine layer and its activation. mask, when not nil, is
+// an input of the layer's output shape holding dropout multipliers.
+func (gr *Graph) Dense(d *layers.Dense, x, mask *Node) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	if x.cols != d.In {
+		return gr.fail("dense", fmt.Errorf("layer %q takes %d inputs, got %d", d.W.Name(), d.In, x.cols))
+	}
+	h := gr.AddRow(gr.MatMul(x, gr.Param(d.W)), gr.Param(d.B))
+	h = gr.Activate(h, d.Act, d.Slope)
+	if mask != nil {
+		h = gr.Mul(h, mask)
+	}
+	return h
+}
+
+// MLP applies every layer of m in turn. When train is true, layers with a
+// dropout rate get a dropout-mask input named "<mlp>.<layer>.dropout" that
+// the caller fills each step (see DropoutInputs).
+func (gr *Graph) MLP(m *layers.MLP, x *Node, train bool) *Node {
+	h := x
+	for i, d := range m.Layers {
+		var mask *Node
+		if train && d.Dropout > 0 {
+			mask = gr.Input(DropoutName(m, i), x.rows, d.Out)
+		}
+		h = gr.Dense(d, h, mask)
+	}
+	return h
+}
+
+// DropoutName is the input name of layer i's dropout mask in MLP graphs.
+func DropoutName(m *layers.MLP, i int) string { return fmt.Sprintf("%s.%d.dropout", m.Name, i) }
+
+// Program is a compiled graph for one batch size: its inputs, its loss and
+// optional outputs, and the gradient of the loss with respect to every
+// trainable (not frozen) parameter that the graph reads.
+type Program struct {
+	m      G.VM
+	loss   *G.Node
+	outs   []*Node
+	out32  [][]float32
+	out64  [][]float64
+	vals   []G.Value
+	params []*layers.Param
+	grads  []*G.Node
+	inputs map[string]*inputSlot
+	prec   layers.Precision
+	closed bool
+	runs   int
+}
+
+// CompileOptions selects what Compile prepares.
+type CompileOptions struct {
+	// Grad asks for gradients of the loss with respect to trainable params.
+	Grad bool
+	// Outputs are extra nodes whose values are copied out after each run.
+	Outputs []*Node
+}
+
+// Compile finishes construction and returns a runnable program. loss must
+// be a scalar. It releases the build lock whether or not it succeeds.
+func (gr *Graph) Compile(loss *Node, opt CompileOptions) (*Program, error) {
+	defer gr.Discard()
+	if gr.compild {
+		return nil, errors.New("engine: graph compiled twice")
+	}
+	gr.compild = true
+	if !gr.ok(loss) {
+		return nil, gr.err
+	}
+	for _, o := range opt.Outputs {
+		if !gr.ok(o) {
+			return nil, gr.err
+		}
+	}
+	if !loss.IsScalar() {
+		return nil, fmt.Errorf("engine: loss has shape %dx%d, want a scalar", loss.rows, loss.cols)
+	}
+	p := &Program{loss: loss.n, outs: opt.Outputs, inputs: gr.byName, prec: gr.prec}
+	if opt.Grad {
+		var wrt G.Nodes
+		for _, q := range gr.params {
+			if !q.Frozen() {
+				p.params = append(p.params, q)
+				wrt = append(wrt, gr.pnodes[q])
+			}
+		}
+		if len(wrt) > 0 {
+			gs, err := G.Grad(loss.n, wrt...)
+			if err != nil {
+				return nil, fmt.Errorf("engine: gradient: %w", err)
+			}
+			p.grads = gs
+		}
+	}
+	// Outputs are copied by read instructions placed in the tape right
+	// after their node is computed: reading node values after RunAll is
+	// wrong, since later in-place operations may have overwritten them.
+	p.vals = make([]G.Value, len(opt.Outputs))
+	for i, o := range opt.Outputs {
+		n := max(1, o.rows*o.cols)
+		if gr.prec == layers.Float64 {
+			b := make([]float64, n)
+			p.out64 = append(p.out64, b)
+			if !o.IsScalar() {
+				p.vals[i] = tensor.New(tensor.WithShape(o.rows, o.cols), tensor.WithBacking(b))
+			}
+		} else {
+			b := make([]float32, n)
+			p.out32 = append(p.out32, b)
+			if !o.IsScalar() {
+				p.vals[i] = tensor.New(tensor.WithShape(o.rows, o.cols), tensor.WithBacking(b))
+			}
+		}
+		G.Read(o.n, &p.vals[i])
+	}
+	p.m = G.NewTapeMachine(gr.g)
+	return p, nil
+}
+
+// Params lists the trainable parameters that receive gradients, in the
+// order they were first used.
+func (p *Program) Params() []*layers.Param { return p.params }
+
+// Input32 returns the float32 storage of a named input, to be filled before
+// Run. It returns nil if there is no such input or the program is float64.
+func (p *Program) Input32(name string) []float32 {
+	if s, ok := p.inputs[name]; ok {
+		return s.f32
+	}
+	return nil
+}
+
+// Input64 is Input32 for float64 programs.
+func (p *Program) Input64(name string) []float64 {
+	if s, ok := p.inputs[name]; ok {
+		return s.f64
+	}
+	return nil
+}
+
+// HasInput reports whether the program has a named input.
+func (p *Program) HasInput(name string) bool { _, ok := p.inputs[name]; return ok }
+
+// Output32 returns the values of output i from the last run.
+func (p *Program) Output32(i int) []float32 { return p.out32[i] }
+
+// Output64 returns the values of output i from the last run.
+func (p *Program) Output64(i int) []float64 { return p.out64[i] }
+
+// RunOptions tunes one run.
+type RunOptions struct {
+	// Accumulate adds gradients into the parameters' buffers instead of
+	// replacing them.
+	Accumulate bool
+}
+
+// Run executes the program once: forward, backward when compiled with
+// gradients, copy of gradients and outputs, reset. It returns the loss. A
+// NaN or infinite loss or gradient is an error wrapping ErrNonFinite; the
+// parameters' gradients are then unspecified.
+func (p *Program) Run(opt RunOptions) (float64, error) {
+	if p.closed {
+		return 0, errors.New("engine: run on a closed program")
+	}
+	defer p.m.Reset()
+	if err := p.m.RunAll(); err != nil {
+		return 0, fmt.Errorf("engine: run: %w", err)
+	}
+	p.runs++
+	loss, err := scalarOf(p.loss.Value())
+	if err != nil {
+		return 0, err
+	}
+	if math.IsNaN(loss) || math.IsInf(loss, 0) {
+		return loss, fmt.Errorf("engine: loss is %v: %w", loss, ErrNonFinite)
+	}
+	for i, q := range p.params {
+		gv := p.grads[i].Value()
+		if gv == nil {
+			return loss, fmt.Errorf("engine: %q: %w", q.Name(), ErrNoGradient)
+		}
+		if err := copyGrad(q, gv, opt.Accumulate); err != nil {
+			return loss, err
+		}
+	}
+	for i, o := range p.outs {
+		if !o.IsScalar() {
+			continue // copied in place by the read instruction
+		}
+		v := p.vals[i]
+		if v == nil {
+			return loss, fmt.Errorf("engine: output %d has no value", i)
+		}
+		x, err := scalarOf(v)
+		if err != nil {
+			return loss, err
+		}
+		if p.prec == layers.Float64 {
+			p.out64[i][0] = x
+		} else {
+			p.out32[i][0] = float32(x)
+		}
+		p.vals[i] = nil
+	}
+	return loss, nil
+}
+
+func scalarOf(v G.Value) (float64, error) {
+	if v == nil {
+		return 0, errors.New("engine: loss has no value")
+	}
+	switch d := v.Data().(type) {
+	case float32:
+		return float64(d), nil
+	case float64:
+		return d, nil
+	case []float32:
+		if len(d) == 1 {
+			return float64(d[0]), nil
+		}
+	case []float64:
+		if len(d) == 1 {
+			return d[0], nil
+		}
+	}
+	return 0, fmt.Errorf("engine: loss value %T is not a scalar", v.Data())
+}
+
+func copyGrad(q *layers.Param, gv G.Value, acc bool) error {
+	switch d := gv.Data().(type) {
+	case []float32:
+		dst := q.Grad32()
+		if len(d) != len(dst) {
+			return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
+		}
+		for i, v := range d {
+			if v-v != 0 {
+				return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
+			}
+		}
+		if acc {
+			for i, v := range d {
+				dst[i] += v
+			}
+		} else {
+			copy(dst, d)
+		}
+	case []float64:
+		dst := q.Grad64()
+		if len(d) != len(dst) {
+			return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
+		}
+		for i, v := range d {
+			if v-v != 0 {
+				return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
+			}
+		}
+		if acc {
+			for i, v := range d {
+				dst[i] += v
+			}
+		} else {
+			copy(dst, d)
+		}
+	default:
+		return fmt.Errorf("engine: gradient of %q has type %T", q.Name(), gv.Data())
+	}
+	return nil
+}
+
+// Close releases the machine. A closed program cannot run.
+func (p *Program) Close() error {
+	if p.closed {
+		return nil
+	}
+	p.closed = true
+	return p.m.Close()
+}
+
+// Runs counts successful runs.
+func (p *Program) Runs() int { return p.runs }
+
+// SubCol subtracts the rows x 1 column c from every column of x.
+func (gr *Graph) SubCol(x, c *Node) *Node {
+	if !gr.ok(x, c) {
+		return &Node{g: gr}
+	}
+	if c.cols != 1 || c.rows != x.rows {
+		return gr.fail("subcol", fmt.Errorf("column %dx%d does not fit %dx%d", c.rows, c.cols, x.rows, x.cols))
+	}
+	n, err := G.BroadcastSub(x.n, c.n, nil, []byte{1})
+	return gr.wrap("subcol", n, err, x.rows, x.cols)
+}
+
+// MulCol multiplies every column of x element-wise by the rows x 1 column c.
+func (gr *Graph) MulCol(x, c *Node) *Node {
+	if !gr.ok(x, c) {
+		return &Node{g: gr}
+	}
+	if c.cols != 1 || c.rows != x.rows {
+		return gr.fail("mulcol", fmt.Errorf("column %dx%d does not fit %dx%d", c.rows, c.cols, x.rows, x.cols))
+	}
+	n, err := G.BroadcastHadamardProd(x.n, c.n, nil, []byte{1})
+	return gr.wrap("mulcol", n, err, x.rows, x.cols)
+}
+
+// MaxCols is the largest value of each row, as a rows x 1 column.
+func (gr *Graph) MaxCols(x *Node) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	n, err := G.Max(x.n, 1)
+	if err != nil {
+		return gr.fail("maxcols", err)
+	}
+	n, err = G.Reshape(n, tensor.Shape{x.rows, 1})
+	return gr.wrap("maxcols", n, err, x.rows, 1)
+}
+
+// LogSumExpCols is log(sum_j exp(x_ij)) for each row i, as a rows x 1
+// column, computed with the row maximum subtracted first.
+func (gr *Graph) LogSumExpCols(x *Node) *Node {
+	m := gr.MaxCols(x)
+	return gr.Add(m, gr.Log(gr.SumCols(gr.Exp(gr.SubCol(x, m)))))
+}
+
+// LogSoftmax is x minus each row's log-sum-exp.
+func (gr *Graph) LogSoftmax(x *Node) *Node { return gr.SubCol(x, gr.LogSumExpCols(x)) }
+
+// Slice returns columns [from, to) of x.
+func (gr *Graph) Slice(x *Node, from, to int) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	if from < 0 || to > x.cols || from >= to {
+		return gr.fail("slice", fmt.Errorf("columns [%d,%d) of %dx%d", from, to, x.rows, x.cols))
+	}
+	n, err := G.Slice(x.n, nil, G.S(from, to))
+	return gr.wrap("slice", n, err, x.rows, to-from)
+}
+
+// Concat joins a and b side by side (same rows).
+func (gr *Graph) Concat(a, b *Node) *Node {
+	if !gr.ok(a, b) {
+		return &Node{g: gr}
+	}
+	if a.rows != b.rows {
+		return gr.fail("concat", fmt.Errorf("rows %d and %d differ", a.rows, b.rows))
+	}
+	n, err := G.Concat(1, a.n, b.n)
+	return gr.wrap("concat", n, err, a.rows, a.cols+b.cols)
+}
+
+// Failf records a construction error (if none is recorded yet), for
+// callers that validate shapes of their own.
+func (gr *Graph) Failf(format string, args ...any) {
+	if gr.err == nil {
+		gr.err = fmt.Errorf(format, args...)
+	}
+}

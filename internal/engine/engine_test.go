@@ -1,0 +1,285 @@
+package engine_test
+
+import (
+	"errors"
+	"math"
+	"math/rand/v2"
+	"sync"
+	"testing"
+
+	"github.com/quernlab/quern/internal/engine"
+	"github.com/quernlab/quern/internal/gradcheck"
+	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/losses"
+	"github.com/quernlab/quern/optim"
+	"github.com/stretchr/testify/require"
+)
+
+func mlp(t testing.TB, seed uint64, prec layers.Precision, widths []int, hidden, out layers.Activation) *layers.MLP {
+	m, err := layers.NewMLP(layers.MLPConfig{Name: "net", Widths: widths, Hidden: hidden, Output: out, LinearHidden: hidden == layers.Identity, LeakySlope: 0.2, Precision: prec}, rand.New(rand.NewPCG(seed, 1)))
+	require.NoError(t, err)
+	return m
+}
+
+// Every activation inside a dense stack: the graph's gradient against
+// central differences of the graph-free float64 forward pass plus the
+// reference MSE (an independent implementation of the same function).
+func TestDenseGradientsAllActivations(t *testing.T) {
+	acts := []layers.Activation{layers.Identity, layers.ReLU, layers.LeakyReLU, layers.ELU, layers.Tanh, layers.Sigmoid, layers.Softplus}
+	for _, a := range acts {
+		t.Run(a.String(), func(t *testing.T) {
+			m := mlp(t, 3, layers.Float64, []int{3, 5, 2}, a, a)
+			rng := rand.New(rand.NewPCG(4, 4))
+			const rows = 4
+			x := make([]float64, rows*3)
+			y := make([]float64, rows*2)
+			for i := range x {
+				x[i] = rng.NormFloat64()
+			}
+			for i := range y {
+				y[i] = rng.NormFloat64()
+			}
+			var ws layers.Workspace
+			ref := func() float64 {
+				out, err := m.Forward64(x, rows, &ws)
+				require.NoError(t, err)
+				v, err := losses.MSE(out, y)
+				require.NoError(t, err)
+				return v
+			}
+			// Graph forward equals the graph-free forward.
+			res, err := gradcheck.Check(m.Params(), func(g *engine.Graph) *engine.Node {
+				xi, yi := paramOf("x", rows, 3, x), paramOf("y", rows, 2, y)
+				return losses.GraphMSE(g, g.MLP(m, g.Param(xi), false), g.Param(yi))
+			}, ref, 1e-4)
+			require.NoError(t, err)
+			require.Less(t, res.MaxRelErr, 1e-6, res.String())
+		})
+	}
+}
+
+func paramOf(name string, r, c int, v []float64) *layers.Param {
+	p := layers.NewParam(name, r, c, layers.Float64)
+	copy(p.F64(), v)
+	p.SetFrozen(true)
+	return p
+}
+
+// log-softmax, max and slicing compose correctly and differentiate.
+func TestLogSoftmaxGradient(t *testing.T) {
+	p := layers.NewParam("x", 3, 4, layers.Float64)
+	rng := rand.New(rand.NewPCG(5, 5))
+	for i := range p.F64() {
+		p.F64()[i] = 3 * rng.NormFloat64()
+	}
+	tgt := []float64{1, 0, 0, 0, 0, 0.5, 0.5, 0, 0, 0, 0, 1}
+	res, err := gradcheck.Check([]*layers.Param{p}, func(g *engine.Graph) *engine.Node {
+		return losses.GraphSoftmaxCrossEntropy(g, g.Param(p), g.Param(paramOf("t", 3, 4, tgt)))
+	}, func() float64 {
+		v, _ := losses.SoftmaxCrossEntropy(p.F64(), tgt, 4)
+		return v
+	}, 1e-4)
+	require.NoError(t, err)
+	require.Less(t, res.MaxRelErr, 1e-6, res.String())
+
+	q := layers.NewParam("q", 2, 5, layers.Float64)
+	copy(q.F64(), []float64{1, 2, 3, 4, 5, -1, -2, -3, -4, -5})
+	res, err = gradcheck.Check([]*layers.Param{q}, func(g *engine.Graph) *engine.Node {
+		n := g.Param(q)
+		a, b := g.Slice(n, 0, 2), g.Slice(n, 2, 5)
+		return g.Sum(g.Square(g.Concat(g.Tanh(b), g.Sigmoid(a))))
+	}, nil, 1e-4)
+	require.NoError(t, err)
+	require.Less(t, res.MaxRelErr, 1e-6, res.String())
+}
+
+func denseLoss(m *layers.MLP, rows int) engine.BuildFunc {
+	return func(g *engine.Graph, batch int) (*engine.Node, []*engine.Node) {
+		x := g.Input("x", batch, m.In())
+		out := g.MLP(m, x, true)
+		return losses.GraphMSE(g, out, x), []*engine.Node{out}
+	}
+}
+
+// Programs are built per batch size: a full batch, a final partial batch
+// and a single row all work and agree with the graph-free forward pass.
+func TestAnyBatchSize(t *testing.T) {
+	m := mlp(t, 7, layers.Float32, []int{4, 3, 4}, layers.Tanh, layers.Identity)
+	ph := engine.NewPhase(layers.Float32, false, denseLoss(m, 0))
+	defer ph.Close()
+	rng := rand.New(rand.NewPCG(8, 8))
+	var ws layers.Workspace
+	for _, b := range []int{16, 5, 1, 16} {
+		p, err := ph.Program(b)
+		require.NoError(t, err)
+		x := p.Input32("x")
+		require.Len(t, x, b*4)
+		for i := range x {
+			x[i] = float32(rng.NormFloat64())
+		}
+		_, err = p.Run(engine.RunOptions{})
+		require.NoError(t, err)
+		want, err := m.Forward32(x, b, &ws)
+		require.NoError(t, err)
+		got := p.Output32(0)
+		for i := range want {
+			// float32 GEMMs in different orders: 1e-5 relative.
+			require.InDelta(t, want[i], got[i], 1e-5*(1+math.Abs(float64(want[i]))))
+		}
+	}
+}
+
+// A run always resets: new inputs give a new loss, and the same inputs the
+// same loss bitwise.
+func TestRunResetsEachTime(t *testing.T) {
+	m := mlp(t, 9, layers.Float32, []int{2, 2}, layers.Identity, layers.Identity)
+	ph := engine.NewPhase(layers.Float32, true, denseLoss(m, 0))
+	defer ph.Close()
+	p, err := ph.Program(3)
+	require.NoError(t, err)
+	copy(p.Input32("x"), []float32{1, 2, 3, 4, 5, 6})
+	a, err := p.Run(engine.RunOptions{})
+	require.NoError(t, err)
+	copy(p.Input32("x"), []float32{6, 5, 4, 3, 2, 1})
+	b, err := p.Run(engine.RunOptions{})
+	require.NoError(t, err)
+	require.NotEqual(t, a, b)
+	copy(p.Input32("x"), []float32{1, 2, 3, 4, 5, 6})
+	c, err := p.Run(engine.RunOptions{})
+	require.NoError(t, err)
+	require.Equal(t, a, c)
+	g1 := append([]float32(nil), m.Layers[0].W.Grad32()...)
+	_, err = p.Run(engine.RunOptions{})
+	require.NoError(t, err)
+	require.Equal(t, g1, m.Layers[0].W.Grad32(), "gradients are replaced, not summed")
+	_, err = p.Run(engine.RunOptions{Accumulate: true})
+	require.NoError(t, err)
+	for i, v := range m.Layers[0].W.Grad32() {
+		require.InDelta(t, 2*g1[i], v, 1e-5*(1+math.Abs(float64(v))))
+	}
+}
+
+func TestNonFiniteLossIsAnError(t *testing.T) {
+	m := mlp(t, 9, layers.Float32, []int{2, 2}, layers.Identity, layers.Identity)
+	ph := engine.NewPhase(layers.Float32, true, func(g *engine.Graph, b int) (*engine.Node, []*engine.Node) {
+		x := g.Input("x", b, 2)
+		return g.Mean(g.Log(g.MLP(m, x, false))), nil
+	})
+	defer ph.Close()
+	p, err := ph.Program(1)
+	require.NoError(t, err)
+	copy(p.Input32("x"), []float32{float32(math.NaN()), 1})
+	_, err = p.Run(engine.RunOptions{})
+	require.ErrorIs(t, err, engine.ErrNonFinite)
+}
+
+func TestUnusedParamHasNoGradient(t *testing.T) {
+	m := mlp(t, 9, layers.Float64, []int{2, 2}, layers.Identity, layers.Identity)
+	stray := layers.NewParam("stray", 1, 2, layers.Float64)
+	g := engine.NewGraph(layers.Float64)
+	x := g.Input("x", 1, 2)
+	g.Param(stray)
+	_, err := g.Compile(g.Sum(g.MLP(m, x, false)), engine.CompileOptions{Grad: true})
+	require.Error(t, err, "a parameter the loss does not reach must be reported")
+}
+
+func TestConstructionErrors(t *testing.T) {
+	g := engine.NewGraph(layers.Float32)
+	a := g.Input("a", 2, 3)
+	b := g.Input("b", 2, 3)
+	_ = g.MatMul(a, b)
+	_, err := g.Compile(g.Sum(a), engine.CompileOptions{})
+	require.ErrorContains(t, err, "do not chain")
+
+	g = engine.NewGraph(layers.Float32)
+	p := layers.NewParam("p", 1, 1, layers.Float64)
+	_ = g.Param(p)
+	_, err = g.Compile(g.Const(1), engine.CompileOptions{})
+	require.ErrorContains(t, err, "float64")
+}
+
+// Graphs may be built from many goroutines at once (construction is
+// serialised inside the engine); run under -race.
+func TestConcurrentConstruction(t *testing.T) {
+	var wg sync.WaitGroup
+	errs := make(chan error, 8)
+	for i := 0; i < 8; i++ {
+		wg.Add(1)
+		go func(i int) {
+			defer wg.Done()
+			m := mlp(t, uint64(i), layers.Float32, []int{3, 4, 3}, layers.ReLU, layers.Identity)
+			ph := engine.NewPhase(layers.Float32, true, denseLoss(m, 0))
+			defer ph.Close()
+			p, err := ph.Program(2)
+			if err != nil {
+				errs <- err
+				return
+			}
+			_, err = p.Run(engine.RunOptions{})
+			errs <- err
+		}(i)
+	}
+	wg.Wait()
+	close(errs)
+	for err := range errs {
+		require.NoError(t, err)
+	}
+}
+
+// trainLosses trains a small autoencoder with dropout for steps steps from a
+// seed and returns the loss sequence and final weights.
+func trainLosses(t testing.TB, seed uint64, steps int) ([]float64, []float64) {
+	m, err := layers.NewMLP(layers.MLPConfig{Widths: []int{6, 8, 3, 8, 6}, Hidden: layers.ELU, Dropout: 0.1}, rand.New(rand.NewPCG(seed, 0)))
+	require.NoError(t, err)
+	opt, err := optim.NewAdam(optim.AdamConfig{Rate: 0.01})
+	require.NoError(t, err)
+	ph := engine.NewPhase(layers.Float32, true, denseLoss(m, 0))
+	defer ph.Close()
+	rng := rand.New(rand.NewPCG(seed, 99))
+	var out []float64
+	for s := 0; s < steps; s++ {
+		p, err := ph.Program(8)
+		require.NoError(t, err)
+		x := p.Input32("x")
+		for i := range x {
+			x[i] = float32(rng.NormFloat64())
+		}
+		for i, d := range m.Layers {
+			if d.Dropout > 0 {
+				layers.DropoutMask(p.Input32(engine.DropoutName(m, i)), d.Dropout, rng)
+			}
+		}
+		l, err := p.Run(engine.RunOptions{})
+		require.NoError(t, err)
+		require.NoError(t, opt.Update(p.Params()))
+		out = append(out, l)
+	}
+	var w []float64
+	for _, p := range m.Params() {
+		w = append(w, p.Values()...)
+	}
+	return out, w
+}
+
+// Same seed, same data: bitwise the same initial weights, 100-step loss
+// sequence and final weights.
+func TestSeededTrainingIsBitwiseReproducible(t *testing.T) {
+	l1, w1 := trainLosses(t, 42, 100)
+	l2, w2 := trainLosses(t, 42, 100)
+	require.Equal(t, l1, l2)
+	require.Equal(t, w1, w2)
+	l3, _ := trainLosses(t, 43, 100)
+	require.NotEqual(t, l1, l3)
+	require.Less(t, l1[99], l1[0], "training lowers the loss")
+}
+
+func TestClosedProgram(t *testing.T) {
+	m := mlp(t, 1, layers.Float32, []int{2, 2}, layers.Identity, layers.Identity)
+	ph := engine.NewPhase(layers.Float32, false, denseLoss(m, 0))
+	p, err := ph.Program(1)
+	require.NoError(t, err)
+	require.NoError(t, ph.Close())
+	_, err = p.Run(engine.RunOptions{})
+	require.Error(t, err)
+	require.False(t, errors.Is(err, engine.ErrNonFinite))
+}

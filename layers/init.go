@@ -1,0 +1,72 @@
+package layers
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+)
+
+// Init chooses how a dense layer's weights are drawn. Biases start at zero.
+type Init uint8
+
+const (
+	// InitAuto picks HeNormal before ReLU-like activations (ReLU, leaky
+	// ReLU, ELU) and GlorotUniform otherwise.
+	InitAuto Init = iota
+	// GlorotUniform draws U(-a, a) with a = sqrt(6/(fanIn+fanOut))
+	// (Glorot & Bengio 2010, eq. 16).
+	GlorotUniform
+	// HeNormal draws N(0, 2/fanIn) (He et al. 2015, section 2.2).
+	HeNormal
+)
+
+// String names the scheme.
+func (in Init) String() string {
+	switch in {
+	case InitAuto:
+		return "auto"
+	case GlorotUniform:
+		return "glorot_uniform"
+	case HeNormal:
+		return "he_normal"
+	}
+	return fmt.Sprintf("Init(%d)", uint8(in))
+}
+
+// GlorotBound is the half-width sqrt(6/(fanIn+fanOut)) of the Glorot
+// uniform distribution.
+func GlorotBound(fanIn, fanOut int) float64 { return math.Sqrt(6 / float64(fanIn+fanOut)) }
+
+// HeStd is the standard deviation sqrt(2/fanIn) of the He normal distribution.
+func HeStd(fanIn int) float64 { return math.Sqrt(2 / float64(fanIn)) }
+
+// FillGlorotUniform fills p with draws from the Glorot uniform distribution
+// for a fanIn x fanOut weight matrix.
+func FillGlorotUniform(p *Param, fanIn, fanOut int, rng *rand.Rand) {
+	a := GlorotBound(fanIn, fanOut)
+	for i := 0; i < p.Len(); i++ {
+		p.SetAt(i, (2*rng.Float64()-1)*a)
+	}
+}
+
+// FillHeNormal fills p with draws from N(0, 2/fanIn).
+func FillHeNormal(p *Param, fanIn int, rng *rand.Rand) {
+	s := HeStd(fanIn)
+	for i := 0; i < p.Len(); i++ {
+		p.SetAt(i, rng.NormFloat64()*s)
+	}
+}
+
+// DropoutMask fills mask with inverted-dropout multipliers: 0 with
+// probability rate and 1/(1-rate) otherwise, so that the expected value of
+// each multiplier is 1. rate must lie in [0, 1).
+func DropoutMask[T float32 | float64](mask []T, rate float64, rng *rand.Rand) {
+	keep := T(1 / (1 - rate))
+	for i := range mask {
+		if rng.Float64() < rate {
+			mask[i] = 0
+		} else {
+			mask[i] = keep
+		}
+	}
+}

@@ -1,0 +1,253 @@
+package layers
+
+import (
+	"errors"
+	"fmt"
+	"math/rand/v2"
+)
+
+// Dense is an affine layer y = act(x W + b) with W of shape In x Out and b
+// of shape 1 x Out.
+type Dense struct {
+	In, Out int
+	Act     Activation
+	// Slope is the negative-side slope of LeakyReLU.
+	Slope float64
+	// Dropout is the rate at which the layer's outputs are dropped during
+	// training (inverted dropout); inference ignores it.
+	Dropout float64
+	W, B    *Param
+}
+
+// Params returns the weight and bias.
+func (d *Dense) Params() []*Param { return []*Param{d.W, d.B} }
+
+// MLPConfig describes a stack of dense layers. Zero fields take the
+// documented defaults.
+type MLPConfig struct {
+	// Name prefixes every parameter name: "<Name>.<layer>.weight" and
+	// "<Name>.<layer>.bias". Default "mlp".
+	Name string
+	// Widths lists the layer widths from input to output; at least two
+	// entries, all positive. Required.
+	Widths []int
+	// Hidden is the activation after every layer but the last. Default
+	// ReLU (the zero value Identity is replaced by ReLU; set
+	// LinearHidden for a linear network).
+	Hidden Activation
+	// LinearHidden forces identity activations on hidden layers.
+	LinearHidden bool
+	// Output is the activation after the last layer. Default Identity.
+	Output Activation
+	// LeakySlope is the LeakyReLU negative slope. Default 0.01.
+	LeakySlope float64
+	// Init is the weight initialisation. Default InitAuto.
+	Init Init
+	// Dropout is the training-time dropout rate after each hidden layer,
+	// in [0, 1). Default 0.
+	Dropout float64
+	// Precision of the parameters. Default Float32.
+	Precision Precision
+}
+
+// MLP is a multi-layer perceptron: a chain of Dense layers.
+type MLP struct {
+	Name   string
+	Layers []*Dense
+}
+
+// ErrConfig is wrapped by every configuration error from this package.
+var ErrConfig = errors.New("layers: invalid configuration")
+
+func (c MLPConfig) withDefaults() MLPConfig {
+	if c.Name == "" {
+		c.Name = "mlp"
+	}
+	if c.Hidden == Identity && !c.LinearHidden {
+		c.Hidden = ReLU
+	}
+	if c.LinearHidden {
+		c.Hidden = Identity
+	}
+	if c.LeakySlope == 0 {
+		c.LeakySlope = 0.01
+	}
+	return c
+}
+
+// Validate reports the first problem with the configuration.
+func (c MLPConfig) Validate() error {
+	if len(c.Widths) < 2 {
+		return fmt.Errorf("%w: MLP %q needs at least 2 widths, got %v", ErrConfig, c.Name, c.Widths)
+	}
+	for i, w := range c.Widths {
+		if w <= 0 {
+			return fmt.Errorf("%w: MLP %q width %d is %d, want > 0", ErrConfig, c.Name, i, w)
+		}
+	}
+	if !c.Hidden.Valid() || !c.Output.Valid() {
+		return fmt.Errorf("%w: MLP %q has an unknown activation", ErrConfig, c.Name)
+	}
+	if c.Init > HeNormal {
+		return fmt.Errorf("%w: MLP %q has unknown init %d", ErrConfig, c.Name, c.Init)
+	}
+	if !(c.Dropout >= 0 && c.Dropout < 1) {
+		return fmt.Errorf("%w: MLP %q dropout %v outside [0, 1)", ErrConfig, c.Name, c.Dropout)
+	}
+	if !(c.LeakySlope >= 0 && c.LeakySlope < 1) {
+		return fmt.Errorf("%w: MLP %q leaky slope %v outside [0, 1)", ErrConfig, c.Name, c.LeakySlope)
+	}
+	if !c.Precision.Valid() {
+		return fmt.Errorf("%w: MLP %q has unknown precision %d", ErrConfig, c.Name, c.Precision)
+	}
+	return nil
+}
+
+// NewMLP validates cfg and returns an MLP whose weights are drawn from rng.
+// The same rng state always yields bitwise the same weights.
+func NewMLP(cfg MLPConfig, rng *rand.Rand) (*MLP, error) {
+	cfg = cfg.withDefaults()
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	if rng == nil {
+		return nil, fmt.Errorf("%w: MLP %q needs a random generator", ErrConfig, cfg.Name)
+	}
+	m := &MLP{Name: cfg.Name}
+	n := len(cfg.Widths) - 1
+	for i := 0; i < n; i++ {
+		in, out := cfg.Widths[i], cfg.Widths[i+1]
+		act, drop := cfg.Hidden, cfg.Dropout
+		if i == n-1 {
+			act, drop = cfg.Output, 0
+		}
+		d := &Dense{
+			In: in, Out: out, Act: act, Slope: cfg.LeakySlope, Dropout: drop,
+			W: NewParam(fmt.Sprintf("%s.%d.weight", cfg.Name, i), in, out, cfg.Precision),
+			B: NewParam(fmt.Sprintf("%s.%d.bias", cfg.Name, i), 1, out, cfg.Precision),
+		}
+		init := cfg.Init
+		if init == InitAuto {
+			init = GlorotUniform
+			if act == ReLU || act == LeakyReLU || act == ELU {
+				init = HeNormal
+			}
+		}
+		if init == HeNormal {
+			FillHeNormal(d.W, in, rng)
+		} else {
+			FillGlorotUniform(d.W, in, out, rng)
+		}
+		m.Layers = append(m.Layers, d)
+	}
+	return m, nil
+}
+
+// In is the input width.
+func (m *MLP) In() int { return m.Layers[0].In }
+
+// Out is the output width.
+func (m *MLP) Out() int { return m.Layers[len(m.Layers)-1].Out }
+
+// Params lists every parameter in layer order (weight then bias).
+func (m *MLP) Params() []*Param {
+	ps := make([]*Param, 0, 2*len(m.Layers))
+	for _, d := range m.Layers {
+		ps = append(ps, d.W, d.B)
+	}
+	return ps
+}
+
+// Freeze freezes or unfreezes every parameter of the MLP.
+func (m *MLP) Freeze(f bool) {
+	for _, p := range m.Params() {
+		p.SetFrozen(f)
+	}
+}
+
+// Workspace holds scratch buffers for graph-free forward passes. A
+// Workspace must not be shared between goroutines; the MLP itself may be.
+type Workspace struct {
+	a32, b32 []float32
+	a64, b64 []float64
+}
+
+func grow[T any](s []T, n int) []T {
+	if cap(s) < n {
+		return make([]T, n)
+	}
+	return s[:n]
+}
+
+// Forward32 computes the network's output for rows inputs of width In()
+// stored row-major in x, without any graph, and returns a slice of rows x
+// Out() values that aliases ws (valid until ws is next used). It is safe to
+// call from many goroutines as long as each uses its own Workspace and no
+// one is training the MLP. It returns an error if x has the wrong length or
+// the MLP is not float32.
+func (m *MLP) Forward32(x []float32, rows int, ws *Workspace) ([]float32, error) {
+	if len(m.Layers) == 0 || m.Layers[0].W.prec != Float32 {
+		return nil, fmt.Errorf("layers: MLP %q: Forward32 on a non-float32 network", m.Name)
+	}
+	if rows < 0 || len(x) != rows*m.In() {
+		return nil, fmt.Errorf("layers: MLP %q: input has %d values, want %d rows x %d", m.Name, len(x), rows, m.In())
+	}
+	cur := x
+	for i, d := range m.Layers {
+		var dst []float32
+		if i%2 == 0 {
+			ws.a32 = grow(ws.a32, rows*d.Out)
+			dst = ws.a32
+		} else {
+			ws.b32 = grow(ws.b32, rows*d.Out)
+			dst = ws.b32
+		}
+		affine(dst, cur, d.W.v32, d.B.v32, rows, d.In, d.Out)
+		applyInPlace32(d.Act, dst, float32(d.Slope))
+		cur = dst
+	}
+	return cur, nil
+}
+
+// Forward64 is Forward32 for float64 networks.
+func (m *MLP) Forward64(x []float64, rows int, ws *Workspace) ([]float64, error) {
+	if len(m.Layers) == 0 || m.Layers[0].W.prec != Float64 {
+		return nil, fmt.Errorf("layers: MLP %q: Forward64 on a non-float64 network", m.Name)
+	}
+	if rows < 0 || len(x) != rows*m.In() {
+		return nil, fmt.Errorf("layers: MLP %q: input has %d values, want %d rows x %d", m.Name, len(x), rows, m.In())
+	}
+	cur := x
+	for i, d := range m.Layers {
+		var dst []float64
+		if i%2 == 0 {
+			ws.a64 = grow(ws.a64, rows*d.Out)
+			dst = ws.a64
+		} else {
+			ws.b64 = grow(ws.b64, rows*d.Out)
+			dst = ws.b64
+		}
+		affine(dst, cur, d.W.v64, d.B.v64, rows, d.In, d.Out)
+		applyInPlace64(d.Act, dst, d.Slope)
+		cur = dst
+	}
+	return cur, nil
+}
+
+// affine computes dst = x w + b for x (rows x in), w (in x out), b (out).
+func affine[T float32 | float64](dst, x, w, b []T, rows, in, out int) {
+	for r := 0; r < rows; r++ {
+		d := dst[r*out : (r+1)*out]
+		copy(d, b)
+		xr := x[r*in : (r+1)*in]
+		for k, xv := range xr {
+			if xv == 0 {
+				continue
+			}
+			wk := w[k*out : (k+1)*out]
+			for j := range d {
+				d[j] += xv * wk[j]
+			}
+		}
+	}
+}
