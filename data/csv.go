@@ -1,0 +1,246 @@
+package data
+
+import (
+	"bufio"
+	"compress/gzip"
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strconv"
+	"strings"
+)
+
+// ParseError reports bad input with its place: the file, the 1-based line
+// and column (0 when not applicable) and what was wrong.
+type ParseError struct {
+	File   string
+	Line   int
+	Column int
+	Name   string // column name, when known
+	Msg    string
+}
+
+func (e *ParseError) Error() string {
+	var b strings.Builder
+	b.WriteString("data: ")
+	b.WriteString(e.File)
+	if e.Line > 0 {
+		fmt.Fprintf(&b, ":%d", e.Line)
+	}
+	if e.Column > 0 {
+		fmt.Fprintf(&b, ": column %d", e.Column)
+		if e.Name != "" {
+			fmt.Fprintf(&b, " (%s)", e.Name)
+		}
+	}
+	b.WriteString(": ")
+	b.WriteString(e.Msg)
+	return b.String()
+}
+
+// CSVConfig selects how a CSV file is read. Zero fields mean: the first line
+// (after SkipLines) is a header; every column except Label is a feature;
+// no labels.
+type CSVConfig struct {
+	// NoHeader says the file has no header line; columns are then named
+	// c0, c1, ... for selection.
+	NoHeader bool
+	// SkipLines skips that many lines before the header (or the data).
+	SkipLines int
+	// Columns selects feature columns by name, in this order; nil means
+	// all columns but the label.
+	Columns []string
+	// Label names the column holding integer class labels; an empty cell
+	// there marks the row unlabelled. Empty means no labels.
+	Label string
+	// Comma is the field separator; default ','.
+	Comma rune
+}
+
+// LoadCSV reads a CSV file (plain or gzip-compressed, told apart by
+// content) into a Dataset. Every feature cell must parse as a finite
+// number; a non-numeric cell, NaN, infinity, a value outside float32 range
+// or a row with the wrong number of fields is a *ParseError naming the
+// line and column.
+func LoadCSV(path string, cfg CSVConfig) (*Dataset, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("data: %w", err)
+	}
+	defer f.Close()
+	r, err := maybeGzip(f)
+	if err != nil {
+		return nil, &ParseError{File: path, Msg: err.Error()}
+	}
+	return ReadCSV(r, path, cfg)
+}
+
+// maybeGzip returns a reader that decompresses r when it starts with the
+// gzip magic bytes.
+func maybeGzip(r io.Reader) (io.Reader, error) {
+	br := bufio.NewReader(r)
+	head, _ := br.Peek(2)
+	if len(head) == 2 && head[0] == 0x1f && head[1] == 0x8b {
+		return gzip.NewReader(br)
+	}
+	return br, nil
+}
+
+// ReadCSV is LoadCSV on a reader; name is used in errors.
+func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
+	if cfg.SkipLines < 0 {
+		return nil, fmt.Errorf("%w: SkipLines %d", ErrConfig, cfg.SkipLines)
+	}
+	br := bufio.NewReader(r)
+	line := 0
+	for i := 0; i < cfg.SkipLines; i++ {
+		if _, err := br.ReadString('\n'); err != nil {
+			return nil, &ParseError{File: name, Line: line + 1, Msg: "file ends before the lines to skip"}
+		}
+		line++
+	}
+	cr := csv.NewReader(br)
+	cr.FieldsPerRecord = -1
+	cr.ReuseRecord = true
+	if cfg.Comma != 0 {
+		cr.Comma = cfg.Comma
+	}
+	pos := func() int { l, _ := cr.FieldPos(0); return l + line }
+	var header []string
+	rec, err := cr.Read()
+	if err == io.EOF {
+		return nil, &ParseError{File: name, Line: line + 1, Msg: "no data"}
+	}
+	if err != nil {
+		return nil, csvErr(name, line, err)
+	}
+	width := len(rec)
+	if cfg.NoHeader {
+		header = make([]string, width)
+		for i := range header {
+			header[i] = "c" + strconv.Itoa(i)
+		}
+	} else {
+		header = make([]string, width)
+		for i, h := range rec {
+			header[i] = strings.TrimSpace(h)
+		}
+		rec = nil
+	}
+	index := map[string]int{}
+	for i, h := range header {
+		if _, dup := index[h]; dup && h != "" {
+			return nil, &ParseError{File: name, Line: line + 1, Column: i + 1, Name: h, Msg: "duplicate column name"}
+		}
+		index[h] = i
+	}
+	label := -1
+	if cfg.Label != "" {
+		i, ok := index[cfg.Label]
+		if !ok {
+			return nil, &ParseError{File: name, Line: line + 1, Msg: fmt.Sprintf("no label column %q (columns: %s)", cfg.Label, strings.Join(header, ", "))}
+		}
+		label = i
+	}
+	var sel []int
+	if cfg.Columns != nil {
+		for _, c := range cfg.Columns {
+			i, ok := index[c]
+			if !ok {
+				return nil, &ParseError{File: name, Line: line + 1, Msg: fmt.Sprintf("no column %q", c)}
+			}
+			if i == label {
+				return nil, fmt.Errorf("%w: column %q is both a feature and the label", ErrConfig, c)
+			}
+			sel = append(sel, i)
+		}
+	} else {
+		for i := range header {
+			if i != label {
+				sel = append(sel, i)
+			}
+		}
+	}
+	if len(sel) == 0 {
+		return nil, &ParseError{File: name, Line: line + 1, Msg: "no feature columns"}
+	}
+	d := &Dataset{Cols: len(sel)}
+	for _, i := range sel {
+		d.Columns = append(d.Columns, header[i])
+	}
+	if label >= 0 {
+		d.Labels = []int{}
+	}
+	parseRow := func(rec []string) error {
+		l := pos()
+		if len(rec) != width {
+			return &ParseError{File: name, Line: l, Msg: fmt.Sprintf("row has %d fields, want %d", len(rec), width)}
+		}
+		for _, i := range sel {
+			s := strings.TrimSpace(rec[i])
+			v, err := strconv.ParseFloat(s, 32)
+			if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+				msg := fmt.Sprintf("%q is not a finite number", s)
+				if errors.Is(err, strconv.ErrRange) {
+					msg = fmt.Sprintf("%q is outside the float32 range", s)
+				}
+				return &ParseError{File: name, Line: l, Column: i + 1, Name: header[i], Msg: msg}
+			}
+			d.X = append(d.X, float32(v))
+		}
+		if label >= 0 {
+			s := strings.TrimSpace(rec[label])
+			if s == "" {
+				d.Labels = append(d.Labels, Unlabelled)
+			} else {
+				v, err := strconv.Atoi(s)
+				if err != nil || v < 0 {
+					// accept integral floats such as "3.0"
+					fv, ferr := strconv.ParseFloat(s, 64)
+					if ferr != nil || fv != math.Trunc(fv) || fv < 0 || fv > 1<<30 {
+						return &ParseError{File: name, Line: l, Column: label + 1, Name: header[label], Msg: fmt.Sprintf("label %q is not a class index >= 0", s)}
+					}
+					v = int(fv)
+				}
+				d.Labels = append(d.Labels, v)
+			}
+		}
+		d.Rows++
+		return nil
+	}
+	if rec != nil {
+		if err := parseRow(rec); err != nil {
+			return nil, err
+		}
+	}
+	for {
+		rec, err := cr.Read()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return nil, csvErr(name, line, err)
+		}
+		if len(rec) == 1 && strings.TrimSpace(rec[0]) == "" && width > 1 {
+			continue // blank line
+		}
+		if err := parseRow(rec); err != nil {
+			return nil, err
+		}
+	}
+	if d.Rows == 0 {
+		return nil, &ParseError{File: name, Msg: "no data rows"}
+	}
+	return d, nil
+}
+
+func csvErr(name string, skipped int, err error) error {
+	var pe *csv.ParseError
+	if errors.As(err, &pe) {
+		return &ParseError{File: name, Line: pe.Line + skipped, Column: pe.Column, Msg: pe.Err.Error()}
+	}
+	return &ParseError{File: name, Msg: err.Error()}
+}

@@ -1,0 +1,209 @@
+package data
+
+import (
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+)
+
+// Unlabelled marks a row without a label in Dataset.Labels.
+const Unlabelled = -1
+
+// ErrConfig is wrapped by configuration errors.
+var ErrConfig = errors.New("data: invalid configuration")
+
+// Dataset is an in-memory table of float32 rows with optional integer
+// labels. X holds Rows*Cols values row-major.
+type Dataset struct {
+	Rows, Cols int
+	X          []float32
+	// Labels is nil or has one entry per row: a class index >= 0, or
+	// Unlabelled.
+	Labels []int
+	// Columns names the columns (nil when unknown).
+	Columns []string
+	// Image is the height, width and channels of image rows (nil for
+	// tabular data); Cols = H*W*C with channels interleaved.
+	Image []int
+}
+
+// New wraps x (rows x cols, row-major) in a Dataset, checking the length and
+// that every value is finite. x is used, not copied.
+func New(x []float32, rows, cols int) (*Dataset, error) {
+	if rows < 0 || cols <= 0 || len(x) != rows*cols {
+		return nil, fmt.Errorf("data: %d values do not make %d rows of %d", len(x), rows, cols)
+	}
+	for i, v := range x {
+		if v-v != 0 {
+			return nil, fmt.Errorf("data: row %d column %d is %v", i/cols, i%cols, v)
+		}
+	}
+	return &Dataset{Rows: rows, Cols: cols, X: x}, nil
+}
+
+// Row returns row i, aliasing the dataset's storage.
+func (d *Dataset) Row(i int) []float32 { return d.X[i*d.Cols : (i+1)*d.Cols] }
+
+// Label returns row i's label, or Unlabelled.
+func (d *Dataset) Label(i int) int {
+	if d.Labels == nil {
+		return Unlabelled
+	}
+	return d.Labels[i]
+}
+
+// Classes is one more than the largest label (0 when there are none).
+func (d *Dataset) Classes() int {
+	n := 0
+	for _, l := range d.Labels {
+		if l+1 > n {
+			n = l + 1
+		}
+	}
+	return n
+}
+
+// Subset copies the rows at idx, in that order, into a new Dataset.
+func (d *Dataset) Subset(idx []int) *Dataset {
+	s := &Dataset{Rows: len(idx), Cols: d.Cols, X: make([]float32, len(idx)*d.Cols), Columns: d.Columns, Image: d.Image}
+	if d.Labels != nil {
+		s.Labels = make([]int, len(idx))
+	}
+	for k, i := range idx {
+		copy(s.X[k*d.Cols:], d.Row(i))
+		if d.Labels != nil {
+			s.Labels[k] = d.Labels[i]
+		}
+	}
+	return s
+}
+
+// Split shuffles row indices with rng and returns a training part and a
+// validation part holding round(valFrac*Rows) rows (at least one of each
+// when 0 < valFrac < 1 and Rows >= 2). valFrac 0 returns the whole set as
+// training and a nil validation set.
+func (d *Dataset) Split(valFrac float64, rng *rand.Rand) (train, val *Dataset, err error) {
+	if !(valFrac >= 0 && valFrac < 1) {
+		return nil, nil, fmt.Errorf("%w: validation fraction %v outside [0, 1)", ErrConfig, valFrac)
+	}
+	if valFrac == 0 {
+		return d, nil, nil
+	}
+	if d.Rows < 2 {
+		return nil, nil, fmt.Errorf("data: cannot split %d rows", d.Rows)
+	}
+	nv := int(math.Round(valFrac * float64(d.Rows)))
+	nv = min(max(nv, 1), d.Rows-1)
+	perm := rng.Perm(d.Rows)
+	return d.Subset(perm[nv:]), d.Subset(perm[:nv]), nil
+}
+
+// Fingerprint is a SHA-256 over the shape, values and labels, in hex: the
+// same data always gives the same fingerprint.
+func (d *Dataset) Fingerprint() string {
+	h := sha256.New()
+	var b [8]byte
+	binary.LittleEndian.PutUint64(b[:], uint64(d.Rows))
+	h.Write(b[:])
+	binary.LittleEndian.PutUint64(b[:], uint64(d.Cols))
+	h.Write(b[:])
+	buf := make([]byte, 0, 4096)
+	for _, v := range d.X {
+		buf = binary.LittleEndian.AppendUint32(buf, math.Float32bits(v))
+		if len(buf) == cap(buf) {
+			h.Write(buf)
+			buf = buf[:0]
+		}
+	}
+	h.Write(buf)
+	for _, l := range d.Labels {
+		binary.LittleEndian.PutUint64(b[:], uint64(int64(l)))
+		h.Write(b[:])
+	}
+	return hex.EncodeToString(h.Sum(nil))
+}
+
+// Batches walks a dataset in mini-batches, reshuffled each epoch from its
+// own generator. It never allocates after construction.
+type Batches struct {
+	d       *Dataset
+	size    int
+	perm    []int
+	rng     *rand.Rand
+	shuffle bool
+	drop    bool
+}
+
+// BatchConfig configures Batches. Zero fields mean: batch size 64,
+// shuffled, final partial batch kept.
+type BatchConfig struct {
+	Size int
+	// InOrder keeps the dataset's row order (no shuffling).
+	InOrder bool
+	// DropPartial skips a final batch smaller than Size.
+	DropPartial bool
+}
+
+// NewBatches validates cfg and returns a batch walker over d; rng is
+// required unless InOrder.
+func NewBatches(d *Dataset, cfg BatchConfig, rng *rand.Rand) (*Batches, error) {
+	if cfg.Size == 0 {
+		cfg.Size = 64
+	}
+	if cfg.Size < 0 {
+		return nil, fmt.Errorf("%w: batch size %d", ErrConfig, cfg.Size)
+	}
+	if !cfg.InOrder && rng == nil {
+		return nil, fmt.Errorf("%w: shuffled batches need a random generator", ErrConfig)
+	}
+	if d.Rows == 0 {
+		return nil, fmt.Errorf("data: no rows to batch")
+	}
+	b := &Batches{d: d, size: cfg.Size, perm: make([]int, d.Rows), rng: rng, shuffle: !cfg.InOrder, drop: cfg.DropPartial}
+	for i := range b.perm {
+		b.perm[i] = i
+	}
+	return b, nil
+}
+
+// Shuffle draws a new row order for the next epoch (a Fisher-Yates shuffle
+// from the walker's generator; no-op for in-order batches).
+func (b *Batches) Shuffle() {
+	if !b.shuffle {
+		return
+	}
+	for i := range b.perm {
+		b.perm[i] = i
+	}
+	b.rng.Shuffle(len(b.perm), func(i, j int) { b.perm[i], b.perm[j] = b.perm[j], b.perm[i] })
+}
+
+// Len is the number of batches per epoch.
+func (b *Batches) Len() int {
+	if b.drop {
+		return b.d.Rows / b.size
+	}
+	return (b.d.Rows + b.size - 1) / b.size
+}
+
+// Rows is the number of rows in batch i.
+func (b *Batches) Rows(i int) int { return min(b.size, b.d.Rows-i*b.size) }
+
+// Indices returns the dataset rows of batch i (aliasing internal state).
+func (b *Batches) Indices(i int) []int { return b.perm[i*b.size : i*b.size+b.Rows(i)] }
+
+// Gather copies batch i's rows into x (Rows(i)*Cols values) and, when labels
+// is not nil, their labels.
+func (b *Batches) Gather(i int, x []float32, labels []int) {
+	c := b.d.Cols
+	for k, r := range b.Indices(i) {
+		copy(x[k*c:(k+1)*c], b.d.X[r*c:(r+1)*c])
+		if labels != nil {
+			labels[k] = b.d.Label(r)
+		}
+	}
+}

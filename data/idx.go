@@ -1,0 +1,188 @@
+package data
+
+import (
+	"bufio"
+	"bytes"
+	"compress/gzip"
+	"encoding/binary"
+	"fmt"
+	"io"
+	"math"
+	"os"
+)
+
+// The idx format: two zero bytes, a type byte, a dimension count, then one
+// big-endian uint32 per dimension, then the values big-endian, row-major.
+var idxSizes = map[byte]int{0x08: 1, 0x09: 1, 0x0B: 2, 0x0C: 4, 0x0D: 4, 0x0E: 8}
+
+// maxIdxValues caps the values one idx file may declare (2^31), so that a
+// hostile header cannot make the reader allocate without bound.
+const maxIdxValues = 1 << 31
+
+// IDX is a decoded idx array.
+type IDX struct {
+	Dims   []int
+	Type   byte
+	Values []float32
+}
+
+// ReadIDX decodes an idx stream, plain or gzip-compressed (told apart by
+// content). size is the stream's byte length when known (a plain file), or
+// -1: then the declared size is checked against the file before anything
+// is allocated; for compressed input, memory grows only with data actually
+// read.
+func ReadIDX(r io.Reader, name string, size int64) (*IDX, error) {
+	br := bufio.NewReader(r)
+	head, _ := br.Peek(2)
+	var src io.Reader = br
+	if len(head) == 2 && head[0] == 0x1f && head[1] == 0x8b {
+		zr, err := gzip.NewReader(br)
+		if err != nil {
+			return nil, &ParseError{File: name, Msg: "bad gzip stream: " + err.Error()}
+		}
+		defer zr.Close()
+		src, size = zr, -1
+	}
+	var magic [4]byte
+	if _, err := io.ReadFull(src, magic[:]); err != nil {
+		return nil, &ParseError{File: name, Msg: "too short for an idx header"}
+	}
+	if magic[0] != 0 || magic[1] != 0 {
+		return nil, &ParseError{File: name, Msg: fmt.Sprintf("not an idx file (magic % x)", magic)}
+	}
+	es, ok := idxSizes[magic[2]]
+	if !ok {
+		return nil, &ParseError{File: name, Msg: fmt.Sprintf("unknown idx value type 0x%02x", magic[2])}
+	}
+	nd := int(magic[3])
+	if nd < 1 || nd > 4 {
+		return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx declares %d dimensions, want 1 to 4", nd)}
+	}
+	dimb := make([]byte, 4*nd)
+	if _, err := io.ReadFull(src, dimb); err != nil {
+		return nil, &ParseError{File: name, Msg: "idx header truncated"}
+	}
+	dims := make([]int, nd)
+	total := int64(1)
+	for i := range dims {
+		dims[i] = int(binary.BigEndian.Uint32(dimb[4*i:]))
+		if dims[i] == 0 {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx dimension %d is 0", i)}
+		}
+		total *= int64(dims[i])
+		if total > maxIdxValues {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx declares more than %d values", int64(maxIdxValues))}
+		}
+	}
+	want := total * int64(es)
+	if size >= 0 {
+		if got := size - 4 - 4*int64(nd); got != want {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, file holds %d", dims, want, got)}
+		}
+	}
+	var raw []byte
+	if size >= 0 {
+		raw = make([]byte, want)
+		if _, err := io.ReadFull(src, raw); err != nil {
+			return nil, &ParseError{File: name, Msg: "idx values truncated: " + err.Error()}
+		}
+	} else {
+		var buf bytes.Buffer
+		n, err := io.Copy(&buf, io.LimitReader(src, want+1))
+		if err != nil {
+			return nil, &ParseError{File: name, Msg: "reading idx values: " + err.Error()}
+		}
+		if n != want {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, stream holds %d", dims, want, n)}
+		}
+		raw = buf.Bytes()
+	}
+	out := &IDX{Dims: dims, Type: magic[2], Values: make([]float32, total)}
+	for i := range out.Values {
+		b := raw[i*es:]
+		var v float64
+		switch magic[2] {
+		case 0x08:
+			v = float64(b[0])
+		case 0x09:
+			v = float64(int8(b[0]))
+		case 0x0B:
+			v = float64(int16(binary.BigEndian.Uint16(b)))
+		case 0x0C:
+			v = float64(int32(binary.BigEndian.Uint32(b)))
+		case 0x0D:
+			v = float64(math.Float32frombits(binary.BigEndian.Uint32(b)))
+		case 0x0E:
+			v = math.Float64frombits(binary.BigEndian.Uint64(b))
+		}
+		if math.IsNaN(v) || math.IsInf(v, 0) || math.Abs(v) > math.MaxFloat32 {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx value %d is %v", i, v)}
+		}
+		out.Values[i] = float32(v)
+	}
+	return out, nil
+}
+
+// LoadIDXFile reads one idx file (plain or gzip-compressed).
+func LoadIDXFile(path string) (*IDX, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("data: %w", err)
+	}
+	defer f.Close()
+	st, err := f.Stat()
+	if err != nil {
+		return nil, fmt.Errorf("data: %w", err)
+	}
+	return ReadIDX(f, path, st.Size())
+}
+
+// IDXConfig configures LoadIDX. Zero fields mean: no labels; unsigned-byte
+// values are divided by 255 into [0, 1].
+type IDXConfig struct {
+	// Labels is an idx file of one label per row (optional).
+	Labels string
+	// Raw keeps unsigned-byte values in 0..255.
+	Raw bool
+}
+
+// LoadIDX reads an idx file of rows (the first dimension) into a Dataset;
+// the other dimensions are flattened. A three-dimensional file is taken as
+// grey images (rows x height x width).
+func LoadIDX(path string, cfg IDXConfig) (*Dataset, error) {
+	a, err := LoadIDXFile(path)
+	if err != nil {
+		return nil, err
+	}
+	rows := a.Dims[0]
+	cols := len(a.Values) / rows
+	if a.Type == 0x08 && !cfg.Raw {
+		for i := range a.Values {
+			a.Values[i] /= 255
+		}
+	}
+	d := &Dataset{Rows: rows, Cols: cols, X: a.Values}
+	switch len(a.Dims) {
+	case 3:
+		d.Image = []int{a.Dims[1], a.Dims[2], 1}
+	case 4:
+		d.Image = []int{a.Dims[1], a.Dims[2], a.Dims[3]}
+	}
+	if cfg.Labels != "" {
+		l, err := LoadIDXFile(cfg.Labels)
+		if err != nil {
+			return nil, err
+		}
+		if len(l.Dims) != 1 || l.Dims[0] != rows {
+			return nil, &ParseError{File: cfg.Labels, Msg: fmt.Sprintf("labels have shape %v, want %d", l.Dims, rows)}
+		}
+		d.Labels = make([]int, rows)
+		for i, v := range l.Values {
+			if v < 0 || v != float32(math.Trunc(float64(v))) {
+				return nil, &ParseError{File: cfg.Labels, Msg: fmt.Sprintf("label %d is %v, want a class index >= 0", i, v)}
+			}
+			d.Labels[i] = int(v)
+		}
+	}
+	return d, nil
+}

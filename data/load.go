@@ -1,0 +1,80 @@
+package data
+
+import (
+	"bufio"
+	"compress/gzip"
+	"fmt"
+	"io"
+	"os"
+)
+
+// Format is a kind of input file.
+type Format string
+
+const (
+	FormatCSV    Format = "csv"
+	FormatIDX    Format = "idx"
+	FormatImages Format = "png-folder"
+)
+
+// Detect tells the format of path by its content, not its name: a
+// directory is a folder of PNG images; a file whose (decompressed) first
+// bytes are an idx header (two zero bytes, a known type, 1 to 4
+// dimensions) is idx; anything else is read as CSV.
+func Detect(path string) (Format, error) {
+	st, err := os.Stat(path)
+	if err != nil {
+		return "", fmt.Errorf("data: %w", err)
+	}
+	if st.IsDir() {
+		return FormatImages, nil
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		return "", fmt.Errorf("data: %w", err)
+	}
+	defer f.Close()
+	br := bufio.NewReader(f)
+	var r io.Reader = br
+	if h, _ := br.Peek(2); len(h) == 2 && h[0] == 0x1f && h[1] == 0x8b {
+		zr, err := gzip.NewReader(br)
+		if err != nil {
+			return "", &ParseError{File: path, Msg: "bad gzip stream: " + err.Error()}
+		}
+		defer zr.Close()
+		r = zr
+	}
+	var head [4]byte
+	n, _ := io.ReadFull(r, head[:])
+	if n == 4 && head[0] == 0 && head[1] == 0 && head[3] >= 1 && head[3] <= 4 {
+		if _, ok := idxSizes[head[2]]; ok {
+			return FormatIDX, nil
+		}
+	}
+	return FormatCSV, nil
+}
+
+// LoadConfig gathers the per-format settings of Load.
+type LoadConfig struct {
+	CSV    CSVConfig
+	IDX    IDXConfig
+	Images ImageConfig
+}
+
+// Load reads path in whichever format Detect finds.
+func Load(path string, cfg LoadConfig) (*Dataset, Format, error) {
+	f, err := Detect(path)
+	if err != nil {
+		return nil, "", err
+	}
+	var d *Dataset
+	switch f {
+	case FormatImages:
+		d, _, err = LoadImages(path, cfg.Images)
+	case FormatIDX:
+		d, err = LoadIDX(path, cfg.IDX)
+	default:
+		d, err = LoadCSV(path, cfg.CSV)
+	}
+	return d, f, err
+}

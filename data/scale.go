@@ -1,0 +1,134 @@
+package data
+
+import (
+	"fmt"
+	"math"
+)
+
+// ScaleKind names a column scaling.
+type ScaleKind string
+
+const (
+	// ScaleNone leaves values unchanged.
+	ScaleNone ScaleKind = "none"
+	// ScaleStandard maps each column to zero mean and unit variance.
+	ScaleStandard ScaleKind = "standard"
+	// ScaleMinMax maps each column's training range onto [0, 1].
+	ScaleMinMax ScaleKind = "minmax"
+)
+
+// Scaler is a per-column affine map x' = (x - Offset[j]) * Factor[j],
+// fitted on training data and stored with a model so that inference applies
+// the same map. Its fields marshal as JSON.
+type Scaler struct {
+	Kind   ScaleKind `json:"kind"`
+	Offset []float64 `json:"offset"`
+	Factor []float64 `json:"factor"`
+}
+
+// Fit returns a scaler of the given kind fitted on d. Standard scaling uses
+// the population standard deviation; a constant column gets factor 1 (it
+// is only centred) so that no value becomes NaN or infinite. Min-max maps
+// the training minimum to 0 and maximum to 1; a constant column maps to 0.
+func Fit(kind ScaleKind, d *Dataset) (*Scaler, error) {
+	if d.Rows == 0 {
+		return nil, fmt.Errorf("data: cannot fit a %s scaler on no rows", kind)
+	}
+	s := &Scaler{Kind: kind, Offset: make([]float64, d.Cols), Factor: make([]float64, d.Cols)}
+	switch kind {
+	case ScaleNone, "":
+		s.Kind = ScaleNone
+		for j := range s.Factor {
+			s.Factor[j] = 1
+		}
+	case ScaleStandard:
+		mean := make([]float64, d.Cols)
+		for i := 0; i < d.Rows; i++ {
+			for j, v := range d.Row(i) {
+				mean[j] += float64(v)
+			}
+		}
+		for j := range mean {
+			mean[j] /= float64(d.Rows)
+		}
+		ss := make([]float64, d.Cols)
+		for i := 0; i < d.Rows; i++ {
+			for j, v := range d.Row(i) {
+				e := float64(v) - mean[j]
+				ss[j] += e * e
+			}
+		}
+		for j := range ss {
+			sd := math.Sqrt(ss[j] / float64(d.Rows))
+			s.Offset[j] = mean[j]
+			s.Factor[j] = 1
+			if sd > 0 {
+				s.Factor[j] = 1 / sd
+			}
+		}
+	case ScaleMinMax:
+		lo := make([]float64, d.Cols)
+		hi := make([]float64, d.Cols)
+		for j := range lo {
+			lo[j], hi[j] = math.Inf(1), math.Inf(-1)
+		}
+		for i := 0; i < d.Rows; i++ {
+			for j, v := range d.Row(i) {
+				lo[j] = math.Min(lo[j], float64(v))
+				hi[j] = math.Max(hi[j], float64(v))
+			}
+		}
+		for j := range lo {
+			s.Offset[j] = lo[j]
+			s.Factor[j] = 1
+			if hi[j] > lo[j] {
+				s.Factor[j] = 1 / (hi[j] - lo[j])
+			}
+		}
+	default:
+		return nil, fmt.Errorf("%w: unknown scaling %q", ErrConfig, kind)
+	}
+	return s, nil
+}
+
+// Validate checks that the scaler is well formed for cols columns.
+func (s *Scaler) Validate(cols int) error {
+	if len(s.Offset) != cols || len(s.Factor) != cols {
+		return fmt.Errorf("data: scaler has %d/%d entries, data has %d columns", len(s.Offset), len(s.Factor), cols)
+	}
+	for j := range s.Offset {
+		if math.IsNaN(s.Offset[j]) || math.IsInf(s.Offset[j], 0) || !(s.Factor[j] != 0) || math.IsInf(s.Factor[j], 0) {
+			return fmt.Errorf("data: scaler column %d has offset %v factor %v", j, s.Offset[j], s.Factor[j])
+		}
+	}
+	return nil
+}
+
+// ApplyRows scales x (rows of len(Offset) values) in place.
+func (s *Scaler) ApplyRows(x []float32) {
+	c := len(s.Offset)
+	for i := range x {
+		j := i % c
+		x[i] = float32((float64(x[i]) - s.Offset[j]) * s.Factor[j])
+	}
+}
+
+// InvertRows undoes ApplyRows in place.
+func (s *Scaler) InvertRows(x []float32) {
+	c := len(s.Offset)
+	for i := range x {
+		j := i % c
+		x[i] = float32(float64(x[i])/s.Factor[j] + s.Offset[j])
+	}
+}
+
+// Apply returns a scaled copy of d.
+func (s *Scaler) Apply(d *Dataset) (*Dataset, error) {
+	if err := s.Validate(d.Cols); err != nil {
+		return nil, err
+	}
+	out := *d
+	out.X = append([]float32(nil), d.X...)
+	s.ApplyRows(out.X)
+	return &out, nil
+}

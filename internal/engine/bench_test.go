@@ -1,0 +1,67 @@
+package engine_test
+
+import (
+	"math/rand/v2"
+	"testing"
+
+	"github.com/quernlab/quern/internal/engine"
+	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/losses"
+	"github.com/quernlab/quern/optim"
+)
+
+// One training step (forward, backward, Adam update) of the reference
+// shapes; go test -bench . -benchmem ./internal/engine reports ns/op and
+// allocs/op, which are per step here.
+
+func BenchmarkStepVAE784(b *testing.B) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	enc, _ := layers.NewMLP(layers.MLPConfig{Name: "enc", Widths: []int{784, 400, 40}}, rng)
+	dec, _ := layers.NewMLP(layers.MLPConfig{Name: "dec", Widths: []int{20, 400, 784}}, rng)
+	const batch = 128
+	ph := engine.NewPhase(layers.Float32, true, func(g *engine.Graph, n int) (*engine.Node, []*engine.Node) {
+		x := g.Input("x", n, 784)
+		eps := g.Input("eps", n, 20)
+		h := g.MLP(enc, x, true)
+		mu, lv := g.Slice(h, 0, 20), g.Slice(h, 20, 40)
+		z := g.Add(mu, g.Mul(g.Exp(g.Scale(lv, 0.5)), eps))
+		logits := g.MLP(dec, z, true)
+		rec := g.Scale(losses.GraphBCEWithLogits(g, logits, x), 784)
+		return g.Add(rec, losses.GraphKLStdNormal(g, mu, lv)), nil
+	})
+	defer ph.Close()
+	benchStep(b, ph, batch, append(enc.Params(), dec.Params()...), rng)
+}
+
+func BenchmarkStepTinyAE(b *testing.B) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	m, _ := layers.NewMLP(layers.MLPConfig{Widths: []int{16, 8, 2, 8, 16}}, rng)
+	ph := engine.NewPhase(layers.Float32, true, denseLoss(m, 0))
+	defer ph.Close()
+	benchStep(b, ph, 32, m.Params(), rng)
+}
+
+func benchStep(b *testing.B, ph *engine.Phase, batch int, params []*layers.Param, rng *rand.Rand) {
+	opt, _ := optim.NewAdam(optim.AdamConfig{Rate: 1e-3})
+	p, err := ph.Program(batch)
+	if err != nil {
+		b.Fatal(err)
+	}
+	for _, name := range []string{"x", "eps"} {
+		v := p.Input32(name)
+		for i := range v {
+			v[i] = rng.Float32()
+		}
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := p.Run(engine.RunOptions{}); err != nil {
+			b.Fatal(err)
+		}
+		if err := opt.Update(params); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(batch*b.N)/b.Elapsed().Seconds(), "samples/s")
+}
