@@ -1,0 +1,326 @@
+package ae
+
+import (
+	"fmt"
+	"math"
+	"sort"
+
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/layers"
+)
+
+// work is one goroutine's scratch space for graph-free inference.
+type work struct {
+	ws      layers.Workspace
+	ws2     layers.Workspace
+	in32    []float32
+	in64    []float64
+	out32   []float32
+	code32  []float32
+	scratch []float32
+}
+
+func (m *Model) getWork() *work {
+	if w, ok := m.pool.Get().(*work); ok {
+		return w
+	}
+	return &work{}
+}
+
+func grow[T any](s []T, n int) []T {
+	if cap(s) < n {
+		return make([]T, n)
+	}
+	return s[:n]
+}
+
+// checkRows validates raw input: rows x cols finite values.
+func checkRows(x []float32, rows, cols int) error {
+	if rows < 0 || len(x) != rows*cols {
+		return fmt.Errorf("ae: input has %d values, want %d rows x %d columns", len(x), rows, cols)
+	}
+	for i, v := range x {
+		if v-v != 0 {
+			return fmt.Errorf("ae: row %d column %d is %v", i/cols+1, i%cols+1, v)
+		}
+	}
+	return nil
+}
+
+// scaled copies x into w.in32 and applies the scaler.
+func (m *Model) scaled(w *work, x []float32) []float32 {
+	w.in32 = grow(w.in32, len(x))
+	copy(w.in32, x)
+	if m.Scaler != nil {
+		m.Scaler.ApplyRows(w.in32)
+	}
+	return w.in32
+}
+
+// forward runs net on rows of in (float32 values) in the model's precision
+// and writes the float32 result to dst.
+func (m *Model) forward(w *work, ws *layers.Workspace, net *layers.MLP, in []float32, rows int, dst []float32) ([]float32, error) {
+	if m.cfg.Precision == layers.Float64 {
+		w.in64 = grow(w.in64, len(in))
+		for i, v := range in {
+			w.in64[i] = float64(v)
+		}
+		out, err := net.Forward64(w.in64, rows, ws)
+		if err != nil {
+			return nil, err
+		}
+		dst = grow(dst, len(out))
+		for i, v := range out {
+			dst[i] = float32(v)
+		}
+		return dst, nil
+	}
+	out, err := net.Forward32(in, rows, ws)
+	if err != nil {
+		return nil, err
+	}
+	dst = grow(dst, len(out))
+	copy(dst, out)
+	return dst, nil
+}
+
+// Encode maps raw rows (Inputs columns each) to their codes (Latent
+// columns each).
+func (m *Model) Encode(x []float32, rows int) ([]float32, error) {
+	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	return m.forward(w, &w.ws, m.Encoder, m.scaled(w, x), rows, nil)
+}
+
+// Decode maps codes back to raw-space rows.
+func (m *Model) Decode(z []float32, rows int) ([]float32, error) {
+	if err := checkRows(z, rows, m.cfg.Latent); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	out, err := m.forward(w, &w.ws, m.Decoder, z, rows, nil)
+	if err != nil {
+		return nil, err
+	}
+	m.finishOutput(out)
+	if m.Scaler != nil {
+		m.Scaler.InvertRows(out)
+	}
+	return out, nil
+}
+
+// finishOutput applies the output link (sigmoid for BCE models).
+func (m *Model) finishOutput(out []float32) {
+	if m.cfg.Loss == BCE {
+		for i, v := range out {
+			out[i] = float32(layers.Sigmoid.Eval(float64(v), 0))
+		}
+	}
+}
+
+// reconstructScaled returns the scaled input and the scaled-space
+// reconstruction (probabilities for BCE models), in w's buffers.
+func (m *Model) reconstructScaled(w *work, x []float32, rows int) (in, out []float32, err error) {
+	in = m.scaled(w, x)
+	w.code32, err = m.forward(w, &w.ws, m.Encoder, in, rows, w.code32)
+	if err != nil {
+		return nil, nil, err
+	}
+	w.out32, err = m.forward(w, &w.ws2, m.Decoder, w.code32, rows, w.out32)
+	if err != nil {
+		return nil, nil, err
+	}
+	m.finishOutput(w.out32)
+	return in, w.out32, nil
+}
+
+// Reconstruct returns the model's reconstruction of raw rows, in raw space.
+func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
+	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	_, out, err := m.reconstructScaled(w, x, rows)
+	if err != nil {
+		return nil, err
+	}
+	res := append([]float32(nil), out...)
+	if m.Scaler != nil {
+		m.Scaler.InvertRows(res)
+	}
+	return res, nil
+}
+
+// Contributions returns, for each row and column, that column's
+// reconstruction error in scaled space: the squared error for MSE models,
+// the binary cross-entropy for BCE models. A row's score is the mean of
+// its row here.
+func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
+	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	in, out, err := m.reconstructScaled(w, x, rows)
+	if err != nil {
+		return nil, err
+	}
+	c := make([]float64, len(in))
+	for i := range in {
+		c[i] = m.elemError(float64(in[i]), float64(out[i]))
+	}
+	return c, nil
+}
+
+func (m *Model) elemError(target, out float64) float64 {
+	if m.cfg.Loss == BCE {
+		const eps = 1e-7 // keeps log finite for saturated outputs
+		p := math.Min(math.Max(out, eps), 1-eps)
+		return -(target*math.Log(p) + (1-target)*math.Log1p(-p))
+	}
+	d := target - out
+	return d * d
+}
+
+// RowErrors returns each row's reconstruction error (the mean of its
+// Contributions): the anomaly score.
+func (m *Model) RowErrors(x []float32, rows int) ([]float64, error) {
+	c, err := m.Contributions(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	cols := m.cfg.Inputs
+	s := make([]float64, rows)
+	for r := range s {
+		var t float64
+		for _, v := range c[r*cols : (r+1)*cols] {
+			t += v
+		}
+		s[r] = t / float64(cols)
+	}
+	return s, nil
+}
+
+// Feature is one column's part in a score.
+type Feature struct {
+	Column int     `json:"column"`
+	Name   string  `json:"name,omitempty"`
+	Share  float64 `json:"share"` // fraction of the row's error
+}
+
+// Score is one row's anomaly assessment.
+type Score struct {
+	Value     float64   `json:"score"`
+	Threshold float64   `json:"threshold"`
+	Anomaly   bool      `json:"anomaly"`
+	Top       []Feature `json:"top_features"`
+}
+
+// Caution is the notice to show with scores.
+const Caution = anomaly.Caution
+
+// Score scores raw rows against the model's calibrated threshold and names
+// the top features (at most top, default 3) behind each score.
+func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
+	if m.Threshold == nil {
+		return nil, fmt.Errorf("ae: model has no threshold; calibrate it first")
+	}
+	if top <= 0 {
+		top = 3
+	}
+	c, err := m.Contributions(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	cols := m.cfg.Inputs
+	top = min(top, cols)
+	out := make([]Score, rows)
+	idx := make([]int, cols)
+	for r := range out {
+		row := c[r*cols : (r+1)*cols]
+		var total float64
+		for _, v := range row {
+			total += v
+		}
+		s := total / float64(cols)
+		out[r] = Score{Value: s, Threshold: m.Threshold.Value, Anomaly: m.Threshold.Flag(s)}
+		for j := range idx {
+			idx[j] = j
+		}
+		sort.SliceStable(idx, func(a, b int) bool { return row[idx[a]] > row[idx[b]] })
+		for _, j := range idx[:top] {
+			f := Feature{Column: j}
+			if total > 0 {
+				f.Share = row[j] / total
+			}
+			if j < len(m.Columns) {
+				f.Name = m.Columns[j]
+			}
+			out[r].Top = append(out[r].Top, f)
+		}
+	}
+	return out, nil
+}
+
+// Calibrate sets the model's threshold from held-out normal rows (not used
+// for training) and returns it.
+func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
+	s, err := m.RowErrors(normal, rows)
+	if err != nil {
+		return anomaly.Threshold{}, err
+	}
+	th, err := anomaly.Calibrate(s, c)
+	if err != nil {
+		return th, err
+	}
+	m.Threshold = &th
+	return th, nil
+}
+
+// Classify returns the most likely class of each raw row and the class
+// probabilities (rows x Classes). The model needs a head.
+func (m *Model) Classify(x []float32, rows int) ([]int, []float64, error) {
+	if m.Head == nil {
+		return nil, nil, fmt.Errorf("ae: model has no classification head")
+	}
+	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+		return nil, nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	var err error
+	w.code32, err = m.forward(w, &w.ws, m.Encoder, m.scaled(w, x), rows, w.code32)
+	if err != nil {
+		return nil, nil, err
+	}
+	w.scratch, err = m.forward(w, &w.ws2, m.Head, w.code32, rows, w.scratch)
+	if err != nil {
+		return nil, nil, err
+	}
+	k := m.cfg.Classes
+	probs := make([]float64, rows*k)
+	labels := make([]int, rows)
+	for r := 0; r < rows; r++ {
+		lg := w.scratch[r*k : (r+1)*k]
+		mx := math.Inf(-1)
+		for j, v := range lg {
+			if float64(v) > mx {
+				mx, labels[r] = float64(v), j
+			}
+		}
+		var z float64
+		for j, v := range lg {
+			probs[r*k+j] = math.Exp(float64(v) - mx)
+			z += probs[r*k+j]
+		}
+		for j := range lg {
+			probs[r*k+j] /= z
+		}
+	}
+	return labels, probs, nil
+}
