@@ -7,6 +7,7 @@ import (
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/optim"
 )
 
 // ErrConfig is wrapped by every configuration error.
@@ -109,6 +110,9 @@ type Config struct {
 	Dropout float64
 	// Rate is Adam's learning rate. Default 1e-3.
 	Rate float64
+	// RateSchedule multiplies Rate per update (see package optim); nil
+	// keeps it constant.
+	RateSchedule optim.Schedule
 	// WeightDecay is AdamW's decoupled weight decay. Default 0.
 	WeightDecay float64
 	// ClipNorm clips gradients to this global norm when > 0.

@@ -92,7 +92,7 @@ func New(cfg Config) (*Model, error) {
 	m.noisePCG = rand.NewPCG(cfg.Seed, 2)
 	m.shufflePCG = rand.NewPCG(cfg.Seed, 1)
 	m.noise, m.shuffle = rand.New(m.noisePCG), rand.New(m.shufflePCG)
-	opt, err := optim.NewAdamW(optim.AdamConfig{Rate: cfg.Rate, WeightDecay: cfg.WeightDecay})
+	opt, err := optim.NewAdamW(optim.AdamConfig{Rate: cfg.Rate, WeightDecay: cfg.WeightDecay, Schedule: cfg.RateSchedule})
 	if err != nil {
 		return nil, fmt.Errorf("ae: %w", err)
 	}

@@ -1,0 +1,560 @@
+package vae
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"sort"
+
+	"github.com/quernlab/quern/layers"
+)
+
+type work struct {
+	ws1, ws2 layers.Workspace
+	in       []float32
+	in64     []float64
+}
+
+func (m *Model) getWork() *work {
+	if w, ok := m.pool.Get().(*work); ok {
+		return w
+	}
+	return &work{}
+}
+
+func grow[T any](s []T, n int) []T {
+	if cap(s) < n {
+		return make([]T, n)
+	}
+	return s[:n]
+}
+
+func checkRows(x []float32, rows, cols int, what string) error {
+	if rows < 0 || len(x) != rows*cols {
+		return fmt.Errorf("vae: %s has %d values, want %d rows x %d columns", what, len(x), rows, cols)
+	}
+	for i, v := range x {
+		if v-v != 0 {
+			return fmt.Errorf("vae: %s row %d column %d is %v", what, i/cols+1, i%cols+1, v)
+		}
+	}
+	return nil
+}
+
+// forward runs net on float64 rows and returns float64 results (a new
+// slice), in the model's precision.
+func (m *Model) forward(w *work, ws *layers.Workspace, net *layers.MLP, in []float64, rows int) ([]float64, error) {
+	if m.cfg.Precision == layers.Float64 {
+		out, err := net.Forward64(in, rows, ws)
+		if err != nil {
+			return nil, err
+		}
+		return append([]float64(nil), out...), nil
+	}
+	w.in = grow(w.in, len(in))
+	for i, v := range in {
+		w.in[i] = float32(v)
+	}
+	out, err := net.Forward32(w.in, rows, ws)
+	if err != nil {
+		return nil, err
+	}
+	r := make([]float64, len(out))
+	for i, v := range out {
+		r[i] = float64(v)
+	}
+	return r, nil
+}
+
+// scaled returns x scaled by the model's scaler, as float64.
+func (m *Model) scaled(x []float32) []float64 {
+	s := append([]float32(nil), x...)
+	if m.Scaler != nil {
+		m.Scaler.ApplyRows(s)
+	}
+	r := make([]float64, len(s))
+	for i, v := range s {
+		r[i] = float64(v)
+	}
+	return r
+}
+
+// posterior returns the means and log-variances of q(z|x) for scaled rows.
+func (m *Model) posterior(w *work, xs []float64, rows int) (mu, lv []float64, err error) {
+	h, err := m.forward(w, &w.ws1, m.Encoder, xs, rows)
+	if err != nil {
+		return nil, nil, err
+	}
+	L := m.cfg.Latent
+	mu, lv = make([]float64, rows*L), make([]float64, rows*L)
+	for r := 0; r < rows; r++ {
+		copy(mu[r*L:(r+1)*L], h[r*2*L:r*2*L+L])
+		copy(lv[r*L:(r+1)*L], h[r*2*L+L:(r+1)*2*L])
+	}
+	return mu, lv, nil
+}
+
+// EncodeFull returns the posterior means and log-variances of raw rows.
+func (m *Model) EncodeFull(x []float32, rows int) (mu, logvar []float64, err error) {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return nil, nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	return m.posterior(w, m.scaled(x), rows)
+}
+
+// Encode returns the posterior means of raw rows: their embeddings.
+func (m *Model) Encode(x []float32, rows int) ([]float32, error) {
+	mu, _, err := m.EncodeFull(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	return to32(mu), nil
+}
+
+func to32(v []float64) []float32 {
+	r := make([]float32, len(v))
+	for i, x := range v {
+		r[i] = float32(x)
+	}
+	return r
+}
+
+// decodeMean maps latent rows to the decoder's mean in scaled space
+// (probabilities for Bernoulli).
+func (m *Model) decodeMean(w *work, z []float64, rows int) ([]float64, error) {
+	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows)
+	if err != nil {
+		return nil, err
+	}
+	if m.cfg.Likelihood == Bernoulli {
+		for i, v := range out {
+			out[i] = layers.Sigmoid.Eval(v, 0)
+		}
+	}
+	return out, nil
+}
+
+func (m *Model) toRaw(v []float64) []float32 {
+	r := to32(v)
+	if m.Scaler != nil {
+		m.Scaler.InvertRows(r)
+	}
+	return r
+}
+
+// Decode maps latent rows (Latent columns each) to the mean of p(x|z) in
+// raw units.
+func (m *Model) Decode(z []float32, rows int) ([]float32, error) {
+	if err := checkRows(z, rows, m.cfg.Latent, "latent"); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	zz := make([]float64, len(z))
+	for i, v := range z {
+		zz[i] = float64(v)
+	}
+	out, err := m.decodeMean(w, zz, rows)
+	if err != nil {
+		return nil, err
+	}
+	return m.toRaw(out), nil
+}
+
+// Reconstruct decodes the posterior means of raw rows.
+func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
+	z, err := m.Encode(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	return m.Decode(z, rows)
+}
+
+// SampleLatent draws n latent rows from the prior N(0, I) with a
+// generator seeded by seed.
+func (m *Model) SampleLatent(n int, seed uint64) []float32 {
+	rng := rand.New(rand.NewPCG(seed, 0x5a))
+	z := make([]float32, n*m.cfg.Latent)
+	for i := range z {
+		z[i] = float32(rng.NormFloat64())
+	}
+	return z
+}
+
+// Sample draws n rows from the model: z from the prior, then the decoder's
+// mean, in raw units. The same seed gives the same samples.
+func (m *Model) Sample(n int, seed uint64) ([]float32, error) {
+	if n < 0 {
+		return nil, fmt.Errorf("vae: sample count %d", n)
+	}
+	return m.Decode(m.SampleLatent(n, seed), n)
+}
+
+// Path is an interpolation method.
+type Path string
+
+const (
+	// Lerp moves along the straight line between two codes.
+	Lerp Path = "linear"
+	// Slerp moves along the great circle between two codes, scaling the
+	// norm linearly; it keeps intermediate codes at norms typical of the
+	// prior.
+	Slerp Path = "spherical"
+)
+
+// InterpolateLatent returns steps codes from a to b inclusive (steps >= 2).
+func InterpolateLatent(a, b []float32, steps int, path Path) ([]float32, error) {
+	if len(a) != len(b) || len(a) == 0 {
+		return nil, fmt.Errorf("vae: interpolate between codes of %d and %d values", len(a), len(b))
+	}
+	if steps < 2 {
+		return nil, fmt.Errorf("vae: interpolation needs at least 2 steps, got %d", steps)
+	}
+	if path != Lerp && path != Slerp {
+		return nil, fmt.Errorf("vae: unknown interpolation path %q", path)
+	}
+	d := len(a)
+	out := make([]float32, steps*d)
+	var na, nb, dot float64
+	for i := range a {
+		na += float64(a[i]) * float64(a[i])
+		nb += float64(b[i]) * float64(b[i])
+		dot += float64(a[i]) * float64(b[i])
+	}
+	na, nb = math.Sqrt(na), math.Sqrt(nb)
+	omega := 0.0
+	if na > 0 && nb > 0 {
+		omega = math.Acos(math.Max(-1, math.Min(1, dot/(na*nb))))
+	}
+	for s := 0; s < steps; s++ {
+		t := float64(s) / float64(steps-1)
+		row := out[s*d : (s+1)*d]
+		if path == Lerp || omega < 1e-6 || math.Abs(omega-math.Pi) < 1e-6 {
+			for i := range row {
+				row[i] = float32((1-t)*float64(a[i]) + t*float64(b[i]))
+			}
+			continue
+		}
+		ca := math.Sin((1-t)*omega) / math.Sin(omega)
+		cb := math.Sin(t*omega) / math.Sin(omega)
+		// great-circle direction between the unit vectors, norm moved
+		// linearly from |a| to |b|
+		norm := (1-t)*na + t*nb
+		for i := range row {
+			row[i] = float32(norm * (ca*float64(a[i])/na + cb*float64(b[i])/nb))
+		}
+	}
+	return out, nil
+}
+
+// Interpolate encodes two raw rows to their posterior means, interpolates
+// steps codes between them and decodes each, returning steps raw rows.
+func (m *Model) Interpolate(a, b []float32, steps int, path Path) ([]float32, error) {
+	za, err := m.Encode(a, 1)
+	if err != nil {
+		return nil, err
+	}
+	zb, err := m.Encode(b, 1)
+	if err != nil {
+		return nil, err
+	}
+	z, err := InterpolateLatent(za, zb, steps, path)
+	if err != nil {
+		return nil, err
+	}
+	return m.Decode(z, steps)
+}
+
+// Traverse encodes one raw row, then decodes copies of its code with
+// latent dimension dim set to each of values in turn, holding the others.
+func (m *Model) Traverse(x []float32, dim int, values []float64) ([]float32, error) {
+	if dim < 0 || dim >= m.cfg.Latent {
+		return nil, fmt.Errorf("vae: latent dimension %d outside [0, %d)", dim, m.cfg.Latent)
+	}
+	z, err := m.Encode(x, 1)
+	if err != nil {
+		return nil, err
+	}
+	L := m.cfg.Latent
+	zs := make([]float32, len(values)*L)
+	for i, v := range values {
+		copy(zs[i*L:], z)
+		zs[i*L+dim] = float32(v)
+	}
+	return m.Decode(zs, len(values))
+}
+
+// Neighbour is a row found by Index.Nearest.
+type Neighbour struct {
+	Row      int
+	Distance float64
+}
+
+// Index holds the embeddings of a set of rows for nearest-neighbour search
+// in latent space (exact, Euclidean). It is safe for concurrent use.
+type Index struct {
+	m      *Model
+	codes  []float32
+	rows   int
+	latent int
+}
+
+// NewIndex embeds rows of x (raw) into an index.
+func (m *Model) NewIndex(x []float32, rows int) (*Index, error) {
+	c, err := m.Encode(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	return &Index{m: m, codes: c, rows: rows, latent: m.cfg.Latent}, nil
+}
+
+// Nearest returns the k indexed rows closest to the raw query row, nearest
+// first (ties by row number).
+func (ix *Index) Nearest(query []float32, k int) ([]Neighbour, error) {
+	q, err := ix.m.Encode(query, 1)
+	if err != nil {
+		return nil, err
+	}
+	all := make([]Neighbour, ix.rows)
+	for r := range all {
+		var d float64
+		for j, v := range ix.codes[r*ix.latent : (r+1)*ix.latent] {
+			e := float64(v) - float64(q[j])
+			d += e * e
+		}
+		all[r] = Neighbour{Row: r, Distance: math.Sqrt(d)}
+	}
+	sort.SliceStable(all, func(a, b int) bool { return all[a].Distance < all[b].Distance })
+	return all[:min(k, len(all))], nil
+}
+
+// logLik returns log p(x|z) for each of rows scaled rows xs given decoder
+// outputs out (logits or means), in nats.
+func (m *Model) logLik(xs, out []float64, rows int) []float64 {
+	d := m.cfg.Inputs
+	res := make([]float64, rows)
+	for r := 0; r < rows; r++ {
+		var s float64
+		for j := 0; j < d; j++ {
+			x, o := xs[r*d+j], out[r*d+j]
+			switch m.cfg.Likelihood {
+			case Bernoulli:
+				s -= math.Max(o, 0) - o*x + math.Log1p(math.Exp(-math.Abs(o)))
+			default:
+				lv := m.logVarAt(j)
+				e := x - o
+				s -= 0.5 * (log2Pi + lv + e*e*math.Exp(-lv))
+			}
+		}
+		res[r] = s + m.jacobian()
+	}
+	return res
+}
+
+func (m *Model) logVarAt(j int) float64 {
+	switch m.cfg.Likelihood {
+	case Gaussian:
+		return math.Log(m.cfg.OutputVariance)
+	case GaussianShared:
+		return m.LogVar.At(0)
+	case GaussianLearned:
+		return m.LogVar.At(j)
+	}
+	return 0
+}
+
+// jacobian is log|det| of the scaler's map, so that Gaussian densities are
+// reported for raw units.
+func (m *Model) jacobian() float64 {
+	if m.cfg.Likelihood == Bernoulli || m.Scaler == nil {
+		return 0
+	}
+	var s float64
+	for _, f := range m.Scaler.Factor {
+		s += math.Log(math.Abs(f))
+	}
+	return s
+}
+
+// draws samples z = mu + sigma*eps for every row, samples per row, and
+// returns z with the matching eps.
+func draws(mu, lv []float64, rows, latent, samples int, rng *rand.Rand) (z, eps []float64) {
+	z = make([]float64, rows*samples*latent)
+	eps = make([]float64, len(z))
+	for r := 0; r < rows; r++ {
+		for s := 0; s < samples; s++ {
+			for j := 0; j < latent; j++ {
+				k := (r*samples+s)*latent + j
+				e := rng.NormFloat64()
+				eps[k] = e
+				z[k] = mu[r*latent+j] + math.Exp(0.5*lv[r*latent+j])*e
+			}
+		}
+	}
+	return z, eps
+}
+
+func repeatRows(x []float64, rows, cols, times int) []float64 {
+	out := make([]float64, rows*times*cols)
+	for r := 0; r < rows; r++ {
+		for s := 0; s < times; s++ {
+			copy(out[(r*times+s)*cols:], x[r*cols:(r+1)*cols])
+		}
+	}
+	return out
+}
+
+// ELBO returns each raw row's evidence lower bound in nats,
+// E_q[log p(x|z)] - KL(q(z|x) || p(z)), with the expectation estimated from
+// samples reparameterised draws (seeded) and the KL in closed form. For
+// Gaussian likelihoods the density is for raw units (the scaler's Jacobian
+// is included).
+func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, error) {
+	if samples < 1 {
+		return nil, fmt.Errorf("vae: ELBO needs at least 1 sample")
+	}
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	xs := m.scaled(x)
+	mu, lv, err := m.posterior(w, xs, rows)
+	if err != nil {
+		return nil, err
+	}
+	L := m.cfg.Latent
+	z, _ := draws(mu, lv, rows, L, samples, rand.New(rand.NewPCG(seed, 0xe1)))
+	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows*samples)
+	if err != nil {
+		return nil, err
+	}
+	ll := m.logLik(repeatRows(xs, rows, m.cfg.Inputs, samples), out, rows*samples)
+	res := make([]float64, rows)
+	for r := range res {
+		var s float64
+		for k := 0; k < samples; k++ {
+			s += ll[r*samples+k]
+		}
+		var kl float64
+		for j := 0; j < L; j++ {
+			a, b := mu[r*L+j], lv[r*L+j]
+			kl += -0.5 * (1 + b - a*a - math.Exp(b))
+		}
+		res[r] = s/float64(samples) - kl
+	}
+	return res, nil
+}
+
+// IWAE returns each raw row's importance-weighted bound with k samples
+// (Burda et al. 2016): log (1/k) sum_i p(x, z_i)/q(z_i|x), computed with a
+// stable log-mean-exp. It rises toward log p(x) as k grows, and k = 1 is an
+// unbiased single-sample ELBO estimate.
+func (m *Model) IWAE(x []float32, rows, k int, seed uint64) ([]float64, error) {
+	if k < 1 {
+		return nil, fmt.Errorf("vae: IWAE needs k >= 1")
+	}
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	xs := m.scaled(x)
+	mu, lv, err := m.posterior(w, xs, rows)
+	if err != nil {
+		return nil, err
+	}
+	L := m.cfg.Latent
+	z, eps := draws(mu, lv, rows, L, k, rand.New(rand.NewPCG(seed, 0x1e)))
+	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows*k)
+	if err != nil {
+		return nil, err
+	}
+	ll := m.logLik(repeatRows(xs, rows, m.cfg.Inputs, k), out, rows*k)
+	res := make([]float64, rows)
+	lw := make([]float64, k)
+	for r := range res {
+		for s := 0; s < k; s++ {
+			var lp, lq float64
+			for j := 0; j < L; j++ {
+				q := (r*k+s)*L + j
+				lp -= 0.5 * (log2Pi + z[q]*z[q])
+				lq -= 0.5 * (log2Pi + lv[r*L+j] + eps[q]*eps[q])
+			}
+			lw[s] = ll[r*k+s] + lp - lq
+		}
+		res[r] = LogMeanExp(lw)
+	}
+	return res, nil
+}
+
+// LogMeanExp is log((1/n) sum exp(v_i)), computed by subtracting the
+// maximum first so that it neither overflows nor underflows.
+func LogMeanExp(v []float64) float64 {
+	mx := math.Inf(-1)
+	for _, x := range v {
+		mx = math.Max(mx, x)
+	}
+	if math.IsInf(mx, 0) {
+		return mx
+	}
+	var s float64
+	for _, x := range v {
+		s += math.Exp(x - mx)
+	}
+	return mx + math.Log(s/float64(len(v)))
+}
+
+// ActiveUnitThreshold is the variance of a latent unit's posterior mean
+// over the data above which the unit counts as active (Burda et al. 2016).
+const ActiveUnitThreshold = 0.01
+
+// ActiveUnits returns how many latent units are active on raw rows x, and
+// the variance over the rows of each unit's posterior mean.
+func (m *Model) ActiveUnits(x []float32, rows int) (int, []float64, error) {
+	if rows < 2 {
+		return 0, nil, fmt.Errorf("vae: active units need at least 2 rows")
+	}
+	mu, _, err := m.EncodeFull(x, rows)
+	if err != nil {
+		return 0, nil, err
+	}
+	L := m.cfg.Latent
+	v := make([]float64, L)
+	for j := 0; j < L; j++ {
+		var mean float64
+		for r := 0; r < rows; r++ {
+			mean += mu[r*L+j]
+		}
+		mean /= float64(rows)
+		for r := 0; r < rows; r++ {
+			d := mu[r*L+j] - mean
+			v[j] += d * d
+		}
+		v[j] /= float64(rows - 1)
+	}
+	n := 0
+	for _, x := range v {
+		if x > ActiveUnitThreshold {
+			n++
+		}
+	}
+	return n, v, nil
+}
+
+// KLPerDim returns the KL of q(z|x) from the prior per latent dimension,
+// averaged over raw rows x.
+func (m *Model) KLPerDim(x []float32, rows int) ([]float64, error) {
+	mu, lv, err := m.EncodeFull(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	L := m.cfg.Latent
+	k := make([]float64, L)
+	for i := range mu {
+		k[i%L] += -0.5 * (1 + lv[i] - mu[i]*mu[i] - math.Exp(lv[i])) / float64(rows)
+	}
+	return k, nil
+}
