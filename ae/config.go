@@ -103,7 +103,7 @@ type Config struct {
 	HeadOnly bool
 	// Encoder, when set, supplies trained encoder weights (copied); its
 	// widths must match Inputs, Hidden and Latent.
-	Encoder *layers.MLP
+	Encoder *layers.MLP `json:"-"`
 	// FreezeEncoder keeps the encoder's weights fixed during training.
 	FreezeEncoder bool
 	// Dropout rate after hidden layers during training. Default 0.
@@ -112,7 +112,7 @@ type Config struct {
 	Rate float64
 	// RateSchedule multiplies Rate per update (see package optim); nil
 	// keeps it constant.
-	RateSchedule optim.Schedule
+	RateSchedule optim.Schedule `json:"-"`
 	// WeightDecay is AdamW's decoupled weight decay. Default 0.
 	WeightDecay float64
 	// ClipNorm clips gradients to this global norm when > 0.

@@ -153,3 +153,21 @@ func applyInPlace64(a Activation, v []float64, slope float64) {
 		v[i] = a.Eval(x, slope)
 	}
 }
+
+// MarshalText writes the activation's name.
+func (a Activation) MarshalText() ([]byte, error) {
+	if !a.Valid() {
+		return nil, fmt.Errorf("layers: unknown activation %d", uint8(a))
+	}
+	return []byte(a.String()), nil
+}
+
+// UnmarshalText reads a name written by MarshalText.
+func (a *Activation) UnmarshalText(b []byte) error {
+	v, err := ParseActivation(string(b))
+	if err != nil {
+		return err
+	}
+	*a = v
+	return nil
+}

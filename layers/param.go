@@ -159,3 +159,24 @@ func (p *Param) CopyFrom(q *Param) error {
 	}
 	return nil
 }
+
+// MarshalText writes "float32" or "float64".
+func (p Precision) MarshalText() ([]byte, error) {
+	if !p.Valid() {
+		return nil, fmt.Errorf("layers: unknown precision %d", uint8(p))
+	}
+	return []byte(p.String()), nil
+}
+
+// UnmarshalText reads "float32" or "float64".
+func (p *Precision) UnmarshalText(b []byte) error {
+	switch string(b) {
+	case "float32":
+		*p = Float32
+	case "float64":
+		*p = Float64
+	default:
+		return fmt.Errorf("layers: unknown precision %q", b)
+	}
+	return nil
+}

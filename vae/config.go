@@ -98,7 +98,7 @@ type Config struct {
 	Rate float64
 	// RateSchedule multiplies Rate per update (see package optim); nil
 	// keeps it constant.
-	RateSchedule optim.Schedule
+	RateSchedule optim.Schedule `json:"-"`
 	// WeightDecay is AdamW's decoupled weight decay. Default 0.
 	WeightDecay float64
 	// ClipNorm clips gradients to this global norm when > 0.

@@ -475,6 +475,11 @@ type CompileOptions struct {
 	Grad bool
 	// Outputs are extra nodes whose values are copied out after each run.
 	Outputs []*Node
+	// Wrt, when not nil, limits the gradient to these parameters (still
+	// skipping frozen ones): a GAN's discriminator phase differentiates
+	// only the discriminator although the generator is in the graph, and
+	// the generator's weights stay untouched.
+	Wrt []*layers.Param
 }
 
 // Compile finishes construction and returns a runnable program. loss must
@@ -499,8 +504,12 @@ func (gr *Graph) Compile(loss *Node, opt CompileOptions) (*Program, error) {
 	p := &Program{loss: loss.n, outs: opt.Outputs, inputs: gr.byName, prec: gr.prec}
 	if opt.Grad {
 		var wrt G.Nodes
+		allowed := map[*layers.Param]bool{}
+		for _, q := range opt.Wrt {
+			allowed[q] = true
+		}
 		for _, q := range gr.params {
-			if !q.Frozen() {
+			if !q.Frozen() && (opt.Wrt == nil || allowed[q]) {
 				p.params = append(p.params, q)
 				wrt = append(wrt, gr.pnodes[q])
 			}
@@ -778,4 +787,16 @@ func (gr *Graph) Failf(format string, args ...any) {
 	if gr.err == nil {
 		gr.err = fmt.Errorf(format, args...)
 	}
+}
+
+// Reshape views x as rows x cols (same number of elements, row-major).
+func (gr *Graph) Reshape(x *Node, rows, cols int) *Node {
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	if rows*cols != x.rows*x.cols || rows <= 0 {
+		return gr.fail("reshape", fmt.Errorf("%dx%d cannot become %dx%d", x.rows, x.cols, rows, cols))
+	}
+	n, err := G.Reshape(x.n, tensor.Shape{rows, cols})
+	return gr.wrap("reshape", n, err, rows, cols)
 }

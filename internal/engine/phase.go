@@ -16,6 +16,7 @@ type BuildFunc func(g *Graph, batch int) (loss *Node, outputs []*Node)
 type Phase struct {
 	prec  layers.Precision
 	grad  bool
+	wrt   []*layers.Param
 	build BuildFunc
 	progs map[int]*Program
 }
@@ -36,7 +37,7 @@ func (ph *Phase) Program(batch int) (*Program, error) {
 	}
 	g := NewGraph(ph.prec)
 	loss, outs := ph.build(g, batch)
-	p, err := g.Compile(loss, CompileOptions{Grad: ph.grad, Outputs: outs})
+	p, err := g.Compile(loss, CompileOptions{Grad: ph.grad, Outputs: outs, Wrt: ph.wrt})
 	if err != nil {
 		return nil, fmt.Errorf("engine: batch %d: %w", batch, err)
 	}
@@ -54,4 +55,11 @@ func (ph *Phase) Close() error {
 		delete(ph.progs, b)
 	}
 	return first
+}
+
+// Only limits the gradients of the phase's programs to params (see
+// CompileOptions.Wrt). Call it before the first Program.
+func (ph *Phase) Only(params []*layers.Param) *Phase {
+	ph.wrt = params
+	return ph
 }

@@ -1,0 +1,150 @@
+package gan
+
+import (
+	"fmt"
+	"math/rand/v2"
+
+	"github.com/quernlab/quern/layers"
+)
+
+type work struct {
+	ws  layers.Workspace
+	in  []float32
+	in6 []float64
+}
+
+func (m *Model) getWork() *work {
+	if w, ok := m.pool.Get().(*work); ok {
+		return w
+	}
+	return &work{}
+}
+
+func (m *Model) forward(w *work, net *layers.MLP, in []float64, rows int) ([]float64, error) {
+	if m.cfg.Precision == layers.Float64 {
+		out, err := net.Forward64(in, rows, &w.ws)
+		if err != nil {
+			return nil, err
+		}
+		return append([]float64(nil), out...), nil
+	}
+	if cap(w.in) < len(in) {
+		w.in = make([]float32, len(in))
+	}
+	w.in = w.in[:len(in)]
+	for i, v := range in {
+		w.in[i] = float32(v)
+	}
+	out, err := net.Forward32(w.in, rows, &w.ws)
+	if err != nil {
+		return nil, err
+	}
+	r := make([]float64, len(out))
+	for i, v := range out {
+		r[i] = float64(v)
+	}
+	return r, nil
+}
+
+// Generate draws n rows (raw units) from noise seeded by seed. For a
+// conditional model, class picks the class of every row, or -1 draws
+// classes uniformly.
+func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
+	c := m.cfg
+	if n < 0 {
+		return nil, fmt.Errorf("gan: sample count %d", n)
+	}
+	if c.Classes > 0 && (class < -1 || class >= c.Classes) {
+		return nil, fmt.Errorf("gan: class %d outside -1..%d", class, c.Classes-1)
+	}
+	if c.Classes == 0 && class > 0 {
+		return nil, fmt.Errorf("gan: class %d asked of an unconditional model", class)
+	}
+	rng := rand.New(rand.NewPCG(seed, 0x6e))
+	width := c.Noise + c.Classes
+	z := make([]float64, n*width)
+	for r := 0; r < n; r++ {
+		for j := 0; j < c.Noise; j++ {
+			z[r*width+j] = rng.NormFloat64()
+		}
+		if c.Classes > 0 {
+			k := class
+			if k < 0 {
+				k = rng.IntN(c.Classes)
+			}
+			z[r*width+c.Noise+k] = 1
+		}
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	out, err := m.forward(w, m.Generator, z, n)
+	if err != nil {
+		return nil, err
+	}
+	res := make([]float32, len(out))
+	for i, v := range out {
+		res[i] = float32(v)
+	}
+	if m.Scaler != nil {
+		m.Scaler.InvertRows(res)
+	}
+	return res, nil
+}
+
+// Discriminate returns the discriminator's probability that each pack of
+// raw rows is real (one value per Pack rows; for a Wasserstein critic, the
+// critic's raw output). labels is needed by conditional models.
+func (m *Model) Discriminate(x []float32, rows int, labels []int) ([]float64, error) {
+	c := m.cfg
+	if rows < 0 || len(x) != rows*c.Outputs {
+		return nil, fmt.Errorf("gan: input has %d values, want %d rows x %d columns", len(x), rows, c.Outputs)
+	}
+	if rows%c.Pack != 0 {
+		return nil, fmt.Errorf("gan: %d rows are not whole packs of %d", rows, c.Pack)
+	}
+	if c.Classes > 0 && len(labels) != rows {
+		return nil, fmt.Errorf("gan: a conditional model needs %d labels, got %d", rows, len(labels))
+	}
+	s := append([]float32(nil), x...)
+	if m.Scaler != nil {
+		m.Scaler.ApplyRows(s)
+	}
+	width := c.Outputs + c.Classes
+	in := make([]float64, rows*width)
+	for r := 0; r < rows; r++ {
+		for j := 0; j < c.Outputs; j++ {
+			v := float64(s[r*c.Outputs+j])
+			if v-v != 0 {
+				return nil, fmt.Errorf("gan: row %d column %d is %v", r+1, j+1, v)
+			}
+			in[r*width+j] = v
+		}
+		if c.Classes > 0 {
+			if labels[r] < 0 || labels[r] >= c.Classes {
+				return nil, fmt.Errorf("gan: row %d has label %d", r+1, labels[r])
+			}
+			in[r*width+c.Outputs+labels[r]] = 1
+		}
+	}
+	// apply the discriminator layer by layer with spectral scaling
+	h, n := in, rows/c.Pack
+	for l, d := range m.Discriminator.Layers {
+		out := make([]float64, n*d.Out)
+		for r := 0; r < n; r++ {
+			for j := 0; j < d.Out; j++ {
+				acc := d.B.At(j)
+				for i := 0; i < d.In; i++ {
+					acc += h[r*d.In+i] * d.W.At(i*d.Out+j) * m.invSigma[l]
+				}
+				out[r*d.Out+j] = d.Act.Eval(acc, d.Slope)
+			}
+		}
+		h = out
+	}
+	if c.Critic == BCECritic {
+		for i, v := range h {
+			h[i] = layers.Sigmoid.Eval(v, 0)
+		}
+	}
+	return h, nil
+}

@@ -1,0 +1,334 @@
+package modelfile
+
+import (
+	"bufio"
+	"bytes"
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+)
+
+// Magic opens every quern model file.
+var Magic = [8]byte{'Q', 'U', 'E', 'R', 'N', 'M', 'D', 'L'}
+
+// Version is the format version this package writes; it reads versions up
+// to and including it.
+const Version = 1
+
+// Limits a reader enforces before allocating.
+const (
+	MaxMetaBytes = 16 << 20
+	MaxNameBytes = 1024
+	MaxTensors   = 1 << 16
+)
+
+// Tensor dtypes.
+const (
+	Float32 uint8 = 1
+	Float64 uint8 = 2
+)
+
+// Tensor is one named matrix. Exactly one of F32 and F64 holds its values.
+type Tensor struct {
+	Name       string
+	Rows, Cols int
+	F32        []float32
+	F64        []float64
+}
+
+// File is a model file's content: a kind ("ae", "vae", "gan", or a
+// checkpoint of one), JSON metadata, and named tensors.
+type File struct {
+	Kind    string
+	Meta    json.RawMessage
+	Tensors []Tensor
+}
+
+// Tensor returns the tensor with the given name.
+func (f *File) Tensor(name string) (*Tensor, bool) {
+	for i := range f.Tensors {
+		if f.Tensors[i].Name == name {
+			return &f.Tensors[i], true
+		}
+	}
+	return nil, false
+}
+
+// CorruptError reports a file that is not a valid model file: its path,
+// the byte offset where reading failed, and why.
+type CorruptError struct {
+	Path   string
+	Offset int64
+	Msg    string
+}
+
+func (e *CorruptError) Error() string {
+	return fmt.Sprintf("modelfile: %s: corrupt at byte %d: %s", e.Path, e.Offset, e.Msg)
+}
+
+// ErrVersion is wrapped when a file was written by a newer format version.
+var ErrVersion = errors.New("modelfile: file written by a newer format version")
+
+// header layout: magic (8) | version u16 | kind length u16 | kind |
+// meta length u32 | meta | tensor count u32 | tensors | sha256 (32) of all
+// preceding bytes. Tensor: name length u16 | name | rows u32 | cols u32 |
+// dtype u8 | values little-endian. All integers little-endian.
+
+// Encode writes f to w in the model-file format.
+func Encode(w io.Writer, f *File) error {
+	if len(f.Kind) > MaxNameBytes || len(f.Meta) > MaxMetaBytes || len(f.Tensors) > MaxTensors {
+		return fmt.Errorf("modelfile: kind, metadata or tensor count over the format's limits")
+	}
+	h := sha256.New()
+	bw := bufio.NewWriter(io.MultiWriter(w, h))
+	le := binary.LittleEndian
+	var b [8]byte
+	bw.Write(Magic[:])
+	le.PutUint16(b[:], Version)
+	bw.Write(b[:2])
+	le.PutUint16(b[:], uint16(len(f.Kind)))
+	bw.Write(b[:2])
+	bw.WriteString(f.Kind)
+	le.PutUint32(b[:], uint32(len(f.Meta)))
+	bw.Write(b[:4])
+	bw.Write(f.Meta)
+	le.PutUint32(b[:], uint32(len(f.Tensors)))
+	bw.Write(b[:4])
+	for _, t := range f.Tensors {
+		if len(t.Name) == 0 || len(t.Name) > MaxNameBytes {
+			return fmt.Errorf("modelfile: tensor name %q length out of range", t.Name)
+		}
+		n := t.Rows * t.Cols
+		if t.Rows <= 0 || t.Cols <= 0 || (len(t.F32) != n) == (len(t.F64) != n) {
+			return fmt.Errorf("modelfile: tensor %q: %dx%d with %d float32 and %d float64 values", t.Name, t.Rows, t.Cols, len(t.F32), len(t.F64))
+		}
+		le.PutUint16(b[:], uint16(len(t.Name)))
+		bw.Write(b[:2])
+		bw.WriteString(t.Name)
+		le.PutUint32(b[:], uint32(t.Rows))
+		bw.Write(b[:4])
+		le.PutUint32(b[:], uint32(t.Cols))
+		bw.Write(b[:4])
+		if t.F32 != nil {
+			bw.WriteByte(Float32)
+			for _, v := range t.F32 {
+				le.PutUint32(b[:], math.Float32bits(v))
+				bw.Write(b[:4])
+			}
+		} else {
+			bw.WriteByte(Float64)
+			for _, v := range t.F64 {
+				le.PutUint64(b[:], math.Float64bits(v))
+				bw.Write(b[:8])
+			}
+		}
+	}
+	if err := bw.Flush(); err != nil {
+		return fmt.Errorf("modelfile: %w", err)
+	}
+	_, err := w.Write(h.Sum(nil))
+	if err != nil {
+		return fmt.Errorf("modelfile: %w", err)
+	}
+	return nil
+}
+
+// Decode parses a whole model file held in b; path is used in errors. It
+// never allocates more than the input's size justifies and never panics.
+func Decode(b []byte, path string) (*File, error) {
+	bad := func(off int, format string, args ...any) error {
+		return &CorruptError{Path: path, Offset: int64(off), Msg: fmt.Sprintf(format, args...)}
+	}
+	if len(b) < 8+2+2+4+4+32 {
+		return nil, bad(0, "%d bytes is too short for a model file", len(b))
+	}
+	if !bytes.Equal(b[:8], Magic[:]) {
+		return nil, bad(0, "not a quern model file")
+	}
+	le := binary.LittleEndian
+	if v := le.Uint16(b[8:]); v > Version || v == 0 {
+		if v > Version {
+			return nil, fmt.Errorf("%w: %s has version %d, this build reads up to %d", ErrVersion, path, v, Version)
+		}
+		return nil, bad(8, "version 0")
+	}
+	body, sum := b[:len(b)-32], b[len(b)-32:]
+	got := sha256.Sum256(body)
+	if !bytes.Equal(got[:], sum) {
+		return nil, bad(len(body), "checksum mismatch (truncated or altered)")
+	}
+	p := 10
+	need := func(n int) bool { return n >= 0 && p+n <= len(body) }
+	if !need(2) {
+		return nil, bad(p, "missing kind")
+	}
+	kl := int(le.Uint16(body[p:]))
+	p += 2
+	if kl > MaxNameBytes || !need(kl) {
+		return nil, bad(p, "kind length %d", kl)
+	}
+	f := &File{Kind: string(body[p : p+kl])}
+	p += kl
+	if !need(4) {
+		return nil, bad(p, "missing metadata length")
+	}
+	ml := int(le.Uint32(body[p:]))
+	p += 4
+	if ml > MaxMetaBytes || !need(ml) {
+		return nil, bad(p, "metadata length %d exceeds the file", ml)
+	}
+	f.Meta = append(json.RawMessage(nil), body[p:p+ml]...)
+	if ml > 0 && !json.Valid(f.Meta) {
+		return nil, bad(p, "metadata is not valid JSON")
+	}
+	p += ml
+	if !need(4) {
+		return nil, bad(p, "missing tensor count")
+	}
+	nt := int(le.Uint32(body[p:]))
+	p += 4
+	// each tensor takes at least 2+1+4+4+1+4 bytes
+	if nt > MaxTensors || nt*16 > len(body)-p {
+		return nil, bad(p, "tensor count %d exceeds the file", nt)
+	}
+	seen := map[string]bool{}
+	for i := 0; i < nt; i++ {
+		if !need(2) {
+			return nil, bad(p, "tensor %d: truncated", i)
+		}
+		nl := int(le.Uint16(body[p:]))
+		p += 2
+		if nl == 0 || nl > MaxNameBytes || !need(nl+9) {
+			return nil, bad(p, "tensor %d: name length %d", i, nl)
+		}
+		t := Tensor{Name: string(body[p : p+nl])}
+		p += nl
+		if seen[t.Name] {
+			return nil, bad(p, "duplicate tensor %q", t.Name)
+		}
+		seen[t.Name] = true
+		rows, cols := int64(le.Uint32(body[p:])), int64(le.Uint32(body[p+4:]))
+		dt := body[p+8]
+		p += 9
+		size := int64(4)
+		if dt == Float64 {
+			size = 8
+		} else if dt != Float32 {
+			return nil, bad(p-1, "tensor %q: unknown dtype %d", t.Name, dt)
+		}
+		if rows == 0 || cols == 0 || rows*cols > int64(len(body)-p)/size {
+			return nil, bad(p, "tensor %q: shape %dx%d exceeds the file", t.Name, rows, cols)
+		}
+		t.Rows, t.Cols = int(rows), int(cols)
+		n := t.Rows * t.Cols
+		if dt == Float32 {
+			t.F32 = make([]float32, n)
+			for k := range t.F32 {
+				t.F32[k] = math.Float32frombits(le.Uint32(body[p+4*k:]))
+			}
+		} else {
+			t.F64 = make([]float64, n)
+			for k := range t.F64 {
+				t.F64[k] = math.Float64frombits(le.Uint64(body[p+8*k:]))
+			}
+		}
+		p += n * int(size)
+		f.Tensors = append(f.Tensors, t)
+	}
+	if p != len(body) {
+		return nil, bad(p, "%d unexpected bytes after the tensors", len(body)-p)
+	}
+	return f, nil
+}
+
+// Read loads and checks a model file. The file's size bounds everything
+// read; a file over limit bytes (0 means 4 GiB) is refused.
+func Read(path string, limit int64) (*File, error) {
+	if limit <= 0 {
+		limit = 4 << 30
+	}
+	fh, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("modelfile: %w", err)
+	}
+	defer fh.Close()
+	st, err := fh.Stat()
+	if err != nil {
+		return nil, fmt.Errorf("modelfile: %w", err)
+	}
+	if st.Size() > limit {
+		return nil, &CorruptError{Path: path, Msg: fmt.Sprintf("file is %d bytes, over the %d-byte limit", st.Size(), limit)}
+	}
+	b := make([]byte, st.Size())
+	if _, err := io.ReadFull(fh, b); err != nil {
+		return nil, fmt.Errorf("modelfile: %s: %w", path, err)
+	}
+	return Decode(b, path)
+}
+
+// Write stores f at path atomically: it writes a temporary file in the same
+// folder, syncs it, renames it over path and syncs the folder, so a crash
+// at any point leaves either the old file or the new one, never a mix.
+func Write(path string, f *File) error {
+	dir := filepath.Dir(path)
+	tmp, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp-*")
+	if err != nil {
+		return fmt.Errorf("modelfile: %w", err)
+	}
+	name := tmp.Name()
+	ok := false
+	defer func() {
+		if !ok {
+			tmp.Close()
+			os.Remove(name)
+		}
+	}()
+	if err := Encode(tmp, f); err != nil {
+		return err
+	}
+	if err := tmp.Sync(); err != nil {
+		return fmt.Errorf("modelfile: %w", err)
+	}
+	if err := tmp.Close(); err != nil {
+		return fmt.Errorf("modelfile: %w", err)
+	}
+	if err := beforeRename(name); err != nil {
+		return err
+	}
+	if err := os.Rename(name, path); err != nil {
+		return fmt.Errorf("modelfile: %w", err)
+	}
+	ok = true
+	if d, err := os.Open(dir); err == nil {
+		d.Sync()
+		d.Close()
+	}
+	return nil
+}
+
+// beforeRename is a test hook that simulates a crash between writing the
+// temporary file and renaming it.
+var beforeRename = func(string) error { return nil }
+
+func sha256Sum(b []byte) []byte {
+	s := sha256.Sum256(b)
+	return s[:]
+}
+
+// Provenance records where a model came from. It is stored in the
+// metadata of every model file that quern writes.
+type Provenance struct {
+	// DataFile is the training data's path as given.
+	DataFile string `json:"data_file,omitempty"`
+	// DataFingerprint is the SHA-256 of the loaded training rows.
+	DataFingerprint string `json:"data_fingerprint,omitempty"`
+	DataRows        int    `json:"data_rows,omitempty"`
+	// Training holds the training options (epochs, batch size, ...).
+	Training map[string]any `json:"training,omitempty"`
+}

@@ -1,0 +1,122 @@
+package vae
+
+import (
+	"encoding/json"
+	"fmt"
+
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/persist"
+	"github.com/quernlab/quern/modelfile"
+	"github.com/quernlab/quern/train"
+)
+
+// Kind is the model-file kind of a VAE.
+const Kind = "vae"
+
+type meta struct {
+	Config     Config                `json:"config"`
+	Scaler     *data.Scaler          `json:"scaler,omitempty"`
+	Columns    []string              `json:"columns,omitempty"`
+	Image      []int                 `json:"image,omitempty"`
+	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
+	Resume     *resume               `json:"resume,omitempty"`
+}
+
+type resume struct {
+	Optim   persist.OptimState `json:"optimizer"`
+	Noise   string             `json:"noise_generator"`
+	Shuffle string             `json:"shuffle_generator"`
+	History *train.History     `json:"history"`
+}
+
+const optimPrefix = "optimizer/"
+
+// File converts the model to a model file; with history not nil it is a
+// checkpoint that also holds the optimiser, generator states and history.
+func (m *Model) File(prov *modelfile.Provenance, history *train.History) (*modelfile.File, error) {
+	md := meta{Config: m.cfg, Scaler: m.Scaler, Columns: m.Columns, Image: m.Image, Provenance: prov}
+	f := &modelfile.File{Kind: Kind, Tensors: persist.Params(m.Params())}
+	if history != nil {
+		ts, os := persist.Optimizer(m.opt, optimPrefix)
+		f.Tensors = append(f.Tensors, ts...)
+		r := &resume{Optim: os, History: history}
+		var err error
+		if r.Noise, err = persist.Generator(m.noisePCG); err != nil {
+			return nil, fmt.Errorf("vae: %w", err)
+		}
+		if r.Shuffle, err = persist.Generator(m.shufflePCG); err != nil {
+			return nil, fmt.Errorf("vae: %w", err)
+		}
+		md.Resume = r
+	}
+	b, err := json.Marshal(md)
+	if err != nil {
+		return nil, fmt.Errorf("vae: %w", err)
+	}
+	f.Meta = b
+	return f, nil
+}
+
+// Save writes the model (without training state) to path atomically.
+func (m *Model) Save(path string, prov *modelfile.Provenance) error {
+	f, err := m.File(prov, nil)
+	if err != nil {
+		return err
+	}
+	return modelfile.Write(path, f)
+}
+
+// FromFile rebuilds a model from a model file, restoring training state
+// and returning the history when the file is a checkpoint.
+func FromFile(f *modelfile.File) (*Model, *train.History, *modelfile.Provenance, error) {
+	if f.Kind != Kind {
+		return nil, nil, nil, fmt.Errorf("vae: model file holds a %q model", f.Kind)
+	}
+	var md meta
+	if err := json.Unmarshal(f.Meta, &md); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: model metadata: %w", err)
+	}
+	m, err := New(md.Config)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	if err := persist.SetParams(f, m.Params()); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	}
+	if err := persist.CheckNoExtra(f, m.Params(), optimPrefix); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	}
+	if md.Scaler != nil {
+		if err := md.Scaler.Validate(md.Config.Inputs); err != nil {
+			return nil, nil, nil, fmt.Errorf("vae: %w", err)
+		}
+	}
+	m.Scaler, m.Columns, m.Image = md.Scaler, md.Columns, md.Image
+	if md.Resume == nil {
+		return m, nil, md.Provenance, nil
+	}
+	r := md.Resume
+	if err := persist.SetOptimizer(m.opt, f, optimPrefix, r.Optim); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	}
+	if err := persist.SetGenerator(m.noisePCG, r.Noise); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	}
+	if err := persist.SetGenerator(m.shufflePCG, r.Shuffle); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	}
+	if r.History == nil {
+		r.History = &train.History{}
+	}
+	return m, r.History, md.Provenance, nil
+}
+
+// Load reads a model file written by Save (or a checkpoint).
+func Load(path string) (*Model, error) {
+	f, err := modelfile.Read(path, 0)
+	if err != nil {
+		return nil, err
+	}
+	m, _, _, err := FromFile(f)
+	return m, err
+}
