@@ -3,8 +3,8 @@ package gan
 import (
 	"context"
 	"math"
-	"os"
 	"math/rand/v2"
+	"os"
 	"testing"
 
 	"github.com/quernlab/quern/data"

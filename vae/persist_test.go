@@ -10,7 +10,6 @@ import (
 	"github.com/stretchr/testify/require"
 )
 
-
 func TestCheckpointResumeIsBitwise(t *testing.T) {
 	d := ppcaData(300, 8, 2, 0.5, 11, 1)
 	cfg := Config{Inputs: 8, Hidden: []int{8}, Latent: 2, Likelihood: GaussianLearned, Schedule: BetaSchedule{Kind: Cyclical, Steps: 7}, FreeBits: 0.1, Seed: 5}
