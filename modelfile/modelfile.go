@@ -152,16 +152,20 @@ func Decode(b []byte, path string) (*File, error) {
 		return nil, bad(0, "not a quern model file")
 	}
 	le := binary.LittleEndian
-	if v := le.Uint16(b[8:]); v > Version || v == 0 {
-		if v > Version {
-			return nil, fmt.Errorf("%w: %s has version %d, this build reads up to %d", ErrVersion, path, v, Version)
-		}
-		return nil, bad(8, "version 0")
-	}
+	v := le.Uint16(b[8:])
 	body, sum := b[:len(b)-32], b[len(b)-32:]
 	got := sha256.Sum256(body)
 	if !bytes.Equal(got[:], sum) {
+		if v > Version {
+			return nil, bad(len(body), "checksum mismatch (truncated or altered, or written by a newer format version %d)", v)
+		}
 		return nil, bad(len(body), "checksum mismatch (truncated or altered)")
+	}
+	if v > Version {
+		return nil, fmt.Errorf("%w: %s has version %d, this build reads up to %d", ErrVersion, path, v, Version)
+	}
+	if v == 0 {
+		return nil, bad(8, "version 0")
 	}
 	p := 10
 	need := func(n int) bool { return n >= 0 && p+n <= len(body) }

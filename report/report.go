@@ -62,6 +62,9 @@ func LossCurves(path string, h *train.History, metrics []string) error {
 		if metrics != nil && !want[m.Name] {
 			continue
 		}
+		if i > 0 && sameSeries(h, 0, i) {
+			continue // e.g. a reconstruction term that is the whole loss
+		}
 		pts := make(plotter.XYs, len(h.Epochs))
 		for e, r := range h.Epochs {
 			pts[e].X, pts[e].Y = float64(e+1), r.Train[i].Value
@@ -133,8 +136,7 @@ func ScoreHistogram(path string, scores []float64, threshold float64, positive [
 			return err
 		}
 		c := palette[i]
-		c.A = 160
-		h.FillColor = c
+		h.FillColor = color.NRGBA{c.R, c.G, c.B, 150}
 		h.LineStyle.Width = 0
 		p.Add(h)
 		p.Legend.Add(g.name, h)
@@ -195,6 +197,7 @@ func LatentScatter(path string, codes []float32, labels []int, names []string) e
 			p.Legend.Add(name, s)
 		}
 	}
+	p.Legend.Top = true
 	return save(p, path)
 }
 
@@ -301,4 +304,13 @@ func (pg Page) Write(dir string) error {
 		return fmt.Errorf("report: %w", err)
 	}
 	return f.Close()
+}
+
+func sameSeries(h *train.History, a, b int) bool {
+	for _, r := range h.Epochs {
+		if r.Train[a].Value != r.Train[b].Value {
+			return false
+		}
+	}
+	return true
 }

@@ -1,0 +1,125 @@
+// Command quern trains autoencoders, variational autoencoders and GANs on
+// CPU and uses them: anomaly scores, embeddings, samples, interpolations,
+// an HTTP scoring service, and a demo on an invented pump fleet.
+//
+// Run "quern help" for the commands and "quern COMMAND -h" for the flags
+// of one.
+package main
+
+import (
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"sort"
+	"strings"
+)
+
+type env struct {
+	stdout, stderr io.Writer
+}
+
+type command struct {
+	summary string
+	run     func(e *env, args []string) error
+}
+
+var commands map[string]command
+
+func init() {
+	commands = map[string]command{
+		"train":       {"train a model on CSV, idx or a folder of PNG images", cmdTrain},
+		"score":       {"score CSV rows with an autoencoder's anomaly threshold", cmdScore},
+		"encode":      {"write the codes (embeddings) of rows", cmdEncode},
+		"sample":      {"draw samples from a VAE or GAN (CSV or PNG grid)", cmdSample},
+		"interpolate": {"decode a path between two rows' codes", cmdInterpolate},
+		"inspect":     {"describe a model file and check it", cmdInspect},
+		"demo":        {"run the whole job on an invented pump fleet", cmdDemo},
+	}
+}
+
+// usageError marks errors that should exit with status 2.
+type usageError struct{ msg string }
+
+func (u usageError) Error() string { return u.msg }
+
+func usagef(format string, args ...any) error { return usageError{fmt.Sprintf(format, args...)} }
+
+func main() { os.Exit(run(os.Args[1:], &env{stdout: os.Stdout, stderr: os.Stderr})) }
+
+func run(args []string, e *env) int {
+	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" || args[0] == "-help" {
+		usage(e.stderr)
+		if len(args) == 0 {
+			return 2
+		}
+		return 0
+	}
+	c, ok := commands[args[0]]
+	if !ok {
+		fmt.Fprintf(e.stderr, "quern: unknown command %q\n", args[0])
+		usage(e.stderr)
+		return 2
+	}
+	err := c.run(e, args[1:])
+	switch {
+	case err == nil:
+		return 0
+	case errors.Is(err, flag.ErrHelp):
+		return 0
+	}
+	var u usageError
+	if errors.As(err, &u) {
+		fmt.Fprintf(e.stderr, "quern %s: %s\n", args[0], oneLine(err.Error()))
+		return 2
+	}
+	fmt.Fprintf(e.stderr, "quern %s: %s\n", args[0], oneLine(err.Error()))
+	return 1
+}
+
+func oneLine(s string) string { return strings.ReplaceAll(strings.TrimSpace(s), "\n", "; ") }
+
+func usage(w io.Writer) {
+	fmt.Fprintln(w, "usage: quern COMMAND [flags]")
+	fmt.Fprintln(w, "\ncommands:")
+	names := make([]string, 0, len(commands))
+	for n := range commands {
+		names = append(names, n)
+	}
+	sort.Strings(names)
+	for _, n := range names {
+		fmt.Fprintf(w, "  %-12s %s\n", n, commands[n].summary)
+	}
+	fmt.Fprintln(w, "\nRun \"quern COMMAND -h\" for a command's flags.")
+}
+
+// newFlags returns a flag set that reports errors instead of exiting.
+func newFlags(e *env, name, synopsis string) *flag.FlagSet {
+	fs := flag.NewFlagSet("quern "+name, flag.ContinueOnError)
+	fs.SetOutput(e.stderr)
+	fs.Usage = func() {
+		fmt.Fprintf(e.stderr, "usage: quern %s %s\n\nflags:\n", name, synopsis)
+		fs.PrintDefaults()
+	}
+	return fs
+}
+
+// parse parses flags, turning flag errors into usage errors and refusing
+// more than positional stray arguments.
+func parse(e *env, fs *flag.FlagSet, args []string, positional int) ([]string, error) {
+	fs.SetOutput(io.Discard)
+	err := fs.Parse(args)
+	fs.SetOutput(e.stderr)
+	if errors.Is(err, flag.ErrHelp) {
+		fs.Usage()
+		return nil, flag.ErrHelp
+	}
+	if err != nil {
+		return nil, usageError{err.Error()}
+	}
+	if fs.NArg() > positional {
+		return nil, usagef("unexpected argument %q", fs.Arg(positional))
+	}
+	return fs.Args(), nil
+}

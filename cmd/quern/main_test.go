@@ -1,0 +1,241 @@
+package main
+
+import (
+	"bytes"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"runtime"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/quernlab/quern/data"
+	"github.com/stretchr/testify/require"
+)
+
+var bin string
+
+func TestMain(m *testing.M) {
+	dir, err := os.MkdirTemp("", "quern-bin")
+	if err != nil {
+		panic(err)
+	}
+	bin = filepath.Join(dir, "quern")
+	if runtime.GOOS == "windows" {
+		bin += ".exe"
+	}
+	out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput()
+	if err != nil {
+		os.Stderr.Write(out)
+		panic(err)
+	}
+	code := m.Run()
+	os.RemoveAll(dir)
+	os.Exit(code)
+}
+
+type result struct {
+	code           int
+	stdout, stderr string
+}
+
+func quern(t *testing.T, dir string, env []string, args ...string) result {
+	t.Helper()
+	cmd := exec.Command(bin, args...)
+	cmd.Dir = dir
+	cmd.Env = append(os.Environ(), env...)
+	var so, se bytes.Buffer
+	cmd.Stdout, cmd.Stderr = &so, &se
+	err := cmd.Run()
+	code := 0
+	if ee, ok := err.(*exec.ExitError); ok {
+		code = ee.ExitCode()
+	} else if err != nil {
+		t.Fatal(err)
+	}
+	return result{code, so.String(), se.String()}
+}
+
+func ok(t *testing.T, r result) result {
+	t.Helper()
+	require.Equal(t, 0, r.code, "stderr: %s", r.stderr)
+	return r
+}
+
+func abs(p string) string {
+	a, _ := filepath.Abs(p)
+	return a
+}
+
+var bc = abs("../../testdata/sklearn/breast_cancer.csv")
+var fmImages = abs("../../testdata/fashion-mnist/t10k-images-idx3-ubyte-first500.gz")
+var fmLabels = abs("../../testdata/fashion-mnist/t10k-labels-idx1-ubyte-first500.gz")
+
+func TestTrainScoreEncodeInspectCSV(t *testing.T) {
+	dir := t.TempDir()
+	ok(t, quern(t, dir, nil, "train", "-kind", "ae", "-data", bc, "-no-header", "-skip", "1", "-label", "c30", "-out", "bc.qm",
+		"-epochs", "3", "-hidden", "8", "-latent", "3", "-val", "0.3", "-quiet"))
+	r := ok(t, quern(t, dir, nil, "score", "-model", "bc.qm", "-data", bc, "-no-header", "-skip", "1", "-label", "c30", "-out", "scores.csv"))
+	require.Contains(t, r.stderr, "decision aid")
+	scores, err := data.LoadCSV(filepath.Join(dir, "scores.csv"), data.CSVConfig{Columns: []string{"row", "score", "threshold"}})
+	require.NoError(t, err)
+	require.Equal(t, 569, scores.Rows)
+	head, _ := os.ReadFile(filepath.Join(dir, "scores.csv"))
+	require.True(t, strings.HasPrefix(string(head), "row,score,threshold,anomaly,feature1,share1"))
+	r = ok(t, quern(t, dir, nil, "encode", "-model", "bc.qm", "-data", bc, "-no-header", "-skip", "1", "-label", "c30"))
+	require.Equal(t, 570, strings.Count(r.stdout, "\n"))
+	require.True(t, strings.HasPrefix(r.stdout, "z0,z1,z2\n"))
+	r = ok(t, quern(t, dir, nil, "inspect", "bc.qm"))
+	for _, s := range []string{"kind        ae", "checksum verified", "threshold", "fingerprint", "encoder     30->8"} {
+		require.Contains(t, r.stdout, s)
+	}
+}
+
+func TestImageModels(t *testing.T) {
+	dir := t.TempDir()
+	ok(t, quern(t, dir, nil, "train", "-kind", "vae", "-data", fmImages, "-labels", fmLabels, "-out", "fm.qm", "-epochs", "1", "-hidden", "64", "-latent", "2", "-quiet", "-report", "rep"))
+	ok(t, quern(t, dir, nil, "sample", "-model", "fm.qm", "-n", "8", "-out", "s.png"))
+	ok(t, quern(t, dir, nil, "sample", "-model", "fm.qm", "-n", "3", "-out", "s.csv"))
+	ok(t, quern(t, dir, nil, "interpolate", "-model", "fm.qm", "-data", fmImages, "-from", "1", "-to", "2", "-steps", "5", "-out", "i.png"))
+	for _, f := range []string{"s.png", "i.png", "rep/index.html", "rep/loss.png", "rep/samples.png", "rep/latent.png"} {
+		st, err := os.Stat(filepath.Join(dir, f))
+		require.NoError(t, err, f)
+		require.Greater(t, st.Size(), int64(100), f)
+	}
+	s, err := data.LoadCSV(filepath.Join(dir, "s.csv"), data.CSVConfig{})
+	require.NoError(t, err)
+	require.Equal(t, 3, s.Rows)
+	require.Equal(t, 784, s.Cols)
+
+	// a folder of PNG images, told apart by content, trains a GAN
+	imgs := filepath.Join(dir, "imgs")
+	require.NoError(t, os.Mkdir(imgs, 0o755))
+	fm, err := data.LoadIDX(fmImages, data.IDXConfig{})
+	require.NoError(t, err)
+	for i := 0; i < 40; i++ {
+		require.NoError(t, data.WritePNG(filepath.Join(imgs, fmt.Sprintf("img%03d.png", i)), fm.Row(i), 28, 28, 1))
+	}
+	ok(t, quern(t, dir, nil, "train", "-kind", "gan", "-data", imgs, "-out", "g.qm", "-epochs", "1", "-hidden", "32", "-batch", "8", "-quiet"))
+	ok(t, quern(t, dir, nil, "sample", "-model", "g.qm", "-n", "4", "-out", "g.png"))
+	r := ok(t, quern(t, dir, nil, "inspect", "g.qm"))
+	require.Contains(t, r.stdout, "generator")
+}
+
+// Bad input gives a one-line error naming the problem and a non-zero exit,
+// never a stack trace; usage errors exit with 2.
+func TestBadInput(t *testing.T) {
+	dir := t.TempDir()
+	write := func(name, s string) string {
+		p := filepath.Join(dir, name)
+		require.NoError(t, os.WriteFile(p, []byte(s), 0o644))
+		return p
+	}
+	mixed := filepath.Join(dir, "mixed")
+	require.NoError(t, os.Mkdir(mixed, 0o755))
+	require.NoError(t, data.WritePNG(filepath.Join(mixed, "a.png"), make([]float32, 4), 2, 2, 1))
+	require.NoError(t, data.WritePNG(filepath.Join(mixed, "b.png"), make([]float32, 6), 2, 3, 1))
+	cases := []struct {
+		name string
+		args []string
+		code int
+		want string
+	}{
+		{"ragged", []string{"train", "-data", write("r.csv", "a,b\n1,2\n3\n"), "-out", "m.qm"}, 1, "r.csv:3"},
+		{"nan", []string{"train", "-data", write("n.csv", "a,b\n1,2\n3,NaN\n"), "-out", "m.qm"}, 1, "column 2 (b)"},
+		{"idx magic", []string{"train", "-data", write("x.idx", "\x00\x00\x08\x02\x00\x00\x00\x05\x00\x00\x00\x02ab"), "-out", "m.qm"}, 1, "declares"},
+		{"mixed images", []string{"train", "-data", mixed, "-out", "m.qm"}, 1, "b.png"},
+		{"missing file", []string{"train", "-data", filepath.Join(dir, "nope.csv"), "-out", "m.qm"}, 1, "nope.csv"},
+		{"unknown flag", []string{"train", "-bogus"}, 2, "bogus"},
+		{"unknown command", []string{"frobnicate"}, 2, "unknown command"},
+		{"missing out", []string{"train", "-data", bc}, 2, "-out is required"},
+		{"bad kind", []string{"train", "-data", bc, "-out", "m.qm", "-kind", "rbm"}, 2, "-kind"},
+		{"corrupt model", []string{"inspect", write("bad.qm", "QUERNMDL garbage that is long enough to be checked properly..........")}, 1, "corrupt"},
+		{"missing model", []string{"score", "-data", bc}, 2, "-model is required"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			r := quern(t, dir, nil, c.args...)
+			require.Equal(t, c.code, r.code, r.stderr)
+			require.Contains(t, r.stderr, c.want)
+			require.NotContains(t, r.stderr, "goroutine")
+			require.NotContains(t, r.stderr, "panic")
+			if c.code == 1 {
+				require.Equal(t, 1, strings.Count(strings.TrimSpace(r.stderr), "\n")+1, "one line: %q", r.stderr)
+			}
+		})
+	}
+	r := quern(t, dir, nil, "train", "-h")
+	require.Equal(t, 0, r.code)
+	require.Contains(t, r.stderr, "-kind")
+}
+
+func resumeArgs() []string {
+	return []string{"train", "-kind", "ae", "-data", bc, "-no-header", "-skip", "1", "-label", "c30", "-out", "m.qm",
+		"-epochs", "6", "-hidden", "8", "-latent", "3", "-val", "0.3", "-every", "1", "-quiet"}
+}
+
+// A run killed during a checkpoint save, then resumed, ends with a model
+// file bitwise identical to an uninterrupted run's.
+func TestResumeAfterCrashDuringSave(t *testing.T) {
+	straight, crashed := t.TempDir(), t.TempDir()
+	ok(t, quern(t, straight, nil, resumeArgs()...))
+	r := quern(t, crashed, []string{"QUERN_TEST_CRASH_IN_SAVE=3"}, resumeArgs()...)
+	require.Equal(t, 3, r.code, r.stderr)
+	_, err := os.Stat(filepath.Join(crashed, "m.qm"))
+	require.True(t, os.IsNotExist(err))
+	ok(t, quern(t, crashed, nil, "train", "-resume", "m.qm.ckpt", "-quiet"))
+	a, err := os.ReadFile(filepath.Join(straight, "m.qm"))
+	require.NoError(t, err)
+	b, err := os.ReadFile(filepath.Join(crashed, "m.qm"))
+	require.NoError(t, err)
+	require.True(t, bytes.Equal(a, b), "resumed model differs from the uninterrupted one")
+	r = quern(t, crashed, nil, "train", "-resume", "m.qm.ckpt", "-epochs", "9")
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, "cannot be changed")
+}
+
+// A run killed by SIGKILL once its first checkpoint exists also resumes to
+// the same model.
+func TestResumeAfterKill(t *testing.T) {
+	if runtime.GOOS == "windows" {
+		t.Skip("no SIGKILL")
+	}
+	straight, killed := t.TempDir(), t.TempDir()
+	ok(t, quern(t, straight, nil, resumeArgs()...))
+	cmd := exec.Command(bin, resumeArgs()...)
+	cmd.Dir = killed
+	require.NoError(t, cmd.Start())
+	deadline := time.Now().Add(30 * time.Second)
+	for time.Now().Before(deadline) {
+		if _, err := os.Stat(filepath.Join(killed, "m.qm.ckpt")); err == nil {
+			break
+		}
+		time.Sleep(2 * time.Millisecond)
+	}
+	cmd.Process.Signal(syscall.SIGKILL)
+	cmd.Wait()
+	if _, err := os.Stat(filepath.Join(killed, "m.qm.ckpt")); err != nil {
+		t.Skip("the run ended before a checkpoint appeared")
+	}
+	ok(t, quern(t, killed, nil, "train", "-resume", "m.qm.ckpt", "-quiet"))
+	a, _ := os.ReadFile(filepath.Join(straight, "m.qm"))
+	b, _ := os.ReadFile(filepath.Join(killed, "m.qm"))
+	require.True(t, bytes.Equal(a, b), "resumed model differs from the uninterrupted one")
+}
+
+func TestDemoShort(t *testing.T) {
+	dir := t.TempDir()
+	r := ok(t, quern(t, dir, nil, "demo", "-short", "-out", "d", "-quiet"))
+	require.Empty(t, r.stdout)
+	r = ok(t, quern(t, dir, nil, "demo", "-short", "-out", "d2"))
+	for _, s := range []string{"precision", "recall", "decision aid"} {
+		require.Contains(t, r.stdout, s)
+	}
+	for _, f := range []string{"pumps.qm", "holdout-scores.csv", "report/index.html", "report/scores.png"} {
+		_, err := os.Stat(filepath.Join(dir, "d2", f))
+		require.NoError(t, err, f)
+	}
+}
