@@ -190,20 +190,41 @@ func (m *Model) elemError(target, out float64) float64 {
 // RowErrors returns each row's reconstruction error (the mean of its
 // Contributions): the anomaly score.
 func (m *Model) RowErrors(x []float32, rows int) ([]float64, error) {
-	c, err := m.Contributions(x, rows)
+	return m.RowErrorsInto(nil, x, rows)
+}
+
+// RowErrorsInto is RowErrors writing into dst (grown if too short) and
+// returning it: with a dst of rows entries it allocates nothing in steady
+// state, for hot scoring paths.
+func (m *Model) RowErrorsInto(dst []float64, x []float32, rows int) ([]float64, error) {
+	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	in, out, err := m.reconstructScaled(w, x, rows)
 	if err != nil {
 		return nil, err
 	}
+	dst = grow(dst, rows)
 	cols := m.cfg.Inputs
-	s := make([]float64, rows)
-	for r := range s {
+	for r := range dst {
 		var t float64
-		for _, v := range c[r*cols : (r+1)*cols] {
-			t += v
+		if m.cfg.Loss == BCE {
+			for j := r * cols; j < (r+1)*cols; j++ {
+				t += m.elemError(float64(in[j]), float64(out[j]))
+			}
+		} else {
+			a, o := in[r*cols:(r+1)*cols], out[r*cols:(r+1)*cols]
+			o = o[:len(a)]
+			for j, v := range a {
+				e := float64(v) - float64(o[j])
+				t += e * e
+			}
 		}
-		s[r] = t / float64(cols)
+		dst[r] = t / float64(cols)
 	}
-	return s, nil
+	return dst, nil
 }
 
 // Feature is one column's part in a score.

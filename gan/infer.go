@@ -148,3 +148,14 @@ func (m *Model) Discriminate(x []float32, rows int, labels []int) ([]float64, er
 	}
 	return h, nil
 }
+
+// NoiseRows returns the noise Generate feeds an unconditional generator for
+// n rows with the given seed (n x dim values), for reproducing its output.
+func NoiseRows(n, dim int, seed uint64) []float64 {
+	rng := rand.New(rand.NewPCG(seed, 0x6e))
+	z := make([]float64, n*dim)
+	for i := range z {
+		z[i] = rng.NormFloat64()
+	}
+	return z
+}

@@ -235,8 +235,42 @@ func (m *MLP) Forward64(x []float64, rows int, ws *Workspace) ([]float64, error)
 }
 
 // affine computes dst = x w + b for x (rows x in), w (in x out), b (out).
+// Rows are taken four at a time so that each row of w is loaded once per
+// block; zero inputs (common after ReLU) are skipped.
 func affine[T float32 | float64](dst, x, w, b []T, rows, in, out int) {
-	for r := 0; r < rows; r++ {
+	r := 0
+	for ; r+4 <= rows; r += 4 {
+		d0 := dst[r*out : (r+1)*out]
+		d1 := dst[(r+1)*out : (r+2)*out]
+		d2 := dst[(r+2)*out : (r+3)*out]
+		d3 := dst[(r+3)*out : (r+4)*out]
+		copy(d0, b)
+		copy(d1, b)
+		copy(d2, b)
+		copy(d3, b)
+		x0 := x[r*in : (r+1)*in]
+		x1 := x[(r+1)*in : (r+2)*in]
+		x2 := x[(r+2)*in : (r+3)*in]
+		x3 := x[(r+3)*in : (r+4)*in]
+		for k := 0; k < in; k++ {
+			a0, a1, a2, a3 := x0[k], x1[k], x2[k], x3[k]
+			if a0 == 0 && a1 == 0 && a2 == 0 && a3 == 0 {
+				continue
+			}
+			wk := w[k*out : (k+1)*out]
+			wk = wk[:len(d0)]
+			d1 := d1[:len(wk)]
+			d2 := d2[:len(wk)]
+			d3 := d3[:len(wk)]
+			for j, wv := range wk {
+				d0[j] += a0 * wv
+				d1[j] += a1 * wv
+				d2[j] += a2 * wv
+				d3[j] += a3 * wv
+			}
+		}
+	}
+	for ; r < rows; r++ {
 		d := dst[r*out : (r+1)*out]
 		copy(d, b)
 		xr := x[r*in : (r+1)*in]
@@ -245,8 +279,9 @@ func affine[T float32 | float64](dst, x, w, b []T, rows, in, out int) {
 				continue
 			}
 			wk := w[k*out : (k+1)*out]
-			for j := range d {
-				d[j] += xv * wk[j]
+			wk = wk[:len(d)]
+			for j, wv := range wk {
+				d[j] += xv * wv
 			}
 		}
 	}

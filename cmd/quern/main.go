@@ -36,6 +36,7 @@ func init() {
 		"interpolate": {"decode a path between two rows' codes", cmdInterpolate},
 		"inspect":     {"describe a model file and check it", cmdInspect},
 		"demo":        {"run the whole job on an invented pump fleet", cmdDemo},
+		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
 	}
 }
 

@@ -1,0 +1,68 @@
+package ae
+
+import (
+	"context"
+	"math/rand/v2"
+	"sort"
+	"testing"
+	"time"
+
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/train"
+)
+
+// benchModel is the serving reference shape, a 34-16-4-16-34 autoencoder,
+// trained briefly on random rows (weights only need to be realistic).
+func benchModel(b *testing.B) (*Model, []float32) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	x := make([]float32, 34*4096)
+	for i := range x {
+		x[i] = float32(rng.NormFloat64())
+	}
+	d, _ := data.New(x, 4096, 34)
+	m, err := New(Config{Inputs: 34, Hidden: []int{16}, Latent: 4, Seed: 1})
+	if err != nil {
+		b.Fatal(err)
+	}
+	if _, err := m.Train(context.Background(), d, nil, train.Config{Epochs: 1}); err != nil {
+		b.Fatal(err)
+	}
+	m.Release()
+	return m, x
+}
+
+// BenchmarkScoreOneRow times single-row scores (RowErrorsInto with a
+// reused buffer) and reports the median and 99th percentile latency.
+func BenchmarkScoreOneRow(b *testing.B) {
+	m, x := benchModel(b)
+	dst := make([]float64, 1)
+	lat := make([]time.Duration, 0, b.N)
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		r := i % 4096
+		t0 := time.Now()
+		if _, err := m.RowErrorsInto(dst, x[r*34:(r+1)*34], 1); err != nil {
+			b.Fatal(err)
+		}
+		lat = append(lat, time.Since(t0))
+	}
+	b.StopTimer()
+	sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
+	b.ReportMetric(float64(lat[len(lat)/2].Nanoseconds())/1e3, "p50-us")
+	b.ReportMetric(float64(lat[len(lat)*99/100].Nanoseconds())/1e3, "p99-us")
+}
+
+// BenchmarkScoreBatch scores 4096 rows per call and reports rows/s.
+func BenchmarkScoreBatch(b *testing.B) {
+	m, x := benchModel(b)
+	dst := make([]float64, 4096)
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := m.RowErrorsInto(dst, x, 4096); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(4096*b.N)/b.Elapsed().Seconds(), "rows/s")
+}

@@ -1,0 +1,62 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"log/slog"
+	"net"
+	"os"
+	"os/signal"
+	"syscall"
+	"time"
+
+	"github.com/quernlab/quern/serve"
+)
+
+func cmdServe(e *env, args []string) error {
+	fs := newFlags(e, "serve", "-model MODEL [-addr 127.0.0.1:8417] [flags]")
+	model := fs.String("model", "", "model file to serve (required); reloaded on SIGHUP or POST /admin/reload")
+	addr := fs.String("addr", "127.0.0.1:8417", "listen address (loopback by default)")
+	tokenEnv := fs.String("token-env", "", "name of an environment variable holding a bearer token to require")
+	maxBody := fs.Int64("max-body", 1<<20, "largest request body in bytes")
+	maxRows := fs.Int("max-rows", 1000, "most rows per request")
+	readTO := fs.Duration("read-timeout", 10*time.Second, "read timeout")
+	writeTO := fs.Duration("write-timeout", 30*time.Second, "write timeout")
+	idleTO := fs.Duration("idle-timeout", 60*time.Second, "idle connection timeout")
+	if _, err := parse(e, fs, args, 0); err != nil {
+		return err
+	}
+	if *model == "" {
+		return usagef("-model is required")
+	}
+	token := ""
+	if *tokenEnv != "" {
+		token = os.Getenv(*tokenEnv)
+		if token == "" {
+			return usagef("-token-env %s: the variable is empty", *tokenEnv)
+		}
+	}
+	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+	s, err := serve.New(serve.Config{ModelPath: *model, Token: token, MaxBodyBytes: *maxBody, MaxRows: *maxRows,
+		ReadTimeout: *readTO, WriteTimeout: *writeTO, IdleTimeout: *idleTO, Logger: log})
+	if err != nil {
+		return err
+	}
+	ln, err := net.Listen("tcp", *addr)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	hup := make(chan os.Signal, 1)
+	signal.Notify(hup, syscall.SIGHUP)
+	defer signal.Stop(hup)
+	go func() {
+		for range hup {
+			s.Reload() // logged; a bad file keeps the current model
+		}
+	}()
+	log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind)
+	fmt.Fprintf(e.stderr, "%s\n", "Scores are a decision aid, calibrated only for data like the training data.")
+	return s.Serve(ctx, ln)
+}

@@ -1,0 +1,503 @@
+package serve
+
+import (
+	"context"
+	"crypto/subtle"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"net/http"
+	"strings"
+	"sync/atomic"
+	"time"
+
+	"github.com/quernlab/quern/ae"
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/modelfile"
+	"github.com/quernlab/quern/vae"
+)
+
+// Model is a loaded model of any kind.
+type Model struct {
+	Kind   string
+	Path   string
+	Loaded time.Time
+	AE     *ae.Model
+	VAE    *vae.Model
+	GAN    *gan.Model
+}
+
+// LoadModel reads and checks a model file.
+func LoadModel(path string) (*Model, error) {
+	f, err := modelfile.Read(path, 0)
+	if err != nil {
+		return nil, err
+	}
+	m := &Model{Kind: f.Kind, Path: path, Loaded: time.Now()}
+	switch f.Kind {
+	case ae.Kind:
+		m.AE, _, _, err = ae.FromFile(f)
+	case vae.Kind:
+		m.VAE, _, _, err = vae.FromFile(f)
+	case gan.Kind:
+		m.GAN, _, _, err = gan.FromFile(f)
+	default:
+		err = fmt.Errorf("serve: %s holds an unknown model kind %q", path, f.Kind)
+	}
+	if err != nil {
+		return nil, err
+	}
+	return m, nil
+}
+
+// inputs is the width of the rows the model takes.
+func (m *Model) inputs() int {
+	switch {
+	case m.AE != nil:
+		return m.AE.Config().Inputs
+	case m.VAE != nil:
+		return m.VAE.Config().Inputs
+	}
+	return m.GAN.Config().Outputs
+}
+
+// Config configures a Server. Zero fields mean the documented defaults.
+type Config struct {
+	// ModelPath is the model file to serve (and to reload). Required.
+	ModelPath string
+	// Token, when set, is required as "Authorization: Bearer <token>" on
+	// every route but /healthz and /readyz.
+	Token string
+	// MaxBodyBytes limits request bodies. Default 1 MiB.
+	MaxBodyBytes int64
+	// MaxRows limits rows per request (and samples per sample request).
+	// Default 1000.
+	MaxRows int
+	// ReadTimeout, WriteTimeout and IdleTimeout bound connections.
+	// Defaults 10 s, 30 s and 60 s.
+	ReadTimeout, WriteTimeout, IdleTimeout time.Duration
+	// ShutdownTimeout bounds the wait for requests in flight when the
+	// context ends. Default 30 s.
+	ShutdownTimeout time.Duration
+	// Logger receives structured request logs. Default: discard.
+	Logger *slog.Logger
+}
+
+// Server answers JSON requests with one model, swapped atomically on
+// reload. It is safe for concurrent use.
+type Server struct {
+	cfg   Config
+	model atomic.Pointer[Model]
+	m     *metrics
+	log   *slog.Logger
+	mux   *http.ServeMux
+}
+
+// New loads the model and prepares the routes.
+func New(cfg Config) (*Server, error) {
+	if cfg.ModelPath == "" {
+		return nil, errors.New("serve: ModelPath is required")
+	}
+	if cfg.MaxBodyBytes == 0 {
+		cfg.MaxBodyBytes = 1 << 20
+	}
+	if cfg.MaxRows == 0 {
+		cfg.MaxRows = 1000
+	}
+	if cfg.ReadTimeout == 0 {
+		cfg.ReadTimeout = 10 * time.Second
+	}
+	if cfg.WriteTimeout == 0 {
+		cfg.WriteTimeout = 30 * time.Second
+	}
+	if cfg.IdleTimeout == 0 {
+		cfg.IdleTimeout = 60 * time.Second
+	}
+	if cfg.ShutdownTimeout == 0 {
+		cfg.ShutdownTimeout = 30 * time.Second
+	}
+	if cfg.MaxBodyBytes < 0 || cfg.MaxRows < 0 {
+		return nil, errors.New("serve: negative limits")
+	}
+	if cfg.Logger == nil {
+		cfg.Logger = slog.New(slog.NewTextHandler(discard{}, nil))
+	}
+	s := &Server{cfg: cfg, m: newMetrics(), log: cfg.Logger, mux: http.NewServeMux()}
+	m, err := LoadModel(cfg.ModelPath)
+	if err != nil {
+		return nil, err
+	}
+	s.model.Store(m)
+	s.routes()
+	return s, nil
+}
+
+type discard struct{}
+
+func (discard) Write(p []byte) (int, error) { return len(p), nil }
+
+// Model returns the model being served.
+func (s *Server) Model() *Model { return s.model.Load() }
+
+// Reload reads the model file again and swaps it in atomically. A bad file
+// is refused and the current model keeps serving. Requests in flight
+// finish with the model they started with.
+func (s *Server) Reload() error {
+	m, err := LoadModel(s.cfg.ModelPath)
+	if err != nil {
+		s.m.failures.Add(1)
+		s.log.Error("reload refused; keeping the current model", "path", s.cfg.ModelPath, "error", err.Error())
+		return err
+	}
+	s.model.Store(m)
+	s.m.reloads.Add(1)
+	s.log.Info("model reloaded", "path", s.cfg.ModelPath, "kind", m.Kind)
+	return nil
+}
+
+// Handler returns the HTTP handler.
+func (s *Server) Handler() http.Handler { return s }
+
+// ServeHTTP routes a request, with logging, metrics, limits and auth.
+func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) {
+	start := time.Now()
+	s.m.inflight.Add(1)
+	defer s.m.inflight.Add(-1)
+	rec := &recorder{ResponseWriter: w, code: http.StatusOK}
+	route := "unknown"
+	if _, pattern := s.mux.Handler(r); pattern != "" && pattern != "/" {
+		route = pattern
+	}
+	if s.cfg.Token != "" && route != "/healthz" && route != "/readyz" && !s.authorised(r) {
+		writeError(rec, http.StatusUnauthorized, "missing or wrong bearer token")
+	} else {
+		r.Body = http.MaxBytesReader(rec, r.Body, s.cfg.MaxBodyBytes)
+		s.mux.ServeHTTP(rec, r)
+	}
+	d := time.Since(start)
+	s.m.observe(route, rec.code, d)
+	s.log.Info("request", "method", r.Method, "path", r.URL.Path, "status", rec.code, "duration_us", d.Microseconds(), "bytes", rec.n)
+}
+
+func (s *Server) authorised(r *http.Request) bool {
+	h := r.Header.Get("Authorization")
+	tok, ok := strings.CutPrefix(h, "Bearer ")
+	return ok && subtle.ConstantTimeCompare([]byte(tok), []byte(s.cfg.Token)) == 1
+}
+
+type recorder struct {
+	http.ResponseWriter
+	code int
+	n    int
+}
+
+func (r *recorder) WriteHeader(code int) {
+	r.code = code
+	r.ResponseWriter.WriteHeader(code)
+}
+
+func (r *recorder) Write(b []byte) (int, error) {
+	n, err := r.ResponseWriter.Write(b)
+	r.n += n
+	return n, err
+}
+
+func writeJSON(w http.ResponseWriter, code int, v any) {
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(code)
+	json.NewEncoder(w).Encode(v)
+}
+
+type errorBody struct {
+	Error string `json:"error"`
+}
+
+func writeError(w http.ResponseWriter, code int, format string, args ...any) {
+	writeJSON(w, code, errorBody{Error: fmt.Sprintf(format, args...)})
+}
+
+func (s *Server) routes() {
+	s.mux.HandleFunc("/v1/score", only("POST", s.score))
+	s.mux.HandleFunc("/v1/encode", only("POST", s.encode))
+	s.mux.HandleFunc("/v1/reconstruct", only("POST", s.reconstruct))
+	s.mux.HandleFunc("/v1/sample", only("POST", s.sample))
+	s.mux.HandleFunc("/admin/reload", only("POST", func(w http.ResponseWriter, r *http.Request) {
+		if err := s.Reload(); err != nil {
+			writeError(w, http.StatusUnprocessableEntity, "reload refused, current model kept: %v", err)
+			return
+		}
+		m := s.Model()
+		writeJSON(w, http.StatusOK, map[string]string{"status": "reloaded", "kind": m.Kind})
+	}))
+	s.mux.HandleFunc("/healthz", only("GET", func(w http.ResponseWriter, r *http.Request) {
+		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
+	}))
+	s.mux.HandleFunc("/readyz", only("GET", func(w http.ResponseWriter, r *http.Request) {
+		m := s.Model()
+		if m == nil {
+			writeError(w, http.StatusServiceUnavailable, "no model loaded")
+			return
+		}
+		writeJSON(w, http.StatusOK, map[string]any{"status": "ready", "kind": m.Kind, "inputs": m.inputs(), "loaded": m.Loaded.UTC().Format(time.RFC3339)})
+	}))
+	s.mux.HandleFunc("/metrics", only("GET", func(w http.ResponseWriter, r *http.Request) {
+		w.Header().Set("Content-Type", "text/plain; version=0.0.4; charset=utf-8")
+		m := s.Model()
+		s.m.write(w, m.Kind, m.Loaded)
+	}))
+	s.mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
+		writeError(w, http.StatusNotFound, "no route %s %s; routes: POST /v1/score, /v1/encode, /v1/reconstruct, /v1/sample, /admin/reload; GET /healthz, /readyz, /metrics", r.Method, r.URL.Path)
+	})
+}
+
+// only answers 405 with a JSON error for other methods.
+func only(method string, h http.HandlerFunc) http.HandlerFunc {
+	return func(w http.ResponseWriter, r *http.Request) {
+		if r.Method != method {
+			w.Header().Set("Allow", method)
+			writeError(w, http.StatusMethodNotAllowed, "%s %s: use %s", r.Method, r.URL.Path, method)
+			return
+		}
+		h(w, r)
+	}
+}
+
+// rowsRequest is the body of score, encode and reconstruct.
+type rowsRequest struct {
+	Rows [][]*float64 `json:"rows"`
+	Top  int          `json:"top,omitempty"`
+}
+
+// decodeRows reads and checks a rows request: every row cols numbers,
+// none null, at most MaxRows rows.
+func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int) (*rowsRequest, []float32, bool) {
+	var req rowsRequest
+	dec := json.NewDecoder(r.Body)
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&req); err != nil {
+		var mb *http.MaxBytesError
+		if errors.As(err, &mb) {
+			writeError(w, http.StatusRequestEntityTooLarge, "request body over %d bytes", mb.Limit)
+		} else {
+			writeError(w, http.StatusBadRequest, "malformed JSON: %v", err)
+		}
+		return nil, nil, false
+	}
+	if dec.More() {
+		writeError(w, http.StatusBadRequest, "malformed JSON: data after the request object")
+		return nil, nil, false
+	}
+	if len(req.Rows) == 0 {
+		writeError(w, http.StatusBadRequest, "\"rows\" is empty")
+		return nil, nil, false
+	}
+	if len(req.Rows) > s.cfg.MaxRows {
+		writeError(w, http.StatusRequestEntityTooLarge, "%d rows, the limit is %d", len(req.Rows), s.cfg.MaxRows)
+		return nil, nil, false
+	}
+	x := make([]float32, 0, len(req.Rows)*cols)
+	for i, row := range req.Rows {
+		if len(row) != cols {
+			writeError(w, http.StatusBadRequest, "row %d has %d columns, the model takes %d", i+1, len(row), cols)
+			return nil, nil, false
+		}
+		for j, v := range row {
+			if v == nil {
+				writeError(w, http.StatusBadRequest, "row %d column %d is null", i+1, j+1)
+				return nil, nil, false
+			}
+			f := float32(*v)
+			if f-f != 0 {
+				writeError(w, http.StatusBadRequest, "row %d column %d is %v, outside the float32 range", i+1, j+1, *v)
+				return nil, nil, false
+			}
+			x = append(x, f)
+		}
+	}
+	return &req, x, true
+}
+
+func chunk(x []float32, rows, cols int) [][]float32 {
+	out := make([][]float32, rows)
+	for i := range out {
+		out[i] = x[i*cols : (i+1)*cols]
+	}
+	return out
+}
+
+type scoreResponse struct {
+	Results []ae.Score `json:"results"`
+	Caution string     `json:"caution"`
+}
+
+func (s *Server) score(w http.ResponseWriter, r *http.Request) {
+	m := s.Model()
+	if m.AE == nil {
+		writeError(w, http.StatusUnprocessableEntity, "scoring needs an autoencoder model; serving a %s", m.Kind)
+		return
+	}
+	if m.AE.Threshold == nil {
+		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold")
+		return
+	}
+	req, x, ok := s.decodeRows(w, r, m.inputs())
+	if !ok {
+		return
+	}
+	top := req.Top
+	if top <= 0 {
+		top = 3
+	}
+	res, err := m.AE.Score(x, len(req.Rows), top)
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
+	flagged := 0
+	for _, sc := range res {
+		if sc.Anomaly {
+			flagged++
+		}
+	}
+	s.m.scored.Add(uint64(len(res)))
+	s.m.flagged.Add(uint64(flagged))
+	writeJSON(w, http.StatusOK, scoreResponse{Results: res, Caution: anomaly.Caution})
+}
+
+func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
+	m := s.Model()
+	if m.AE == nil && m.VAE == nil {
+		writeError(w, http.StatusUnprocessableEntity, "encoding needs an autoencoder or VAE model; serving a %s", m.Kind)
+		return
+	}
+	req, x, ok := s.decodeRows(w, r, m.inputs())
+	if !ok {
+		return
+	}
+	var codes []float32
+	var err error
+	var width int
+	if m.AE != nil {
+		codes, err = m.AE.Encode(x, len(req.Rows))
+		width = m.AE.Config().Latent
+	} else {
+		codes, err = m.VAE.Encode(x, len(req.Rows))
+		width = m.VAE.Config().Latent
+	}
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"codes": chunk(codes, len(req.Rows), width)})
+}
+
+func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request) {
+	m := s.Model()
+	if m.AE == nil && m.VAE == nil {
+		writeError(w, http.StatusUnprocessableEntity, "reconstruction needs an autoencoder or VAE model; serving a %s", m.Kind)
+		return
+	}
+	req, x, ok := s.decodeRows(w, r, m.inputs())
+	if !ok {
+		return
+	}
+	var out []float32
+	var err error
+	if m.AE != nil {
+		out, err = m.AE.Reconstruct(x, len(req.Rows))
+	} else {
+		out, err = m.VAE.Reconstruct(x, len(req.Rows))
+	}
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, len(req.Rows), m.inputs())})
+}
+
+type sampleRequest struct {
+	Count int     `json:"count"`
+	Seed  *uint64 `json:"seed"`
+	Class *int    `json:"class"`
+}
+
+func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
+	m := s.Model()
+	if m.VAE == nil && m.GAN == nil {
+		writeError(w, http.StatusUnprocessableEntity, "sampling needs a VAE or GAN model; serving a %s", m.Kind)
+		return
+	}
+	var req sampleRequest
+	dec := json.NewDecoder(r.Body)
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&req); err != nil {
+		var mb *http.MaxBytesError
+		if errors.As(err, &mb) {
+			writeError(w, http.StatusRequestEntityTooLarge, "request body over %d bytes", mb.Limit)
+		} else {
+			writeError(w, http.StatusBadRequest, "malformed JSON: %v", err)
+		}
+		return
+	}
+	if req.Count <= 0 || req.Count > s.cfg.MaxRows {
+		writeError(w, http.StatusBadRequest, "\"count\" must be 1..%d", s.cfg.MaxRows)
+		return
+	}
+	if req.Seed == nil {
+		writeError(w, http.StatusBadRequest, "\"seed\" is required (samples are reproducible from it)")
+		return
+	}
+	class := -1
+	if req.Class != nil {
+		class = *req.Class
+	}
+	var out []float32
+	var err error
+	if m.VAE != nil {
+		if class != -1 {
+			writeError(w, http.StatusBadRequest, "\"class\" applies to conditional GANs only")
+			return
+		}
+		out, err = m.VAE.Sample(req.Count, *req.Seed)
+	} else {
+		out, err = m.GAN.Generate(req.Count, *req.Seed, class)
+	}
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, req.Count, m.inputs())})
+}
+
+// Serve answers on ln until ctx ends, then stops accepting connections and
+// waits (up to ShutdownTimeout) for requests in flight to finish.
+func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
+	srv := &http.Server{
+		Handler:           s,
+		ReadTimeout:       s.cfg.ReadTimeout,
+		ReadHeaderTimeout: s.cfg.ReadTimeout,
+		WriteTimeout:      s.cfg.WriteTimeout,
+		IdleTimeout:       s.cfg.IdleTimeout,
+		ErrorLog:          slog.NewLogLogger(s.log.Handler(), slog.LevelWarn),
+	}
+	errc := make(chan error, 1)
+	go func() { errc <- srv.Serve(ln) }()
+	select {
+	case err := <-errc:
+		return err
+	case <-ctx.Done():
+	}
+	s.log.Info("shutting down; draining requests in flight")
+	sctx, cancel := context.WithTimeout(context.Background(), s.cfg.ShutdownTimeout)
+	defer cancel()
+	if err := srv.Shutdown(sctx); err != nil {
+		return fmt.Errorf("serve: shutdown: %w", err)
+	}
+	if err := <-errc; err != nil && !errors.Is(err, http.ErrServerClosed) {
+		return err
+	}
+	return nil
+}

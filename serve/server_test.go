@@ -1,0 +1,318 @@
+package serve
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/quernlab/quern/ae"
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/train"
+	"github.com/quernlab/quern/vae"
+	"github.com/stretchr/testify/require"
+)
+
+var bcData *data.Dataset
+
+func breastCancer(t testing.TB) *data.Dataset {
+	if bcData == nil {
+		d, err := data.LoadCSV("../testdata/sklearn/breast_cancer.csv", data.CSVConfig{NoHeader: true, SkipLines: 1, Label: "c30"})
+		require.NoError(t, err)
+		bcData = d
+	}
+	return bcData
+}
+
+func writeAE(t testing.TB, path string, seed uint64) {
+	d := breastCancer(t)
+	m, err := ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: seed})
+	require.NoError(t, err)
+	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 2})
+	require.NoError(t, err)
+	_, err = m.Calibrate(d.X, d.Rows, anomaly.Config{FalseAlarm: 0.05})
+	require.NoError(t, err)
+	require.NoError(t, m.Save(path, nil))
+}
+
+type live struct {
+	s      *Server
+	url    string
+	cancel context.CancelFunc
+	done   chan error
+}
+
+func start(t testing.TB, cfg Config) *live {
+	s, err := New(cfg)
+	require.NoError(t, err)
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	require.NoError(t, err)
+	ctx, cancel := context.WithCancel(context.Background())
+	l := &live{s: s, url: "http://" + ln.Addr().String(), cancel: cancel, done: make(chan error, 1)}
+	go func() { l.done <- s.Serve(ctx, ln) }()
+	t.Cleanup(func() {
+		cancel()
+		<-l.done
+	})
+	return l
+}
+
+func rowsBody(d *data.Dataset, from, n int) []byte {
+	var b bytes.Buffer
+	b.WriteString(`{"rows":[`)
+	for i := 0; i < n; i++ {
+		if i > 0 {
+			b.WriteByte(',')
+		}
+		b.WriteByte('[')
+		for j, v := range d.Row(from + i) {
+			if j > 0 {
+				b.WriteByte(',')
+			}
+			fmt.Fprintf(&b, "%g", v)
+		}
+		b.WriteByte(']')
+	}
+	b.WriteString(`]}`)
+	return b.Bytes()
+}
+
+func post(t testing.TB, c *http.Client, url string, body []byte) (int, map[string]any) {
+	resp, err := c.Post(url, "application/json", bytes.NewReader(body))
+	require.NoError(t, err)
+	defer resp.Body.Close()
+	var v map[string]any
+	require.NoError(t, json.NewDecoder(resp.Body).Decode(&v), "status %d", resp.StatusCode)
+	return resp.StatusCode, v
+}
+
+// A bounded load test over loopback: 64 goroutines, 3200 single-row score
+// requests, a 60-second cap, zero errors; p99 is logged. A reload of a new
+// model file in the middle loses no request.
+func TestLoadWithReload(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.qm")
+	writeAE(t, path, 1)
+	l := start(t, Config{ModelPath: path})
+	d := breastCancer(t)
+	c := &http.Client{Timeout: 10 * time.Second}
+	const workers, each = 64, 50
+	var mu sync.Mutex
+	var lat []time.Duration
+	errs := make(chan error, workers*each)
+	deadline := time.Now().Add(60 * time.Second)
+	var wg sync.WaitGroup
+	reloaded := make(chan struct{})
+	go func() {
+		defer close(reloaded)
+		time.Sleep(20 * time.Millisecond)
+		writeAE(t, path+".new", 2)
+		require.NoError(t, os.Rename(path+".new", path))
+		code, v := post(t, c, l.url+"/admin/reload", nil)
+		if code != 200 {
+			errs <- fmt.Errorf("reload: %d %v", code, v)
+		}
+	}()
+	for w := 0; w < workers; w++ {
+		wg.Add(1)
+		go func(w int) {
+			defer wg.Done()
+			for i := 0; i < each && time.Now().Before(deadline); i++ {
+				body := rowsBody(d, (w*each+i)%d.Rows, 1)
+				t0 := time.Now()
+				resp, err := c.Post(l.url+"/v1/score", "application/json", bytes.NewReader(body))
+				if err != nil {
+					errs <- err
+					continue
+				}
+				var v scoreResponse
+				err = json.NewDecoder(resp.Body).Decode(&v)
+				resp.Body.Close()
+				if err != nil || resp.StatusCode != 200 || len(v.Results) != 1 {
+					errs <- fmt.Errorf("status %d, %v", resp.StatusCode, err)
+					continue
+				}
+				mu.Lock()
+				lat = append(lat, time.Since(t0))
+				mu.Unlock()
+			}
+		}(w)
+	}
+	wg.Wait()
+	<-reloaded
+	close(errs)
+	for err := range errs {
+		t.Error(err)
+	}
+	sort.Slice(lat, func(a, b int) bool { return lat[a] < lat[b] })
+	require.Len(t, lat, workers*each)
+	t.Logf("%d requests, p50 %v, p99 %v", len(lat), lat[len(lat)/2], lat[len(lat)*99/100])
+	require.Equal(t, uint64(1), l.s.m.reloads.Load())
+}
+
+func TestBadRequestsGet4xxAndServerKeepsServing(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.qm")
+	writeAE(t, path, 1)
+	l := start(t, Config{ModelPath: path, MaxBodyBytes: 4096, MaxRows: 5})
+	c := &http.Client{Timeout: 5 * time.Second}
+	d := breastCancer(t)
+	big := bytes.Repeat([]byte(" "), 5000)
+	cases := []struct {
+		name, method, path string
+		body               []byte
+		code               int
+		want               string
+	}{
+		{"malformed", "POST", "/v1/score", []byte(`{"rows": [[1,2`), 400, "malformed JSON"},
+		{"columns", "POST", "/v1/score", []byte(`{"rows": [[1,2,3]]}`), 400, "row 1 has 3 columns, the model takes 30"},
+		{"nan", "POST", "/v1/score", []byte(`{"rows": [[NaN]]}`), 400, "malformed JSON"},
+		{"null", "POST", "/v1/score", []byte(`{"rows": [[` + strings.Repeat("1,", 29) + `null]]}`), 400, "row 1 column 30 is null"},
+		{"overflow", "POST", "/v1/score", []byte(`{"rows": [[` + strings.Repeat("1,", 29) + `1e39]]}`), 400, "float32 range"},
+		{"unknown field", "POST", "/v1/score", []byte(`{"rowz": []}`), 400, "unknown field"},
+		{"oversized", "POST", "/v1/score", append([]byte(`{"rows":`), big...), 413, "over 4096 bytes"},
+		{"too many rows", "POST", "/v1/score", rowsBody(d, 0, 6), 413, "6 rows, the limit is 5"},
+		{"unknown route", "GET", "/v2/nothing", nil, 404, "no route"},
+		{"wrong method", "GET", "/v1/score", nil, 405, "use POST"},
+		{"wrong kind", "POST", "/v1/sample", []byte(`{"count": 2, "seed": 1}`), 422, "VAE or GAN"},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			req, _ := http.NewRequest(tc.method, l.url+tc.path, bytes.NewReader(tc.body))
+			resp, err := c.Do(req)
+			require.NoError(t, err)
+			defer resp.Body.Close()
+			require.Equal(t, tc.code, resp.StatusCode)
+			require.Equal(t, "application/json", resp.Header.Get("Content-Type"))
+			var e errorBody
+			require.NoError(t, json.NewDecoder(resp.Body).Decode(&e))
+			require.Contains(t, e.Error, tc.want)
+		})
+	}
+	code, v := post(t, c, l.url+"/v1/score", rowsBody(d, 0, 2))
+	require.Equal(t, 200, code)
+	require.Contains(t, v["caution"], "decision aid")
+	code, v = post(t, c, l.url+"/v1/encode", rowsBody(d, 0, 2))
+	require.Equal(t, 200, code)
+	require.Len(t, v["codes"], 2)
+	code, v = post(t, c, l.url+"/v1/reconstruct", rowsBody(d, 0, 1))
+	require.Equal(t, 200, code)
+	require.Len(t, v["rows"].([]any)[0], 30)
+	resp, err := c.Get(l.url + "/metrics")
+	require.NoError(t, err)
+	body, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	for _, s := range []string{`quern_requests_total{route="/v1/score",code="400"}`, "quern_request_duration_seconds_bucket", "quern_anomaly_rate", "quern_request_errors_total 11", `route="unknown",code="404"`} {
+		require.Contains(t, string(body), s)
+	}
+}
+
+func TestBadModelOnReloadKeepsTheOldOne(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.qm")
+	writeAE(t, path, 1)
+	l := start(t, Config{ModelPath: path})
+	before := l.s.Model()
+	require.NoError(t, os.WriteFile(path, []byte("QUERNMDL truncated"), 0o644))
+	c := &http.Client{Timeout: 5 * time.Second}
+	code, v := post(t, c, l.url+"/admin/reload", nil)
+	require.Equal(t, 422, code)
+	require.Contains(t, v["error"], "current model kept")
+	require.Same(t, before, l.s.Model())
+	code, _ = post(t, c, l.url+"/v1/score", rowsBody(breastCancer(t), 0, 1))
+	require.Equal(t, 200, code)
+}
+
+func TestBearerToken(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.qm")
+	writeAE(t, path, 1)
+	l := start(t, Config{ModelPath: path, Token: "s3cret"})
+	c := &http.Client{Timeout: 5 * time.Second}
+	code, _ := post(t, c, l.url+"/v1/score", rowsBody(breastCancer(t), 0, 1))
+	require.Equal(t, 401, code)
+	req, _ := http.NewRequest("POST", l.url+"/v1/score", bytes.NewReader(rowsBody(breastCancer(t), 0, 1)))
+	req.Header.Set("Authorization", "Bearer s3cret")
+	resp, err := c.Do(req)
+	require.NoError(t, err)
+	resp.Body.Close()
+	require.Equal(t, 200, resp.StatusCode)
+	resp, err = c.Get(l.url + "/healthz")
+	require.NoError(t, err)
+	resp.Body.Close()
+	require.Equal(t, 200, resp.StatusCode)
+}
+
+// Shutdown drains: a request whose body is still arriving when shutdown
+// begins completes with 200, and Serve returns after it.
+func TestShutdownDrains(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.qm")
+	writeAE(t, path, 1)
+	s, err := New(Config{ModelPath: path})
+	require.NoError(t, err)
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	require.NoError(t, err)
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- s.Serve(ctx, ln) }()
+	pr, pw := io.Pipe()
+	status := make(chan int, 1)
+	go func() {
+		resp, err := http.Post("http://"+ln.Addr().String()+"/v1/score", "application/json", pr)
+		if err != nil {
+			status <- -1
+			return
+		}
+		io.Copy(io.Discard, resp.Body)
+		resp.Body.Close()
+		status <- resp.StatusCode
+	}()
+	body := rowsBody(breastCancer(t), 0, 1)
+	pw.Write(body[:10])
+	time.Sleep(50 * time.Millisecond) // the request is in flight
+	cancel()
+	time.Sleep(50 * time.Millisecond)
+	select {
+	case <-done:
+		t.Fatal("Serve returned while a request was in flight")
+	default:
+	}
+	pw.Write(body[10:])
+	pw.Close()
+	require.Equal(t, 200, <-status)
+	require.NoError(t, <-done)
+}
+
+func TestVAESampling(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "v.qm")
+	d := breastCancer(t)
+	m, err := vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.Gaussian, Seed: 1})
+	require.NoError(t, err)
+	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 1})
+	require.NoError(t, err)
+	require.NoError(t, m.Save(path, nil))
+	l := start(t, Config{ModelPath: path})
+	c := &http.Client{Timeout: 5 * time.Second}
+	code, a := post(t, c, l.url+"/v1/sample", []byte(`{"count": 3, "seed": 7}`))
+	require.Equal(t, 200, code)
+	_, b := post(t, c, l.url+"/v1/sample", []byte(`{"count": 3, "seed": 7}`))
+	require.Equal(t, a, b)
+	require.Len(t, a["rows"], 3)
+	code, _ = post(t, c, l.url+"/v1/sample", []byte(`{"count": 3}`))
+	require.Equal(t, 400, code)
+	code, _ = post(t, c, l.url+"/v1/score", rowsBody(d, 0, 1))
+	require.Equal(t, 422, code)
+}
