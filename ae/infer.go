@@ -86,23 +86,31 @@ func (m *Model) forward(w *work, ws *layers.Workspace, net *layers.MLP, in []flo
 
 // Encode maps raw rows (Inputs columns each) to their codes (Latent
 // columns each).
-func (m *Model) Encode(x []float32, rows int) ([]float32, error) {
+func (m *Model) Encode(x []float32, rows int) ([]float32, error) { return m.EncodeInto(nil, x, rows) }
+
+// EncodeInto is Encode writing into dst (grown if too short). With dst
+// large enough it allocates nothing in steady state (float32 models).
+func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
 		return nil, err
 	}
 	w := m.getWork()
 	defer m.pool.Put(w)
-	return m.forward(w, &w.ws, m.Encoder, m.scaled(w, x), rows, nil)
+	return m.forward(w, &w.ws, m.Encoder, m.scaled(w, x), rows, dst)
 }
 
 // Decode maps codes back to raw-space rows.
-func (m *Model) Decode(z []float32, rows int) ([]float32, error) {
+func (m *Model) Decode(z []float32, rows int) ([]float32, error) { return m.DecodeInto(nil, z, rows) }
+
+// DecodeInto is Decode writing into dst (grown if too short); no
+// allocation in steady state for float32 models.
+func (m *Model) DecodeInto(dst, z []float32, rows int) ([]float32, error) {
 	if err := checkRows(z, rows, m.cfg.Latent); err != nil {
 		return nil, err
 	}
 	w := m.getWork()
 	defer m.pool.Put(w)
-	out, err := m.forward(w, &w.ws, m.Decoder, z, rows, nil)
+	out, err := m.forward(w, &w.ws, m.Decoder, z, rows, dst)
 	if err != nil {
 		return nil, err
 	}
@@ -140,6 +148,11 @@ func (m *Model) reconstructScaled(w *work, x []float32, rows int) (in, out []flo
 
 // Reconstruct returns the model's reconstruction of raw rows, in raw space.
 func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
+	return m.ReconstructInto(nil, x, rows)
+}
+
+// ReconstructInto is Reconstruct writing into dst (grown if too short).
+func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
 		return nil, err
 	}
@@ -149,11 +162,12 @@ func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
 	if err != nil {
 		return nil, err
 	}
-	res := append([]float32(nil), out...)
+	dst = grow(dst, len(out))
+	copy(dst, out)
 	if m.Scaler != nil {
-		m.Scaler.InvertRows(res)
+		m.Scaler.InvertRows(dst)
 	}
-	return res, nil
+	return dst, nil
 }
 
 // Contributions returns, for each row and column, that column's
@@ -161,6 +175,12 @@ func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
 // the binary cross-entropy for BCE models. A row's score is the mean of
 // its row here.
 func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
+	return m.ContributionsInto(nil, x, rows)
+}
+
+// ContributionsInto is Contributions writing into dst (grown if too
+// short); no allocation in steady state for float32 models.
+func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float64, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
 		return nil, err
 	}
@@ -170,11 +190,11 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	if err != nil {
 		return nil, err
 	}
-	c := make([]float64, len(in))
+	dst = grow(dst, len(in))
 	for i := range in {
-		c[i] = m.elemError(float64(in[i]), float64(out[i]))
+		dst[i] = m.elemError(float64(in[i]), float64(out[i]))
 	}
-	return c, nil
+	return dst, nil
 }
 
 func (m *Model) elemError(target, out float64) float64 {

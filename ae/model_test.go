@@ -255,3 +255,22 @@ func TestSaltPepperAndL1Train(t *testing.T) {
 	l3, _ := h.Loss(3)
 	require.Less(t, l3, l1)
 }
+
+// The Into variants allocate nothing once their buffers are warm.
+func TestInferenceAllocatesNothing(t *testing.T) {
+	m, bc := trainedBC(t)
+	x := bc.X[:30*5]
+	codes := make([]float32, 5*4)
+	dec := make([]float32, 5*30)
+	errs := make([]float64, 5)
+	contrib := make([]float64, 5*30)
+	warm := func() {
+		_, _ = m.EncodeInto(codes, x, 5)
+		_, _ = m.DecodeInto(dec, codes, 5)
+		_, _ = m.ReconstructInto(dec, x, 5)
+		_, _ = m.RowErrorsInto(errs, x, 5)
+		_, _ = m.ContributionsInto(contrib, x, 5)
+	}
+	warm()
+	require.Zero(t, testing.AllocsPerRun(50, warm))
+}

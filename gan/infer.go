@@ -10,14 +10,82 @@ import (
 type work struct {
 	ws  layers.Workspace
 	in  []float32
-	in6 []float64
+	pcg *rand.PCG
+	rng *rand.Rand
 }
 
 func (m *Model) getWork() *work {
 	if w, ok := m.pool.Get().(*work); ok {
 		return w
 	}
-	return &work{}
+	w := &work{pcg: rand.NewPCG(0, 0)}
+	w.rng = rand.New(w.pcg)
+	return w
+}
+
+// GenerateInto is Generate writing into dst (grown if too short): the same
+// rows for the same seed, and no allocation in steady state for float32
+// models.
+func (m *Model) GenerateInto(dst []float32, n int, seed uint64, class int) ([]float32, error) {
+	c := m.cfg
+	if c.Precision != layers.Float32 {
+		r, err := m.Generate(n, seed, class)
+		if err != nil {
+			return nil, err
+		}
+		return append(dst[:0], r...), nil
+	}
+	if err := m.checkGenerate(n, class); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	w.pcg.Seed(seed, 0x6e)
+	width := c.Noise + c.Classes
+	if cap(w.in) < n*width {
+		w.in = make([]float32, n*width)
+	}
+	z := w.in[:n*width]
+	clear(z)
+	for r := 0; r < n; r++ {
+		for j := 0; j < c.Noise; j++ {
+			z[r*width+j] = float32(w.rng.NormFloat64())
+		}
+		if c.Classes > 0 {
+			k := class
+			if k < 0 {
+				k = w.rng.IntN(c.Classes)
+			}
+			z[r*width+c.Noise+k] = 1
+		}
+	}
+	out, err := m.Generator.Forward32(z, n, &w.ws)
+	if err != nil {
+		return nil, err
+	}
+	if cap(dst) < len(out) {
+		dst = make([]float32, len(out))
+	}
+	dst = dst[:len(out)]
+	copy(dst, out)
+	if m.Scaler != nil {
+		m.Scaler.InvertRows(dst)
+	}
+	return dst, nil
+}
+
+func (m *Model) checkGenerate(n, class int) error {
+	c := m.cfg
+	if n < 0 {
+		return fmt.Errorf("gan: sample count %d", n)
+	}
+	if c.Classes > 0 && (class < -1 || class >= c.Classes) {
+		return fmt.Errorf("gan: class %d outside -1..%d", class, c.Classes-1)
+	}
+	if c.Classes == 0 && class > 0 {
+		return fmt.Errorf("gan: class %d asked of an unconditional model", class)
+	}
+	return nil
 }
 
 func (m *Model) forward(w *work, net *layers.MLP, in []float64, rows int) ([]float64, error) {
@@ -51,14 +119,11 @@ func (m *Model) forward(w *work, net *layers.MLP, in []float64, rows int) ([]flo
 // classes uniformly.
 func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
 	c := m.cfg
-	if n < 0 {
-		return nil, fmt.Errorf("gan: sample count %d", n)
+	if err := m.checkGenerate(n, class); err != nil {
+		return nil, err
 	}
-	if c.Classes > 0 && (class < -1 || class >= c.Classes) {
-		return nil, fmt.Errorf("gan: class %d outside -1..%d", class, c.Classes-1)
-	}
-	if c.Classes == 0 && class > 0 {
-		return nil, fmt.Errorf("gan: class %d asked of an unconditional model", class)
+	if c.Precision == layers.Float32 {
+		return m.GenerateInto(nil, n, seed, class)
 	}
 	rng := rand.New(rand.NewPCG(seed, 0x6e))
 	width := c.Noise + c.Classes

@@ -62,3 +62,15 @@ func TestOtherObjectivesTrain(t *testing.T) {
 	_, err = c.Train(context.Background(), d, nil, train.Config{})
 	require.ErrorContains(t, err, "label")
 }
+
+func TestGenerateIntoAllocatesNothing(t *testing.T) {
+	m, err := New(Config{Outputs: 3, Noise: 4, GenHidden: []int{8}, Classes: 2, Seed: 1})
+	require.NoError(t, err)
+	dst := make([]float32, 30)
+	_, err = m.GenerateInto(dst, 10, 1, -1)
+	require.NoError(t, err)
+	require.Zero(t, testing.AllocsPerRun(50, func() { _, _ = m.GenerateInto(dst, 10, 1, 1) }))
+	a, _ := m.Generate(10, 5, 1)
+	b, _ := m.GenerateInto(nil, 10, 5, 1)
+	require.Equal(t, a, b)
+}

@@ -13,13 +13,110 @@ type work struct {
 	ws1, ws2 layers.Workspace
 	in       []float32
 	in64     []float64
+	z        []float32
+	pcg      *rand.PCG
+	rng      *rand.Rand
 }
 
 func (m *Model) getWork() *work {
 	if w, ok := m.pool.Get().(*work); ok {
 		return w
 	}
-	return &work{}
+	w := &work{pcg: rand.NewPCG(0, 0)}
+	w.rng = rand.New(w.pcg)
+	return w
+}
+
+// EncodeInto writes the posterior means of raw rows into dst (grown if too
+// short). For float32 models it allocates nothing in steady state.
+func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
+	if m.cfg.Precision != layers.Float32 {
+		r, err := m.Encode(x, rows)
+		if err != nil {
+			return nil, err
+		}
+		return append(dst[:0], r...), nil
+	}
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	w.in = grow(w.in, len(x))
+	copy(w.in, x)
+	if m.Scaler != nil {
+		m.Scaler.ApplyRows(w.in)
+	}
+	h, err := m.Encoder.Forward32(w.in, rows, &w.ws1)
+	if err != nil {
+		return nil, err
+	}
+	L := m.cfg.Latent
+	dst = grow(dst, rows*L)
+	for r := 0; r < rows; r++ {
+		copy(dst[r*L:(r+1)*L], h[r*2*L:r*2*L+L])
+	}
+	return dst, nil
+}
+
+// decodeInto32 decodes float32 latent rows into dst with w's buffers.
+func (m *Model) decodeInto32(w *work, dst, z []float32, rows int) ([]float32, error) {
+	out, err := m.Decoder.Forward32(z, rows, &w.ws2)
+	if err != nil {
+		return nil, err
+	}
+	dst = grow(dst, len(out))
+	copy(dst, out)
+	if m.cfg.Likelihood == Bernoulli {
+		for i, v := range dst {
+			dst[i] = float32(layers.Sigmoid.Eval(float64(v), 0))
+		}
+	}
+	if m.Scaler != nil {
+		m.Scaler.InvertRows(dst)
+	}
+	return dst, nil
+}
+
+// DecodeInto is Decode writing into dst (grown if too short); no
+// allocation in steady state for float32 models.
+func (m *Model) DecodeInto(dst, z []float32, rows int) ([]float32, error) {
+	if m.cfg.Precision != layers.Float32 {
+		r, err := m.Decode(z, rows)
+		if err != nil {
+			return nil, err
+		}
+		return append(dst[:0], r...), nil
+	}
+	if err := checkRows(z, rows, m.cfg.Latent, "latent"); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	return m.decodeInto32(w, dst, z, rows)
+}
+
+// SampleInto is Sample writing into dst (grown if too short); no
+// allocation in steady state for float32 models.
+func (m *Model) SampleInto(dst []float32, n int, seed uint64) ([]float32, error) {
+	if n < 0 {
+		return nil, fmt.Errorf("vae: sample count %d", n)
+	}
+	if m.cfg.Precision != layers.Float32 {
+		r, err := m.Sample(n, seed)
+		if err != nil {
+			return nil, err
+		}
+		return append(dst[:0], r...), nil
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	w.pcg.Seed(seed, 0x5a)
+	w.z = grow(w.z, n*m.cfg.Latent)
+	for i := range w.z {
+		w.z[i] = float32(w.rng.NormFloat64())
+	}
+	return m.decodeInto32(w, dst, w.z, n)
 }
 
 func grow[T any](s []T, n int) []T {

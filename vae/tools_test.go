@@ -134,3 +134,30 @@ func TestKLAnnealingRaisesBeta(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, []float64{0, 0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875, 1, 1, 1, 1}, betas)
 }
+
+// The Into variants give the same values as the allocating ones and
+// allocate nothing once their buffers are warm.
+func TestIntoVariants(t *testing.T) {
+	m, x := smallModel(t)
+	a, err := m.Sample(6, 3)
+	require.NoError(t, err)
+	b, err := m.SampleInto(nil, 6, 3)
+	require.NoError(t, err)
+	require.Equal(t, a, b)
+	e1, _ := m.Encode(x[:40], 5)
+	e2, err := m.EncodeInto(nil, x[:40], 5)
+	require.NoError(t, err)
+	require.Equal(t, e1, e2)
+	d1, _ := m.Decode(e1, 5)
+	d2, err := m.DecodeInto(nil, e1, 5)
+	require.NoError(t, err)
+	require.Equal(t, d1, d2)
+	codes, dec, smp := make([]float32, 15), make([]float32, 40), make([]float32, 48)
+	run := func() {
+		_, _ = m.EncodeInto(codes, x[:40], 5)
+		_, _ = m.DecodeInto(dec, codes, 5)
+		_, _ = m.SampleInto(smp, 6, 9)
+	}
+	run()
+	require.Zero(t, testing.AllocsPerRun(50, run))
+}

@@ -256,4 +256,10 @@ func TestFashionMNISTBeatsFactorisedBernoulli(t *testing.T) {
 	negELBO := -mean(elbo)
 	t.Logf("test negative ELBO %.1f nats vs factorised Bernoulli NLL %.1f nats", negELBO, nll)
 	require.Less(t, negELBO, 0.85*nll)
+	// the importance-weighted bound on the first 200 test images
+	const k = 200
+	iw, err := m.IWAE(te.X[:k*784], k, 50, 2)
+	require.NoError(t, err)
+	t.Logf("first %d test images: negative ELBO %.1f, negative IWAE(k=50) %.1f nats", k, -mean(elbo[:k]), -mean(iw))
+	require.Less(t, -mean(iw), -mean(elbo[:k]))
 }
