@@ -265,6 +265,27 @@ func only(method string, h http.HandlerFunc) http.HandlerFunc {
 	}
 }
 
+// decodeJSON reads one JSON object into v, refusing unknown fields and
+// trailing data, and answers 413 or 400 itself when it cannot.
+func decodeJSON(w http.ResponseWriter, r *http.Request, v any) bool {
+	dec := json.NewDecoder(r.Body)
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		var mb *http.MaxBytesError
+		if errors.As(err, &mb) {
+			writeError(w, http.StatusRequestEntityTooLarge, "request body over %d bytes", mb.Limit)
+		} else {
+			writeError(w, http.StatusBadRequest, "malformed JSON: %v", err)
+		}
+		return false
+	}
+	if dec.More() {
+		writeError(w, http.StatusBadRequest, "malformed JSON: data after the request object")
+		return false
+	}
+	return true
+}
+
 // rowsRequest is the body of score, encode and reconstruct.
 type rowsRequest struct {
 	Rows [][]*float64 `json:"rows"`
@@ -275,19 +296,7 @@ type rowsRequest struct {
 // none null, at most MaxRows rows.
 func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int) (*rowsRequest, []float32, bool) {
 	var req rowsRequest
-	dec := json.NewDecoder(r.Body)
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(&req); err != nil {
-		var mb *http.MaxBytesError
-		if errors.As(err, &mb) {
-			writeError(w, http.StatusRequestEntityTooLarge, "request body over %d bytes", mb.Limit)
-		} else {
-			writeError(w, http.StatusBadRequest, "malformed JSON: %v", err)
-		}
-		return nil, nil, false
-	}
-	if dec.More() {
-		writeError(w, http.StatusBadRequest, "malformed JSON: data after the request object")
+	if !decodeJSON(w, r, &req) {
 		return nil, nil, false
 	}
 	if len(req.Rows) == 0 {
@@ -431,15 +440,7 @@ func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	var req sampleRequest
-	dec := json.NewDecoder(r.Body)
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(&req); err != nil {
-		var mb *http.MaxBytesError
-		if errors.As(err, &mb) {
-			writeError(w, http.StatusRequestEntityTooLarge, "request body over %d bytes", mb.Limit)
-		} else {
-			writeError(w, http.StatusBadRequest, "malformed JSON: %v", err)
-		}
+	if !decodeJSON(w, r, &req) {
 		return
 	}
 	if req.Count <= 0 || req.Count > s.cfg.MaxRows {

@@ -1,7 +1,6 @@
 package vae
 
 import (
-	"encoding/json"
 	"fmt"
 
 	"github.com/quernlab/quern/data"
@@ -19,14 +18,7 @@ type meta struct {
 	Columns    []string              `json:"columns,omitempty"`
 	Image      []int                 `json:"image,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
-	Resume     *resume               `json:"resume,omitempty"`
-}
-
-type resume struct {
-	Optim   persist.OptimState `json:"optimizer"`
-	Noise   string             `json:"noise_generator"`
-	Shuffle string             `json:"shuffle_generator"`
-	History *train.History     `json:"history"`
+	Resume     *persist.Resume       `json:"resume,omitempty"`
 }
 
 const optimPrefix = "optimizer/"
@@ -35,25 +27,18 @@ const optimPrefix = "optimizer/"
 // checkpoint that also holds the optimiser, generator states and history.
 func (m *Model) File(prov *modelfile.Provenance, history *train.History) (*modelfile.File, error) {
 	md := meta{Config: m.cfg, Scaler: m.Scaler, Columns: m.Columns, Image: m.Image, Provenance: prov}
-	f := &modelfile.File{Kind: Kind, Tensors: persist.Params(m.Params())}
+	ts := persist.Params(m.Params())
 	if history != nil {
-		ts, os := persist.Optimizer(m.opt, optimPrefix)
-		f.Tensors = append(f.Tensors, ts...)
-		r := &resume{Optim: os, History: history}
-		var err error
-		if r.Noise, err = persist.Generator(m.noisePCG); err != nil {
+		ots, r, err := persist.SaveTraining(m.opt, optimPrefix, m.noisePCG, m.shufflePCG, history)
+		if err != nil {
 			return nil, fmt.Errorf("vae: %w", err)
 		}
-		if r.Shuffle, err = persist.Generator(m.shufflePCG); err != nil {
-			return nil, fmt.Errorf("vae: %w", err)
-		}
-		md.Resume = r
+		ts, md.Resume = append(ts, ots...), r
 	}
-	b, err := json.Marshal(md)
+	f, err := persist.Encode(Kind, md, ts)
 	if err != nil {
 		return nil, fmt.Errorf("vae: %w", err)
 	}
-	f.Meta = b
 	return f, nil
 }
 
@@ -69,12 +54,9 @@ func (m *Model) Save(path string, prov *modelfile.Provenance) error {
 // FromFile rebuilds a model from a model file, restoring training state
 // and returning the history when the file is a checkpoint.
 func FromFile(f *modelfile.File) (*Model, *train.History, *modelfile.Provenance, error) {
-	if f.Kind != Kind {
-		return nil, nil, nil, fmt.Errorf("vae: model file holds a %q model", f.Kind)
-	}
 	var md meta
-	if err := json.Unmarshal(f.Meta, &md); err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: model metadata: %w", err)
+	if err := persist.Decode(f, Kind, &md); err != nil {
+		return nil, nil, nil, fmt.Errorf("vae: %w", err)
 	}
 	m, err := New(md.Config)
 	if err != nil {
@@ -95,20 +77,11 @@ func FromFile(f *modelfile.File) (*Model, *train.History, *modelfile.Provenance,
 	if md.Resume == nil {
 		return m, nil, md.Provenance, nil
 	}
-	r := md.Resume
-	if err := persist.SetOptimizer(m.opt, f, optimPrefix, r.Optim); err != nil {
+	h, err := persist.LoadTraining(f, md.Resume, m.opt, optimPrefix, m.noisePCG, m.shufflePCG)
+	if err != nil {
 		return nil, nil, nil, fmt.Errorf("vae: %w", err)
 	}
-	if err := persist.SetGenerator(m.noisePCG, r.Noise); err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: %w", err)
-	}
-	if err := persist.SetGenerator(m.shufflePCG, r.Shuffle); err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: %w", err)
-	}
-	if r.History == nil {
-		r.History = &train.History{}
-	}
-	return m, r.History, md.Provenance, nil
+	return m, h, md.Provenance, nil
 }
 
 // Load reads a model file written by Save (or a checkpoint).

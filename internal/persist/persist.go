@@ -5,6 +5,7 @@ package persist
 import (
 	"encoding"
 	"encoding/base64"
+	"encoding/json"
 	"fmt"
 	"sort"
 	"strings"
@@ -12,6 +13,7 @@ import (
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/optim"
+	"github.com/quernlab/quern/train"
 )
 
 // Params converts parameters to tensors of their own precision (copies).
@@ -157,4 +159,66 @@ func SetGenerator(g encoding.BinaryUnmarshaler, s string) error {
 		return fmt.Errorf("generator state: %w", err)
 	}
 	return g.UnmarshalBinary(b)
+}
+
+// Resume is the JSON part of a checkpoint's training state for a model
+// with one optimiser and two generators (noise and shuffling).
+type Resume struct {
+	Optim   OptimState     `json:"optimizer"`
+	Noise   string         `json:"noise_generator"`
+	Shuffle string         `json:"shuffle_generator"`
+	History *train.History `json:"history"`
+}
+
+// SaveTraining captures an optimiser (as tensors under prefix), two
+// generators and a history for a checkpoint.
+func SaveTraining(o optim.Optimizer, prefix string, noise, shuffle encoding.BinaryMarshaler, h *train.History) ([]modelfile.Tensor, *Resume, error) {
+	ts, os := Optimizer(o, prefix)
+	r := &Resume{Optim: os, History: h}
+	var err error
+	if r.Noise, err = Generator(noise); err != nil {
+		return nil, nil, err
+	}
+	if r.Shuffle, err = Generator(shuffle); err != nil {
+		return nil, nil, err
+	}
+	return ts, r, nil
+}
+
+// LoadTraining restores what SaveTraining captured and returns the history
+// (empty, not nil, when the checkpoint had none).
+func LoadTraining(f *modelfile.File, r *Resume, o optim.Optimizer, prefix string, noise, shuffle encoding.BinaryUnmarshaler) (*train.History, error) {
+	if err := SetOptimizer(o, f, prefix, r.Optim); err != nil {
+		return nil, err
+	}
+	if err := SetGenerator(noise, r.Noise); err != nil {
+		return nil, err
+	}
+	if err := SetGenerator(shuffle, r.Shuffle); err != nil {
+		return nil, err
+	}
+	if r.History == nil {
+		return &train.History{}, nil
+	}
+	return r.History, nil
+}
+
+// Encode builds a model file of the given kind from metadata and tensors.
+func Encode(kind string, meta any, tensors []modelfile.Tensor) (*modelfile.File, error) {
+	b, err := json.Marshal(meta)
+	if err != nil {
+		return nil, err
+	}
+	return &modelfile.File{Kind: kind, Meta: b, Tensors: tensors}, nil
+}
+
+// Decode checks a model file's kind and unmarshals its metadata.
+func Decode(f *modelfile.File, kind string, meta any) error {
+	if f.Kind != kind {
+		return fmt.Errorf("model file holds a %q model, not %q", f.Kind, kind)
+	}
+	if err := json.Unmarshal(f.Meta, meta); err != nil {
+		return fmt.Errorf("model metadata: %w", err)
+	}
+	return nil
 }
