@@ -503,15 +503,14 @@ func repeatRows(x []float64, rows, cols, times int) []float64 {
 	return out
 }
 
-// ELBO returns each raw row's evidence lower bound in nats,
-// E_q[log p(x|z)] - KL(q(z|x) || p(z)), with the expectation estimated from
-// samples reparameterised draws (seeded) and the KL in closed form. For
-// Gaussian likelihoods the density is for raw units (the scaler's Jacobian
-// is included).
-func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, error) {
-	if samples < 1 {
-		return nil, fmt.Errorf("vae: ELBO needs at least 1 sample")
-	}
+// draw encodes raw rows, draws samples reparameterised latent vectors per
+// row from a generator seeded by (seed, stream) and returns the posterior
+// parameters, the draws with their eps, and log p(x|z) for each draw.
+type draw struct {
+	mu, lv, z, eps, logLik []float64
+}
+
+func (m *Model) draw(x []float32, rows, samples int, seed, stream uint64) (*draw, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
@@ -522,22 +521,38 @@ func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, er
 	if err != nil {
 		return nil, err
 	}
-	L := m.cfg.Latent
-	z, _ := draws(mu, lv, rows, L, samples, rand.New(rand.NewPCG(seed, 0xe1)))
+	z, eps := draws(mu, lv, rows, m.cfg.Latent, samples, rand.New(rand.NewPCG(seed, stream)))
 	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows*samples)
 	if err != nil {
 		return nil, err
 	}
 	ll := m.logLik(repeatRows(xs, rows, m.cfg.Inputs, samples), out, rows*samples)
+	return &draw{mu: mu, lv: lv, z: z, eps: eps, logLik: ll}, nil
+}
+
+// ELBO returns each raw row's evidence lower bound in nats,
+// E_q[log p(x|z)] - KL(q(z|x) || p(z)), with the expectation estimated from
+// samples reparameterised draws (seeded) and the KL in closed form. For
+// Gaussian likelihoods the density is for raw units (the scaler's Jacobian
+// is included).
+func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, error) {
+	if samples < 1 {
+		return nil, fmt.Errorf("vae: ELBO needs at least 1 sample")
+	}
+	d, err := m.draw(x, rows, samples, seed, 0xe1)
+	if err != nil {
+		return nil, err
+	}
+	L := m.cfg.Latent
 	res := make([]float64, rows)
 	for r := range res {
 		var s float64
 		for k := 0; k < samples; k++ {
-			s += ll[r*samples+k]
+			s += d.logLik[r*samples+k]
 		}
 		var kl float64
 		for j := 0; j < L; j++ {
-			a, b := mu[r*L+j], lv[r*L+j]
+			a, b := d.mu[r*L+j], d.lv[r*L+j]
 			kl += -0.5 * (1 + b - a*a - math.Exp(b))
 		}
 		res[r] = s/float64(samples) - kl
@@ -553,23 +568,11 @@ func (m *Model) IWAE(x []float32, rows, k int, seed uint64) ([]float64, error) {
 	if k < 1 {
 		return nil, fmt.Errorf("vae: IWAE needs k >= 1")
 	}
-	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
-		return nil, err
-	}
-	w := m.getWork()
-	defer m.pool.Put(w)
-	xs := m.scaled(x)
-	mu, lv, err := m.posterior(w, xs, rows)
+	d, err := m.draw(x, rows, k, seed, 0x1e)
 	if err != nil {
 		return nil, err
 	}
 	L := m.cfg.Latent
-	z, eps := draws(mu, lv, rows, L, k, rand.New(rand.NewPCG(seed, 0x1e)))
-	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows*k)
-	if err != nil {
-		return nil, err
-	}
-	ll := m.logLik(repeatRows(xs, rows, m.cfg.Inputs, k), out, rows*k)
 	res := make([]float64, rows)
 	lw := make([]float64, k)
 	for r := range res {
@@ -577,10 +580,10 @@ func (m *Model) IWAE(x []float32, rows, k int, seed uint64) ([]float64, error) {
 			var lp, lq float64
 			for j := 0; j < L; j++ {
 				q := (r*k+s)*L + j
-				lp -= 0.5 * (log2Pi + z[q]*z[q])
-				lq -= 0.5 * (log2Pi + lv[r*L+j] + eps[q]*eps[q])
+				lp -= 0.5 * (log2Pi + d.z[q]*d.z[q])
+				lq -= 0.5 * (log2Pi + d.lv[r*L+j] + d.eps[q]*d.eps[q])
 			}
-			lw[s] = ll[r*k+s] + lp - lq
+			lw[s] = d.logLik[r*k+s] + lp - lq
 		}
 		res[r] = LogMeanExp(lw)
 	}
