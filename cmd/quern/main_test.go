@@ -89,7 +89,7 @@ func TestTrainScoreEncodeInspectCSV(t *testing.T) {
 	require.Equal(t, 570, strings.Count(r.stdout, "\n"))
 	require.True(t, strings.HasPrefix(r.stdout, "z0,z1,z2\n"))
 	r = ok(t, quern(t, dir, nil, "inspect", "bc.qm"))
-	for _, s := range []string{"kind        ae", "checksum verified", "threshold", "fingerprint", "encoder     30->8"} {
+	for _, s := range []string{"kind        ae", "checksum verified", "threshold", "fingerprint", "encoder     30->8", "summary     3 epochs, final training loss"} {
 		require.Contains(t, r.stdout, s)
 	}
 }

@@ -226,6 +226,15 @@ func cmdTrain(e *env, args []string) error {
 			fmt.Fprintf(e.stderr, "threshold %.6g (%s), expected false-alarm rate %.2f%% on data like the validation rows\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm)
 		}
 	}
+	tl, vl := h.Loss(len(h.Epochs))
+	prov.Training["epochs_run"] = len(h.Epochs)
+	prov.Training["final_train_loss"] = tl
+	if valSet != nil {
+		prov.Training["final_validation_loss"] = vl
+		prov.Training["validation_rows"] = valSet.Rows
+	}
+	prov.Training["best_epoch"] = h.BestEpoch
+	prov.Training["stopped_early"] = h.StoppedEarly
 	f, err := model.File(prov, nil)
 	if err != nil {
 		return err
@@ -234,7 +243,6 @@ func cmdTrain(e *env, args []string) error {
 		return err
 	}
 	if !o.quiet {
-		tl, vl := h.Loss(len(h.Epochs))
 		fmt.Fprintf(e.stderr, "wrote %s: %s model, %d epochs, final training loss %.6g", o.out, o.kind, len(h.Epochs), tl)
 		if valSet != nil {
 			fmt.Fprintf(e.stderr, ", validation loss %.6g (best epoch %d)", vl, h.BestEpoch)

@@ -379,6 +379,17 @@ func cmdInspect(e *env, args []string) error {
 	fmt.Fprintf(w, "parameters  %d in %d tensors (%s)\n", total, len(params), params[0].Precision())
 	if p := l.prov; p != nil {
 		fmt.Fprintf(w, "data        %s, %d rows, fingerprint %s\n", p.DataFile, p.DataRows, p.DataFingerprint)
+		if n, ok := p.Training["epochs_run"].(float64); ok {
+			line := fmt.Sprintf("%d epochs, final training loss %.6g", int(n), p.Training["final_train_loss"])
+			if v, ok := p.Training["final_validation_loss"].(float64); ok {
+				line += fmt.Sprintf(", validation loss %.6g on %v rows", v, p.Training["validation_rows"])
+			}
+			line += fmt.Sprintf(", best epoch %v", p.Training["best_epoch"])
+			if se, _ := p.Training["stopped_early"].(bool); se {
+				line += ", stopped early"
+			}
+			fmt.Fprintf(w, "summary     %s\n", line)
+		}
 		if a, ok := p.Training["args"].([]any); ok {
 			var s []string
 			for _, v := range a {
