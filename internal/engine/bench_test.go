@@ -8,6 +8,8 @@ import (
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/quernlab/quern/optim"
+	"gonum.org/v1/gonum/blas"
+	gonumblas "gonum.org/v1/gonum/blas/gonum"
 )
 
 // One training step (forward, backward, Adam update) of the reference
@@ -64,4 +66,22 @@ func benchStep(b *testing.B, ph *engine.Phase, batch int, params []*layers.Param
 		}
 	}
 	b.ReportMetric(float64(batch*b.N)/b.Elapsed().Seconds(), "samples/s")
+}
+
+// BenchmarkSgemm1024 measures the float32 matrix product that gorgonia
+// uses here (gonum's pure-Go BLAS), 1024x1024 by 1024x1024, as the peak
+// against which training steps are compared.
+func BenchmarkSgemm1024(b *testing.B) {
+	const n = 1024
+	rng := rand.New(rand.NewPCG(1, 1))
+	a, c, out := make([]float32, n*n), make([]float32, n*n), make([]float32, n*n)
+	for i := range a {
+		a[i], c[i] = rng.Float32(), rng.Float32()
+	}
+	impl := gonumblas.Implementation{}
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		impl.Sgemm(blas.NoTrans, blas.NoTrans, n, n, n, 1, a, n, c, n, 0, out, n)
+	}
+	b.ReportMetric(2*n*n*n*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
 }

@@ -1,0 +1,44 @@
+#!/usr/bin/env bash
+# Training benchmark: quern's training steps for the reference shapes
+# against the peer (bench/peer_train.py), interleaved on this machine at 1
+# and 2 threads, printing samples/s, the ratio of epoch times (quern/peer),
+# GFLOP/s against each side's measured 1024x1024 Sgemm rate, and peak RSS.
+#   bash bench/train.sh
+# Needs Debian's python3-torch; fetches libopenblas0-pthread into a
+# temporary folder (apt-get download, nothing installed).
+set -euo pipefail
+cd "$(dirname "$0")/.."
+tmp="$(mktemp -d)"
+trap 'rm -rf "$tmp"' EXIT
+(cd "$tmp" && apt-get download libopenblas0-pthread >/dev/null 2>&1 && dpkg -x libopenblas0-pthread*.deb ob)
+ob="$tmp/ob/usr/lib/x86_64-linux-gnu/openblas-pthread"
+go test -c -o "$tmp/ae.test" ./ae/ && go test -c -o "$tmp/vae.test" ./vae/ && go test -c -o "$tmp/gan.test" ./gan/ && go test -c -o "$tmp/engine.test" ./internal/engine/
+ours() { # threads binary pattern
+	/usr/bin/time -f "rss_kb %M" env GOMAXPROCS="$1" "$tmp/$2" -test.run '^$' -test.bench "$3" -test.benchtime 20x 2>&1
+}
+for th in 1 2; do
+	{
+		ours "$th" vae.test TrainStepVAE784
+		ours "$th" ae.test 'TrainStep(AE784|Tiny)'
+		ours "$th" gan.test TrainStepGAN784
+		ours "$th" engine.test Sgemm1024
+	} > "$tmp/ours$th.txt"
+	/usr/bin/time -f "rss_kb %M" env LD_LIBRARY_PATH="$ob" OPENBLAS_NUM_THREADS="$th" OMP_NUM_THREADS="$th" /usr/bin/python3 bench/peer_train.py "$th" > "$tmp/peer$th.txt" 2>&1
+done
+metric() { # file benchmark unit
+	awk -v b="$2" -v u="$3" '$1 ~ b {for(i=1;i<=NF;i++) if($i==u) print $(i-1)}' "$1" | head -1
+}
+printf '%-8s %3s %14s %14s %8s %10s %10s\n' shape thr quern_samp/s peer_samp/s ratio quern_GF/s peer_GF/s
+for th in 1 2; do
+	for s in vae784:TrainStepVAE784 ae784:TrainStepAE784 gan784:TrainStepGAN784 tiny:TrainStepTiny; do
+		name=${s%%:*}; bench=${s#*:}
+		q=$(metric "$tmp/ours$th.txt" "$bench" samples/s); qg=$(metric "$tmp/ours$th.txt" "$bench" GFLOP/s)
+		p=$(awk -v n="$name" '$1==n {print $2}' "$tmp/peer$th.txt"); pg=$(awk -v n="$name" '$1==n {print $3}' "$tmp/peer$th.txt")
+		awk -v n="$name" -v t="$th" -v q="$q" -v p="$p" -v qg="$qg" -v pg="$pg" 'BEGIN{printf "%-8s %3d %14.0f %14.0f %8.2f %10.2f %10.2f\n", n, t, q, p, p/q, qg, pg}'
+	done
+	qs=$(metric "$tmp/ours$th.txt" Sgemm1024 GFLOP/s); ps=$(awk '$1=="sgemm1024" {print $3}' "$tmp/peer$th.txt")
+	printf '%-8s %3d %14s %14s %8s %10.2f %10.2f\n' sgemm "$th" - - - "$qs" "$ps"
+	printf 'peak RSS, %d thread(s): quern %s kB (largest benchmark), peer %s kB\n' "$th" \
+		"$(grep rss_kb "$tmp/ours$th.txt" | awk '{print $2}' | sort -n | tail -1)" "$(grep rss_kb "$tmp/peer$th.txt" | awk '{print $2}')"
+done
+echo "ratio = quern epoch time / peer epoch time (below 1: quern is faster)"
