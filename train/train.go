@@ -96,7 +96,10 @@ type Config struct {
 	OnEpoch func(Progress, *History) error
 	// Start resumes from a history (a checkpoint's), continuing at epoch
 	// len(Start.Epochs)+1. The caller restores weights, optimiser state and
-	// the generator's state.
+	// the generator's state. The best epoch's weights are not part of a
+	// history: with early stopping, if the best epoch came before the
+	// resume and no later epoch beats it, the weights at the resume stand
+	// in for them.
 	Start *History
 }
 
