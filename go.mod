@@ -4,6 +4,7 @@ go 1.26
 
 require (
 	github.com/stretchr/testify v1.11.1
+	golang.org/x/sys v0.30.0
 	gonum.org/v1/gonum v0.16.0
 	gonum.org/v1/plot v0.16.0
 	gorgonia.org/gorgonia v0.9.18

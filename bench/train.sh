@@ -21,7 +21,7 @@ for th in 1 2; do
 		ours "$th" vae.test TrainStepVAE784
 		ours "$th" ae.test 'TrainStep(AE784|Tiny)'
 		ours "$th" gan.test TrainStepGAN784
-		ours "$th" engine.test Sgemm1024
+		ours "$th" engine.test 'Sgemm1024$'
 	} > "$tmp/ours$th.txt"
 	/usr/bin/time -f "rss_kb %M" env LD_LIBRARY_PATH="$ob" OPENBLAS_NUM_THREADS="$th" OMP_NUM_THREADS="$th" /usr/bin/python3 bench/peer_train.py "$th" > "$tmp/peer$th.txt" 2>&1
 done

@@ -1,0 +1,19 @@
+package engine
+
+import (
+	"github.com/quernlab/quern/internal/gemm"
+	G "gorgonia.org/gorgonia"
+	"gonum.org/v1/gonum/blas"
+	gonumblas "gonum.org/v1/gonum/blas/gonum"
+)
+
+// blasImpl is gonum's pure-Go BLAS with quern's float32 matrix product in
+// place of gonum's Sgemm.
+type blasImpl struct{ gonumblas.Implementation }
+
+// Sgemm is gemm.Sgemm.
+func (blasImpl) Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	gemm.Sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+}
+
+func init() { G.Use(blasImpl{}) }

@@ -1,0 +1,100 @@
+package gemm
+
+import (
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+	"gonum.org/v1/gonum/blas"
+	gonumblas "gonum.org/v1/gonum/blas/gonum"
+)
+
+func randSlice(rng *rand.Rand, n int) []float32 {
+	s := make([]float32, n)
+	for i := range s {
+		s[i] = float32(rng.NormFloat64())
+	}
+	return s
+}
+
+// check compares Sgemm with gonum's reference Sgemm (blas/gonum) on one
+// problem. Tolerance: float32 sums of k products in different orders,
+// 1e-5 relative to the sum of absolute products plus 1e-6.
+func check(t *testing.T, rng *rand.Rand, tA, tB blas.Transpose, m, n, k int, alpha, beta float32) {
+	t.Helper()
+	ar, ac := m, k
+	if tA == blas.Trans {
+		ar, ac = k, m
+	}
+	br, bc := k, n
+	if tB == blas.Trans {
+		br, bc = n, k
+	}
+	lda, ldb, ldc := max(ac, 1)+rng.IntN(3), max(bc, 1)+rng.IntN(3), max(n, 1)+rng.IntN(3)
+	a, b := randSlice(rng, max(ar*lda, 1)), randSlice(rng, max(br*ldb, 1))
+	c := randSlice(rng, max(m*ldc, 1))
+	want := append([]float32(nil), c...)
+	gonumblas.Implementation{}.Sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, want, ldc)
+	got := append([]float32(nil), c...)
+	Sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, got, ldc)
+	for i := range want {
+		scale := math.Abs(float64(want[i])) + float64(k)
+		if math.Abs(float64(want[i]-got[i])) > 1e-5*scale+1e-6 {
+			t.Fatalf("tA=%c tB=%c m=%d n=%d k=%d alpha=%v beta=%v: element %d is %v, want %v", tA, tB, m, n, k, alpha, beta, i, got[i], want[i])
+		}
+	}
+}
+
+func TestAgainstGonum(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	shapes := [][3]int{{1, 1, 1}, {6, 16, 1}, {7, 17, 3}, {5, 15, 300}, {13, 33, 257}, {128, 784, 400}, {73, 1030, 20}, {64, 1, 512}, {1, 784, 20}, {0, 5, 3}, {4, 4, 0}}
+	for _, kern := range []struct {
+		name string
+		f    func(int, []float32, []float32, []float32, int)
+	}{{"go", kernelGo}, {"selected", kernel}} {
+		saved := kernel
+		kernel = kern.f
+		for _, s := range shapes {
+			for _, tA := range []blas.Transpose{blas.NoTrans, blas.Trans} {
+				for _, tB := range []blas.Transpose{blas.NoTrans, blas.Trans} {
+					check(t, rng, tA, tB, s[0], s[1], s[2], 1, 0)
+					check(t, rng, tA, tB, s[0], s[1], s[2], -0.5, 1)
+					check(t, rng, tA, tB, s[0], s[1], s[2], 2, 0.25)
+				}
+			}
+		}
+		for i := 0; i < 50; i++ {
+			check(t, rng, blas.Transpose([]byte{'N', 'T'}[rng.IntN(2)]), blas.Transpose([]byte{'N', 'T'}[rng.IntN(2)]), 1+rng.IntN(90), 1+rng.IntN(90), 1+rng.IntN(600), 1, 0)
+		}
+		kernel = saved
+	}
+	t.Logf("assembly kernel in use: %v", UsingAssembly())
+}
+
+// Large products run on several goroutines; the result must not depend on
+// their number (each C element is summed by one goroutine in one order).
+func TestWorkersGiveIdenticalResults(t *testing.T) {
+	rng := rand.New(rand.NewPCG(2, 2))
+	m, n, k := 300, 200, 150
+	a, b := randSlice(rng, m*k), randSlice(rng, k*n)
+	c1, c2 := make([]float32, m*n), make([]float32, m*n)
+	old := runtime.GOMAXPROCS(1)
+	Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, 0, c1, n)
+	runtime.GOMAXPROCS(4)
+	Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, 0, c2, n)
+	runtime.GOMAXPROCS(old)
+	require.Equal(t, c1, c2)
+}
+
+func BenchmarkSgemm1024(b *testing.B) {
+	const n = 1024
+	rng := rand.New(rand.NewPCG(1, 1))
+	x, y, out := randSlice(rng, n*n), randSlice(rng, n*n), make([]float32, n*n)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		Sgemm(blas.NoTrans, blas.NoTrans, n, n, n, 1, x, n, y, n, 0, out, n)
+	}
+	b.ReportMetric(2*n*n*n*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
+}
