@@ -2,9 +2,9 @@ package engine
 
 import (
 	"github.com/quernlab/quern/internal/gemm"
-	G "gorgonia.org/gorgonia"
 	"gonum.org/v1/gonum/blas"
 	gonumblas "gonum.org/v1/gonum/blas/gonum"
+	G "gorgonia.org/gorgonia"
 )
 
 // blasImpl is gonum's pure-Go BLAS with quern's float32 matrix product in
