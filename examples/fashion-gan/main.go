@@ -32,7 +32,7 @@ import (
 func main() {
 	trainPath := flag.String("train", "testdata/fashion-mnist/train-images-idx3-ubyte-first2000.gz", "idx file of training images")
 	testPath := flag.String("test", "testdata/fashion-mnist/t10k-images-idx3-ubyte-first500.gz", "idx file of test images")
-	epochs := flag.Int("epochs", 30, "GAN training epochs")
+	epochs := flag.Int("epochs", 100, "GAN training epochs")
 	out := flag.String("out", "fashion-gan-out", "output folder")
 	short := flag.Bool("short", false, "small networks and 1 epoch")
 	flag.Parse()

@@ -21,10 +21,11 @@ const (
 	nc = 1024
 )
 
-// kernel computes C[0:mr, 0:nr] += A_panel * B_panel for k steps, where
-// the A panel holds k groups of mr values and the B panel k groups of nr
-// values; c points at the tile's first element and ldc is C's row stride.
-// It is the assembly kernel when the CPU allows, else kernelGo.
+// kernel computes C[0:mr, 0:nr] += A_panel * B_panel for k steps (or
+// C = A_panel * B_panel when overwrite is set), where the A panel holds k
+// groups of mr values and the B panel k groups of nr values; c starts at
+// the tile's first element and ldc is C's row stride. It is the assembly
+// kernel when the CPU allows, else kernelGo.
 var kernel = kernelGo
 
 // UsingAssembly reports whether the AVX2/FMA kernel is in use.
@@ -32,7 +33,7 @@ func UsingAssembly() bool { return useAsm }
 
 var useAsm bool
 
-func kernelGo(k int, a, b, c []float32, ldc int) {
+func kernelGo(k int, a, b, c []float32, ldc int, overwrite bool) {
 	var acc [mr][nr]float32
 	for p := 0; p < k; p++ {
 		bp := b[p*nr : p*nr+nr]
@@ -47,6 +48,10 @@ func kernelGo(k int, a, b, c []float32, ldc int) {
 	}
 	for i := 0; i < mr; i++ {
 		ci := c[i*ldc : i*ldc+nr]
+		if overwrite {
+			copy(ci, acc[i][:])
+			continue
+		}
 		for j := range ci {
 			ci[j] += acc[i][j]
 		}
@@ -71,14 +76,16 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 	if m == 0 || n == 0 {
 		return
 	}
-	// C = beta*C first; the kernels then add alpha*A*B.
-	for i := 0; i < m; i++ {
-		row := c[i*ldc : i*ldc+n]
-		switch beta {
-		case 1:
-		case 0:
-			clear(row)
-		default:
+	// C = beta*C first, the kernels then add alpha*A*B; with beta 0 the
+	// first depth block overwrites C instead (no clearing pass), unless
+	// there is nothing to add.
+	if beta != 1 && (beta != 0 || k == 0 || alpha == 0) {
+		for i := 0; i < m; i++ {
+			row := c[i*ldc : i*ldc+n]
+			if beta == 0 {
+				clear(row)
+				continue
+			}
 			for j := range row {
 				row[j] *= beta
 			}
@@ -99,11 +106,12 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 			npanels := (nb + nr - 1) / nr
 			bb.b = grow(bb.b, npanels*kb*nr)
 			packB(bb.b, tB, b, ldb, pc, kb, jc, nb)
+			over := pc == 0 && beta == 0
 			blocks := (m + mc - 1) / mc
 			w := min(workers, blocks)
 			if w <= 1 {
 				for ic := 0; ic < m; ic += mc {
-					block(bb, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc)
+					block(bb, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc, over)
 				}
 			} else {
 				var wg sync.WaitGroup
@@ -114,7 +122,7 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 						ab := bufs.Get().(*buffers)
 						for blk := t; blk < blocks; blk += w {
 							ic := blk * mc
-							block(ab, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc)
+							block(ab, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc, over)
 						}
 						bufs.Put(ab)
 					}(t)
@@ -127,8 +135,8 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 }
 
 // block multiplies rows [ic, ic+mb) of op(A) (depth [pc, pc+kb)) by the
-// packed B block into C.
-func block(bf *buffers, tA blas.Transpose, a []float32, lda int, alpha float32, ic, mb, pc, kb int, pb []float32, nb int, c []float32, ldc, jc int) {
+// packed B block into C, overwriting C's values when over is set.
+func block(bf *buffers, tA blas.Transpose, a []float32, lda int, alpha float32, ic, mb, pc, kb int, pb []float32, nb int, c []float32, ldc, jc int, over bool) {
 	mpanels := (mb + mr - 1) / mr
 	bf.a = grow(bf.a, mpanels*kb*mr)
 	packA(bf.a, tA, a, lda, alpha, ic, mb, pc, kb)
@@ -143,15 +151,19 @@ func block(bf *buffers, tA blas.Transpose, a []float32, lda int, alpha float32, 
 			apan := bf.a[ip*kb*mr : (ip+1)*kb*mr]
 			if mh == mr && nw == nr {
 				off := (ic+i0)*ldc + jc + j0
-				kernel(kb, apan, bpan, c[off:], ldc)
+				kernel(kb, apan, bpan, c[off:], ldc, over)
 				continue
 			}
-			// edge tile: compute into a scratch tile, add the valid part
-			clear(bf.tile)
-			kernel(kb, apan, bpan, bf.tile, nr)
+			// edge tile: compute into a scratch tile, then store or add
+			// its valid part
+			kernel(kb, apan, bpan, bf.tile, nr, true)
 			for i := 0; i < mh; i++ {
 				ci := c[(ic+i0+i)*ldc+jc+j0 : (ic+i0+i)*ldc+jc+j0+nw]
 				ti := bf.tile[i*nr : i*nr+nw]
+				if over {
+					copy(ci, ti)
+					continue
+				}
 				for j := range ci {
 					ci[j] += ti[j]
 				}

@@ -52,7 +52,7 @@ func TestAgainstGonum(t *testing.T) {
 	shapes := [][3]int{{1, 1, 1}, {6, 16, 1}, {7, 17, 3}, {5, 15, 300}, {13, 33, 257}, {128, 784, 400}, {73, 1030, 20}, {64, 1, 512}, {1, 784, 20}, {0, 5, 3}, {4, 4, 0}}
 	for _, kern := range []struct {
 		name string
-		f    func(int, []float32, []float32, []float32, int)
+		f    func(int, []float32, []float32, []float32, int, bool)
 	}{{"go", kernelGo}, {"selected", kernel}} {
 		saved := kernel
 		kernel = kern.f

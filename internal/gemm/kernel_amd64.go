@@ -5,9 +5,9 @@ package gemm
 import "golang.org/x/sys/cpu"
 
 //go:noescape
-func kern6x16(k int, a, b, c *float32, ldc int)
+func kern6x16(k int, a, b, c *float32, ldc int, overwrite bool)
 
-func kernelAsm(k int, a, b, c []float32, ldc int) {
+func kernelAsm(k int, a, b, c []float32, ldc int, overwrite bool) {
 	if k == 0 {
 		return
 	}
@@ -15,7 +15,7 @@ func kernelAsm(k int, a, b, c []float32, ldc int) {
 	_ = a[k*mr-1]
 	_ = b[k*nr-1]
 	_ = c[(mr-1)*ldc+nr-1]
-	kern6x16(k, &a[0], &b[0], &c[0], ldc)
+	kern6x16(k, &a[0], &b[0], &c[0], ldc, overwrite)
 }
 
 func init() {

@@ -2,9 +2,10 @@
 
 #include "textflag.h"
 
-// func kern6x16(k int, a, b, c *float32, ldc int)
+// func kern6x16(k int, a, b, c *float32, ldc int, overwrite bool)
 // C[0:6, 0:16] += sum over p < k of a[p*6+i] * b[p*16+j]
-TEXT ·kern6x16(SB), NOSPLIT, $0-40
+// (or = when overwrite is set)
+TEXT ·kern6x16(SB), NOSPLIT, $0-41
 	MOVQ k+0(FP), CX
 	MOVQ a+8(FP), SI
 	MOVQ b+16(FP), DI
@@ -50,34 +51,59 @@ loop:
 	DECQ CX
 	JNZ  loop
 
+	MOVBLZX overwrite+40(FP), AX
+	TESTL AX, AX
+	JNZ  store
+
 	VADDPS (DX), Y0, Y0
-	VMOVUPS Y0, (DX)
 	VADDPS 32(DX), Y1, Y1
+	VMOVUPS Y0, (DX)
 	VMOVUPS Y1, 32(DX)
 	ADDQ R8, DX
 	VADDPS (DX), Y2, Y2
-	VMOVUPS Y2, (DX)
 	VADDPS 32(DX), Y3, Y3
+	VMOVUPS Y2, (DX)
 	VMOVUPS Y3, 32(DX)
 	ADDQ R8, DX
 	VADDPS (DX), Y4, Y4
-	VMOVUPS Y4, (DX)
 	VADDPS 32(DX), Y5, Y5
+	VMOVUPS Y4, (DX)
 	VMOVUPS Y5, 32(DX)
 	ADDQ R8, DX
 	VADDPS (DX), Y6, Y6
-	VMOVUPS Y6, (DX)
 	VADDPS 32(DX), Y7, Y7
+	VMOVUPS Y6, (DX)
 	VMOVUPS Y7, 32(DX)
 	ADDQ R8, DX
 	VADDPS (DX), Y8, Y8
-	VMOVUPS Y8, (DX)
 	VADDPS 32(DX), Y9, Y9
+	VMOVUPS Y8, (DX)
 	VMOVUPS Y9, 32(DX)
 	ADDQ R8, DX
 	VADDPS (DX), Y10, Y10
-	VMOVUPS Y10, (DX)
 	VADDPS 32(DX), Y11, Y11
+	VMOVUPS Y10, (DX)
+	VMOVUPS Y11, 32(DX)
+	VZEROUPPER
+	RET
+
+store:
+	VMOVUPS Y0, (DX)
+	VMOVUPS Y1, 32(DX)
+	ADDQ R8, DX
+	VMOVUPS Y2, (DX)
+	VMOVUPS Y3, 32(DX)
+	ADDQ R8, DX
+	VMOVUPS Y4, (DX)
+	VMOVUPS Y5, 32(DX)
+	ADDQ R8, DX
+	VMOVUPS Y6, (DX)
+	VMOVUPS Y7, 32(DX)
+	ADDQ R8, DX
+	VMOVUPS Y8, (DX)
+	VMOVUPS Y9, 32(DX)
+	ADDQ R8, DX
+	VMOVUPS Y10, (DX)
 	VMOVUPS Y11, 32(DX)
 	VZEROUPPER
 	RET
