@@ -3,6 +3,8 @@ module github.com/quernlab/quern
 go 1.26
 
 require (
+	github.com/chewxy/hm v1.0.0
+	github.com/chewxy/math32 v1.10.1
 	github.com/stretchr/testify v1.11.1
 	golang.org/x/sys v0.30.0
 	gonum.org/v1/gonum v0.16.0
@@ -20,8 +22,6 @@ require (
 	github.com/apache/arrow/go/arrow v0.0.0-20211112161151-bc219186db40 // indirect
 	github.com/awalterschulze/gographviz v2.0.3+incompatible // indirect
 	github.com/campoy/embedmd v1.0.0 // indirect
-	github.com/chewxy/hm v1.0.0 // indirect
-	github.com/chewxy/math32 v1.10.1 // indirect
 	github.com/davecgh/go-spew v1.1.1 // indirect
 	github.com/gogo/protobuf v1.3.2 // indirect
 	github.com/golang/freetype v0.0.0-20170609003504-e2365dfdc4a0 // indirect

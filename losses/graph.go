@@ -31,16 +31,18 @@ func GraphBCE(g *engine.Graph, p, y *engine.Node) *engine.Node {
 	return g.Neg(g.Mean(t))
 }
 
-// GraphBCEWithLogits is the graph form of BCEWithLogits: softplus(x) - x*y,
-// whose gradient sigmoid(x) - y is exact and finite for any x.
+// GraphBCEWithLogits is the graph form of BCEWithLogits: the fused
+// max(x,0) - x*y + log1p(exp(-|x|)), whose gradient sigmoid(x) - y is exact
+// and finite for any x.
 func GraphBCEWithLogits(g *engine.Graph, x, y *engine.Node) *engine.Node {
 	same(g, "BCEWithLogits", x, y)
 	return g.Mean(BCEWithLogitsElems(g, x, y))
 }
 
-// BCEWithLogitsElems is the element-wise BCE on logits, before reduction.
+// BCEWithLogitsElems is the element-wise BCE on logits, before reduction,
+// as one fused operation.
 func BCEWithLogitsElems(g *engine.Graph, x, y *engine.Node) *engine.Node {
-	return g.Sub(g.Softplus(x), g.Mul(x, y))
+	return g.BCEWithLogits(x, y)
 }
 
 // GraphGaussianNLL is the graph form of GaussianNLL.

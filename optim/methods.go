@@ -281,6 +281,32 @@ func adamKernel[T float32 | float64](w, g, m, v []T, k adamCoef) {
 	}
 }
 
+// adam32 is adamKernel for float32 written out with hoisted constants and
+// slices resliced to one length, so that the compiler drops bounds checks;
+// it is the hot loop of every float32 training step.
+func adam32(w, g, m, v []float32, k adamCoef) {
+	b1, b2 := float32(k.b1), float32(k.b2)
+	c1, c2 := 1-b1, 1-b2
+	eps, wd := float32(k.eps), float32(k.wd)
+	step := float32(k.lr / k.bc1)
+	inv := float32(1 / k.sbc2)
+	decay := float32(1 - k.lr*k.wd)
+	g, m, v = g[:len(w)], m[:len(w)], v[:len(w)]
+	for i := range w {
+		gi := g[i]
+		wi := w[i]
+		if k.decoupled {
+			wi *= decay
+		} else if wd != 0 {
+			gi += wd * wi
+		}
+		mi := b1*m[i] + c1*gi
+		vi := b2*v[i] + c2*gi*gi
+		m[i], v[i] = mi, vi
+		w[i] = wi - step*mi/(float32(math.Sqrt(float64(vi)))*inv+eps)
+	}
+}
+
 // RMSpropConfig configures RMSprop. Zero fields take the defaults Alpha
 // 0.99, Epsilon 1e-8, no momentum, no weight decay, no schedule.
 type RMSpropConfig struct {

@@ -283,3 +283,38 @@ func TestClosedProgram(t *testing.T) {
 	require.Error(t, err)
 	require.False(t, errors.Is(err, engine.ErrNonFinite))
 }
+
+// The fused BCE-on-logits in float32 agrees with the float64 reference,
+// including logits of +/-100, and its gradient is sigmoid(x) - y.
+func TestFusedBCEFloat32(t *testing.T) {
+	xs := []float64{-100, -3, -0.5, 0, 0.25, 4, 100, 17}
+	ys := []float64{1, 0, 0.3, 1, 0, 0.9, 0, 1}
+	px := layers.NewParam("x", 1, len(xs), layers.Float32)
+	py := layers.NewParam("y", 1, len(xs), layers.Float32)
+	require.NoError(t, px.SetValues(xs))
+	require.NoError(t, py.SetValues(ys))
+	py.SetFrozen(true)
+	g := engine.NewGraph(layers.Float32)
+	prog, err := g.Compile(g.Sum(g.BCEWithLogits(g.Param(px), g.Param(py))), engine.CompileOptions{Grad: true})
+	require.NoError(t, err)
+	defer prog.Close()
+	got, err := prog.Run(engine.RunOptions{})
+	require.NoError(t, err)
+	want, _ := losses.BCEWithLogits(xs, ys)
+	want *= float64(len(xs))
+	require.InDelta(t, want, got, 1e-6*want)
+	for i, x := range xs {
+		s := 1 / (1 + math.Exp(-x))
+		require.InDelta(t, s-ys[i], px.GradAt(i), 1e-6, "x=%v", x)
+	}
+}
+
+func TestLog1pExpNegAccuracy(t *testing.T) {
+	// against math.Log1p(math.Exp(-a)) in float64 (reference), across the
+	// switch between the series and the logarithm
+	for a := 0.0; a < 30; a += 0.013 {
+		want := math.Log1p(math.Exp(-a))
+		got := float64(engine.Log1pExpNeg32(float32(a)))
+		require.InDelta(t, want, got, 1e-7+1e-6*want, "a=%v", a)
+	}
+}
