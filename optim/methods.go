@@ -250,7 +250,7 @@ func (o *Adam) Update(params []*layers.Param) error {
 }
 
 func (o *Adam) k32(p *layers.Param, s *slots[float32]) {
-	adamKernel(p.F32(), p.Grad32(), s.a, s.b, o.k)
+	adam32(p.F32(), p.Grad32(), s.a, s.b, o.k)
 }
 func (o *Adam) k64(p *layers.Param, s *slots[float64]) {
 	adamKernel(p.F64(), p.Grad64(), s.a, s.b, o.k)
