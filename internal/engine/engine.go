@@ -330,13 +330,35 @@ func (gr *Graph) Sigmoid(x *Node) *Node { return gr.unary("sigmoid", x, G.Sigmoi
 // Softplus is log(1+exp(x)), stable for large |x|.
 func (gr *Graph) Softplus(x *Node) *Node { return gr.unary("softplus", x, G.Softplus) }
 
-// ReLU is max(0, x).
-func (gr *Graph) ReLU(x *Node) *Node { return gr.unary("relu", x, G.Rectify) }
+// ReLU is max(0, x), one fused operation (gorgonia's Rectify is a
+// comparison and a product).
+func (gr *Graph) ReLU(x *Node) *Node { return gr.LeakyReLU(x, 0) }
 
-// LeakyReLU is x for x >= 0 and slope*x otherwise, written as
-// relu(x) - slope*relu(-x).
+// LeakyReLU is x for x >= 0 and slope*x otherwise, one fused operation
+// whose gradient is 1 for x >= 0 and slope elsewhere.
 func (gr *Graph) LeakyReLU(x *Node, slope float64) *Node {
-	return gr.Sub(gr.ReLU(x), gr.Scale(gr.ReLU(gr.Neg(x)), slope))
+	if !gr.ok(x) {
+		return &Node{g: gr}
+	}
+	if x.IsScalar() {
+		return gr.fail("leaky_relu", errors.New("scalar operand"))
+	}
+	n, err := G.ApplyOp(newLeaky(slope), x.n)
+	return gr.wrap("leaky_relu", n, err, x.rows, x.cols)
+}
+
+// Affine is x W + b for x (rows x in), W (in x out) and the row b
+// (1 x out), one fused operation: the bias is added row by row, not
+// broadcast into a copy.
+func (gr *Graph) Affine(x, w, b *Node) *Node {
+	if !gr.ok(x, w, b) {
+		return &Node{g: gr}
+	}
+	if x.cols != w.rows || b.rows != 1 || b.cols != w.cols {
+		return gr.fail("affine", fmt.Errorf("shapes %dx%d, %dx%d, %dx%d do not chain", x.rows, x.cols, w.rows, w.cols, b.rows, b.cols))
+	}
+	n, err := G.ApplyOp(newAffine(), x.n, w.n, b.n)
+	return gr.wrap("affine", n, err, x.rows, w.cols)
 }
 
 // ELU is x for x > 0 and exp(x)-1 otherwise, written as
@@ -425,7 +447,7 @@ func (gr *Graph) Dense(d *layers.Dense, x, mask *Node) *Node {
 	if x.cols != d.In {
 		return gr.fail("dense", fmt.Errorf("layer %q takes %d inputs, got %d", d.W.Name(), d.In, x.cols))
 	}
-	h := gr.AddRow(gr.MatMul(x, gr.Param(d.W)), gr.Param(d.B))
+	h := gr.Affine(x, gr.Param(d.W), gr.Param(d.B))
 	h = gr.Activate(h, d.Act, d.Slope)
 	if mask != nil {
 		h = gr.Mul(h, mask)

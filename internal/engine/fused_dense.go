@@ -1,0 +1,357 @@
+package engine
+
+import (
+	"fmt"
+	"hash"
+
+	"github.com/chewxy/hm"
+	"github.com/quernlab/quern/internal/gemm"
+	"gonum.org/v1/gonum/blas"
+	gonumblas "gonum.org/v1/gonum/blas/gonum"
+	G "gorgonia.org/gorgonia"
+	"gorgonia.org/tensor"
+)
+
+// Fused dense-layer operations: the affine map x W + b in one instruction
+// (the bias is added row by row instead of being broadcast into a copy),
+// its three gradients, and leaky ReLU (ReLU at slope 0) with its gradient.
+
+// opBase holds what every fused operation answers the same way.
+type opBase struct{ name string }
+
+func (o opBase) ReturnsPtr() bool      { return false }
+func (o opBase) CallsExtern() bool     { return false }
+func (o opBase) OverwritesInput() int  { return -1 }
+func (o opBase) WriteHash(h hash.Hash) { fmt.Fprint(h, "quern."+o.name) }
+func (o opBase) Hashcode() uint32      { return hashOf("quern." + o.name) }
+func (o opBase) String() string        { return o.name }
+
+func shape2(in []G.DimSizer, i int) (tensor.Shape, error) {
+	if i >= len(in) {
+		return nil, fmt.Errorf("engine: missing input shape %d", i)
+	}
+	s, ok := in[i].(tensor.Shape)
+	if !ok || len(s) != 2 {
+		return nil, fmt.Errorf("engine: input %d is not a matrix (%v)", i, in[i])
+	}
+	return s, nil
+}
+
+// prealloc returns out when it fits rows x cols of dt, else a new tensor.
+func prealloc(out G.Value, dt tensor.Dtype, rows, cols int) *tensor.Dense {
+	if d, ok := out.(*tensor.Dense); ok && d.Dtype() == dt && d.DataSize() == rows*cols && d.Shape().Eq(tensor.Shape{rows, cols}) {
+		return d
+	}
+	return tensor.New(tensor.WithShape(rows, cols), tensor.Of(dt))
+}
+
+func dims(t *tensor.Dense) (int, int) {
+	s := t.Shape()
+	if len(s) != 2 {
+		return 0, 0
+	}
+	return s[0], s[1]
+}
+
+// gemmT computes c = op(a) op(b) for float32 or float64 tensors.
+func gemmT(tA, tB blas.Transpose, m, n, k int, a, b, c *tensor.Dense) error {
+	lda, ldb := k, n
+	if tA == blas.Trans {
+		lda = m
+	}
+	if tB == blas.Trans {
+		ldb = k
+	}
+	switch cs := c.Data().(type) {
+	case []float32:
+		gemm.Sgemm(tA, tB, m, n, k, 1, a.Data().([]float32), lda, b.Data().([]float32), ldb, 0, cs, n)
+	case []float64:
+		gonumblas.Implementation{}.Dgemm(tA, tB, m, n, k, 1, a.Data().([]float64), lda, b.Data().([]float64), ldb, 0, cs, n)
+	default:
+		return fmt.Errorf("engine: matrix product of %T", cs)
+	}
+	return nil
+}
+
+// affineOp: (x n x in, W in x out, b 1 x out) -> x W + b.
+type affineOp struct{ opBase }
+
+func newAffine() affineOp { return affineOp{opBase{"Affine"}} }
+
+func (affineOp) Arity() int         { return 3 }
+func (affineOp) Type() hm.Type      { return fusedType(3) }
+func (affineOp) DiffWRT(int) []bool { return []bool{true, true, true} }
+func (affineOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	x, err := shape2(in, 0)
+	if err != nil {
+		return nil, err
+	}
+	w, err := shape2(in, 1)
+	if err != nil {
+		return nil, err
+	}
+	if x[1] != w[0] {
+		return nil, fmt.Errorf("engine: affine of %v by %v", x, w)
+	}
+	return tensor.Shape{x[0], w[1]}, nil
+}
+
+func (op affineOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
+
+func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
+	t, err := tensors(in, 3)
+	if err != nil {
+		return nil, err
+	}
+	n, k := dims(t[0])
+	k2, m := dims(t[1])
+	if k != k2 || t[2].DataSize() != m {
+		return nil, fmt.Errorf("engine: affine shapes %v, %v, %v", t[0].Shape(), t[1].Shape(), t[2].Shape())
+	}
+	out := prealloc(p, t[0].Dtype(), n, m)
+	if err := gemmT(blas.NoTrans, blas.NoTrans, n, m, k, t[0], t[1], out); err != nil {
+		return nil, err
+	}
+	switch o := out.Data().(type) {
+	case []float32:
+		b := t[2].Data().([]float32)[:m]
+		for r := 0; r < n; r++ {
+			row := o[r*m : r*m+m]
+			for j, v := range b {
+				row[j] += v
+			}
+		}
+	case []float64:
+		b := t[2].Data().([]float64)[:m]
+		for r := 0; r < n; r++ {
+			row := o[r*m : r*m+m]
+			for j, v := range b {
+				row[j] += v
+			}
+		}
+	}
+	return out, nil
+}
+
+func (op affineOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
+	dx, err := G.ApplyOp(affineGradOp{opBase{"AffineGradX"}, 0}, grad, in[1])
+	if err != nil {
+		return nil, err
+	}
+	dw, err := G.ApplyOp(affineGradOp{opBase{"AffineGradW"}, 1}, in[0], grad)
+	if err != nil {
+		return nil, err
+	}
+	db, err := G.ApplyOp(affineGradOp{opBase{"AffineGradB"}, 2}, grad)
+	if err != nil {
+		return nil, err
+	}
+	return G.Nodes{dx, dw, db}, nil
+}
+
+// affineGradOp computes one gradient of the affine map: which 0 is
+// grad W^T (inputs grad, W), 1 is x^T grad (inputs x, grad), 2 is the
+// column sums of grad as a 1 x out row (input grad).
+type affineGradOp struct {
+	opBase
+	which int
+}
+
+func (op affineGradOp) Arity() int {
+	if op.which == 2 {
+		return 1
+	}
+	return 2
+}
+
+func (op affineGradOp) Type() hm.Type { return fusedType(op.Arity()) }
+
+func (op affineGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	a, err := shape2(in, 0)
+	if err != nil {
+		return nil, err
+	}
+	if op.which == 2 {
+		return tensor.Shape{1, a[1]}, nil
+	}
+	b, err := shape2(in, 1)
+	if err != nil {
+		return nil, err
+	}
+	if op.which == 0 {
+		return tensor.Shape{a[0], b[0]}, nil
+	}
+	return tensor.Shape{a[1], b[1]}, nil
+}
+
+func (op affineGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
+
+func (op affineGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
+	t, err := tensors(in, op.Arity())
+	if err != nil {
+		return nil, err
+	}
+	switch op.which {
+	case 0: // grad (n x m) W^T (m x k)
+		n, m := dims(t[0])
+		k, m2 := dims(t[1])
+		if m != m2 {
+			return nil, fmt.Errorf("engine: affine gradient shapes %v, %v", t[0].Shape(), t[1].Shape())
+		}
+		out := prealloc(p, t[0].Dtype(), n, k)
+		return out, gemmT(blas.NoTrans, blas.Trans, n, k, m, t[0], t[1], out)
+	case 1: // x^T (k x n) grad (n x m)
+		n, k := dims(t[0])
+		n2, m := dims(t[1])
+		if n != n2 {
+			return nil, fmt.Errorf("engine: affine gradient shapes %v, %v", t[0].Shape(), t[1].Shape())
+		}
+		out := prealloc(p, t[0].Dtype(), k, m)
+		return out, gemmT(blas.Trans, blas.NoTrans, k, m, n, t[0], t[1], out)
+	}
+	n, m := dims(t[0])
+	out := prealloc(p, t[0].Dtype(), 1, m)
+	switch o := out.Data().(type) {
+	case []float32:
+		clear(o)
+		g := t[0].Data().([]float32)
+		for r := 0; r < n; r++ {
+			row := g[r*m : r*m+m]
+			for j, v := range row {
+				o[j] += v
+			}
+		}
+	case []float64:
+		clear(o)
+		g := t[0].Data().([]float64)
+		for r := 0; r < n; r++ {
+			row := g[r*m : r*m+m]
+			for j, v := range row {
+				o[j] += v
+			}
+		}
+	}
+	return out, nil
+}
+
+// leakyOp is x for x >= 0 and slope*x otherwise (ReLU at slope 0).
+type leakyOp struct {
+	opBase
+	slope float64
+}
+
+func newLeaky(slope float64) leakyOp {
+	return leakyOp{opBase{fmt.Sprintf("LeakyReLU(%g)", slope)}, slope}
+}
+
+func (leakyOp) Arity() int         { return 1 }
+func (leakyOp) Type() hm.Type      { return fusedType(1) }
+func (leakyOp) DiffWRT(int) []bool { return []bool{true} }
+func (leakyOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	return shapeOf(in)
+}
+
+func (op leakyOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
+
+func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
+	t, err := tensors(in, 1)
+	if err != nil {
+		return nil, err
+	}
+	r, c := dims(t[0])
+	out := prealloc(p, t[0].Dtype(), r, c)
+	switch xs := t[0].Data().(type) {
+	case []float32:
+		o, s := out.Data().([]float32)[:len(xs)], float32(op.slope)
+		for i, v := range xs {
+			if v < 0 {
+				v *= s
+			}
+			o[i] = v
+		}
+	case []float64:
+		o := out.Data().([]float64)[:len(xs)]
+		for i, v := range xs {
+			if v < 0 {
+				v *= op.slope
+			}
+			o[i] = v
+		}
+	default:
+		return nil, fmt.Errorf("engine: leaky ReLU of %T", xs)
+	}
+	return out, nil
+}
+
+func (op leakyOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
+	g, err := G.ApplyOp(leakyGradOp{opBase{"Grad" + op.name}, op.slope}, in[0], grad)
+	if err != nil {
+		return nil, err
+	}
+	return G.Nodes{g}, nil
+}
+
+// leakyGradOp is grad where x >= 0 and slope*grad elsewhere.
+type leakyGradOp struct {
+	opBase
+	slope float64
+}
+
+func (leakyGradOp) Arity() int    { return 2 }
+func (leakyGradOp) Type() hm.Type { return fusedType(2) }
+func (leakyGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	return shapeOf(in)
+}
+
+func (op leakyGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
+
+func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
+	t, err := tensors(in, 2)
+	if err != nil {
+		return nil, err
+	}
+	r, c := dims(t[0])
+	out := prealloc(p, t[0].Dtype(), r, c)
+	switch xs := t[0].Data().(type) {
+	case []float32:
+		g, o, s := t[1].Data().([]float32)[:len(xs)], out.Data().([]float32)[:len(xs)], float32(op.slope)
+		for i, v := range xs {
+			if v >= 0 {
+				o[i] = g[i]
+			} else {
+				o[i] = s * g[i]
+			}
+		}
+	case []float64:
+		g, o := t[1].Data().([]float64)[:len(xs)], out.Data().([]float64)[:len(xs)]
+		for i, v := range xs {
+			if v >= 0 {
+				o[i] = g[i]
+			} else {
+				o[i] = op.slope * g[i]
+			}
+		}
+	default:
+		return nil, fmt.Errorf("engine: leaky ReLU gradient of %T", xs)
+	}
+	return out, nil
+}
+
+// tensors checks that inputs are n dense tensors of one dtype.
+func tensors(in []G.Value, n int) ([]*tensor.Dense, error) {
+	if len(in) != n {
+		return nil, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
+	}
+	out := make([]*tensor.Dense, n)
+	for i, v := range in {
+		d, ok := v.(*tensor.Dense)
+		if !ok {
+			return nil, fmt.Errorf("engine: fused operation input %d is %T", i, v)
+		}
+		if i > 0 && d.Dtype() != out[0].Dtype() {
+			return nil, fmt.Errorf("engine: fused operation inputs differ in type")
+		}
+		out[i] = d
+	}
+	return out, nil
+}
