@@ -114,21 +114,9 @@ func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	}
 	switch o := out.Data().(type) {
 	case []float32:
-		b := t[2].Data().([]float32)[:m]
-		for r := 0; r < n; r++ {
-			row := o[r*m : r*m+m]
-			for j, v := range b {
-				row[j] += v
-			}
-		}
+		addRows(o, t[2].Data().([]float32)[:m], n)
 	case []float64:
-		b := t[2].Data().([]float64)[:m]
-		for r := 0; r < n; r++ {
-			row := o[r*m : r*m+m]
-			for j, v := range b {
-				row[j] += v
-			}
-		}
+		addRows(o, t[2].Data().([]float64)[:m], n)
 	}
 	return out, nil
 }
@@ -213,23 +201,9 @@ func (op affineGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) 
 	out := prealloc(p, t[0].Dtype(), 1, m)
 	switch o := out.Data().(type) {
 	case []float32:
-		clear(o)
-		g := t[0].Data().([]float32)
-		for r := 0; r < n; r++ {
-			row := g[r*m : r*m+m]
-			for j, v := range row {
-				o[j] += v
-			}
-		}
+		colSums(o, t[0].Data().([]float32), n)
 	case []float64:
-		clear(o)
-		g := t[0].Data().([]float64)
-		for r := 0; r < n; r++ {
-			row := g[r*m : r*m+m]
-			for j, v := range row {
-				o[j] += v
-			}
-		}
+		colSums(o, t[0].Data().([]float64), n)
 	}
 	return out, nil
 }
@@ -262,21 +236,9 @@ func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	out := prealloc(p, t[0].Dtype(), r, c)
 	switch xs := t[0].Data().(type) {
 	case []float32:
-		o, s := out.Data().([]float32)[:len(xs)], float32(op.slope)
-		for i, v := range xs {
-			if v < 0 {
-				v *= s
-			}
-			o[i] = v
-		}
+		leaky(out.Data().([]float32), xs, nil, float32(op.slope))
 	case []float64:
-		o := out.Data().([]float64)[:len(xs)]
-		for i, v := range xs {
-			if v < 0 {
-				v *= op.slope
-			}
-			o[i] = v
-		}
+		leaky(out.Data().([]float64), xs, nil, op.slope)
 	default:
 		return nil, fmt.Errorf("engine: leaky ReLU of %T", xs)
 	}
@@ -314,27 +276,58 @@ func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	out := prealloc(p, t[0].Dtype(), r, c)
 	switch xs := t[0].Data().(type) {
 	case []float32:
-		g, o, s := t[1].Data().([]float32)[:len(xs)], out.Data().([]float32)[:len(xs)], float32(op.slope)
-		for i, v := range xs {
-			if v >= 0 {
-				o[i] = g[i]
-			} else {
-				o[i] = s * g[i]
-			}
-		}
+		leaky(out.Data().([]float32), xs, t[1].Data().([]float32), float32(op.slope))
 	case []float64:
-		g, o := t[1].Data().([]float64)[:len(xs)], out.Data().([]float64)[:len(xs)]
-		for i, v := range xs {
-			if v >= 0 {
-				o[i] = g[i]
-			} else {
-				o[i] = op.slope * g[i]
-			}
-		}
+		leaky(out.Data().([]float64), xs, t[1].Data().([]float64), op.slope)
 	default:
 		return nil, fmt.Errorf("engine: leaky ReLU gradient of %T", xs)
 	}
 	return out, nil
+}
+
+// addRows adds the row b to each of the rows of o.
+func addRows[T float32 | float64](o, b []T, rows int) {
+	m := len(b)
+	for r := 0; r < rows; r++ {
+		row := o[r*m : r*m+m]
+		for j, v := range b {
+			row[j] += v
+		}
+	}
+}
+
+// colSums sets o (one row) to the column sums of rows of g.
+func colSums[T float32 | float64](o, g []T, rows int) {
+	clear(o)
+	m := len(o)
+	for r := 0; r < rows; r++ {
+		for j, v := range g[r*m : r*m+m] {
+			o[j] += v
+		}
+	}
+}
+
+// leaky writes x (or slope*x below zero) into o; with g given it writes
+// the gradient instead: g where x >= 0, slope*g elsewhere.
+func leaky[T float32 | float64](o, x, g []T, slope T) {
+	o = o[:len(x)]
+	if g == nil {
+		for i, v := range x {
+			if v < 0 {
+				v *= slope
+			}
+			o[i] = v
+		}
+		return
+	}
+	g = g[:len(x)]
+	for i, v := range x {
+		if v >= 0 {
+			o[i] = g[i]
+		} else {
+			o[i] = slope * g[i]
+		}
+	}
 }
 
 // tensors checks that inputs are n dense tensors of one dtype.
