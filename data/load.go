@@ -6,6 +6,8 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"path/filepath"
+	"strings"
 )
 
 // Format is a kind of input file.
@@ -68,6 +70,11 @@ func Load(path string, cfg LoadConfig) (*Dataset, Format, error) {
 		return nil, "", err
 	}
 	var d *Dataset
+	if f == FormatCSV && looksLikeIDX(path) && binaryStart(path) {
+		// binary content named like an idx file but without its header:
+		// report the idx problem rather than a confusing CSV one
+		f = FormatIDX
+	}
 	switch f {
 	case FormatImages:
 		d, _, err = LoadImages(path, cfg.Images)
@@ -77,4 +84,39 @@ func Load(path string, cfg LoadConfig) (*Dataset, Format, error) {
 		d, err = LoadCSV(path, cfg.CSV)
 	}
 	return d, f, err
+}
+
+// looksLikeIDX reports whether a file name suggests the idx format.
+func looksLikeIDX(path string) bool {
+	base := strings.ToLower(filepath.Base(path))
+	base = strings.TrimSuffix(base, ".gz")
+	return strings.HasSuffix(base, ".idx") || strings.Contains(base, "-ubyte") || strings.Contains(base, "idx1") || strings.Contains(base, "idx3")
+}
+
+// binaryStart reports whether the first (decompressed) bytes of path hold
+// control bytes that text never has.
+func binaryStart(path string) bool {
+	f, err := os.Open(path)
+	if err != nil {
+		return false
+	}
+	defer f.Close()
+	br := bufio.NewReader(f)
+	var r io.Reader = br
+	if h, _ := br.Peek(2); len(h) == 2 && h[0] == 0x1f && h[1] == 0x8b {
+		zr, err := gzip.NewReader(br)
+		if err != nil {
+			return false
+		}
+		defer zr.Close()
+		r = zr
+	}
+	buf := make([]byte, 64)
+	n, _ := io.ReadFull(r, buf)
+	for _, c := range buf[:n] {
+		if c < 0x09 || (c > 0x0d && c < 0x20) {
+			return true
+		}
+	}
+	return false
 }

@@ -145,7 +145,8 @@ func TestBadInput(t *testing.T) {
 	}{
 		{"ragged", []string{"train", "-data", write("r.csv", "a,b\n1,2\n3\n"), "-out", "m.qm"}, 1, "r.csv:3"},
 		{"nan", []string{"train", "-data", write("n.csv", "a,b\n1,2\n3,NaN\n"), "-out", "m.qm"}, 1, "column 2 (b)"},
-		{"idx magic", []string{"train", "-data", write("x.idx", "\x00\x00\x08\x02\x00\x00\x00\x05\x00\x00\x00\x02ab"), "-out", "m.qm"}, 1, "declares"},
+		{"idx size", []string{"train", "-data", write("x.idx", "\x00\x00\x08\x02\x00\x00\x00\x05\x00\x00\x00\x02ab"), "-out", "m.qm"}, 1, "declares"},
+		{"idx magic", []string{"train", "-data", write("images-idx3-ubyte", "\x08\x03\x00\x00\x00\x00\x00\x01\x00\x00\x00\x01\x00\x00\x00\x01a"), "-out", "m.qm"}, 1, "not an idx file (magic"},
 		{"mixed images", []string{"train", "-data", mixed, "-out", "m.qm"}, 1, "b.png"},
 		{"missing file", []string{"train", "-data", filepath.Join(dir, "nope.csv"), "-out", "m.qm"}, 1, "nope.csv"},
 		{"unknown flag", []string{"train", "-bogus"}, 2, "bogus"},
