@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"fmt"
+	"net/http"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -239,4 +240,72 @@ func TestDemoShort(t *testing.T) {
 		_, err := os.Stat(filepath.Join(dir, "d2", f))
 		require.NoError(t, err, f)
 	}
+}
+
+// quern serve answers over loopback, reloads on SIGHUP and exits cleanly
+// on SIGTERM.
+func TestServeSignals(t *testing.T) {
+	if runtime.GOOS == "windows" {
+		t.Skip("no SIGHUP")
+	}
+	dir := t.TempDir()
+	ok(t, quern(t, dir, nil, "train", "-kind", "ae", "-data", bc, "-no-header", "-skip", "1", "-label", "c30", "-out", "m.qm",
+		"-epochs", "2", "-hidden", "8", "-latent", "3", "-val", "0.3", "-threshold", "max", "-quiet"))
+	cmd := exec.Command(bin, "serve", "-model", "m.qm", "-addr", "127.0.0.1:0")
+	cmd.Dir = dir
+	stderr, err := cmd.StderrPipe()
+	require.NoError(t, err)
+	require.NoError(t, cmd.Start())
+	defer cmd.Process.Kill()
+	lines := make(chan string, 100)
+	go func() {
+		buf := make([]byte, 0, 4096)
+		tmp := make([]byte, 1024)
+		for {
+			n, err := stderr.Read(tmp)
+			buf = append(buf, tmp[:n]...)
+			for {
+				i := bytes.IndexByte(buf, '\n')
+				if i < 0 {
+					break
+				}
+				lines <- string(buf[:i])
+				buf = buf[i+1:]
+			}
+			if err != nil {
+				close(lines)
+				return
+			}
+		}
+	}()
+	wait := func(sub string) string {
+		deadline := time.After(20 * time.Second)
+		for {
+			select {
+			case l, more := <-lines:
+				if !more {
+					t.Fatalf("server exited before logging %q", sub)
+				}
+				if strings.Contains(l, sub) {
+					return l
+				}
+			case <-deadline:
+				t.Fatalf("no log line with %q", sub)
+			}
+		}
+	}
+	line := wait(`"msg":"serving"`)
+	i := strings.Index(line, `"addr":"`)
+	require.Greater(t, i, 0, line)
+	addr := line[i+8:]
+	addr = addr[:strings.IndexByte(addr, '"')]
+	resp, err := http.Get("http://" + addr + "/healthz")
+	require.NoError(t, err)
+	resp.Body.Close()
+	require.Equal(t, 200, resp.StatusCode)
+	require.NoError(t, cmd.Process.Signal(syscall.SIGHUP))
+	wait("model reloaded")
+	require.NoError(t, cmd.Process.Signal(syscall.SIGTERM))
+	wait("shutting down")
+	require.NoError(t, cmd.Wait())
 }
