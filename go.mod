@@ -8,6 +8,7 @@ require (
 	github.com/stretchr/testify v1.11.1
 	golang.org/x/sys v0.30.0
 	gonum.org/v1/gonum v0.16.0
+	gonum.org/v1/netlib v0.0.0-20220323200511-14de99971b2d
 	gonum.org/v1/plot v0.16.0
 	gorgonia.org/gorgonia v0.9.18
 	gorgonia.org/tensor v0.9.24

@@ -13,6 +13,9 @@ trap 'rm -rf "$tmp"' EXIT
 (cd "$tmp" && apt-get download libopenblas0-pthread >/dev/null 2>&1 && dpkg -x libopenblas0-pthread*.deb ob)
 ob="$tmp/ob/usr/lib/x86_64-linux-gnu/openblas-pthread"
 go test -c -o "$tmp/ae.test" ./ae/ && go test -c -o "$tmp/vae.test" ./vae/ && go test -c -o "$tmp/gan.test" ./gan/ && go test -c -o "$tmp/engine.test" ./internal/engine/
+# the optional cgo build on OpenBLAS (needs Debian's libopenblas-dev)
+have_ob=0
+if go test -tags openblas -c -o "$tmp/ae_ob.test" ./ae/ 2>/dev/null && go test -tags openblas -c -o "$tmp/vae_ob.test" ./vae/ && go test -tags openblas -c -o "$tmp/gan_ob.test" ./gan/; then have_ob=1; fi
 ours() { # threads binary pattern
 	/usr/bin/time -f "rss_kb %M" env GOMAXPROCS="$1" "$tmp/$2" -test.run '^$' -test.bench "$3" -test.benchtime 20x 2>&1
 }
@@ -42,3 +45,13 @@ for th in 1 2; do
 		"$(grep rss_kb "$tmp/ours$th.txt" | awk '{print $2}' | sort -n | tail -1)" "$(grep rss_kb "$tmp/peer$th.txt" | awk '{print $2}')"
 done
 echo "ratio = quern epoch time / peer epoch time (below 1: quern is faster)"
+if [ "$have_ob" = 1 ]; then
+	echo
+	echo "quern's own build against its -tags openblas build, 1 thread (samples/s):"
+	for s in vae:TrainStepVAE784 ae:TrainStepAE784 gan:TrainStepGAN784; do
+		pkg=${s%%:*}; bench=${s#*:}
+		d=$(GOMAXPROCS=1 "$tmp/$pkg.test" -test.run '^$' -test.bench "$bench" -test.benchtime 20x | awk '{for(i=1;i<=NF;i++) if($i=="samples/s") print $(i-1)}')
+		o=$(GOMAXPROCS=1 OPENBLAS_NUM_THREADS=1 "$tmp/${pkg}_ob.test" -test.run '^$' -test.bench "$bench" -test.benchtime 20x | awk '{for(i=1;i<=NF;i++) if($i=="samples/s") print $(i-1)}')
+		awk -v n="$bench" -v d="$d" -v o="$o" 'BEGIN{printf "%-20s default %10.0f  openblas %10.0f  openblas/default %.2f\n", n, d, o, o/d}'
+	done
+fi

@@ -1,3 +1,5 @@
+//go:build !openblas
+
 package engine
 
 import (
@@ -17,3 +19,13 @@ func (blasImpl) Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []flo
 }
 
 func init() { G.Use(blasImpl{}) }
+
+// sgemm and dgemm are the matrix products of the fused operations.
+var (
+	sgemm = gemm.Sgemm
+	dgemm = gonumblas.Implementation{}.Dgemm
+)
+
+// BLASName names the BLAS the graphs use: "quern-gemm" here, "openblas"
+// in builds with the openblas tag.
+func BLASName() string { return "quern-gemm" }

@@ -5,9 +5,7 @@ import (
 	"hash"
 
 	"github.com/chewxy/hm"
-	"github.com/quernlab/quern/internal/gemm"
 	"gonum.org/v1/gonum/blas"
-	gonumblas "gonum.org/v1/gonum/blas/gonum"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )
@@ -64,9 +62,9 @@ func gemmT(tA, tB blas.Transpose, m, n, k int, a, b, c *tensor.Dense) error {
 	}
 	switch cs := c.Data().(type) {
 	case []float32:
-		gemm.Sgemm(tA, tB, m, n, k, 1, a.Data().([]float32), lda, b.Data().([]float32), ldb, 0, cs, n)
+		sgemm(tA, tB, m, n, k, 1, a.Data().([]float32), lda, b.Data().([]float32), ldb, 0, cs, n)
 	case []float64:
-		gonumblas.Implementation{}.Dgemm(tA, tB, m, n, k, 1, a.Data().([]float64), lda, b.Data().([]float64), ldb, 0, cs, n)
+		dgemm(tA, tB, m, n, k, 1, a.Data().([]float64), lda, b.Data().([]float64), ldb, 0, cs, n)
 	default:
 		return fmt.Errorf("engine: matrix product of %T", cs)
 	}
