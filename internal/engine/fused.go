@@ -2,7 +2,6 @@ package engine
 
 import (
 	"fmt"
-	"hash"
 	"hash/fnv"
 	"math"
 
@@ -20,10 +19,10 @@ import (
 // bceLogitsOp computes max(x,0) - x*y + log1p(exp(-|x|)) element-wise: the
 // binary cross-entropy of sigmoid(x) against y, finite for any x. Its
 // gradient is sigmoid(x) - y with respect to x and -x with respect to y.
-type bceLogitsOp struct{}
+type bceLogitsOp struct{ opBase }
 
 // bceLogitsGradOp computes (sigmoid(x) - y) * g element-wise.
-type bceLogitsGradOp struct{}
+type bceLogitsGradOp struct{ opBase }
 
 func fusedType(arity int) hm.Type {
 	a := hm.TypeVariable('a')
@@ -44,16 +43,10 @@ func hashOf(s string) uint32 {
 func (bceLogitsOp) Arity() int                                        { return 2 }
 func (bceLogitsOp) Type() hm.Type                                     { return fusedType(2) }
 func (bceLogitsOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return shapeOf(in) }
-func (bceLogitsOp) ReturnsPtr() bool                                  { return false }
-func (bceLogitsOp) CallsExtern() bool                                 { return false }
-func (bceLogitsOp) OverwritesInput() int                              { return -1 }
-func (bceLogitsOp) WriteHash(h hash.Hash)                             { fmt.Fprint(h, "quern.bce_logits") }
-func (bceLogitsOp) Hashcode() uint32                                  { return hashOf("quern.bce_logits") }
-func (bceLogitsOp) String() string                                    { return "BCEWithLogits" }
 func (bceLogitsOp) DiffWRT(n int) []bool                              { return []bool{true, true} }
 
 func (op bceLogitsOp) SymDiff(inputs G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	gx, err := G.ApplyOp(bceLogitsGradOp{}, inputs[0], inputs[1], grad)
+	gx, err := G.ApplyOp(bceLogitsGradOp{base("BCEWithLogitsGrad")}, inputs[0], inputs[1], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -68,24 +61,15 @@ func (op bceLogitsOp) SymDiff(inputs G.Nodes, output, grad *G.Node) (G.Nodes, er
 	return G.Nodes{gx, gy}, nil
 }
 
-func (op bceLogitsOp) Do(in ...G.Value) (G.Value, error) {
-	x, err := denseArgs(in, 2)
-	if err != nil {
-		return nil, err
-	}
-	out := tensor.New(tensor.WithShape(x[0].Shape().Clone()...), tensor.Of(x[0].Dtype()))
-	return op.UsePreallocDo(out, in...)
-}
+func (op bceLogitsOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op bceLogitsOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, error) {
 	x, err := denseArgs(in, 2)
 	if err != nil {
 		return nil, err
 	}
-	out, ok := prealloc.(*tensor.Dense)
-	if !ok || out.Dtype() != x[0].Dtype() || out.DataSize() != x[0].DataSize() {
-		return nil, fmt.Errorf("engine: BCEWithLogits: bad output buffer")
-	}
+	r, c := dims(x[0])
+	out := op.out(prealloc, x[0].Dtype(), r, c)
 	switch xs := x[0].Data().(type) {
 	case []float32:
 		ys, o := x[1].Data().([]float32), out.Data().([]float32)
@@ -108,31 +92,16 @@ func (op bceLogitsOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, e
 func (bceLogitsGradOp) Arity() int                                        { return 3 }
 func (bceLogitsGradOp) Type() hm.Type                                     { return fusedType(3) }
 func (bceLogitsGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return shapeOf(in) }
-func (bceLogitsGradOp) ReturnsPtr() bool                                  { return false }
-func (bceLogitsGradOp) CallsExtern() bool                                 { return false }
-func (bceLogitsGradOp) OverwritesInput() int                              { return -1 }
-func (bceLogitsGradOp) WriteHash(h hash.Hash)                             { fmt.Fprint(h, "quern.bce_logits_grad") }
-func (bceLogitsGradOp) Hashcode() uint32                                  { return hashOf("quern.bce_logits_grad") }
-func (bceLogitsGradOp) String() string                                    { return "BCEWithLogitsGrad" }
 
-func (op bceLogitsGradOp) Do(in ...G.Value) (G.Value, error) {
-	x, err := denseArgs(in, 3)
-	if err != nil {
-		return nil, err
-	}
-	out := tensor.New(tensor.WithShape(x[0].Shape().Clone()...), tensor.Of(x[0].Dtype()))
-	return op.UsePreallocDo(out, in...)
-}
+func (op bceLogitsGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, error) {
 	x, err := denseArgs(in, 3)
 	if err != nil {
 		return nil, err
 	}
-	out, ok := prealloc.(*tensor.Dense)
-	if !ok || out.Dtype() != x[0].Dtype() || out.DataSize() != x[0].DataSize() {
-		return nil, fmt.Errorf("engine: BCEWithLogitsGrad: bad output buffer")
-	}
+	r, c := dims(x[0])
+	out := op.out(prealloc, x[0].Dtype(), r, c)
 	switch xs := x[0].Data().(type) {
 	case []float32:
 		ys, gs, o := x[1].Data().([]float32), x[2].Data().([]float32), out.Data().([]float32)
@@ -221,6 +190,6 @@ func (gr *Graph) BCEWithLogits(x, y *Node) *Node {
 	if err := sameShape("bce_logits", x, y); err != nil {
 		return gr.fail("bce_logits", err)
 	}
-	n, err := G.ApplyOp(bceLogitsOp{}, x.n, y.n)
+	n, err := G.ApplyOp(bceLogitsOp{base("BCEWithLogits")}, x.n, y.n)
 	return gr.wrap("bce_logits", n, err, x.rows, x.cols)
 }

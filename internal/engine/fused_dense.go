@@ -14,8 +14,36 @@ import (
 // (the bias is added row by row instead of being broadcast into a copy),
 // its three gradients, and leaky ReLU (ReLU at slope 0) with its gradient.
 
-// opBase holds what every fused operation answers the same way.
-type opBase struct{ name string }
+// opBase holds what every fused operation answers the same way, and the
+// operation's output buffer. gorgonia's tape machine forgets every result
+// at Reset and would otherwise allocate a fresh tensor each run; each
+// node has its own op value, so the buffer is reused run after run by the
+// one node that owns it (a Program runs on one goroutine at a time).
+type opBase struct {
+	name  string
+	cache *outCache
+}
+
+type outCache struct{ t *tensor.Dense }
+
+func base(name string) opBase { return opBase{name: name, cache: &outCache{}} }
+
+// out returns a rows x cols tensor of dt to write the result into: the
+// machine's preallocated register when it fits, else the node's buffer.
+func (o opBase) out(p G.Value, dt tensor.Dtype, rows, cols int) *tensor.Dense {
+	want := tensor.Shape{rows, cols}
+	if d, ok := p.(*tensor.Dense); ok && d.Dtype() == dt && d.Shape().Eq(want) {
+		return d
+	}
+	if c := o.cache; c != nil {
+		if c.t != nil && c.t.Dtype() == dt && c.t.Shape().Eq(want) {
+			return c.t
+		}
+		c.t = tensor.New(tensor.WithShape(rows, cols), tensor.Of(dt))
+		return c.t
+	}
+	return tensor.New(tensor.WithShape(rows, cols), tensor.Of(dt))
+}
 
 func (o opBase) ReturnsPtr() bool      { return false }
 func (o opBase) CallsExtern() bool     { return false }
@@ -33,14 +61,6 @@ func shape2(in []G.DimSizer, i int) (tensor.Shape, error) {
 		return nil, fmt.Errorf("engine: input %d is not a matrix (%v)", i, in[i])
 	}
 	return s, nil
-}
-
-// prealloc returns out when it fits rows x cols of dt, else a new tensor.
-func prealloc(out G.Value, dt tensor.Dtype, rows, cols int) *tensor.Dense {
-	if d, ok := out.(*tensor.Dense); ok && d.Dtype() == dt && d.DataSize() == rows*cols && d.Shape().Eq(tensor.Shape{rows, cols}) {
-		return d
-	}
-	return tensor.New(tensor.WithShape(rows, cols), tensor.Of(dt))
 }
 
 func dims(t *tensor.Dense) (int, int) {
@@ -74,7 +94,7 @@ func gemmT(tA, tB blas.Transpose, m, n, k int, a, b, c *tensor.Dense) error {
 // affineOp: (x n x in, W in x out, b 1 x out) -> x W + b.
 type affineOp struct{ opBase }
 
-func newAffine() affineOp { return affineOp{opBase{"Affine"}} }
+func newAffine() affineOp { return affineOp{base("Affine")} }
 
 func (affineOp) Arity() int         { return 3 }
 func (affineOp) Type() hm.Type      { return fusedType(3) }
@@ -106,7 +126,7 @@ func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	if k != k2 || t[2].DataSize() != m {
 		return nil, fmt.Errorf("engine: affine shapes %v, %v, %v", t[0].Shape(), t[1].Shape(), t[2].Shape())
 	}
-	out := prealloc(p, t[0].Dtype(), n, m)
+	out := op.out(p, t[0].Dtype(), n, m)
 	if err := gemmT(blas.NoTrans, blas.NoTrans, n, m, k, t[0], t[1], out); err != nil {
 		return nil, err
 	}
@@ -120,15 +140,15 @@ func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 }
 
 func (op affineOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	dx, err := G.ApplyOp(affineGradOp{opBase{"AffineGradX"}, 0}, grad, in[1])
+	dx, err := G.ApplyOp(affineGradOp{base("AffineGradX"), 0}, grad, in[1])
 	if err != nil {
 		return nil, err
 	}
-	dw, err := G.ApplyOp(affineGradOp{opBase{"AffineGradW"}, 1}, in[0], grad)
+	dw, err := G.ApplyOp(affineGradOp{base("AffineGradW"), 1}, in[0], grad)
 	if err != nil {
 		return nil, err
 	}
-	db, err := G.ApplyOp(affineGradOp{opBase{"AffineGradB"}, 2}, grad)
+	db, err := G.ApplyOp(affineGradOp{base("AffineGradB"), 2}, grad)
 	if err != nil {
 		return nil, err
 	}
@@ -184,7 +204,7 @@ func (op affineGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) 
 		if m != m2 {
 			return nil, fmt.Errorf("engine: affine gradient shapes %v, %v", t[0].Shape(), t[1].Shape())
 		}
-		out := prealloc(p, t[0].Dtype(), n, k)
+		out := op.out(p, t[0].Dtype(), n, k)
 		return out, gemmT(blas.NoTrans, blas.Trans, n, k, m, t[0], t[1], out)
 	case 1: // x^T (k x n) grad (n x m)
 		n, k := dims(t[0])
@@ -192,11 +212,11 @@ func (op affineGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) 
 		if n != n2 {
 			return nil, fmt.Errorf("engine: affine gradient shapes %v, %v", t[0].Shape(), t[1].Shape())
 		}
-		out := prealloc(p, t[0].Dtype(), k, m)
+		out := op.out(p, t[0].Dtype(), k, m)
 		return out, gemmT(blas.Trans, blas.NoTrans, k, m, n, t[0], t[1], out)
 	}
 	n, m := dims(t[0])
-	out := prealloc(p, t[0].Dtype(), 1, m)
+	out := op.out(p, t[0].Dtype(), 1, m)
 	switch o := out.Data().(type) {
 	case []float32:
 		colSums(o, t[0].Data().([]float32), n)
@@ -213,7 +233,7 @@ type leakyOp struct {
 }
 
 func newLeaky(slope float64) leakyOp {
-	return leakyOp{opBase{fmt.Sprintf("LeakyReLU(%g)", slope)}, slope}
+	return leakyOp{base(fmt.Sprintf("LeakyReLU(%g)", slope)), slope}
 }
 
 func (leakyOp) Arity() int         { return 1 }
@@ -231,7 +251,7 @@ func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		return nil, err
 	}
 	r, c := dims(t[0])
-	out := prealloc(p, t[0].Dtype(), r, c)
+	out := op.out(p, t[0].Dtype(), r, c)
 	switch xs := t[0].Data().(type) {
 	case []float32:
 		leaky(out.Data().([]float32), xs, nil, float32(op.slope))
@@ -244,7 +264,7 @@ func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 }
 
 func (op leakyOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	g, err := G.ApplyOp(leakyGradOp{opBase{"Grad" + op.name}, op.slope}, in[0], grad)
+	g, err := G.ApplyOp(leakyGradOp{base("Grad" + op.name), op.slope}, in[0], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -271,7 +291,7 @@ func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		return nil, err
 	}
 	r, c := dims(t[0])
-	out := prealloc(p, t[0].Dtype(), r, c)
+	out := op.out(p, t[0].Dtype(), r, c)
 	switch xs := t[0].Data().(type) {
 	case []float32:
 		leaky(out.Data().([]float32), xs, t[1].Data().([]float32), float32(op.slope))
