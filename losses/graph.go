@@ -17,10 +17,10 @@ func same(g *engine.Graph, name string, a, b *engine.Node) bool {
 	return true
 }
 
-// GraphMSE is the graph form of MSE.
+// GraphMSE is the graph form of MSE, one fused operation.
 func GraphMSE(g *engine.Graph, pred, target *engine.Node) *engine.Node {
 	same(g, "MSE", pred, target)
-	return g.Mean(g.Square(g.Sub(pred, target)))
+	return g.MSE(pred, target)
 }
 
 // GraphBCE is the graph form of BCE for probabilities strictly inside (0, 1).

@@ -1,0 +1,138 @@
+package engine
+
+import (
+	"fmt"
+
+	"github.com/chewxy/hm"
+	G "gorgonia.org/gorgonia"
+	"gorgonia.org/tensor"
+)
+
+// mseOp is the mean of (p - t)^2 over all elements, a scalar, in one
+// instruction; its gradient is 2 (p - t) / N for p and the negative of
+// that for t (gorgonia's Sub, Square and Sum would take three
+// instructions forward, more backward, and broadcast the scalar gradient
+// into a full copy).
+type mseOp struct{ opBase }
+
+// mseGradOp computes 2 (p - t) / N * g for the scalar upstream gradient g.
+type mseGradOp struct{ opBase }
+
+func (mseOp) Arity() int { return 2 }
+
+func (mseOp) Type() hm.Type {
+	a := hm.TypeVariable('a')
+	t := G.TensorType{Dims: 2, Of: a}
+	return hm.NewFnType(t, t, a)
+}
+
+func (mseOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	if _, err := shapeOf(in); err != nil {
+		return nil, err
+	}
+	return tensor.ScalarShape(), nil
+}
+
+func (mseOp) DiffWRT(int) []bool { return []bool{true, true} }
+
+func (op mseOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
+	gp, err := G.ApplyOp(mseGradOp{base("MSEGrad")}, in[0], in[1], grad)
+	if err != nil {
+		return nil, err
+	}
+	gt, err := G.Neg(gp)
+	if err != nil {
+		return nil, err
+	}
+	return G.Nodes{gp, gt}, nil
+}
+
+func (op mseOp) Do(in ...G.Value) (G.Value, error) {
+	x, err := denseArgs(in, 2)
+	if err != nil {
+		return nil, err
+	}
+	switch ps := x[0].Data().(type) {
+	case []float32:
+		return G.NewF32(float32(sqErr(ps, x[1].Data().([]float32)) / float64(len(ps)))), nil
+	case []float64:
+		return G.NewF64(sqErr(ps, x[1].Data().([]float64)) / float64(len(ps))), nil
+	}
+	return nil, fmt.Errorf("engine: MSE of %T", x[0].Data())
+}
+
+// sqErr sums (p - t)^2 in float64.
+func sqErr[T float32 | float64](p, t []T) float64 {
+	t = t[:len(p)]
+	var s float64
+	for i, v := range p {
+		d := float64(v) - float64(t[i])
+		s += d * d
+	}
+	return s
+}
+
+func (mseGradOp) Arity() int { return 3 }
+
+func (mseGradOp) Type() hm.Type {
+	a := hm.TypeVariable('a')
+	t := G.TensorType{Dims: 2, Of: a}
+	return hm.NewFnType(t, t, a, t)
+}
+
+func (mseGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	if len(in) != 3 {
+		return nil, fmt.Errorf("engine: MSE gradient wants 3 inputs")
+	}
+	return shapeOf(in[:2])
+}
+
+func (op mseGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
+
+func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
+	if len(in) != 3 {
+		return nil, fmt.Errorf("engine: MSE gradient wants 3 inputs, got %d", len(in))
+	}
+	x, err := denseArgs(in[:2], 2)
+	if err != nil {
+		return nil, err
+	}
+	r, c := dims(x[0])
+	out := op.out(p, x[0].Dtype(), r, c)
+	switch ps := x[0].Data().(type) {
+	case []float32:
+		g, ok := in[2].Data().(float32)
+		if !ok {
+			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2].Data())
+		}
+		mseGrad(out.Data().([]float32), ps, x[1].Data().([]float32), 2*g/float32(len(ps)))
+	case []float64:
+		g, ok := in[2].Data().(float64)
+		if !ok {
+			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2].Data())
+		}
+		mseGrad(out.Data().([]float64), ps, x[1].Data().([]float64), 2*g/float64(len(ps)))
+	default:
+		return nil, fmt.Errorf("engine: MSE gradient of %T", ps)
+	}
+	return out, nil
+}
+
+func mseGrad[T float32 | float64](o, p, t []T, k T) {
+	o, t = o[:len(p)], t[:len(p)]
+	for i, v := range p {
+		o[i] = k * (v - t[i])
+	}
+}
+
+// MSE is the mean of (p - t)^2 over all elements, as one fused operation.
+func (gr *Graph) MSE(p, t *Node) *Node {
+	if !gr.ok(p, t) {
+		return &Node{g: gr}
+	}
+	if err := sameShape("mse", p, t); err != nil {
+		return gr.fail("mse", err)
+	}
+	n, err := G.ApplyOp(mseOp{base("MSE")}, p.n, t.n)
+	return gr.wrap("mse", n, err, 0, 0)
+}
