@@ -7,6 +7,7 @@ import (
 
 	"github.com/chewxy/hm"
 	"github.com/chewxy/math32"
+	"github.com/quernlab/quern/internal/par"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )
@@ -73,10 +74,12 @@ func (op bceLogitsOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, e
 	switch xs := x[0].Data().(type) {
 	case []float32:
 		ys, o := x[1].Data().([]float32), out.Data().([]float32)
-		ys, o = ys[:len(xs)], o[:len(xs)]
-		for i, v := range xs {
-			o[i] = math32.Max(v, 0) - v*ys[i] + log1pExpNeg32(math32.Abs(v))
-		}
+		par.For(len(xs), func(lo, hi int) {
+			xs, ys, o := xs[lo:hi], ys[lo:hi], o[lo:hi]
+			for i, v := range xs {
+				o[i] = math32.Max(v, 0) - v*ys[i] + log1pExpNeg32(math32.Abs(v))
+			}
+		})
 	case []float64:
 		ys, o := x[1].Data().([]float64), out.Data().([]float64)
 		ys, o = ys[:len(xs)], o[:len(xs)]
@@ -105,17 +108,19 @@ func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Valu
 	switch xs := x[0].Data().(type) {
 	case []float32:
 		ys, gs, o := x[1].Data().([]float32), x[2].Data().([]float32), out.Data().([]float32)
-		ys, gs, o = ys[:len(xs)], gs[:len(xs)], o[:len(xs)]
-		for i, v := range xs {
-			var s float32
-			if v >= 0 {
-				s = 1 / (1 + math32.Exp(-v))
-			} else {
-				e := math32.Exp(v)
-				s = e / (1 + e)
+		par.For(len(xs), func(lo, hi int) {
+			xs, ys, gs, o := xs[lo:hi], ys[lo:hi], gs[lo:hi], o[lo:hi]
+			for i, v := range xs {
+				var s float32
+				if v >= 0 {
+					s = 1 / (1 + math32.Exp(-v))
+				} else {
+					e := math32.Exp(v)
+					s = e / (1 + e)
+				}
+				o[i] = (s - ys[i]) * gs[i]
 			}
-			o[i] = (s - ys[i]) * gs[i]
-		}
+		})
 	case []float64:
 		ys, gs, o := x[1].Data().([]float64), x[2].Data().([]float64), out.Data().([]float64)
 		ys, gs, o = ys[:len(xs)], gs[:len(xs)], o[:len(xs)]

@@ -5,6 +5,7 @@ import (
 	"hash"
 
 	"github.com/chewxy/hm"
+	"github.com/quernlab/quern/internal/par"
 	"gonum.org/v1/gonum/blas"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
@@ -254,7 +255,8 @@ func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	out := op.out(p, t[0].Dtype(), r, c)
 	switch xs := t[0].Data().(type) {
 	case []float32:
-		leaky(out.Data().([]float32), xs, nil, float32(op.slope))
+		o := out.Data().([]float32)
+		par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], nil, float32(op.slope)) })
 	case []float64:
 		leaky(out.Data().([]float64), xs, nil, op.slope)
 	default:
@@ -294,7 +296,8 @@ func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	out := op.out(p, t[0].Dtype(), r, c)
 	switch xs := t[0].Data().(type) {
 	case []float32:
-		leaky(out.Data().([]float32), xs, t[1].Data().([]float32), float32(op.slope))
+		o, g := out.Data().([]float32), t[1].Data().([]float32)
+		par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], g[lo:hi], float32(op.slope)) })
 	case []float64:
 		leaky(out.Data().([]float64), xs, t[1].Data().([]float64), op.slope)
 	default:

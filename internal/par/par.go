@@ -1,0 +1,39 @@
+// Package par splits element-wise loops across GOMAXPROCS goroutines.
+// Every element is computed by exactly one goroutine, so results do not
+// depend on the number of goroutines.
+package par
+
+import (
+	"runtime"
+	"sync"
+)
+
+// MinWork is the smallest number of elements worth splitting.
+const MinWork = 1 << 15
+
+// Worth reports whether For would split n elements; callers on
+// allocation-free paths test it before building a closure.
+func Worth(n int) bool { return n >= MinWork && runtime.GOMAXPROCS(0) > 1 }
+
+// For calls f(lo, hi) over [0, n) in contiguous chunks, concurrently when
+// n is at least MinWork and more than one processor is available, and
+// returns when every call has returned.
+func For(n int, f func(lo, hi int)) {
+	w := runtime.GOMAXPROCS(0)
+	if n < MinWork || w < 2 {
+		f(0, n)
+		return
+	}
+	w = min(w, n/(MinWork/2))
+	chunk := (n + w - 1) / w
+	var wg sync.WaitGroup
+	for lo := chunk; lo < n; lo += chunk {
+		wg.Add(1)
+		go func(lo, hi int) {
+			defer wg.Done()
+			f(lo, hi)
+		}(lo, min(lo+chunk, n))
+	}
+	f(0, min(chunk, n))
+	wg.Wait()
+}
