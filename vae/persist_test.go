@@ -2,9 +2,12 @@ package vae
 
 import (
 	"context"
+	"math"
 	"path/filepath"
+	"runtime"
 	"testing"
 
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/train"
 	"github.com/stretchr/testify/require"
@@ -47,4 +50,32 @@ func TestCheckpointResumeIsBitwise(t *testing.T) {
 	a, _ := resumed.Sample(4, 1)
 	b, _ := l.Sample(4, 1)
 	require.Equal(t, a, b)
+}
+
+// The same seed gives bitwise the same model whatever the thread count:
+// the matrix products and element-wise loops that run in parallel compute
+// each element in one goroutine, in one order.
+func TestSameModelAtAnyThreadCount(t *testing.T) {
+	d := ppcaData(2000, 8, 2, 0.5, 12, 1)
+	x := make([]float32, 0, 2000*784)
+	for i := 0; i < 2000*784; i++ {
+		v := float64(d.X[i%len(d.X)])
+		x = append(x, float32(0.5+0.5*math.Tanh(v))) // into (0, 1)
+	}
+	big, err := data.New(x, 2000, 784)
+	require.NoError(t, err)
+	run := func(procs int) [][]float64 {
+		old := runtime.GOMAXPROCS(procs)
+		defer runtime.GOMAXPROCS(old)
+		m, err := New(Config{Inputs: 784, Hidden: []int{256}, Latent: 8, Scaling: data.ScaleNone, Seed: 3})
+		require.NoError(t, err)
+		_, err = m.Train(context.Background(), big, nil, train.Config{Epochs: 1, BatchSize: 256})
+		require.NoError(t, err)
+		var w [][]float64
+		for _, p := range m.Params() {
+			w = append(w, p.Values())
+		}
+		return w
+	}
+	require.Equal(t, run(1), run(2))
 }
