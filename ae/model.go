@@ -117,7 +117,13 @@ func (m *Model) build(trainMode bool) engine.BuildFunc {
 	c := m.cfg
 	return func(g *engine.Graph, n int) (*engine.Node, []*engine.Node) {
 		x := g.Input("x", n, c.Inputs)
-		target := g.Input("target", n, c.Inputs)
+		// the clean rows are a separate input only when the input is
+		// corrupted; otherwise the loss compares with x itself (one copy
+		// of the batch fewer per step)
+		target := x
+		if trainMode && c.Noise.Kind != NoNoise {
+			target = g.Input("target", n, c.Inputs)
+		}
 		code := g.MLP(m.Encoder, x, trainMode)
 		var total, recon, sparse, ce *engine.Node
 		if !c.HeadOnly {
@@ -179,17 +185,22 @@ func (m *Model) metricNames() []string {
 func (m *Model) fill(p *engine.Program, x []float32, labels []int, rows int, trainMode bool) {
 	c := m.cfg
 	if c.Precision == layers.Float64 {
-		t64, x64 := p.Input64("target"), p.Input64("x")
+		x64 := p.Input64("x")
 		for i, v := range x {
-			t64[i], x64[i] = float64(v), float64(v)
+			x64[i] = float64(v)
+		}
+		if t64 := p.Input64("target"); t64 != nil {
+			copy(t64, x64)
 		}
 		if trainMode {
 			corrupt(x64, c.Noise, c.Inputs, m.lo, m.hi, m.noise)
 		}
 	} else {
-		copy(p.Input32("target"), x)
 		x32 := p.Input32("x")
 		copy(x32, x)
+		if t32 := p.Input32("target"); t32 != nil {
+			copy(t32, x)
+		}
 		if trainMode {
 			corrupt(x32, c.Noise, c.Inputs, m.lo, m.hi, m.noise)
 		}
