@@ -45,16 +45,16 @@ var ErrNoGradient = errors.New("parameter has no gradient")
 
 // Graph is a computation under construction.
 type Graph struct {
-	g       *G.ExprGraph
-	prec    layers.Precision
-	dt      tensor.Dtype
-	params  []*layers.Param
-	pnodes  map[*layers.Param]*G.Node
-	inputs  []*inputSlot
-	byName  map[string]*inputSlot
-	err     error
-	unlock  func()
-	compild bool
+	g        *G.ExprGraph
+	prec     layers.Precision
+	dt       tensor.Dtype
+	params   []*layers.Param
+	pnodes   map[*layers.Param]*G.Node
+	inputs   []*inputSlot
+	byName   map[string]*inputSlot
+	err      error
+	unlock   func()
+	compiled bool
 }
 
 type inputSlot struct {
@@ -488,7 +488,6 @@ type Program struct {
 	inputs map[string]*inputSlot
 	prec   layers.Precision
 	closed bool
-	runs   int
 }
 
 // CompileOptions selects what Compile prepares.
@@ -508,10 +507,10 @@ type CompileOptions struct {
 // be a scalar. It releases the build lock whether or not it succeeds.
 func (gr *Graph) Compile(loss *Node, opt CompileOptions) (*Program, error) {
 	defer gr.Discard()
-	if gr.compild {
+	if gr.compiled {
 		return nil, errors.New("engine: graph compiled twice")
 	}
-	gr.compild = true
+	gr.compiled = true
 	if !gr.ok(loss) {
 		return nil, gr.err
 	}
@@ -618,7 +617,6 @@ func (p *Program) Run(opt RunOptions) (float64, error) {
 	if err := p.m.RunAll(); err != nil {
 		return 0, fmt.Errorf("engine: run: %w", err)
 	}
-	p.runs++
 	loss, err := scalarOf(p.loss.Value())
 	if err != nil {
 		return 0, err
@@ -728,9 +726,6 @@ func (p *Program) Close() error {
 	p.closed = true
 	return p.m.Close()
 }
-
-// Runs counts successful runs.
-func (p *Program) Runs() int { return p.runs }
 
 // SubCol subtracts the rows x 1 column c from every column of x.
 func (gr *Graph) SubCol(x, c *Node) *Node {
