@@ -3,7 +3,6 @@ package ae
 import (
 	"fmt"
 	"math"
-	"sort"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/layers"
@@ -248,19 +247,10 @@ func (m *Model) RowErrorsInto(dst []float64, x []float32, rows int) ([]float64, 
 }
 
 // Feature is one column's part in a score.
-type Feature struct {
-	Column int     `json:"column"`
-	Name   string  `json:"name,omitempty"`
-	Share  float64 `json:"share"` // fraction of the row's error
-}
+type Feature = anomaly.Feature
 
 // Score is one row's anomaly assessment.
-type Score struct {
-	Value     float64   `json:"score"`
-	Threshold float64   `json:"threshold"`
-	Anomaly   bool      `json:"anomaly"`
-	Top       []Feature `json:"top_features"`
-}
+type Score = anomaly.Score
 
 // Caution is the notice to show with scores.
 const Caution = anomaly.Caution
@@ -279,31 +269,14 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 		return nil, err
 	}
 	cols := m.cfg.Inputs
-	top = min(top, cols)
 	out := make([]Score, rows)
-	idx := make([]int, cols)
 	for r := range out {
 		row := c[r*cols : (r+1)*cols]
 		var total float64
 		for _, v := range row {
 			total += v
 		}
-		s := total / float64(cols)
-		out[r] = Score{Value: s, Threshold: m.Threshold.Value, Anomaly: m.Threshold.Flag(s)}
-		for j := range idx {
-			idx[j] = j
-		}
-		sort.SliceStable(idx, func(a, b int) bool { return row[idx[a]] > row[idx[b]] })
-		for _, j := range idx[:top] {
-			f := Feature{Column: j}
-			if total > 0 {
-				f.Share = row[j] / total
-			}
-			if j < len(m.Columns) {
-				f.Name = m.Columns[j]
-			}
-			out[r].Top = append(out[r].Top, f)
-		}
+		out[r] = anomaly.Assess(total/float64(cols), row, m.Columns, top, *m.Threshold)
 	}
 	return out, nil
 }

@@ -80,3 +80,19 @@ func TestQuantileFalseAlarmHolds(t *testing.T) {
 	_, err = Calibrate([]float64{math.NaN()}, Config{})
 	require.Error(t, err)
 }
+
+func TestAssess(t *testing.T) {
+	th := Threshold{Value: 1}
+	s := Assess(1.5, []float64{0.1, 0.6, 0.3}, []string{"flow", "current"}, 2, th)
+	require.True(t, s.Anomaly)
+	require.Equal(t, 1.0, s.Threshold)
+	require.Len(t, s.Top, 2)
+	require.Equal(t, Feature{Column: 1, Name: "current", Share: 0.6}, s.Top[0])
+	require.Equal(t, 2, s.Top[1].Column)
+	require.Equal(t, "", s.Top[1].Name) // no name given for column 2
+	require.InDelta(t, 0.3, s.Top[1].Share, 1e-15)
+	s = Assess(1, []float64{0, 0}, nil, 5, th)
+	require.False(t, s.Anomaly, "a score equal to the threshold is not flagged")
+	require.Len(t, s.Top, 2)
+	require.Equal(t, 0.0, s.Top[0].Share)
+}

@@ -1,0 +1,47 @@
+package anomaly
+
+import "sort"
+
+// Feature is one column's part in a row's score.
+type Feature struct {
+	Column int     `json:"column"`
+	Name   string  `json:"name,omitempty"`
+	Share  float64 `json:"share"` // fraction of the row's total contribution
+}
+
+// Score is one row's anomaly assessment.
+type Score struct {
+	Value     float64   `json:"score"`
+	Threshold float64   `json:"threshold"`
+	Anomaly   bool      `json:"anomaly"`
+	Top       []Feature `json:"top_features"`
+}
+
+// Assess turns one row's score and per-column contributions into a Score
+// against t, naming the top columns (largest contributions first, ties by
+// column order). names, when long enough, labels the columns.
+func Assess(value float64, contrib []float64, names []string, top int, t Threshold) Score {
+	s := Score{Value: value, Threshold: t.Value, Anomaly: t.Flag(value)}
+	top = min(top, len(contrib))
+	if top <= 0 {
+		return s
+	}
+	var total float64
+	idx := make([]int, len(contrib))
+	for j, v := range contrib {
+		idx[j] = j
+		total += v
+	}
+	sort.SliceStable(idx, func(a, b int) bool { return contrib[idx[a]] > contrib[idx[b]] })
+	for _, j := range idx[:top] {
+		f := Feature{Column: j}
+		if total > 0 {
+			f.Share = contrib[j] / total
+		}
+		if j < len(names) {
+			f.Name = names[j]
+		}
+		s.Top = append(s.Top, f)
+	}
+	return s
+}
