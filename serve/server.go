@@ -338,17 +338,24 @@ func chunk(x []float32, rows, cols int) [][]float32 {
 }
 
 type scoreResponse struct {
-	Results []ae.Score `json:"results"`
-	Caution string     `json:"caution"`
+	Results []anomaly.Score `json:"results"`
+	Caution string          `json:"caution"`
 }
 
 func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	if m.AE == nil {
-		writeError(w, http.StatusUnprocessableEntity, "scoring needs an autoencoder model; serving a %s", m.Kind)
+	var th *anomaly.Threshold
+	var score func(x []float32, rows, top int) ([]anomaly.Score, error)
+	switch {
+	case m.AE != nil:
+		th, score = m.AE.Threshold, m.AE.Score
+	case m.VAE != nil:
+		th, score = m.VAE.Threshold, m.VAE.Score
+	default:
+		writeError(w, http.StatusUnprocessableEntity, "scoring needs an autoencoder or VAE model; serving a %s", m.Kind)
 		return
 	}
-	if m.AE.Threshold == nil {
+	if th == nil {
 		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold")
 		return
 	}
@@ -360,7 +367,7 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 	if top <= 0 {
 		top = 3
 	}
-	res, err := m.AE.Score(x, len(req.Rows), top)
+	res, err := score(x, len(req.Rows), top)
 	if err != nil {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return

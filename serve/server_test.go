@@ -314,5 +314,14 @@ func TestVAESampling(t *testing.T) {
 	code, _ = post(t, c, l.url+"/v1/sample", []byte(`{"count": 3}`))
 	require.Equal(t, 400, code)
 	code, _ = post(t, c, l.url+"/v1/score", rowsBody(d, 0, 1))
-	require.Equal(t, 422, code)
+	require.Equal(t, 422, code, "no threshold yet")
+	// calibrated, the VAE scores rows by negative ELBO
+	_, err = m.Calibrate(d.X, d.Rows, anomaly.Config{Method: anomaly.Max})
+	require.NoError(t, err)
+	require.NoError(t, m.Save(path, nil))
+	code, _ = post(t, c, l.url+"/admin/reload", nil)
+	require.Equal(t, 200, code)
+	code, v := post(t, c, l.url+"/v1/score", rowsBody(d, 0, 2))
+	require.Equal(t, 200, code)
+	require.Len(t, v["results"], 2)
 }

@@ -20,6 +20,11 @@
 // spherical), Traverse one axis, and an Index for nearest neighbours in
 // latent space. Everything random takes a seed and is reproducible.
 //
+// Density scores: NegELBO scores rows (fixed-seed draws, so a row's score
+// never changes), Calibrate sets a threshold on held-out normal rows and
+// Score flags rows and names the columns behind each score. Scores are a
+// decision aid, calibrated only for data like the training data.
+//
 // Inference needs no graph and is safe for concurrent use while nobody
 // trains the model.
 package vae

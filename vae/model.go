@@ -7,6 +7,7 @@ import (
 	"math/rand/v2"
 	"sync"
 
+	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/engine"
 	"github.com/quernlab/quern/layers"
@@ -30,9 +31,12 @@ type Model struct {
 	Decoder *layers.MLP // Latent -> ... -> Inputs (logits or means)
 	// LogVar is the learned log-variance of a Gaussian likelihood: 1 x
 	// Inputs (GaussianLearned) or 1 x 1 (GaussianShared); nil otherwise.
-	LogVar  *layers.Param
-	Scaler  *data.Scaler
-	Columns []string
+	LogVar *layers.Param
+	Scaler *data.Scaler
+	// Threshold, when calibrated, flags rows whose negative ELBO exceeds
+	// it (see Calibrate and Score).
+	Threshold *anomaly.Threshold
+	Columns   []string
 	// Image is the image shape of the training data, if any.
 	Image []int
 

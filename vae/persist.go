@@ -3,6 +3,7 @@ package vae
 import (
 	"fmt"
 
+	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/persist"
 	"github.com/quernlab/quern/modelfile"
@@ -15,6 +16,7 @@ const Kind = "vae"
 type meta struct {
 	Config     Config                `json:"config"`
 	Scaler     *data.Scaler          `json:"scaler,omitempty"`
+	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
 	Columns    []string              `json:"columns,omitempty"`
 	Image      []int                 `json:"image,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
@@ -26,7 +28,7 @@ const optimPrefix = "optimizer/"
 // File converts the model to a model file; with history not nil it is a
 // checkpoint that also holds the optimiser, generator states and history.
 func (m *Model) File(prov *modelfile.Provenance, history *train.History) (*modelfile.File, error) {
-	md := meta{Config: m.cfg, Scaler: m.Scaler, Columns: m.Columns, Image: m.Image, Provenance: prov}
+	md := meta{Config: m.cfg, Scaler: m.Scaler, Threshold: m.Threshold, Columns: m.Columns, Image: m.Image, Provenance: prov}
 	ts := persist.Params(m.Params())
 	if history != nil {
 		ots, r, err := persist.SaveTraining(m.opt, optimPrefix, m.noisePCG, m.shufflePCG, history)
@@ -73,7 +75,7 @@ func FromFile(f *modelfile.File) (*Model, *train.History, *modelfile.Provenance,
 			return nil, nil, nil, fmt.Errorf("vae: %w", err)
 		}
 	}
-	m.Scaler, m.Columns, m.Image = md.Scaler, md.Columns, md.Image
+	m.Scaler, m.Threshold, m.Columns, m.Image = md.Scaler, md.Threshold, md.Columns, md.Image
 	if md.Resume == nil {
 		return m, nil, md.Provenance, nil
 	}

@@ -30,7 +30,7 @@ var commands map[string]command
 func init() {
 	commands = map[string]command{
 		"train":       {"train a model on CSV, idx or a folder of PNG images", cmdTrain},
-		"score":       {"score CSV rows with an autoencoder's anomaly threshold", cmdScore},
+		"score":       {"score rows against an autoencoder's or VAE's anomaly threshold", cmdScore},
 		"encode":      {"write the codes (embeddings) of rows", cmdEncode},
 		"sample":      {"draw samples from a VAE or GAN (CSV or PNG grid)", cmdSample},
 		"interpolate": {"decode a path between two rows' codes", cmdInterpolate},

@@ -309,3 +309,16 @@ func TestServeSignals(t *testing.T) {
 	wait("shutting down")
 	require.NoError(t, cmd.Wait())
 }
+
+// A VAE trained with a validation split scores rows by negative ELBO.
+func TestVAEScore(t *testing.T) {
+	dir := t.TempDir()
+	ok(t, quern(t, dir, nil, "train", "-kind", "vae", "-likelihood", "gaussian_learned", "-data", bc, "-no-header", "-skip", "1", "-label", "c30",
+		"-out", "v.qm", "-epochs", "3", "-hidden", "16", "-latent", "2", "-val", "0.3", "-threshold", "max", "-quiet"))
+	r := ok(t, quern(t, dir, nil, "score", "-model", "v.qm", "-data", bc, "-no-header", "-skip", "1", "-label", "c30", "-top", "1"))
+	require.Contains(t, r.stderr, "decision aid")
+	lines := strings.Split(strings.TrimSpace(r.stdout), "\n")
+	require.Len(t, lines, 570)
+	require.Equal(t, "row,score,threshold,anomaly,feature1,share1", lines[0])
+	require.Contains(t, quern(t, dir, nil, "inspect", "v.qm").stdout, "threshold")
+}

@@ -23,6 +23,12 @@ import (
 	"github.com/quernlab/quern/vae"
 )
 
+// calibrator is a model whose anomaly threshold is set on the validation
+// rows after training (ae: reconstruction error; vae: negative ELBO).
+type calibrator interface {
+	Calibrate(x []float32, rows int, c anomaly.Config) (anomaly.Threshold, error)
+}
+
 // trainable is what ae, vae and gan models share for the command.
 type trainable interface {
 	Train(ctx context.Context, tr, va *data.Dataset, cfg train.Config) (*train.History, error)
@@ -91,8 +97,8 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.IntVar(&o.discSteps, "disc-steps", 0, "gan: discriminator updates per generator update (default 1)")
 	fs.IntVar(&o.pack, "pack", 0, "gan: samples the discriminator judges together (default 1)")
 	fs.BoolVar(&o.cond, "conditional", false, "gan: condition both networks on the labels")
-	fs.Float64Var(&o.falseAlarm, "false-alarm", 0.01, "ae: target false-alarm rate of the threshold")
-	fs.StringVar(&o.method, "threshold", "quantile", "ae: threshold method: quantile (for -false-alarm) or max")
+	fs.Float64Var(&o.falseAlarm, "false-alarm", 0.01, "ae, vae: target false-alarm rate of the threshold")
+	fs.StringVar(&o.method, "threshold", "quantile", "ae, vae: threshold method: quantile (for -false-alarm) or max")
 	fs.StringVar(&o.checkpoint, "checkpoint", "", "checkpoint file (default: MODEL.ckpt when -every > 0)")
 	fs.IntVar(&o.every, "every", 0, "write a checkpoint every N epochs")
 	fs.StringVar(&o.resume, "resume", "", "resume from a checkpoint (uses the settings it was started with)")
@@ -212,7 +218,7 @@ func cmdTrain(e *env, args []string) error {
 		}
 		return err
 	}
-	if m, ok := model.(*ae.Model); ok && valSet != nil {
+	if m, ok := model.(calibrator); ok && valSet != nil {
 		th, err := m.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm})
 		if err != nil && o.method == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
 			if !o.quiet {

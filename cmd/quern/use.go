@@ -13,6 +13,7 @@ import (
 	"strings"
 
 	"github.com/quernlab/quern/ae"
+	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/gan"
 	"github.com/quernlab/quern/layers"
@@ -108,7 +109,7 @@ func names(prefix string, n int) []string {
 
 func cmdScore(e *env, args []string) error {
 	fs := newFlags(e, "score", "-model MODEL -data FILE.csv [-out SCORES.csv]")
-	model := fs.String("model", "", "autoencoder model file with a threshold (required)")
+	model := fs.String("model", "", "autoencoder (reconstruction error) or VAE (negative ELBO) model file with a threshold (required)")
 	var d dataFlags
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
@@ -120,18 +121,28 @@ func cmdScore(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if l.ae == nil {
-		return fmt.Errorf("score needs an autoencoder model; %s holds a %s", *model, l.file.Kind)
+	var (
+		th      *anomaly.Threshold
+		columns []string
+		inputs  int
+		score   func(x []float32, rows, top int) ([]anomaly.Score, error)
+	)
+	switch {
+	case l.ae != nil:
+		th, columns, inputs, score = l.ae.Threshold, l.ae.Columns, l.ae.Config().Inputs, l.ae.Score
+	case l.vae != nil:
+		th, columns, inputs, score = l.vae.Threshold, l.vae.Columns, l.vae.Config().Inputs, l.vae.Score
+	default:
+		return fmt.Errorf("score needs an autoencoder or VAE model; %s holds a %s", *model, l.file.Kind)
 	}
-	m := l.ae
-	if m.Threshold == nil {
+	if th == nil {
 		return fmt.Errorf("%s has no threshold (train it with -val > 0)", *model)
 	}
-	ds, err := d.loadFor(m.Columns, m.Config().Inputs)
+	ds, err := d.loadFor(columns, inputs)
 	if err != nil {
 		return err
 	}
-	scores, err := m.Score(ds.X, ds.Rows, *top)
+	scores, err := score(ds.X, ds.Rows, *top)
 	if err != nil {
 		return err
 	}
@@ -167,7 +178,7 @@ func cmdScore(e *env, args []string) error {
 	if err := closeOut(); err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stderr, "scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)\n", len(scores), flagged, m.Threshold.Value, 100*m.Threshold.ExpectedFalseAlarm)
+	fmt.Fprintf(e.stderr, "scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)\n", len(scores), flagged, th.Value, 100*th.ExpectedFalseAlarm)
 	fmt.Fprintln(e.stderr, ae.Caution)
 	return nil
 }
@@ -357,6 +368,9 @@ func cmdInspect(e *env, args []string) error {
 	case l.vae != nil:
 		nets, params = []*layers.MLP{l.vae.Encoder, l.vae.Decoder}, l.vae.Params()
 		fmt.Fprintf(w, "likelihood  %s, latent %d\n", l.vae.Config().Likelihood, l.vae.Config().Latent)
+		if th := l.vae.Threshold; th != nil {
+			fmt.Fprintf(w, "threshold   %.6g on the negative ELBO (%s, expected false-alarm rate %.2f%%, %d calibration rows)\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm, th.Rows)
+		}
 	case l.gan != nil:
 		nets, params = []*layers.MLP{l.gan.Generator, l.gan.Discriminator}, l.gan.Params()
 		c := l.gan.Config()

@@ -1,0 +1,104 @@
+package vae
+
+import (
+	"fmt"
+	"math"
+
+	"github.com/quernlab/quern/anomaly"
+)
+
+// ScoreSamples is the number of reparameterised draws behind a density
+// score; the draws come from a fixed seed, so a row's score is always the
+// same.
+const ScoreSamples = 16
+
+const scoreSeed = 0x5c07e
+
+// NegELBO returns each raw row's negative ELBO in nats (ScoreSamples
+// draws, fixed seed): a density score whose expectation bounds -log p(x)
+// from above. Rows unlike the training data score high.
+func (m *Model) NegELBO(x []float32, rows int) ([]float64, error) {
+	e, err := m.ELBO(x, rows, ScoreSamples, scoreSeed)
+	if err != nil {
+		return nil, err
+	}
+	for i := range e {
+		e[i] = -e[i]
+	}
+	return e, nil
+}
+
+// Contributions returns, for each row and column, that column's
+// discrepancy from its reconstruction at the posterior mean, in scaled
+// space: the binary cross-entropy for Bernoulli models, the squared error
+// over the likelihood's variance for Gaussian ones. It says which columns
+// drove a score.
+func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return nil, err
+	}
+	w := m.getWork()
+	defer m.pool.Put(w)
+	xs := m.scaled(x)
+	mu, _, err := m.posterior(w, xs, rows)
+	if err != nil {
+		return nil, err
+	}
+	out, err := m.forward(w, &w.ws2, m.Decoder, mu, rows)
+	if err != nil {
+		return nil, err
+	}
+	c := make([]float64, len(xs))
+	d := m.cfg.Inputs
+	for i, v := range xs {
+		o := out[i]
+		if m.cfg.Likelihood == Bernoulli {
+			c[i] = math.Max(o, 0) - o*v + math.Log1p(math.Exp(-math.Abs(o)))
+			continue
+		}
+		e := v - o
+		c[i] = e * e * math.Exp(-m.logVarAt(i%d))
+	}
+	return c, nil
+}
+
+// Calibrate sets the model's threshold on the negative ELBO of held-out
+// normal rows (not used for training) and returns it.
+func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
+	s, err := m.NegELBO(normal, rows)
+	if err != nil {
+		return anomaly.Threshold{}, err
+	}
+	th, err := anomaly.Calibrate(s, c)
+	if err != nil {
+		return th, err
+	}
+	m.Threshold = &th
+	return th, nil
+}
+
+// Score scores raw rows by their negative ELBO against the calibrated
+// threshold and names the top columns (at most top, default 3) by their
+// Contributions.
+func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
+	if m.Threshold == nil {
+		return nil, fmt.Errorf("vae: model has no threshold; calibrate it first")
+	}
+	if top <= 0 {
+		top = 3
+	}
+	s, err := m.NegELBO(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	c, err := m.Contributions(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	d := m.cfg.Inputs
+	out := make([]anomaly.Score, rows)
+	for r := range out {
+		out[r] = anomaly.Assess(s[r], c[r*d:(r+1)*d], m.Columns, top, *m.Threshold)
+	}
+	return out, nil
+}
