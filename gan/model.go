@@ -51,6 +51,9 @@ type Model struct {
 	warned               map[string]int
 	warnings             []Warning
 	metrics              []train.Metric
+	bufs                 [4][]float64 // step outputs as float64: D real, D fake, G fake logits, G samples
+	extra                []float32    // rows of the extra discriminator steps
+	extraY               []int
 	pool                 sync.Pool
 }
 
@@ -252,12 +255,17 @@ func set(p *engine.Program, name string, f func(i int) float64) {
 	}
 }
 
-func (m *Model) output(p *engine.Program, i int) []float64 {
+// output returns program output i as float64, converting float32 values
+// into *buf (grown once, then reused step after step).
+func (m *Model) output(p *engine.Program, i int, buf *[]float64) []float64 {
 	if m.cfg.Precision == layers.Float64 {
 		return p.Output64(i)
 	}
 	o := p.Output32(i)
-	r := make([]float64, len(o))
+	if cap(*buf) < len(o) {
+		*buf = make([]float64, len(o))
+	}
+	r := (*buf)[:len(o)]
 	for k, v := range o {
 		r[k] = float64(v)
 	}
@@ -321,7 +329,7 @@ func (m *Model) discriminatorStep(x []float32, labels []int, rows int) (float64,
 	if err := m.discOpt.Update(p.Params()); err != nil {
 		return 0, nil, nil, fmt.Errorf("gan: %w", err)
 	}
-	return loss, m.output(p, 0), m.output(p, 1), nil
+	return loss, m.output(p, 0, &m.bufs[0]), m.output(p, 1, &m.bufs[1]), nil
 }
 
 func (m *Model) generatorStep(rows int) (float64, []float64, []float64, error) {
@@ -337,7 +345,7 @@ func (m *Model) generatorStep(rows int) (float64, []float64, []float64, error) {
 	if err := m.genOpt.Update(p.Params()); err != nil {
 		return 0, nil, nil, fmt.Errorf("gan: %w", err)
 	}
-	return loss, m.output(p, 0), m.output(p, 1), nil
+	return loss, m.output(p, 0, &m.bufs[2]), m.output(p, 1, &m.bufs[3]), nil
 }
 
 func sigmoidMean(v []float64) float64 {
@@ -397,10 +405,17 @@ func (t trainee) Step(ctx context.Context, b train.Batch) ([]train.Metric, error
 	var dLoss float64
 	var lr, lf []float64
 	var err error
-	extra := make([]float32, rows*c.Outputs)
+	// rows for the extra discriminator steps, in buffers kept between steps
+	var extra []float32
 	var extraY []int
-	if c.Classes > 0 {
-		extraY = make([]int, rows)
+	if c.DiscSteps > 1 {
+		if cap(m.extra) < rows*c.Outputs {
+			m.extra, m.extraY = make([]float32, rows*c.Outputs), make([]int, rows)
+		}
+		extra, extraY = m.extra[:rows*c.Outputs], m.extraY[:rows]
+		if c.Classes == 0 {
+			extraY = nil
+		}
 	}
 	for k := 0; k < c.DiscSteps; k++ {
 		if k > 0 {
@@ -504,8 +519,9 @@ func (t trainee) Evaluate(d *data.Dataset) ([]train.Metric, error) {
 			return nil, fmt.Errorf("gan: evaluation: %w", err)
 		}
 		loss += l * float64(rows)
-		dr += sigmoidMean(m.output(p, 0)) * float64(rows)
-		df += sigmoidMean(m.output(p, 1)) * float64(rows)
+		var b0, b1 []float64
+		dr += sigmoidMean(m.output(p, 0, &b0)) * float64(rows)
+		df += sigmoidMean(m.output(p, 1, &b1)) * float64(rows)
 		n += rows
 	}
 	if n == 0 {
