@@ -45,6 +45,7 @@ type Model struct {
 	trainPhase           *engine.Phase
 	evalPhase            *engine.Phase
 	metrics              []train.Metric
+	names                []string // metricNames, kept for the training loop
 	pool                 sync.Pool
 }
 
@@ -211,8 +212,10 @@ func (m *Model) fill(p *engine.Program, x []float32, labels []int, rows int, tra
 				continue
 			}
 			for i, d := range net.Layers {
-				name := engine.DropoutName(net, i)
-				if d.Dropout > 0 && p.HasInput(name) {
+				if d.Dropout <= 0 {
+					continue
+				}
+				if name := engine.DropoutName(net, i); p.HasInput(name) {
 					if c.Precision == layers.Float64 {
 						layers.DropoutMask(p.Input64(name), d.Dropout, m.noise)
 					} else {
@@ -282,7 +285,10 @@ func corrupt[T float32 | float64](x []T, c Corruption, cols int, lo, hi []float3
 }
 
 func (m *Model) outputs(p *engine.Program, loss float64, dst []train.Metric) []train.Metric {
-	names := m.metricNames()
+	if m.names == nil {
+		m.names = m.metricNames()
+	}
+	names := m.names
 	dst = dst[:0]
 	dst = append(dst, train.Metric{Name: names[0], Value: loss})
 	for i, n := range names[1:] {

@@ -1,8 +1,12 @@
 // Package engine is quern's only contact with gorgonia. It builds a graph once
-// per phase and batch size, binds batches by writing straight into the
-// graph's input tensors, runs the tape machine, copies gradients into the
-// parameters' own buffers and resets the machine, so that no other package
-// sees Let, RunAll, Reset, dtypes or broadcasting patterns.
+// per phase and batch size (gorgonia's graph and symbolic gradients), binds
+// batches by writing straight into the graph's input tensors, runs the
+// nodes that the loss, gradients and outputs need with its own executor
+// (see exec.go: gorgonia's tape machine costs two thread hand-offs and
+// fresh tensors every run) and copies gradients into the parameters' own
+// buffers, so that no other package sees Let, RunAll, Reset, dtypes or
+// broadcasting patterns. A training step allocates nothing in steady state
+// when the graph uses the fused operations.
 //
 // Graph construction methods record the first error and return a poisoned
 // node afterwards; Compile reports that error. This keeps model code linear.
@@ -11,8 +15,10 @@
 //   - gorgonia's initialisers, GaussianRandomNode and Dropout seed from the
 //     clock: parameters are filled by package layers from math/rand/v2 and
 //     random inputs (noise, dropout masks) are fed in as ordinary inputs.
-//   - A machine that is not Reset after RunAll returns the previous values:
-//     Run always resets, even on error.
+//   - gorgonia's tape machine locks the goroutine to its thread and runs
+//     the tape on another goroutine, and must be Reset after each RunAll;
+//     the executor calls each operation's Do (or, for operations known to
+//     overwrite it, UsePreallocDo into the node's own buffer) in order.
 //   - Graph construction touches package-level constant nodes (Rectify's
 //     zero, for instance): all construction is serialised by buildMu.
 //   - Grad may only be called once per graph: Compile calls it once for the
@@ -477,17 +483,23 @@ func DropoutName(m *layers.MLP, i int) string { return fmt.Sprintf("%s.%d.dropou
 // optional outputs, and the gradient of the loss with respect to every
 // trainable (not frozen) parameter that the graph reads.
 type Program struct {
-	m      G.VM
-	loss   *G.Node
+	steps  []step
+	vals   []G.Value // each node's value, in execution order
+	loss   int
 	outs   []*Node
+	outIdx []int
 	out32  [][]float32
 	out64  [][]float64
-	vals   []G.Value
 	params []*layers.Param
-	grads  []*G.Node
+	grads  []int
 	inputs map[string]*inputSlot
 	prec   layers.Precision
 	closed bool
+	// kept for the test that runs the same graph on gorgonia's tape
+	// machine
+	graph     *G.ExprGraph
+	lossNode  *G.Node
+	gradNodes G.Nodes
 }
 
 // CompileOptions selects what Compile prepares.
@@ -522,7 +534,8 @@ func (gr *Graph) Compile(loss *Node, opt CompileOptions) (*Program, error) {
 	if !loss.IsScalar() {
 		return nil, fmt.Errorf("engine: loss has shape %dx%d, want a scalar", loss.rows, loss.cols)
 	}
-	p := &Program{loss: loss.n, outs: opt.Outputs, inputs: gr.byName, prec: gr.prec}
+	p := &Program{outs: opt.Outputs, inputs: gr.byName, prec: gr.prec}
+	var gradNodes G.Nodes
 	if opt.Grad {
 		var wrt G.Nodes
 		allowed := map[*layers.Param]bool{}
@@ -540,31 +553,42 @@ func (gr *Graph) Compile(loss *Node, opt CompileOptions) (*Program, error) {
 			if err != nil {
 				return nil, fmt.Errorf("engine: gradient: %w", err)
 			}
-			p.grads = gs
+			gradNodes = gs
 		}
 	}
-	// Outputs are copied by read instructions placed in the tape right
-	// after their node is computed: reading node values after RunAll is
-	// wrong, since later in-place operations may have overwritten them.
-	p.vals = make([]G.Value, len(opt.Outputs))
-	for i, o := range opt.Outputs {
+	roots := append([]*G.Node{loss.n}, gradNodes...)
+	for _, o := range opt.Outputs {
+		roots = append(roots, o.n)
+	}
+	steps, index, err := schedule(gr.g, roots)
+	if err != nil {
+		return nil, err
+	}
+	p.steps = steps
+	p.graph, p.lossNode, p.gradNodes = gr.g, loss.n, gradNodes
+	p.vals = make([]G.Value, len(steps))
+	for i, s := range steps {
+		if s.op == nil {
+			p.vals[i] = s.node.Value()
+		}
+	}
+	p.loss = index[loss.n]
+	for i, gn := range gradNodes {
+		j, ok := index[gn]
+		if !ok || gn == nil {
+			return nil, fmt.Errorf("engine: %q: %w", p.params[i].Name(), ErrNoGradient)
+		}
+		p.grads = append(p.grads, j)
+	}
+	for _, o := range opt.Outputs {
+		p.outIdx = append(p.outIdx, index[o.n])
 		n := max(1, o.rows*o.cols)
 		if gr.prec == layers.Float64 {
-			b := make([]float64, n)
-			p.out64 = append(p.out64, b)
-			if !o.IsScalar() {
-				p.vals[i] = tensor.New(tensor.WithShape(o.rows, o.cols), tensor.WithBacking(b))
-			}
+			p.out64 = append(p.out64, make([]float64, n))
 		} else {
-			b := make([]float32, n)
-			p.out32 = append(p.out32, b)
-			if !o.IsScalar() {
-				p.vals[i] = tensor.New(tensor.WithShape(o.rows, o.cols), tensor.WithBacking(b))
-			}
+			p.out32 = append(p.out32, make([]float32, n))
 		}
-		G.Read(o.n, &p.vals[i])
 	}
-	p.m = G.NewTapeMachine(gr.g)
 	return p, nil
 }
 
@@ -606,18 +630,17 @@ type RunOptions struct {
 }
 
 // Run executes the program once: forward, backward when compiled with
-// gradients, copy of gradients and outputs, reset. It returns the loss. A
+// gradients, copy of gradients and outputs. It returns the loss. A
 // NaN or infinite loss or gradient is an error wrapping ErrNonFinite; the
 // parameters' gradients are then unspecified.
 func (p *Program) Run(opt RunOptions) (float64, error) {
 	if p.closed {
 		return 0, errors.New("engine: run on a closed program")
 	}
-	defer p.m.Reset()
-	if err := p.m.RunAll(); err != nil {
+	if err := execute(p.steps, p.vals); err != nil {
 		return 0, fmt.Errorf("engine: run: %w", err)
 	}
-	loss, err := scalarOf(p.loss.Value())
+	loss, err := scalarOf(p.vals[p.loss])
 	if err != nil {
 		return 0, err
 	}
@@ -625,7 +648,7 @@ func (p *Program) Run(opt RunOptions) (float64, error) {
 		return loss, fmt.Errorf("engine: loss is %v: %w", loss, ErrNonFinite)
 	}
 	for i, q := range p.params {
-		gv := p.grads[i].Value()
+		gv := p.vals[p.grads[i]]
 		if gv == nil {
 			return loss, fmt.Errorf("engine: %q: %w", q.Name(), ErrNoGradient)
 		}
@@ -634,41 +657,65 @@ func (p *Program) Run(opt RunOptions) (float64, error) {
 		}
 	}
 	for i, o := range p.outs {
-		if !o.IsScalar() {
-			continue // copied in place by the read instruction
-		}
-		v := p.vals[i]
+		v := p.vals[p.outIdx[i]]
 		if v == nil {
 			return loss, fmt.Errorf("engine: output %d has no value", i)
 		}
-		x, err := scalarOf(v)
-		if err != nil {
+		if o.IsScalar() {
+			x, err := scalarOf(v)
+			if err != nil {
+				return loss, err
+			}
+			if p.prec == layers.Float64 {
+				p.out64[i][0] = x
+			} else {
+				p.out32[i][0] = float32(x)
+			}
+			continue
+		}
+		if err := copyOut(v, p.out32, p.out64, i); err != nil {
 			return loss, err
 		}
-		if p.prec == layers.Float64 {
-			p.out64[i][0] = x
-		} else {
-			p.out32[i][0] = float32(x)
-		}
-		p.vals[i] = nil
 	}
 	return loss, nil
+}
+
+func copyOut(v G.Value, out32 [][]float32, out64 [][]float64, i int) error {
+	switch v.Dtype() {
+	case tensor.Float32:
+		d := f32(v)
+		if i < len(out32) && len(d) == len(out32[i]) {
+			copy(out32[i], d)
+			return nil
+		}
+	case tensor.Float64:
+		d := f64(v)
+		if i < len(out64) && len(d) == len(out64[i]) {
+			copy(out64[i], d)
+			return nil
+		}
+	}
+	return fmt.Errorf("engine: output %d has %d values of %T", i, v.Shape().TotalSize(), v.Data())
 }
 
 func scalarOf(v G.Value) (float64, error) {
 	if v == nil {
 		return 0, errors.New("engine: loss has no value")
 	}
-	switch d := v.Data().(type) {
-	case float32:
-		return float64(d), nil
-	case float64:
-		return d, nil
-	case []float32:
+	switch s := v.(type) {
+	case *G.F32:
+		return float64(*s), nil
+	case *G.F64:
+		return float64(*s), nil
+	}
+	switch v.Dtype() {
+	case tensor.Float32:
+		d := f32(v)
 		if len(d) == 1 {
 			return float64(d[0]), nil
 		}
-	case []float64:
+	case tensor.Float64:
+		d := f64(v)
 		if len(d) == 1 {
 			return d[0], nil
 		}
@@ -677,8 +724,9 @@ func scalarOf(v G.Value) (float64, error) {
 }
 
 func copyGrad(q *layers.Param, gv G.Value, acc bool) error {
-	switch d := gv.Data().(type) {
-	case []float32:
+	switch gv.Dtype() {
+	case tensor.Float32:
+		d := f32(gv)
 		dst := q.Grad32()
 		if len(d) != len(dst) {
 			return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
@@ -695,7 +743,8 @@ func copyGrad(q *layers.Param, gv G.Value, acc bool) error {
 		} else {
 			copy(dst, d)
 		}
-	case []float64:
+	case tensor.Float64:
+		d := f64(gv)
 		dst := q.Grad64()
 		if len(d) != len(dst) {
 			return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
@@ -713,7 +762,7 @@ func copyGrad(q *layers.Param, gv G.Value, acc bool) error {
 			copy(dst, d)
 		}
 	default:
-		return fmt.Errorf("engine: gradient of %q has type %T", q.Name(), gv.Data())
+		return fmt.Errorf("engine: gradient of %q has type %v", q.Name(), gv.Dtype())
 	}
 	return nil
 }
@@ -724,7 +773,8 @@ func (p *Program) Close() error {
 		return nil
 	}
 	p.closed = true
-	return p.m.Close()
+	p.steps, p.vals, p.graph, p.lossNode, p.gradNodes = nil, nil, nil, nil, nil
+	return nil
 }
 
 // SubCol subtracts the rows x 1 column c from every column of x.

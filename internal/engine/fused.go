@@ -71,23 +71,24 @@ func (op bceLogitsOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, e
 	}
 	r, c := dims(x[0])
 	out := op.out(prealloc, x[0].Dtype(), r, c)
-	switch xs := x[0].Data().(type) {
-	case []float32:
-		ys, o := x[1].Data().([]float32), out.Data().([]float32)
-		par.For(len(xs), func(lo, hi int) {
-			xs, ys, o := xs[lo:hi], ys[lo:hi], o[lo:hi]
-			for i, v := range xs {
-				o[i] = math32.Max(v, 0) - v*ys[i] + log1pExpNeg32(math32.Abs(v))
-			}
-		})
-	case []float64:
-		ys, o := x[1].Data().([]float64), out.Data().([]float64)
+	switch x[0].Dtype() {
+	case tensor.Float32:
+		xs := f32(x[0])
+		ys, o := f32(x[1]), f32(out)
+		if par.Worth(len(xs)) {
+			par.For(len(xs), func(lo, hi int) { bceLogits32(o[lo:hi], xs[lo:hi], ys[lo:hi]) })
+		} else {
+			bceLogits32(o, xs, ys)
+		}
+	case tensor.Float64:
+		xs := f64(x[0])
+		ys, o := f64(x[1]), f64(out)
 		ys, o = ys[:len(xs)], o[:len(xs)]
 		for i, v := range xs {
 			o[i] = math.Max(v, 0) - v*ys[i] + math.Log1p(math.Exp(-math.Abs(v)))
 		}
 	default:
-		return nil, fmt.Errorf("engine: BCEWithLogits: unsupported type %T", xs)
+		return nil, fmt.Errorf("engine: BCEWithLogits: unsupported type %v", x[0].Dtype())
 	}
 	return out, nil
 }
@@ -105,24 +106,18 @@ func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Valu
 	}
 	r, c := dims(x[0])
 	out := op.out(prealloc, x[0].Dtype(), r, c)
-	switch xs := x[0].Data().(type) {
-	case []float32:
-		ys, gs, o := x[1].Data().([]float32), x[2].Data().([]float32), out.Data().([]float32)
-		par.For(len(xs), func(lo, hi int) {
-			xs, ys, gs, o := xs[lo:hi], ys[lo:hi], gs[lo:hi], o[lo:hi]
-			for i, v := range xs {
-				var s float32
-				if v >= 0 {
-					s = 1 / (1 + math32.Exp(-v))
-				} else {
-					e := math32.Exp(v)
-					s = e / (1 + e)
-				}
-				o[i] = (s - ys[i]) * gs[i]
-			}
-		})
-	case []float64:
-		ys, gs, o := x[1].Data().([]float64), x[2].Data().([]float64), out.Data().([]float64)
+	switch x[0].Dtype() {
+	case tensor.Float32:
+		xs := f32(x[0])
+		ys, gs, o := f32(x[1]), f32(x[2]), f32(out)
+		if par.Worth(len(xs)) {
+			par.For(len(xs), func(lo, hi int) { bceLogitsGrad32(o[lo:hi], xs[lo:hi], ys[lo:hi], gs[lo:hi]) })
+		} else {
+			bceLogitsGrad32(o, xs, ys, gs)
+		}
+	case tensor.Float64:
+		xs := f64(x[0])
+		ys, gs, o := f64(x[1]), f64(x[2]), f64(out)
 		ys, gs, o = ys[:len(xs)], gs[:len(xs)], o[:len(xs)]
 		for i, v := range xs {
 			var s float64
@@ -135,7 +130,7 @@ func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Valu
 			o[i] = (s - ys[i]) * gs[i]
 		}
 	default:
-		return nil, fmt.Errorf("engine: BCEWithLogitsGrad: unsupported type %T", xs)
+		return nil, fmt.Errorf("engine: BCEWithLogitsGrad: unsupported type %v", x[0].Dtype())
 	}
 	return out, nil
 }
@@ -167,18 +162,18 @@ func shapeOf(in []G.DimSizer) (tensor.Shape, error) {
 	return s.Clone(), nil
 }
 
-func denseArgs(in []G.Value, n int) ([]*tensor.Dense, error) {
-	if len(in) != n {
-		return nil, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
+func denseArgs(in []G.Value, n int) ([4]*tensor.Dense, error) {
+	var out [4]*tensor.Dense
+	if len(in) != n || n > len(out) {
+		return out, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
 	}
-	out := make([]*tensor.Dense, n)
 	for i, v := range in {
 		d, ok := v.(*tensor.Dense)
 		if !ok {
-			return nil, fmt.Errorf("engine: fused operation input %d is %T", i, v)
+			return out, fmt.Errorf("engine: fused operation input %d is %T", i, v)
 		}
 		if i > 0 && (d.Dtype() != out[0].Dtype() || d.DataSize() != out[0].DataSize()) {
-			return nil, fmt.Errorf("engine: fused operation inputs differ in type or size")
+			return out, fmt.Errorf("engine: fused operation inputs differ in type or size")
 		}
 		out[i] = d
 	}
@@ -197,4 +192,27 @@ func (gr *Graph) BCEWithLogits(x, y *Node) *Node {
 	}
 	n, err := G.ApplyOp(bceLogitsOp{base("BCEWithLogits")}, x.n, y.n)
 	return gr.wrap("bce_logits", n, err, x.rows, x.cols)
+}
+
+// bceLogits32 writes max(x,0) - x*y + log1p(exp(-|x|)) into o.
+func bceLogits32(o, xs, ys []float32) {
+	o, ys = o[:len(xs)], ys[:len(xs)]
+	for i, v := range xs {
+		o[i] = math32.Max(v, 0) - v*ys[i] + log1pExpNeg32(math32.Abs(v))
+	}
+}
+
+// bceLogitsGrad32 writes (sigmoid(x) - y) * g into o.
+func bceLogitsGrad32(o, xs, ys, gs []float32) {
+	o, ys, gs = o[:len(xs)], ys[:len(xs)], gs[:len(xs)]
+	for i, v := range xs {
+		var s float32
+		if v >= 0 {
+			s = 1 / (1 + math32.Exp(-v))
+		} else {
+			e := math32.Exp(v)
+			s = e / (1 + e)
+		}
+		o[i] = (s - ys[i]) * gs[i]
+	}
 }

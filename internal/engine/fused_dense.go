@@ -25,7 +25,35 @@ type opBase struct {
 	cache *outCache
 }
 
-type outCache struct{ t *tensor.Dense }
+type outCache struct {
+	t   *tensor.Dense
+	s32 *G.F32
+	s64 *G.F64
+}
+
+// scalar32 returns v in the node's own scalar value.
+func (o opBase) scalar32(v float32) *G.F32 {
+	if o.cache == nil {
+		return G.NewF32(v)
+	}
+	if o.cache.s32 == nil {
+		o.cache.s32 = new(G.F32)
+	}
+	*o.cache.s32 = G.F32(v)
+	return o.cache.s32
+}
+
+// scalar64 returns v in the node's own scalar value.
+func (o opBase) scalar64(v float64) *G.F64 {
+	if o.cache == nil {
+		return G.NewF64(v)
+	}
+	if o.cache.s64 == nil {
+		o.cache.s64 = new(G.F64)
+	}
+	*o.cache.s64 = G.F64(v)
+	return o.cache.s64
+}
 
 func base(name string) opBase { return opBase{name: name, cache: &outCache{}} }
 
@@ -81,13 +109,15 @@ func gemmT(tA, tB blas.Transpose, m, n, k int, a, b, c *tensor.Dense) error {
 	if tB == blas.Trans {
 		ldb = k
 	}
-	switch cs := c.Data().(type) {
-	case []float32:
-		sgemm(tA, tB, m, n, k, 1, a.Data().([]float32), lda, b.Data().([]float32), ldb, 0, cs, n)
-	case []float64:
-		dgemm(tA, tB, m, n, k, 1, a.Data().([]float64), lda, b.Data().([]float64), ldb, 0, cs, n)
+	switch c.Dtype() {
+	case tensor.Float32:
+		cs := f32(c)
+		sgemm(tA, tB, m, n, k, 1, f32(a), lda, f32(b), ldb, 0, cs, n)
+	case tensor.Float64:
+		cs := f64(c)
+		dgemm(tA, tB, m, n, k, 1, f64(a), lda, f64(b), ldb, 0, cs, n)
 	default:
-		return fmt.Errorf("engine: matrix product of %T", cs)
+		return fmt.Errorf("engine: matrix product of %v", c.Dtype())
 	}
 	return nil
 }
@@ -131,11 +161,13 @@ func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	if err := gemmT(blas.NoTrans, blas.NoTrans, n, m, k, t[0], t[1], out); err != nil {
 		return nil, err
 	}
-	switch o := out.Data().(type) {
-	case []float32:
-		addRows(o, t[2].Data().([]float32)[:m], n)
-	case []float64:
-		addRows(o, t[2].Data().([]float64)[:m], n)
+	switch out.Dtype() {
+	case tensor.Float32:
+		o := f32(out)
+		addRows(o, f32(t[2])[:m], n)
+	case tensor.Float64:
+		o := f64(out)
+		addRows(o, f64(t[2])[:m], n)
 	}
 	return out, nil
 }
@@ -218,11 +250,13 @@ func (op affineGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) 
 	}
 	n, m := dims(t[0])
 	out := op.out(p, t[0].Dtype(), 1, m)
-	switch o := out.Data().(type) {
-	case []float32:
-		colSums(o, t[0].Data().([]float32), n)
-	case []float64:
-		colSums(o, t[0].Data().([]float64), n)
+	switch out.Dtype() {
+	case tensor.Float32:
+		o := f32(out)
+		colSums(o, f32(t[0]), n)
+	case tensor.Float64:
+		o := f64(out)
+		colSums(o, f64(t[0]), n)
 	}
 	return out, nil
 }
@@ -253,14 +287,20 @@ func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	}
 	r, c := dims(t[0])
 	out := op.out(p, t[0].Dtype(), r, c)
-	switch xs := t[0].Data().(type) {
-	case []float32:
-		o := out.Data().([]float32)
-		par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], nil, float32(op.slope)) })
-	case []float64:
-		leaky(out.Data().([]float64), xs, nil, op.slope)
+	switch t[0].Dtype() {
+	case tensor.Float32:
+		xs := f32(t[0])
+		o := f32(out)
+		if par.Worth(len(xs)) {
+			par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], nil, float32(op.slope)) })
+		} else {
+			leaky(o, xs, nil, float32(op.slope))
+		}
+	case tensor.Float64:
+		xs := f64(t[0])
+		leaky(f64(out), xs, nil, op.slope)
 	default:
-		return nil, fmt.Errorf("engine: leaky ReLU of %T", xs)
+		return nil, fmt.Errorf("engine: leaky ReLU of %v", t[0].Dtype())
 	}
 	return out, nil
 }
@@ -294,14 +334,20 @@ func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	}
 	r, c := dims(t[0])
 	out := op.out(p, t[0].Dtype(), r, c)
-	switch xs := t[0].Data().(type) {
-	case []float32:
-		o, g := out.Data().([]float32), t[1].Data().([]float32)
-		par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], g[lo:hi], float32(op.slope)) })
-	case []float64:
-		leaky(out.Data().([]float64), xs, t[1].Data().([]float64), op.slope)
+	switch t[0].Dtype() {
+	case tensor.Float32:
+		xs := f32(t[0])
+		o, g := f32(out), f32(t[1])
+		if par.Worth(len(xs)) {
+			par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], g[lo:hi], float32(op.slope)) })
+		} else {
+			leaky(o, xs, g, float32(op.slope))
+		}
+	case tensor.Float64:
+		xs := f64(t[0])
+		leaky(f64(out), xs, f64(t[1]), op.slope)
 	default:
-		return nil, fmt.Errorf("engine: leaky ReLU gradient of %T", xs)
+		return nil, fmt.Errorf("engine: leaky ReLU gradient of %v", t[0].Dtype())
 	}
 	return out, nil
 }
@@ -352,18 +398,18 @@ func leaky[T float32 | float64](o, x, g []T, slope T) {
 }
 
 // tensors checks that inputs are n dense tensors of one dtype.
-func tensors(in []G.Value, n int) ([]*tensor.Dense, error) {
-	if len(in) != n {
-		return nil, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
+func tensors(in []G.Value, n int) ([4]*tensor.Dense, error) {
+	var out [4]*tensor.Dense
+	if len(in) != n || n > len(out) {
+		return out, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
 	}
-	out := make([]*tensor.Dense, n)
 	for i, v := range in {
 		d, ok := v.(*tensor.Dense)
 		if !ok {
-			return nil, fmt.Errorf("engine: fused operation input %d is %T", i, v)
+			return out, fmt.Errorf("engine: fused operation input %d is %T", i, v)
 		}
 		if i > 0 && d.Dtype() != out[0].Dtype() {
-			return nil, fmt.Errorf("engine: fused operation inputs differ in type")
+			return out, fmt.Errorf("engine: fused operation inputs differ in type")
 		}
 		out[i] = d
 	}

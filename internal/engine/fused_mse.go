@@ -52,13 +52,15 @@ func (op mseOp) Do(in ...G.Value) (G.Value, error) {
 	if err != nil {
 		return nil, err
 	}
-	switch ps := x[0].Data().(type) {
-	case []float32:
-		return G.NewF32(float32(sqErr(ps, x[1].Data().([]float32)) / float64(len(ps)))), nil
-	case []float64:
-		return G.NewF64(sqErr(ps, x[1].Data().([]float64)) / float64(len(ps))), nil
+	switch x[0].Dtype() {
+	case tensor.Float32:
+		ps := f32(x[0])
+		return op.scalar32(float32(sqErr(ps, f32(x[1])) / float64(len(ps)))), nil
+	case tensor.Float64:
+		ps := f64(x[0])
+		return op.scalar64(sqErr(ps, f64(x[1])) / float64(len(ps))), nil
 	}
-	return nil, fmt.Errorf("engine: MSE of %T", x[0].Data())
+	return nil, fmt.Errorf("engine: MSE of %v", x[0].Dtype())
 }
 
 // sqErr sums (p - t)^2 in float64.
@@ -99,21 +101,23 @@ func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	}
 	r, c := dims(x[0])
 	out := op.out(p, x[0].Dtype(), r, c)
-	switch ps := x[0].Data().(type) {
-	case []float32:
-		g, ok := in[2].Data().(float32)
+	switch x[0].Dtype() {
+	case tensor.Float32:
+		ps := f32(x[0])
+		g, ok := in[2].(*G.F32)
 		if !ok {
-			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2].Data())
+			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2])
 		}
-		mseGrad(out.Data().([]float32), ps, x[1].Data().([]float32), 2*g/float32(len(ps)))
-	case []float64:
-		g, ok := in[2].Data().(float64)
+		mseGrad(f32(out), ps, f32(x[1]), 2*float32(*g)/float32(len(ps)))
+	case tensor.Float64:
+		ps := f64(x[0])
+		g, ok := in[2].(*G.F64)
 		if !ok {
-			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2].Data())
+			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2])
 		}
-		mseGrad(out.Data().([]float64), ps, x[1].Data().([]float64), 2*g/float64(len(ps)))
+		mseGrad(f64(out), ps, f64(x[1]), 2*float64(*g)/float64(len(ps)))
 	default:
-		return nil, fmt.Errorf("engine: MSE gradient of %T", ps)
+		return nil, fmt.Errorf("engine: MSE gradient of %v", x[0].Dtype())
 	}
 	return out, nil
 }

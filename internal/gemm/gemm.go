@@ -114,24 +114,31 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 					block(bb, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc, over)
 				}
 			} else {
-				var wg sync.WaitGroup
-				for t := 0; t < w; t++ {
-					wg.Add(1)
-					go func(t int) {
-						defer wg.Done()
-						ab := bufs.Get().(*buffers)
-						for blk := t; blk < blocks; blk += w {
-							ic := blk * mc
-							block(ab, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc, over)
-						}
-						bufs.Put(ab)
-					}(t)
-				}
-				wg.Wait()
+				blocksParallel(w, blocks, m, tA, a, lda, alpha, pc, kb, bb.b, nb, c, ldc, jc, over)
 			}
 			bufs.Put(bb)
 		}
 	}
+}
+
+// blocksParallel shares the row blocks of one packed B block among w
+// goroutines. It is a function of its own so that the serial path
+// allocates nothing (variables captured by the goroutines escape).
+func blocksParallel(w, blocks, m int, tA blas.Transpose, a []float32, lda int, alpha float32, pc, kb int, pb []float32, nb int, c []float32, ldc, jc int, over bool) {
+	var wg sync.WaitGroup
+	for t := 0; t < w; t++ {
+		wg.Add(1)
+		go func(t int) {
+			defer wg.Done()
+			ab := bufs.Get().(*buffers)
+			for blk := t; blk < blocks; blk += w {
+				ic := blk * mc
+				block(ab, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, pb, nb, c, ldc, jc, over)
+			}
+			bufs.Put(ab)
+		}(t)
+	}
+	wg.Wait()
 }
 
 // block multiplies rows [ic, ic+mb) of op(A) (depth [pc, pc+kb)) by the

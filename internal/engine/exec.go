@@ -1,0 +1,158 @@
+package engine
+
+import (
+	"fmt"
+
+	G "gorgonia.org/gorgonia"
+	"gorgonia.org/tensor"
+)
+
+// quern runs compiled graphs with its own executor instead of gorgonia's
+// tape machine. The tape machine locks the calling goroutine to its OS
+// thread and runs the tape on a second goroutine for every RunAll, which
+// costs two thread hand-offs per run (a third of a small model's step was
+// spent in futex wake-ups), forgets every register at Reset so that its
+// own operations allocate fresh tensors each run, and needs Read
+// instructions to copy outputs before later in-place operations clobber
+// them. The executor instead walks the graph once in topological order:
+// every node keeps its own value, operations are called through their
+// safe Do (never in place), and the operations whose preallocated form
+// is known to overwrite its destination write into a buffer of the
+// node's own that lives as long as the program.
+
+// step is one node of the program in execution order.
+type step struct {
+	node *G.Node
+	op   G.Op              // nil for inputs, parameters and bound values
+	pd   G.UsePreallocDoer // set when the node writes into buf
+	buf  G.Value
+	args []int     // positions of the node's children in Program.vals
+	in   []G.Value // scratch for the children's values
+}
+
+// overwritingPrealloc lists gorgonia operations whose UsePreallocDo
+// overwrites the whole destination (element-wise arithmetic, matrix
+// products, repeat), checked against gorgonia v0.9.18's source. Others
+// are called through Do: sliceIncrOp's UsePreallocDo, for one, adds into
+// its destination instead of overwriting it.
+var overwritingPrealloc = map[string]bool{
+	"gorgonia.elemBinOp":   true,
+	"gorgonia.linAlgBinOp": true,
+	"gorgonia.repeatOp":    true,
+	"*gorgonia.repeatOp":   true,
+}
+
+// schedule orders the nodes that the roots depend on so that children
+// come before their parents, and prepares each node's step. Nodes that no
+// root needs are left out: gorgonia's symbolic differentiation also
+// builds gradients for inputs that nothing asks for (the target of a
+// loss, for one), which the tape machine would compute every run.
+func schedule(g *G.ExprGraph, roots []*G.Node) ([]step, map[*G.Node]int, error) {
+	sorted, err := G.Sort(g)
+	if err != nil {
+		return nil, nil, fmt.Errorf("engine: sort: %w", err)
+	}
+	needed := map[*G.Node]bool{}
+	stack := append([]*G.Node(nil), roots...)
+	for len(stack) > 0 {
+		n := stack[len(stack)-1]
+		stack = stack[:len(stack)-1]
+		if n == nil || needed[n] {
+			continue
+		}
+		needed[n] = true
+		kids := g.From(n.ID())
+		for kids.Next() {
+			if c, ok := kids.Node().(*G.Node); ok && !needed[c] {
+				stack = append(stack, c)
+			}
+		}
+	}
+	// Sort puts the roots first; execution needs them last.
+	var steps []step
+	index := make(map[*G.Node]int, len(needed))
+	for i := len(sorted) - 1; i >= 0; i-- {
+		n := sorted[i]
+		if !needed[n] {
+			continue
+		}
+		index[n] = len(steps)
+		steps = append(steps, step{node: n})
+	}
+	for i := range steps {
+		s := &steps[i]
+		n := s.node
+		op := n.Op()
+		if op == nil {
+			if n.Value() == nil {
+				return nil, nil, fmt.Errorf("engine: node %v has neither an operation nor a value", n)
+			}
+			continue
+		}
+		s.op = op
+		kids := g.From(n.ID())
+		for kids.Next() {
+			c, ok := kids.Node().(*G.Node)
+			if !ok {
+				return nil, nil, fmt.Errorf("engine: node %v has a child of type %T", n, kids.Node())
+			}
+			j, ok := index[c]
+			if !ok || j >= i {
+				return nil, nil, fmt.Errorf("engine: node %v is scheduled before its child %v", n, c)
+			}
+			s.args = append(s.args, j)
+		}
+		s.in = make([]G.Value, len(s.args))
+		if pd, ok := op.(G.UsePreallocDoer); ok && overwritingPrealloc[fmt.Sprintf("%T", op)] && !n.IsScalar() {
+			dt := n.Dtype()
+			shp := n.Shape()
+			if dt == tensor.Float32 || dt == tensor.Float64 {
+				s.pd = pd
+				s.buf = tensor.New(tensor.WithShape(shp...), tensor.Of(dt))
+			}
+		}
+	}
+	return steps, index, nil
+}
+
+// execute runs every step once, leaving each node's value in vals.
+func execute(steps []step, vals []G.Value) error {
+	for i := range steps {
+		s := &steps[i]
+		if s.op == nil {
+			continue
+		}
+		for j, a := range s.args {
+			s.in[j] = vals[a]
+		}
+		var v G.Value
+		var err error
+		if s.pd != nil {
+			v, err = s.pd.UsePreallocDo(s.buf, s.in...)
+		} else {
+			v, err = s.op.Do(s.in...)
+		}
+		if err != nil {
+			return fmt.Errorf("engine: %v: %w", s.op, err)
+		}
+		vals[i] = v
+	}
+	return nil
+}
+
+// f32 returns the float32 storage of a dense value without the reflection
+// and allocation of Data, or nil for any other value.
+func f32(v G.Value) []float32 {
+	if d, ok := v.(*tensor.Dense); ok && d.Dtype() == tensor.Float32 {
+		return d.Float32s()
+	}
+	return nil
+}
+
+// f64 is f32 for float64 values.
+func f64(v G.Value) []float64 {
+	if d, ok := v.(*tensor.Dense); ok && d.Dtype() == tensor.Float64 {
+		return d.Float64s()
+	}
+	return nil
+}
