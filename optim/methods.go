@@ -253,11 +253,11 @@ func (o *Adam) Update(params []*layers.Param) error {
 func (o *Adam) k32(p *layers.Param, s *slots[float32]) {
 	w, g := p.F32(), p.Grad32()
 	if !par.Worth(len(w)) {
-		adam32(w, g, s.a, s.b, o.k)
+		adam32Fast(w, g, s.a, s.b, o.k)
 		return
 	}
 	k := o.k
-	par.For(len(w), func(lo, hi int) { adam32(w[lo:hi], g[lo:hi], s.a[lo:hi], s.b[lo:hi], k) })
+	par.For(len(w), func(lo, hi int) { adam32Fast(w[lo:hi], g[lo:hi], s.a[lo:hi], s.b[lo:hi], k) })
 }
 func (o *Adam) k64(p *layers.Param, s *slots[float64]) {
 	adamKernel(p.F64(), p.Grad64(), s.a, s.b, o.k)
