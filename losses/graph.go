@@ -60,7 +60,7 @@ const log2Pi = 1.8378770664093453 // log(2*pi)
 // diagonal Gaussian from N(0, I), summed over dimensions, averaged over rows.
 func GraphKLStdNormal(g *engine.Graph, mu, logvar *engine.Node) *engine.Node {
 	same(g, "KLStdNormal", mu, logvar)
-	return g.Scale(g.Sum(klStdElems(g, mu, logvar)), 1/float64(mu.Rows()))
+	return g.KLStdNormal(mu, logvar)
 }
 
 // GraphKLStdNormalDims is the per-dimension KL from N(0, I) averaged over

@@ -105,9 +105,10 @@ func (m *Model) Params() []*layers.Param {
 }
 
 // Reparameterise returns z = mu + exp(logvar/2) * eps, the reparameterised
-// sample through which gradients reach mu and logvar (eps is an input).
+// sample through which gradients reach mu and logvar (eps is an input),
+// as one fused operation.
 func Reparameterise(g *engine.Graph, mu, logvar, eps *engine.Node) *engine.Node {
-	return g.Add(mu, g.Mul(g.Exp(g.Scale(logvar, 0.5)), eps))
+	return g.Reparameterise(mu, logvar, eps)
 }
 
 // reconstruction builds the per-row negative log-likelihood, averaged over

@@ -832,7 +832,7 @@ func (gr *Graph) Slice(x *Node, from, to int) *Node {
 	if from < 0 || to > x.cols || from >= to {
 		return gr.fail("slice", fmt.Errorf("columns [%d,%d) of %dx%d", from, to, x.rows, x.cols))
 	}
-	n, err := G.Slice(x.n, nil, G.S(from, to))
+	n, err := G.ApplyOp(sliceColsOp{base(fmt.Sprintf("SliceCols[%d:%d]", from, to)), from, to}, x.n)
 	return gr.wrap("slice", n, err, x.rows, to-from)
 }
 

@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"github.com/quernlab/quern/internal/engine"
+	"github.com/quernlab/quern/internal/gradcheck"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/stretchr/testify/require"
@@ -20,7 +21,7 @@ func buildMixed(g *engine.Graph, enc, dec *layers.MLP, rows int) *engine.Node {
 	eps := g.Input("eps", rows, 2)
 	h := g.MLP(enc, x, false) // rows x 4: mean and log-variance
 	mu, lv := g.Slice(h, 0, 2), g.Slice(h, 2, 4)
-	z := g.Add(mu, g.Mul(g.Exp(g.Scale(lv, 0.5)), eps))
+	z := g.Add(g.Reparameterise(mu, lv, eps), g.Mul(g.Exp(g.Scale(lv, 0.5)), eps))
 	logits := g.MLP(dec, z, false)
 	loss := g.Add(losses.GraphBCEWithLogits(g, logits, g.Sigmoid(x)), losses.GraphKLStdNormal(g, mu, lv))
 	both := g.Concat(logits, g.Tanh(z))
@@ -87,4 +88,36 @@ func TestExecutorMatchesTapeMachine(t *testing.T) {
 			}
 		})
 	}
+}
+
+// The fused reparameterised sample: value and gradients with respect to
+// mu, the log-variance and eps against central differences of a float64
+// reference written out here (z = mu + exp(lv/2) eps, loss = sum c z^2
+// with fixed weights c; common practice, no source).
+func TestReparameteriseGradient(t *testing.T) {
+	const rows, cols = 3, 4
+	rng := rand.New(rand.NewPCG(9, 9))
+	newP := func(name string, scale float64) *layers.Param {
+		p := layers.NewParam(name, rows, cols, layers.Float64)
+		for i := range p.F64() {
+			p.F64()[i] = scale * rng.NormFloat64()
+		}
+		return p
+	}
+	mu, lv, eps := newP("mu", 1), newP("lv", 0.7), newP("eps", 1)
+	c := paramOf("c", rows, cols, []float64{0.3, -1.2, 0.8, 2, -0.4, 1.1, 0.9, -0.6, 1.5, 0.2, -2, 0.7})
+	ref := func() float64 {
+		var s float64
+		for i := range mu.F64() {
+			z := mu.F64()[i] + math.Exp(lv.F64()[i]/2)*eps.F64()[i]
+			s += c.F64()[i] * z * z
+		}
+		return s
+	}
+	res, err := gradcheck.Check([]*layers.Param{mu, lv, eps}, func(g *engine.Graph) *engine.Node {
+		z := g.Reparameterise(g.Param(mu), g.Param(lv), g.Param(eps))
+		return g.Sum(g.Mul(g.Param(c), g.Mul(z, z)))
+	}, ref, 1e-4)
+	require.NoError(t, err)
+	require.Less(t, res.MaxRelErr, 1e-7, res.String())
 }
