@@ -76,6 +76,48 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 	if m == 0 || n == 0 {
 		return
 	}
+	workers := runtime.GOMAXPROCS(0)
+	if m*n*k < 1<<18 {
+		workers = 1
+	}
+	panels := (n + nr - 1) / nr
+	if workers > 1 && (m+mc-1)/mc < 2*workers && panels >= 2 {
+		// Too few row blocks to share (a batch of 64 or 128 rows): give
+		// each goroutine its own range of column panels instead, packing
+		// its own part of B. Split at panel boundaries, every element of
+		// C goes through the same tiles and depth order as in one thread,
+		// so the result is bitwise the same.
+		w := min(workers, panels)
+		var wg sync.WaitGroup
+		for t := 1; t < w; t++ {
+			wg.Add(1)
+			go columnRange(&wg, t, w, panels, tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+		}
+		columnRange(nil, 0, w, panels, tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+		wg.Wait()
+		return
+	}
+	sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers)
+}
+
+// columnRange computes share t of w of C's column panels in one thread.
+func columnRange(wg *sync.WaitGroup, t, w, panels int, tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	if wg != nil {
+		defer wg.Done()
+	}
+	j0, j1 := t*panels/w*nr, min((t+1)*panels/w*nr, n)
+	if j0 >= j1 {
+		return
+	}
+	bs := b[j0:]
+	if tB == blas.Trans {
+		bs = b[j0*ldb:]
+	}
+	sgemm(tA, tB, m, j1-j0, k, alpha, a, lda, bs, ldb, beta, c[j0:], ldc, 1)
+}
+
+// sgemm is Sgemm on at most workers goroutines, sharing row blocks.
+func sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, workers int) {
 	// C = beta*C first, the kernels then add alpha*A*B; with beta 0 the
 	// first depth block overwrites C instead (no clearing pass), unless
 	// there is nothing to add.
@@ -93,10 +135,6 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 	}
 	if k == 0 || alpha == 0 {
 		return
-	}
-	workers := runtime.GOMAXPROCS(0)
-	if m*n*k < 1<<18 {
-		workers = 1
 	}
 	for jc := 0; jc < n; jc += nc {
 		nb := min(nc, n-jc)

@@ -77,15 +77,36 @@ func TestAgainstGonum(t *testing.T) {
 // their number (each C element is summed by one goroutine in one order).
 func TestWorkersGiveIdenticalResults(t *testing.T) {
 	rng := rand.New(rand.NewPCG(2, 2))
-	m, n, k := 300, 200, 150
-	a, b := randSlice(rng, m*k), randSlice(rng, k*n)
-	c1, c2 := make([]float32, m*n), make([]float32, m*n)
-	old := runtime.GOMAXPROCS(1)
-	Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, 0, c1, n)
-	runtime.GOMAXPROCS(4)
-	Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, 0, c2, n)
-	runtime.GOMAXPROCS(old)
-	require.Equal(t, c1, c2)
+	// 300 rows share row blocks; 64 and 128 rows (a batch) share column
+	// panels, n = 200 and 785 leave a partial panel
+	for _, s := range [][3]int{{300, 200, 150}, {64, 785, 512}, {128, 400, 784}, {128, 200, 300}} {
+		m, n, k := s[0], s[1], s[2]
+		for _, tA := range []blas.Transpose{blas.NoTrans, blas.Trans} {
+			for _, tB := range []blas.Transpose{blas.NoTrans, blas.Trans} {
+				a, b := randSlice(rng, m*k), randSlice(rng, k*n)
+				c0 := randSlice(rng, m*n)
+				lda, ldb := k, n
+				if tA == blas.Trans {
+					lda = m
+				}
+				if tB == blas.Trans {
+					ldb = k
+				}
+				var first []float32
+				for _, procs := range []int{1, 2, 3, 4} {
+					c := append([]float32(nil), c0...)
+					old := runtime.GOMAXPROCS(procs)
+					Sgemm(tA, tB, m, n, k, 1, a, lda, b, ldb, 0.5, c, n)
+					runtime.GOMAXPROCS(old)
+					if first == nil {
+						first = c
+						continue
+					}
+					require.Equal(t, first, c, "%dx%dx%d %c%c at %d threads", m, n, k, tA, tB, procs)
+				}
+			}
+		}
+	}
 }
 
 func BenchmarkSgemm1024(b *testing.B) {
