@@ -2,8 +2,8 @@ package engine
 
 import (
 	"fmt"
-	"math"
 	"hash"
+	"math"
 
 	"github.com/chewxy/hm"
 	"github.com/quernlab/quern/internal/par"
