@@ -36,7 +36,7 @@ func GraphBCE(g *engine.Graph, p, y *engine.Node) *engine.Node {
 // and finite for any x.
 func GraphBCEWithLogits(g *engine.Graph, x, y *engine.Node) *engine.Node {
 	same(g, "BCEWithLogits", x, y)
-	return g.Mean(BCEWithLogitsElems(g, x, y))
+	return g.Scale(g.BCEWithLogitsSum(x, y), 1/float64(max(1, x.Rows()*x.Cols())))
 }
 
 // BCEWithLogitsElems is the element-wise BCE on logits, before reduction,

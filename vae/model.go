@@ -119,7 +119,8 @@ func (m *Model) reconstruction(g *engine.Graph, out, x *engine.Node) *engine.Nod
 	var elems *engine.Node
 	switch c.Likelihood {
 	case Bernoulli:
-		elems = losses.BCEWithLogitsElems(g, out, x)
+		// one fused sum: no element-wise losses, no broadcast gradient
+		return g.Scale(g.BCEWithLogitsSum(out, x), 1/n)
 	case Gaussian:
 		sq := g.Square(g.Sub(x, out))
 		elems = g.Shift(g.Scale(sq, 0.5/c.OutputVariance), 0.5*(log2Pi+math.Log(c.OutputVariance)))

@@ -3,6 +3,7 @@ package engine_test
 import (
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"testing"
 
 	"github.com/quernlab/quern/internal/engine"
@@ -30,6 +31,7 @@ func buildMixed(g *engine.Graph, enc, dec *layers.MLP, rows int) *engine.Node {
 	loss = g.Add(loss, g.Mean(g.Square(r)))
 	loss = g.Add(loss, g.Scale(g.Sum(g.LogSoftmax(both)), -0.01))
 	loss = g.Add(loss, losses.GraphMSE(g, g.Softplus(logits), x))
+	loss = g.Add(loss, g.Scale(g.BCEWithLogitsSum(logits, g.Sigmoid(g.Neg(x))), 0.1))
 	loss = g.Add(loss, g.Mean(g.Div(g.Abs(g.Sub(x, logits)), g.Shift(g.Square(x), 1))))
 	return g.Add(loss, g.Mean(g.Log1p(g.Square(g.MatMul(g.Neg(z), g.Reshape(w, 2, 4))))))
 }
@@ -120,4 +122,71 @@ func TestReparameteriseGradient(t *testing.T) {
 	}, ref, 1e-4)
 	require.NoError(t, err)
 	require.Less(t, res.MaxRelErr, 1e-7, res.String())
+}
+
+// expNeg32 against Go's math.Exp in float64 (the reference) over the whole
+// range it serves, and zero where exp(-a) is below float32's normal range.
+func TestExpNeg32Accuracy(t *testing.T) {
+	worst := 0.0
+	for a := 0.0; a < 87.3; a += 0.00731 {
+		want := math.Exp(-a)
+		got := float64(engine.ExpNeg32(float32(a)))
+		// float32(a) differs from a; compare with exp of what was passed
+		want = math.Exp(-float64(float32(a)))
+		rel := math.Abs(got-want) / want
+		worst = max(worst, rel)
+		require.Less(t, rel, 3e-7, "a=%v: %v against %v", a, got, want)
+	}
+	t.Logf("largest relative error %.3g", worst)
+	for _, a := range []float32{87.4, 100, 1e30, float32(math.Inf(1))} {
+		require.Zero(t, engine.ExpNeg32(a), "a=%v", a)
+	}
+}
+
+// The fused BCE sum: value against the float64 reference form of package
+// losses (times the element count) in both precisions, gradient against
+// sigmoid(x) - y, and the loss bitwise the same at 1 and 3 threads on a
+// matrix big enough to be split.
+func TestBCESum(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 3))
+	for _, prec := range []layers.Precision{layers.Float32, layers.Float64} {
+		for _, shape := range [][2]int{{2, 5}, {100, 784}} {
+			r, c := shape[0], shape[1]
+			xs, ys := make([]float64, r*c), make([]float64, r*c)
+			for i := range xs {
+				xs[i] = 6 * rng.NormFloat64()
+				ys[i] = rng.Float64()
+			}
+			xs[0], xs[1] = 120, -95 // beyond expNeg32's range
+			px, py := layers.NewParam("x", r, c, prec), layers.NewParam("y", r, c, prec)
+			require.NoError(t, px.SetValues(xs))
+			require.NoError(t, py.SetValues(ys))
+			py.SetFrozen(true)
+			g := engine.NewGraph(prec)
+			prog, err := g.Compile(g.Scale(g.BCEWithLogitsSum(g.Param(px), g.Param(py)), 0.5), engine.CompileOptions{Grad: true})
+			require.NoError(t, err)
+			var losses1 []float64
+			for _, procs := range []int{1, 3} {
+				old := runtime.GOMAXPROCS(procs)
+				got, err := prog.Run(engine.RunOptions{})
+				runtime.GOMAXPROCS(old)
+				require.NoError(t, err)
+				losses1 = append(losses1, got)
+			}
+			require.Equal(t, math.Float64bits(losses1[0]), math.Float64bits(losses1[1]), "loss at 1 and 3 threads")
+			want, err := losses.BCEWithLogits(xs, ys)
+			require.NoError(t, err)
+			want *= 0.5 * float64(r*c)
+			tol := 1e-12 * want
+			if prec == layers.Float32 {
+				tol = 1e-6 * want
+			}
+			require.InDelta(t, want, losses1[0], tol, "%v %dx%d", prec, r, c)
+			for i, x := range xs {
+				s := 1 / (1 + math.Exp(-x))
+				require.InDelta(t, 0.5*(s-ys[i]), px.GradAt(i), 1e-7, "%v x=%v", prec, x)
+			}
+			require.NoError(t, prog.Close())
+		}
+	}
 }

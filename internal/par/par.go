@@ -37,3 +37,28 @@ func For(n int, f func(lo, hi int)) {
 	f(0, min(chunk, n))
 	wg.Wait()
 }
+
+// Blocks calls f(lo, hi) over [0, n) like For, but with every chunk made
+// of whole blocks of the given size (the last block may be short), so
+// that per-block partial sums come out the same whatever the number of
+// goroutines.
+func Blocks(n, block int, f func(lo, hi int)) {
+	w := runtime.GOMAXPROCS(0)
+	if n < MinWork || w < 2 || block <= 0 {
+		f(0, n)
+		return
+	}
+	nb := (n + block - 1) / block
+	w = min(w, nb)
+	per := (nb + w - 1) / w
+	var wg sync.WaitGroup
+	for b := per; b < nb; b += per {
+		wg.Add(1)
+		go func(lo, hi int) {
+			defer wg.Done()
+			f(lo, hi)
+		}(b*block, min((b+per)*block, n))
+	}
+	f(0, min(per*block, n))
+	wg.Wait()
+}

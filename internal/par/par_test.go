@@ -25,3 +25,25 @@ func TestForCoversEveryIndexOnce(t *testing.T) {
 		runtime.GOMAXPROCS(old)
 	}
 }
+
+func TestBlocksAlignsChunks(t *testing.T) {
+	for _, procs := range []int{1, 2, 3, 5} {
+		old := runtime.GOMAXPROCS(procs)
+		for _, n := range []int{0, 5, MinWork, 3*MinWork + 7} {
+			const block = 1000
+			hits := make([]int32, n)
+			Blocks(n, block, func(lo, hi int) {
+				if lo%block != 0 || (hi%block != 0 && hi != n) {
+					t.Errorf("chunk [%d,%d) is not made of whole blocks", lo, hi)
+				}
+				for i := lo; i < hi; i++ {
+					atomic.AddInt32(&hits[i], 1)
+				}
+			})
+			for i, h := range hits {
+				require.Equal(t, int32(1), h, "n=%d i=%d procs=%d", n, i, procs)
+			}
+		}
+		runtime.GOMAXPROCS(old)
+	}
+}
