@@ -60,7 +60,7 @@ func kernelGo(k int, a, b, c []float32, ldc int, overwrite bool) {
 
 var bufs = sync.Pool{New: func() any { return new(buffers) }}
 
-type buffers struct{ a, b, tile []float32 }
+type buffers struct{ a, b, tile, flat []float32 }
 
 func grow(s []float32, n int) []float32 {
 	if cap(s) < n {
@@ -80,47 +80,131 @@ func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 	if m*n*k < 1<<18 {
 		workers = 1
 	}
-	panels := (n + nr - 1) / nr
-	if workers > 1 && (m+mc-1)/mc < 2*workers && panels >= 2 {
-		// Too few row blocks to share (a batch of 64 or 128 rows): give
-		// each goroutine its own range of column panels instead, packing
-		// its own part of B. Split at panel boundaries, every element of
-		// C goes through the same tiles and depth order as in one thread,
-		// so the result is bitwise the same.
-		w := min(workers, panels)
-		var wg sync.WaitGroup
-		for t := 1; t < w; t++ {
-			wg.Add(1)
-			go columnRange(&wg, t, w, panels, tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
-		}
-		columnRange(nil, 0, w, panels, tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
-		wg.Wait()
+	if m <= flatMaxM {
+		sgemmFlat(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers)
 		return
 	}
 	sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers)
 }
 
-// columnRange computes share t of w of C's column panels in one thread.
-func columnRange(wg *sync.WaitGroup, t, w, panels int, tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+// flatMaxM is the most rows of C for which sgemmFlat packs the whole of A
+// once (up to flatMaxM x k values) and shares out column panels: a batch
+// of 64 to 512 rows makes too few row blocks to share between threads, and
+// every thread would otherwise pack A again.
+const flatMaxM = 512
+
+// sgemmFlat is Sgemm for m <= flatMaxM: A is packed whole, then the
+// column panels of C are split among the goroutines, each packing one B
+// panel at a time and running it past every panel of A. Every tile gets
+// the same packed values, depth blocks and kernel calls as in sgemm, so
+// the results are bitwise the same whatever the number of goroutines.
+func sgemmFlat(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, workers int) {
+	scaleC(m, n, k, alpha, beta, c, ldc)
+	if k == 0 || alpha == 0 {
+		return
+	}
+	mp := (m + mr - 1) / mr
+	fb := bufs.Get().(*buffers)
+	fb.flat = grow(fb.flat, mp*mr*k)
+	panels := (n + nr - 1) / nr
+	w := min(workers, panels)
+	if w <= 1 {
+		flatPackA(nil, fb.flat, 0, mp, tA, m, k, alpha, a, lda)
+	} else {
+		// pack A in parallel too, then share out the columns
+		var wg sync.WaitGroup
+		pw := min(w, mp)
+		for t := 1; t < pw; t++ {
+			wg.Add(1)
+			go flatPackA(&wg, fb.flat, t*mp/pw, (t+1)*mp/pw, tA, m, k, alpha, a, lda)
+		}
+		flatPackA(nil, fb.flat, 0, mp/pw, tA, m, k, alpha, a, lda)
+		wg.Wait()
+	}
+	if w <= 1 {
+		flatColumns(nil, fb.flat, 0, panels, m, n, k, tB, b, ldb, beta, c, ldc)
+	} else {
+		var wg sync.WaitGroup
+		for t := 1; t < w; t++ {
+			wg.Add(1)
+			go flatColumns(&wg, fb.flat, t*panels/w, (t+1)*panels/w, m, n, k, tB, b, ldb, beta, c, ldc)
+		}
+		flatColumns(nil, fb.flat, 0, panels/w, m, n, k, tB, b, ldb, beta, c, ldc)
+		wg.Wait()
+	}
+	bufs.Put(fb)
+}
+
+// flatPackA packs row panels [q0, q1) of op(A), for every depth block,
+// into the layout of sgemmFlat: depth block pc starts at pc*mp*mr.
+func flatPackA(wg *sync.WaitGroup, dst []float32, q0, q1 int, tA blas.Transpose, m, k int, alpha float32, a []float32, lda int) {
 	if wg != nil {
 		defer wg.Done()
 	}
-	j0, j1 := t*panels/w*nr, min((t+1)*panels/w*nr, n)
-	if j0 >= j1 {
+	mp := (m + mr - 1) / mr
+	if q0 >= q1 {
 		return
 	}
-	bs := b[j0:]
-	if tB == blas.Trans {
-		bs = b[j0*ldb:]
+	r0, r1 := q0*mr, min(q1*mr, m)
+	for pc := 0; pc < k; pc += kc {
+		kb := min(kc, k-pc)
+		packA(dst[pc*mp*mr+q0*kb*mr:], tA, a, lda, alpha, r0, r1-r0, pc, kb)
 	}
-	sgemm(tA, tB, m, j1-j0, k, alpha, a, lda, bs, ldb, beta, c[j0:], ldc, 1)
 }
 
-// sgemm is Sgemm on at most workers goroutines, sharing row blocks.
-func sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, workers int) {
-	// C = beta*C first, the kernels then add alpha*A*B; with beta 0 the
-	// first depth block overwrites C instead (no clearing pass), unless
-	// there is nothing to add.
+// flatColumns computes column panels [p0, p1) of C from the packed A.
+func flatColumns(wg *sync.WaitGroup, ap []float32, p0, p1, m, n, k int, tB blas.Transpose, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	if wg != nil {
+		defer wg.Done()
+	}
+	bf := bufs.Get().(*buffers)
+	bf.b = grow(bf.b, kc*nr)
+	bf.tile = grow(bf.tile, mr*nr)
+	mp := (m + mr - 1) / mr
+	for jp := p0; jp < p1; jp++ {
+		j0 := jp * nr
+		nw := min(nr, n-j0)
+		for pc := 0; pc < k; pc += kc {
+			kb := min(kc, k-pc)
+			packB(bf.b, tB, b, ldb, pc, kb, j0, nw)
+			bpan := bf.b[:kb*nr]
+			over := pc == 0 && beta == 0
+			apc := ap[pc*mp*mr:]
+			for ip := 0; ip < mp; ip++ {
+				i0 := ip * mr
+				apan := apc[ip*kb*mr : (ip+1)*kb*mr]
+				tile(kb, apan, bpan, bf.tile, c, ldc, i0, j0, min(mr, m-i0), nw, over)
+			}
+		}
+	}
+	bufs.Put(bf)
+}
+
+// tile runs the kernel for the mh x nw tile of C at (i0, j0): in place
+// when it is whole, else through the scratch tile.
+func tile(kb int, apan, bpan, scratch, c []float32, ldc, i0, j0, mh, nw int, over bool) {
+	if mh == mr && nw == nr {
+		kernel(kb, apan, bpan, c[i0*ldc+j0:], ldc, over)
+		return
+	}
+	kernel(kb, apan, bpan, scratch, nr, true)
+	for i := 0; i < mh; i++ {
+		ci := c[(i0+i)*ldc+j0 : (i0+i)*ldc+j0+nw]
+		ti := scratch[i*nr : i*nr+nw]
+		if over {
+			copy(ci, ti)
+			continue
+		}
+		for j := range ci {
+			ci[j] += ti[j]
+		}
+	}
+}
+
+// scaleC sets C = beta*C before the kernels add alpha*A*B; with beta 0
+// the first depth block overwrites C instead (no clearing pass), unless
+// there is nothing to add.
+func scaleC(m, n, k int, alpha, beta float32, c []float32, ldc int) {
 	if beta != 1 && (beta != 0 || k == 0 || alpha == 0) {
 		for i := 0; i < m; i++ {
 			row := c[i*ldc : i*ldc+n]
@@ -133,6 +217,11 @@ func sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 			}
 		}
 	}
+}
+
+// sgemm is Sgemm on at most workers goroutines, sharing row blocks.
+func sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, workers int) {
+	scaleC(m, n, k, alpha, beta, c, ldc)
 	if k == 0 || alpha == 0 {
 		return
 	}
