@@ -27,9 +27,10 @@ type opBase struct {
 }
 
 type outCache struct {
-	t   *tensor.Dense
-	s32 *G.F32
-	s64 *G.F64
+	t    *tensor.Dense
+	part []float64 // partial sums of a reduction
+	s32  *G.F32
+	s64  *G.F64
 }
 
 // scalar32 returns v in the node's own scalar value.

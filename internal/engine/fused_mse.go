@@ -3,6 +3,8 @@ package engine
 import (
 	"fmt"
 
+	"github.com/quernlab/quern/internal/par"
+
 	"github.com/chewxy/hm"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
@@ -55,7 +57,7 @@ func (op mseOp) Do(in ...G.Value) (G.Value, error) {
 	switch x[0].Dtype() {
 	case tensor.Float32:
 		ps := f32(x[0])
-		return op.scalar32(float32(sqErr(ps, f32(x[1])) / float64(len(ps)))), nil
+		return op.scalar32(float32(op.sqErrBlocks32(ps, f32(x[1])) / float64(len(ps)))), nil
 	case tensor.Float64:
 		ps := f64(x[0])
 		return op.scalar64(sqErr(ps, f64(x[1])) / float64(len(ps))), nil
@@ -64,6 +66,57 @@ func (op mseOp) Do(in ...G.Value) (G.Value, error) {
 }
 
 // sqErr sums (p - t)^2 in float64.
+// sqErrBlocks32 is sqErr for float32 in blocks of bceBlock elements, each
+// summed with four float64 accumulators (a single running sum is one long
+// chain of dependent additions), the block sums added in order: the same
+// value whatever the number of goroutines.
+func (op mseOp) sqErrBlocks32(p, t []float32) float64 {
+	n := len(p)
+	nb := (n + bceBlock - 1) / bceBlock
+	c := op.cache
+	if c == nil {
+		c = &outCache{}
+	}
+	if cap(c.part) < nb {
+		c.part = make([]float64, nb)
+	}
+	part := c.part[:nb]
+	if par.Worth(n) {
+		par.Blocks(n, bceBlock, func(lo, hi int) { sqErrRange(part, p, t, lo, hi) })
+	} else {
+		sqErrRange(part, p, t, 0, n)
+	}
+	var s float64
+	for _, v := range part {
+		s += v
+	}
+	return s
+}
+
+func sqErrRange(part []float64, p, t []float32, lo, hi int) {
+	for b := lo; b < hi; b += bceBlock {
+		ps := p[b:min(b+bceBlock, hi)]
+		ts := t[b : b+len(ps)]
+		var s0, s1, s2, s3 float64
+		i := 0
+		for ; i+4 <= len(ps); i += 4 {
+			d0 := float64(ps[i]) - float64(ts[i])
+			d1 := float64(ps[i+1]) - float64(ts[i+1])
+			d2 := float64(ps[i+2]) - float64(ts[i+2])
+			d3 := float64(ps[i+3]) - float64(ts[i+3])
+			s0 += d0 * d0
+			s1 += d1 * d1
+			s2 += d2 * d2
+			s3 += d3 * d3
+		}
+		for ; i < len(ps); i++ {
+			d := float64(ps[i]) - float64(ts[i])
+			s0 += d * d
+		}
+		part[b/bceBlock] = (s0 + s1) + (s2 + s3)
+	}
+}
+
 func sqErr[T float32 | float64](p, t []T) float64 {
 	t = t[:len(p)]
 	var s float64
@@ -108,7 +161,12 @@ func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		if !ok {
 			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2])
 		}
-		mseGrad(f32(out), ps, f32(x[1]), 2*float32(*g)/float32(len(ps)))
+		o, ts, k := f32(out), f32(x[1]), 2*float32(*g)/float32(len(ps))
+		if par.Worth(len(ps)) {
+			par.For(len(ps), func(lo, hi int) { mseGrad(o[lo:hi], ps[lo:hi], ts[lo:hi], k) })
+		} else {
+			mseGrad(o, ps, ts, k)
+		}
 	case tensor.Float64:
 		ps := f64(x[0])
 		g, ok := in[2].(*G.F64)

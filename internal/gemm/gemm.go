@@ -311,6 +311,20 @@ func block(bf *buffers, tA blas.Transpose, a []float32, lda int, alpha float32, 
 func packA(dst []float32, tA blas.Transpose, a []float32, lda int, alpha float32, ic, mb, pc, kb int) {
 	for ip := 0; ip*mr < mb; ip++ {
 		pan := dst[ip*kb*mr : (ip+1)*kb*mr]
+		rows := min(mr, mb-ip*mr)
+		if tA == blas.Trans && rows == mr {
+			// op(A) = A^T: the panel's mr values at depth p are
+			// consecutive in row pc+p of A
+			r0 := ic + ip*mr
+			for p := 0; p < kb; p++ {
+				src := a[(pc+p)*lda+r0 : (pc+p)*lda+r0+mr]
+				d := pan[p*mr : p*mr+mr]
+				for i, v := range src {
+					d[i] = alpha * v
+				}
+			}
+			continue
+		}
 		for i := 0; i < mr; i++ {
 			r := ip*mr + i
 			if r >= mb {
