@@ -161,11 +161,13 @@ func flatColumns(wg *sync.WaitGroup, ap []float32, p0, p1, m, n, k int, tB blas.
 	bf.b = grow(bf.b, kc*nr)
 	bf.tile = grow(bf.tile, mr*nr)
 	mp := (m + mr - 1) / mr
-	for jp := p0; jp < p1; jp++ {
-		j0 := jp * nr
-		nw := min(nr, n-j0)
-		for pc := 0; pc < k; pc += kc {
-			kb := min(kc, k-pc)
+	// depth blocks outermost: the packed A of one block (at most
+	// flatMaxM x kc values) stays in cache across this goroutine's panels
+	for pc := 0; pc < k; pc += kc {
+		kb := min(kc, k-pc)
+		for jp := p0; jp < p1; jp++ {
+			j0 := jp * nr
+			nw := min(nr, n-j0)
 			packB(bf.b, tB, b, ldb, pc, kb, j0, nw)
 			bpan := bf.b[:kb*nr]
 			over := pc == 0 && beta == 0
@@ -353,16 +355,24 @@ func packB(dst []float32, tB blas.Transpose, b []float32, ldb, pc, kb, jc, nb in
 		pan := dst[jp*kb*nr : (jp+1)*kb*nr]
 		j0 := jc + jp*nr
 		w := min(nr, nb-jp*nr)
-		for p := 0; p < kb; p++ {
-			row := pan[p*nr : p*nr+nr]
-			if tB == blas.NoTrans {
+		if tB == blas.NoTrans {
+			for p := 0; p < kb; p++ {
+				row := pan[p*nr : p*nr+nr]
 				copy(row[:w], b[(pc+p)*ldb+j0:(pc+p)*ldb+j0+w])
-			} else {
-				for j := 0; j < w; j++ {
-					row[j] = b[(j0+j)*ldb+pc+p]
-				}
+				clear(row[w:])
 			}
-			clear(row[w:])
+			continue
+		}
+		// op(B) = B^T: column j of the panel is row j0+j of B, read
+		// in order
+		if w < nr {
+			clear(pan)
+		}
+		for j := 0; j < w; j++ {
+			src := b[(j0+j)*ldb+pc : (j0+j)*ldb+pc+kb]
+			for p, v := range src {
+				pan[p*nr+j] = v
+			}
 		}
 	}
 }
