@@ -327,14 +327,30 @@ func (gr *Graph) Sqrt(x *Node) *Node { return gr.unary("sqrt", x, G.Sqrt) }
 // Abs is |x|.
 func (gr *Graph) Abs(x *Node) *Node { return gr.unary("abs", x, G.Abs) }
 
-// Tanh is the hyperbolic tangent.
-func (gr *Graph) Tanh(x *Node) *Node { return gr.unary("tanh", x, G.Tanh) }
+// Tanh is the hyperbolic tangent, one fused operation for matrices.
+func (gr *Graph) Tanh(x *Node) *Node {
+	if x != nil && x.IsScalar() {
+		return gr.unary("tanh", x, G.Tanh)
+	}
+	return gr.squash(x, squashTanh)
+}
 
-// Sigmoid is 1/(1+exp(-x)).
-func (gr *Graph) Sigmoid(x *Node) *Node { return gr.unary("sigmoid", x, G.Sigmoid) }
+// Sigmoid is 1/(1+exp(-x)), one fused operation for matrices.
+func (gr *Graph) Sigmoid(x *Node) *Node {
+	if x != nil && x.IsScalar() {
+		return gr.unary("sigmoid", x, G.Sigmoid)
+	}
+	return gr.squash(x, squashSigmoid)
+}
 
-// Softplus is log(1+exp(x)), stable for large |x|.
-func (gr *Graph) Softplus(x *Node) *Node { return gr.unary("softplus", x, G.Softplus) }
+// Softplus is log(1+exp(x)), stable for large |x|, one fused operation
+// for matrices.
+func (gr *Graph) Softplus(x *Node) *Node {
+	if x != nil && x.IsScalar() {
+		return gr.unary("softplus", x, G.Softplus)
+	}
+	return gr.squash(x, squashSoftplus)
+}
 
 // ReLU is max(0, x), one fused operation (gorgonia's Rectify is a
 // comparison and a product).

@@ -190,3 +190,48 @@ func TestBCESum(t *testing.T) {
 		}
 	}
 }
+
+// The fused tanh, sigmoid and softplus in float32: values against Go's
+// float64 math (the reference) and gradients against their closed forms,
+// 1 - tanh^2, s (1 - s) and s, across saturation.
+func TestFusedSquashFloat32(t *testing.T) {
+	var xs []float64
+	for x := -30.0; x <= 30; x += 0.37 {
+		xs = append(xs, x)
+	}
+	xs = append(xs, 0, 1e-6, -1e-6, 95, -95)
+	for _, kind := range []string{"tanh", "sigmoid", "softplus"} {
+		px := layers.NewParam("x", 1, len(xs), layers.Float32)
+		require.NoError(t, px.SetValues(xs))
+		g := engine.NewGraph(layers.Float32)
+		x := g.Param(px)
+		y := g.Tanh(x)
+		switch kind {
+		case "sigmoid":
+			y = g.Sigmoid(x)
+		case "softplus":
+			y = g.Softplus(x)
+		}
+		prog, err := g.Compile(g.Sum(y), engine.CompileOptions{Grad: true, Outputs: []*engine.Node{y}})
+		require.NoError(t, err)
+		_, err = prog.Run(engine.RunOptions{})
+		require.NoError(t, err)
+		for i, v := range xs {
+			want := math.Tanh(float64(float32(v)))
+			dwant := 1 - want*want
+			switch kind {
+			case "sigmoid":
+				want = 1 / (1 + math.Exp(-float64(float32(v))))
+				dwant = want * (1 - want)
+			case "softplus":
+				x := float64(float32(v))
+				want = math.Max(x, 0) + math.Log1p(math.Exp(-math.Abs(x)))
+				dwant = 1 / (1 + math.Exp(-x))
+			}
+			got := float64(prog.Output32(0)[i])
+			require.InDelta(t, want, got, 1e-7+2e-7*math.Abs(want), "%s(%v)", kind, v)
+			require.InDelta(t, dwant, px.GradAt(i), 2e-7, "%s'(%v)", kind, v)
+		}
+		require.NoError(t, prog.Close())
+	}
+}

@@ -140,7 +140,7 @@ func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Valu
 // log(1+e) = 2 atanh(s) = 2 (s + s^3/3 + s^5/5 + ...); seven terms leave a
 // truncation error below 1e-8, under float32's own rounding.
 func log1pExpNeg32(a float32) float32 {
-	e := math32.Exp(-a)
+	e := expNeg32(a)
 	s := e / (2 + e)
 	s2 := s * s
 	return 2 * s * (1 + s2*(1.0/3+s2*(1.0/5+s2*(1.0/7+s2*(1.0/9+s2*(1.0/11+s2*(1.0/13)))))))
