@@ -235,3 +235,24 @@ func TestFusedSquashFloat32(t *testing.T) {
 		require.NoError(t, prog.Close())
 	}
 }
+
+// tanh32 against Go's math.Tanh in float64 (the reference), densely across
+// the switch from the series to the exponential form at |x| = 0.35.
+func TestTanh32Accuracy(t *testing.T) {
+	worst := 0.0
+	for x := -12.0; x <= 12; x += 0.000731 {
+		x32 := float32(x)
+		want := math.Tanh(float64(x32))
+		got := float64(engine.Tanh32(x32))
+		if want == 0 {
+			require.Zero(t, got)
+			continue
+		}
+		rel := math.Abs(got-want) / math.Abs(want)
+		worst = max(worst, rel)
+		require.Less(t, rel, 2.5e-7, "x=%v: %v against %v", x32, got, want)
+	}
+	t.Logf("largest relative error %.3g", worst)
+	require.Equal(t, float32(1), engine.Tanh32(float32(math.Inf(1))))
+	require.Equal(t, float32(-1), engine.Tanh32(-100))
+}

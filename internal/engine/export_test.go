@@ -35,3 +35,6 @@ func TapeRun(p *Program) (float64, [][]float64, error) {
 
 // ExpNeg32 exposes expNeg32 to the tests.
 var ExpNeg32 = expNeg32
+
+// Tanh32 exposes tanh32 to the tests.
+var Tanh32 = tanh32
