@@ -508,6 +508,8 @@ type Program struct {
 	out64  [][]float64
 	params []*layers.Param
 	grads  []int
+	direct []bool // gradient i is written into its parameter's buffer
+	saved  [][]float64
 	inputs map[string]*inputSlot
 	prec   layers.Precision
 	closed bool
@@ -589,12 +591,23 @@ func (gr *Graph) Compile(loss *Node, opt CompileOptions) (*Program, error) {
 		}
 	}
 	p.loss = index[loss.n]
+	uses := map[int]int{}
 	for i, gn := range gradNodes {
 		j, ok := index[gn]
 		if !ok || gn == nil {
 			return nil, fmt.Errorf("engine: %q: %w", p.params[i].Name(), ErrNoGradient)
 		}
 		p.grads = append(p.grads, j)
+		uses[j]++
+	}
+	// Gradients are written straight into the parameters' gradient
+	// buffers where the operation allows it (no copy after the run),
+	// unless one node is the gradient of two parameters.
+	p.direct = make([]bool, len(p.grads))
+	for i, j := range p.grads {
+		if uses[j] == 1 {
+			p.direct[i] = writeInto(p.steps, j, gradTensor(p.params[i]))
+		}
 	}
 	for _, o := range opt.Outputs {
 		p.outIdx = append(p.outIdx, index[o.n])
@@ -653,6 +666,9 @@ func (p *Program) Run(opt RunOptions) (float64, error) {
 	if p.closed {
 		return 0, errors.New("engine: run on a closed program")
 	}
+	if opt.Accumulate {
+		p.saveDirect()
+	}
 	if err := execute(p.steps, p.vals); err != nil {
 		return 0, fmt.Errorf("engine: run: %w", err)
 	}
@@ -667,6 +683,15 @@ func (p *Program) Run(opt RunOptions) (float64, error) {
 		gv := p.vals[p.grads[i]]
 		if gv == nil {
 			return loss, fmt.Errorf("engine: %q: %w", q.Name(), ErrNoGradient)
+		}
+		if p.direct[i] {
+			if err := checkGrad(q); err != nil {
+				return loss, err
+			}
+			if opt.Accumulate {
+				p.addSaved(i, q)
+			}
+			continue
 		}
 		if err := copyGrad(q, gv, opt.Accumulate); err != nil {
 			return loss, err
@@ -737,6 +762,68 @@ func scalarOf(v G.Value) (float64, error) {
 		}
 	}
 	return 0, fmt.Errorf("engine: loss value %T is not a scalar", v.Data())
+}
+
+// gradTensor wraps q's gradient buffer.
+func gradTensor(q *layers.Param) *tensor.Dense {
+	r, c := q.Shape()
+	if q.Precision() == layers.Float64 {
+		return tensor.New(tensor.WithShape(r, c), tensor.WithBacking(q.Grad64()))
+	}
+	return tensor.New(tensor.WithShape(r, c), tensor.WithBacking(q.Grad32()))
+}
+
+// saveDirect keeps the gradients that the run is about to overwrite in
+// place, for Accumulate.
+func (p *Program) saveDirect() {
+	if p.saved == nil {
+		p.saved = make([][]float64, len(p.params))
+	}
+	for i, q := range p.params {
+		if !p.direct[i] {
+			continue
+		}
+		n := q.Len()
+		if cap(p.saved[i]) < n {
+			p.saved[i] = make([]float64, n)
+		}
+		s := p.saved[i][:n]
+		for j := range s {
+			s[j] = q.GradAt(j)
+		}
+		p.saved[i] = s
+	}
+}
+
+// addSaved adds the gradients kept by saveDirect back in.
+func (p *Program) addSaved(i int, q *layers.Param) {
+	if q.Precision() == layers.Float64 {
+		for j, v := range p.saved[i] {
+			q.Grad64()[j] += v
+		}
+		return
+	}
+	for j, v := range p.saved[i] {
+		q.Grad32()[j] += float32(v)
+	}
+}
+
+// checkGrad reports a NaN or infinite value in q's gradient.
+func checkGrad(q *layers.Param) error {
+	if q.Precision() == layers.Float64 {
+		for i, v := range q.Grad64() {
+			if v-v != 0 {
+				return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
+			}
+		}
+		return nil
+	}
+	for i, v := range q.Grad32() {
+		if v-v != 0 {
+			return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
+		}
+	}
+	return nil
 }
 
 func copyGrad(q *layers.Param, gv G.Value, acc bool) error {

@@ -115,6 +115,31 @@ func schedule(g *G.ExprGraph, roots []*G.Node) ([]step, map[*G.Node]int, error) 
 	return steps, index, nil
 }
 
+// ownsBuffer marks quern's fused operations, whose UsePreallocDo writes
+// the whole of a preallocated destination of the right type and shape.
+type ownsBuffer interface{ quernOp() }
+
+func (opBase) quernOp() {}
+
+// writeInto makes step i write its result straight into t (a parameter's
+// gradient buffer of the node's shape) when the operation is known to
+// overwrite its destination; it reports whether it did.
+func writeInto(steps []step, i int, t *tensor.Dense) bool {
+	s := &steps[i]
+	if s.op == nil || !s.node.Shape().Eq(t.Shape()) || s.node.Dtype() != t.Dtype() {
+		return false
+	}
+	pd, ok := s.op.(G.UsePreallocDoer)
+	if !ok {
+		return false
+	}
+	if _, ours := s.op.(ownsBuffer); !ours && !overwritingPrealloc[fmt.Sprintf("%T", s.op)] {
+		return false
+	}
+	s.pd, s.buf = pd, t
+	return true
+}
+
 // execute runs every step once, leaving each node's value in vals.
 func execute(steps []step, vals []G.Value) error {
 	for i := range steps {
