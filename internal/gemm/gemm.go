@@ -314,6 +314,26 @@ func packA(dst []float32, tA blas.Transpose, a []float32, lda int, alpha float32
 	for ip := 0; ip*mr < mb; ip++ {
 		pan := dst[ip*kb*mr : (ip+1)*kb*mr]
 		rows := min(mr, mb-ip*mr)
+		if tA == blas.NoTrans && rows == mr {
+			// six rows read side by side, the panel written in order
+			base := (ic+ip*mr)*lda + pc
+			r0 := a[base : base+kb]
+			r1 := a[base+lda : base+lda+kb]
+			r2 := a[base+2*lda : base+2*lda+kb]
+			r3 := a[base+3*lda : base+3*lda+kb]
+			r4 := a[base+4*lda : base+4*lda+kb]
+			r5 := a[base+5*lda : base+5*lda+kb]
+			for p, v := range r0 {
+				d := pan[p*mr : p*mr+mr : p*mr+mr]
+				d[0] = alpha * v
+				d[1] = alpha * r1[p]
+				d[2] = alpha * r2[p]
+				d[3] = alpha * r3[p]
+				d[4] = alpha * r4[p]
+				d[5] = alpha * r5[p]
+			}
+			continue
+		}
 		if tA == blas.Trans && rows == mr {
 			// op(A) = A^T: the panel's mr values at depth p are
 			// consecutive in row pc+p of A
