@@ -376,6 +376,13 @@ func packB(dst []float32, tB blas.Transpose, b []float32, ldb, pc, kb, jc, nb in
 		j0 := jc + jp*nr
 		w := min(nr, nb-jp*nr)
 		if tB == blas.NoTrans {
+			if w == nr {
+				for p := 0; p < kb; p++ {
+					o := (pc+p)*ldb + j0
+					*(*[nr]float32)(pan[p*nr:]) = *(*[nr]float32)(b[o : o+nr])
+				}
+				continue
+			}
 			for p := 0; p < kb; p++ {
 				row := pan[p*nr : p*nr+nr]
 				copy(row[:w], b[(pc+p)*ldb+j0:(pc+p)*ldb+j0+w])
