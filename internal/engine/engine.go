@@ -33,7 +33,9 @@ import (
 	"fmt"
 	"math"
 	"sync"
+	"sync/atomic"
 
+	"github.com/quernlab/quern/internal/par"
 	"github.com/quernlab/quern/layers"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
@@ -818,12 +820,34 @@ func checkGrad(q *layers.Param) error {
 		}
 		return nil
 	}
-	for i, v := range q.Grad32() {
-		if v-v != 0 {
-			return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
+	g := q.Grad32()
+	if !par.Worth(len(g)) {
+		if i := firstNonFinite(g); i >= 0 {
+			return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), g[i], i, ErrNonFinite)
 		}
+		return nil
+	}
+	var bad atomic.Bool
+	par.For(len(g), func(lo, hi int) {
+		if firstNonFinite(g[lo:hi]) >= 0 {
+			bad.Store(true)
+		}
+	})
+	if bad.Load() {
+		i := firstNonFinite(g)
+		return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), g[i], i, ErrNonFinite)
 	}
 	return nil
+}
+
+// firstNonFinite is the index of the first NaN or infinity in g, or -1.
+func firstNonFinite(g []float32) int {
+	for i, v := range g {
+		if v-v != 0 {
+			return i
+		}
+	}
+	return -1
 }
 
 func copyGrad(q *layers.Param, gv G.Value, acc bool) error {

@@ -166,7 +166,13 @@ func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	switch out.Dtype() {
 	case tensor.Float32:
 		o := f32(out)
-		addRows(o, f32(t[2])[:m], n)
+		b := f32(t[2])[:m]
+		if par.Worth(len(o)) {
+			// whole rows to each goroutine
+			par.Blocks(len(o), m, func(lo, hi int) { addRows(o[lo:hi], b, (hi-lo)/m) })
+		} else {
+			addRows(o, b, n)
+		}
 	case tensor.Float64:
 		o := f64(out)
 		addRows(o, f64(t[2])[:m], n)
@@ -255,7 +261,13 @@ func (op affineGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) 
 	switch out.Dtype() {
 	case tensor.Float32:
 		o := f32(out)
-		colSums(o, f32(t[0]), n)
+		g := f32(t[0])
+		if par.Worth(len(g)) && m >= 2*nr32 {
+			// column ranges to each goroutine: every sum keeps its order
+			par.Spread(m/nr32, func(lo, hi int) { colSumRange(o, g, n, m, lo*nr32, hi*nr32, hi == m/nr32) })
+		} else {
+			colSums(o, g, n)
+		}
 	case tensor.Float64:
 		o := f64(out)
 		colSums(o, f64(t[0]), n)
@@ -361,6 +373,25 @@ func addRows[T float32 | float64](o, b []T, rows int) {
 		row := o[r*m : r*m+m]
 		for j, v := range b {
 			row[j] += v
+		}
+	}
+}
+
+// nr32 is the width of the column ranges colSumRange is given.
+const nr32 = 64
+
+// colSumRange is colSums for columns [c0, c1) of the m-column matrix g
+// (through column m when last is set).
+func colSumRange(o, g []float32, rows, m, c0, c1 int, last bool) {
+	if last {
+		c1 = m
+	}
+	clear(o[c0:c1])
+	for r := 0; r < rows; r++ {
+		row := g[r*m+c0 : r*m+c1]
+		oc := o[c0:c1]
+		for j, v := range row {
+			oc[j] += v
 		}
 	}
 }

@@ -62,3 +62,24 @@ func Blocks(n, block int, f func(lo, hi int)) {
 	f(0, min(per*block, n))
 	wg.Wait()
 }
+
+// Spread calls f(lo, hi) over [0, n) in one contiguous chunk per
+// processor (at most n chunks), concurrently; callers decide with Worth
+// whether the work behind the n items is worth it.
+func Spread(n int, f func(lo, hi int)) {
+	w := min(runtime.GOMAXPROCS(0), n)
+	if w < 2 {
+		f(0, n)
+		return
+	}
+	var wg sync.WaitGroup
+	for t := 1; t < w; t++ {
+		wg.Add(1)
+		go func(lo, hi int) {
+			defer wg.Done()
+			f(lo, hi)
+		}(t*n/w, (t+1)*n/w)
+	}
+	f(0, n/w)
+	wg.Wait()
+}

@@ -47,3 +47,21 @@ func TestBlocksAlignsChunks(t *testing.T) {
 		runtime.GOMAXPROCS(old)
 	}
 }
+
+func TestSpreadCoversEveryIndexOnce(t *testing.T) {
+	for _, procs := range []int{1, 2, 3} {
+		old := runtime.GOMAXPROCS(procs)
+		for _, n := range []int{0, 1, 2, 7, 100} {
+			hits := make([]int32, n)
+			Spread(n, func(lo, hi int) {
+				for i := lo; i < hi; i++ {
+					atomic.AddInt32(&hits[i], 1)
+				}
+			})
+			for i, h := range hits {
+				require.Equal(t, int32(1), h, "n=%d i=%d procs=%d", n, i, procs)
+			}
+		}
+		runtime.GOMAXPROCS(old)
+	}
+}
