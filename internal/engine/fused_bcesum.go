@@ -109,8 +109,10 @@ func bceSumBlocks32(part []float64, d, xs, ys []float32, lo, hi int) {
 		end := min(b+bceBlock, hi)
 		x, y, dd := xs[b:end], ys[b:end], d[b:end]
 		y, dd = y[:len(x)], dd[:len(x)]
+		// the vector kernel where the CPU has one, then the rest here
+		acc, done := bceBlockFast(dd, x, y)
+		x, y, dd = x[done:], y[done:], dd[done:]
 		var s float32
-		var acc float64
 		for i, v := range x {
 			bits := math.Float32bits(v)
 			a := math.Float32frombits(bits &^ (1 << 31)) // |v|

@@ -1,0 +1,42 @@
+//go:build amd64 && !purego
+
+package engine
+
+import (
+	"math"
+
+	"golang.org/x/sys/cpu"
+)
+
+//go:noescape
+func bceAVX(xp, yp, dp *float32, n int, c *[20][8]float32) float64
+
+var haveBCEAVX = cpu.X86.HasAVX2 && cpu.X86.HasFMA
+
+// bceTable holds bceAVX's constants, each repeated in eight lanes.
+var bceTable = func() (t [20][8]float32) {
+	vals := [20]float32{
+		math.Float32frombits(0x7fffffff), 87.3, 1.44269504088896341, 0.693359375, -2.12194440e-4,
+		1.0 / 5040, 1.0 / 720, 1.0 / 120, 1.0 / 24, 1.0 / 6, 1.0 / 2, 1,
+		math.Float32frombits(127), 2,
+		1.0 / 13, 1.0 / 11, 1.0 / 9, 1.0 / 7, 1.0 / 5, 1.0 / 3,
+	}
+	for i, v := range vals {
+		for j := range t[i] {
+			t[i][j] = v
+		}
+	}
+	return
+}()
+
+// bceBlockFast is the vector form of one block of bceSumBlocks32 for
+// its largest multiple of 8 elements; it returns that part's loss sum and
+// the count handled (0 when the CPU lacks AVX2 and FMA).
+func bceBlockFast(d, x, y []float32) (float64, int) {
+	n := len(x) &^ 7
+	if !haveBCEAVX || n == 0 {
+		return 0, 0
+	}
+	_, _ = y[n-1], d[n-1]
+	return bceAVX(&x[0], &y[0], &d[0], n, &bceTable), n
+}

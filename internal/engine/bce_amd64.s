@@ -1,0 +1,86 @@
+//go:build amd64 && !purego
+
+#include "textflag.h"
+
+// func bceAVX(xp, yp, dp *float32, n int, c *[20][8]float32) float64
+// For i < n (a multiple of 8): with a = min(|x|, 87.3) and e = exp(-a),
+// the sum of max(x,0) - x y + log1p(e) (returned, summed in float64) and
+// d = sigmoid(x) - y (stored); the same method as bceSumBlocks32, eight
+// lanes at a time with fused multiply-adds.
+TEXT ·bceAVX(SB), NOSPLIT, $0-48
+	MOVQ xp+0(FP), SI
+	MOVQ yp+8(FP), DI
+	MOVQ dp+16(FP), DX
+	MOVQ n+24(FP), CX
+	MOVQ c+32(FP), AX
+	VXORPD Y14, Y14, Y14
+	VXORPD Y15, Y15, Y15
+	XORQ BX, BX
+
+loop:
+	CMPQ BX, CX
+	JGE  done
+	VMOVUPS (SI)(BX*4), Y0      // x
+	VMOVUPS (DI)(BX*4), Y1      // y
+	VANDPS  0(AX), Y0, Y2       // a = |x|
+	VMINPS  32(AX), Y2, Y2      // a = min(a, 87.3)
+	VMULPS  64(AX), Y2, Y3      // a log2(e)
+	VROUNDPS $0, Y3, Y3         // k, nearest
+	VMULPS  96(AX), Y3, Y4      // k ln2hi
+	VSUBPS  Y2, Y4, Y4          // k ln2hi - a
+	VFMADD231PS 128(AX), Y3, Y4 // r = k ln2hi - a + k ln2lo
+	VMOVUPS 160(AX), Y5         // 1/5040
+	VFMADD213PS 192(AX), Y4, Y5 // r p + 1/720
+	VFMADD213PS 224(AX), Y4, Y5 // + 1/120
+	VFMADD213PS 256(AX), Y4, Y5 // + 1/24
+	VFMADD213PS 288(AX), Y4, Y5 // + 1/6
+	VFMADD213PS 320(AX), Y4, Y5 // + 1/2
+	VFMADD213PS 352(AX), Y4, Y5 // + 1
+	VFMADD213PS 352(AX), Y4, Y5 // + 1: exp(r)
+	VCVTPS2DQ Y3, Y3            // k as int32
+	VMOVDQU 384(AX), Y6         // 127
+	VPSUBD  Y3, Y6, Y6          // 127 - k
+	VPSLLD  $23, Y6, Y6         // 2^-k
+	VMULPS  Y6, Y5, Y5          // e = exp(-a)
+
+	VADDPS  416(AX), Y5, Y6     // 2 + e
+	VDIVPS  Y6, Y5, Y6          // t = e/(2+e)
+	VMULPS  Y6, Y6, Y7          // t^2
+	VMOVUPS 448(AX), Y8         // 1/13
+	VFMADD213PS 480(AX), Y7, Y8 // + 1/11
+	VFMADD213PS 512(AX), Y7, Y8 // + 1/9
+	VFMADD213PS 544(AX), Y7, Y8 // + 1/7
+	VFMADD213PS 576(AX), Y7, Y8 // + 1/5
+	VFMADD213PS 608(AX), Y7, Y8 // + 1/3
+	VFMADD213PS 352(AX), Y7, Y8 // + 1
+	VADDPS  Y6, Y6, Y6          // 2t
+	VMULPS  Y8, Y6, Y8          // log1p(e) = 2 atanh(t)
+
+	VXORPS  Y9, Y9, Y9
+	VMAXPS  Y9, Y0, Y10         // max(x, 0)
+	VMULPS  Y1, Y0, Y11         // x y
+	VSUBPS  Y11, Y10, Y10
+	VADDPS  Y8, Y10, Y10        // the eight losses
+	VCVTPS2PD X10, Y12
+	VADDPD  Y12, Y14, Y14
+	VEXTRACTF128 $1, Y10, X11
+	VCVTPS2PD X11, Y12
+	VADDPD  Y12, Y15, Y15
+
+	VADDPS  352(AX), Y5, Y6     // 1 + e
+	VMOVUPS 352(AX), Y7         // 1
+	VBLENDVPS Y0, Y5, Y7, Y7    // e where x < 0, else 1
+	VDIVPS  Y6, Y7, Y7          // sigmoid(x)
+	VSUBPS  Y1, Y7, Y7          // - y
+	VMOVUPS Y7, (DX)(BX*4)
+	ADDQ    $8, BX
+	JMP     loop
+
+done:
+	VADDPD  Y15, Y14, Y14
+	VEXTRACTF128 $1, Y14, X15
+	VADDPD  X15, X14, X14
+	VHADDPD X14, X14, X14
+	VMOVSD  X14, ret+40(FP)
+	VZEROUPPER
+	RET
