@@ -30,8 +30,12 @@ def mlp(widths, act, out_act=None):
     return torch.nn.Sequential(*layers)
 
 
-def flops(widths):
-    return sum(6 * widths[i] * widths[i + 1] for i in range(len(widths) - 1))
+def flops(widths, data_input=True):
+    # 2 per weight forward, 2 for its gradient, 2 for the gradient of the
+    # layer's input: not needed (nor computed, on either side) for a first
+    # layer fed with data
+    f = sum(6 * widths[i] * widths[i + 1] for i in range(len(widths) - 1))
+    return f - 2 * widths[0] * widths[1] if data_input else f
 
 
 def timed(name, step, batch, fl, steps):
@@ -61,7 +65,7 @@ def vae_step():
     opt.step()
 
 
-timed("vae784", vae_step, 128, flops([784, 400, 40]) + flops([20, 400, 784]), 40)
+timed("vae784", vae_step, 128, flops([784, 400, 40]) + flops([20, 400, 784], False), 40)
 
 # AE 784-128-32-128-784, MSE, batch 256
 ae = mlp([784, 128, 32, 128, 784], torch.nn.ReLU)

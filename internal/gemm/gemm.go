@@ -28,6 +28,15 @@ const (
 // kernel when the CPU allows, else kernelGo.
 var kernel = kernelGo
 
+// kernelPair, when not nil, computes the 6 x 32 tile of two adjacent
+// full B panels in one pass (AVX-512), with the same arithmetic per
+// element as kernel.
+var kernelPair func(k int, a, b0, b1, c []float32, ldc int, overwrite bool)
+
+// UsingAVX512 reports whether the AVX-512 kernel for pairs of panels is
+// in use.
+func UsingAVX512() bool { return kernelPair != nil }
+
 // UsingAssembly reports whether the AVX2/FMA kernel is in use.
 func UsingAssembly() bool { return useAsm }
 
@@ -158,20 +167,37 @@ func flatColumns(wg *sync.WaitGroup, ap []float32, p0, p1, m, n, k int, tB blas.
 		defer wg.Done()
 	}
 	bf := bufs.Get().(*buffers)
-	bf.b = grow(bf.b, kc*nr)
+	bf.b = grow(bf.b, 2*kc*nr)
 	bf.tile = grow(bf.tile, mr*nr)
 	mp := (m + mr - 1) / mr
 	// depth blocks outermost: the packed A of one block (at most
 	// flatMaxM x kc values) stays in cache across this goroutine's panels
 	for pc := 0; pc < k; pc += kc {
 		kb := min(kc, k-pc)
+		over := pc == 0 && beta == 0
+		apc := ap[pc*mp*mr:]
 		for jp := p0; jp < p1; jp++ {
 			j0 := jp * nr
 			nw := min(nr, n-j0)
+			if kernelPair != nil && jp+1 < p1 && j0+2*nr <= n {
+				// two full panels side by side
+				packB(bf.b, tB, b, ldb, pc, kb, j0, 2*nr)
+				b0, b1 := bf.b[:kb*nr], bf.b[kb*nr:2*kb*nr]
+				for ip := 0; ip < mp; ip++ {
+					i0 := ip * mr
+					apan := apc[ip*kb*mr : (ip+1)*kb*mr]
+					if mh := min(mr, m-i0); mh < mr {
+						tile(kb, apan, b0, bf.tile, c, ldc, i0, j0, mh, nr, over)
+						tile(kb, apan, b1, bf.tile, c, ldc, i0, j0+nr, mh, nr, over)
+						continue
+					}
+					kernelPair(kb, apan, b0, b1, c[i0*ldc+j0:], ldc, over)
+				}
+				jp++
+				continue
+			}
 			packB(bf.b, tB, b, ldb, pc, kb, j0, nw)
 			bpan := bf.b[:kb*nr]
-			over := pc == 0 && beta == 0
-			apc := ap[pc*mp*mr:]
 			for ip := 0; ip < mp; ip++ {
 				i0 := ip * mr
 				apan := apc[ip*kb*mr : (ip+1)*kb*mr]
@@ -281,6 +307,21 @@ func block(bf *buffers, tA blas.Transpose, a []float32, lda int, alpha float32, 
 		j0 := jp * nr
 		nw := min(nr, nb-j0)
 		bpan := pb[jp*kb*nr : (jp+1)*kb*nr]
+		if kernelPair != nil && j0+2*nr <= nb {
+			b1 := pb[(jp+1)*kb*nr : (jp+2)*kb*nr]
+			for ip := 0; ip < mpanels; ip++ {
+				i0 := ip * mr
+				apan := bf.a[ip*kb*mr : (ip+1)*kb*mr]
+				if mh := min(mr, mb-i0); mh < mr {
+					tile(kb, apan, bpan, bf.tile, c, ldc, ic+i0, jc+j0, mh, nr, over)
+					tile(kb, apan, b1, bf.tile, c, ldc, ic+i0, jc+j0+nr, mh, nr, over)
+					continue
+				}
+				kernelPair(kb, apan, bpan, b1, c[(ic+i0)*ldc+jc+j0:], ldc, over)
+			}
+			jp++
+			continue
+		}
 		for ip := 0; ip < mpanels; ip++ {
 			i0 := ip * mr
 			mh := min(mr, mb-i0)

@@ -24,3 +24,25 @@ func init() {
 		useAsm = true
 	}
 }
+
+//go:noescape
+func kern6x32(k int, a, b0, b1, c *float32, ldc int, overwrite bool)
+
+// kernelPairAsm is kernel for two adjacent B panels at once (a 6 x 32
+// tile) on CPUs with AVX-512.
+func kernelPairAsm(k int, a, b0, b1, c []float32, ldc int, overwrite bool) {
+	if k == 0 {
+		return
+	}
+	_ = a[k*mr-1]
+	_ = b0[k*nr-1]
+	_ = b1[k*nr-1]
+	_ = c[(mr-1)*ldc+2*nr-1]
+	kern6x32(k, &a[0], &b0[0], &b1[0], &c[0], ldc, overwrite)
+}
+
+func init() {
+	if useAsm && cpu.X86.HasAVX512F {
+		kernelPair = kernelPairAsm
+	}
+}

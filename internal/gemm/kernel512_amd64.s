@@ -1,0 +1,115 @@
+//go:build amd64 && !purego
+
+#include "textflag.h"
+
+// func kern6x32(k int, a, b0, b1, c *float32, ldc int, overwrite bool)
+// The 6 x 32 tile of C whose left half is B panel b0 and right half B
+// panel b1 (each k rows of 16 packed values): C[i, j] += sum over p < k of
+// a[p*6+i] * b[p*16+j] (or = with overwrite), in AVX-512 registers of 16
+// lanes. Each element is accumulated by fused multiply-adds in depth
+// order from zero, exactly as by kern6x16, so the results are bitwise the
+// same.
+TEXT ·kern6x32(SB), NOSPLIT, $0-49
+	MOVQ k+0(FP), CX
+	MOVQ a+8(FP), SI
+	MOVQ b0+16(FP), DI
+	MOVQ b1+24(FP), R9
+	MOVQ c+32(FP), DX
+	MOVQ ldc+40(FP), R8
+	SHLQ $2, R8
+	VXORPS Z0, Z0, Z0
+	VXORPS Z1, Z1, Z1
+	VXORPS Z2, Z2, Z2
+	VXORPS Z3, Z3, Z3
+	VXORPS Z4, Z4, Z4
+	VXORPS Z5, Z5, Z5
+	VXORPS Z6, Z6, Z6
+	VXORPS Z7, Z7, Z7
+	VXORPS Z8, Z8, Z8
+	VXORPS Z9, Z9, Z9
+	VXORPS Z10, Z10, Z10
+	VXORPS Z11, Z11, Z11
+
+loop:
+	VMOVUPS (DI), Z12
+	VMOVUPS (R9), Z13
+	VBROADCASTSS (SI), Z14
+	VFMADD231PS Z12, Z14, Z0
+	VFMADD231PS Z13, Z14, Z1
+	VBROADCASTSS 4(SI), Z15
+	VFMADD231PS Z12, Z15, Z2
+	VFMADD231PS Z13, Z15, Z3
+	VBROADCASTSS 8(SI), Z14
+	VFMADD231PS Z12, Z14, Z4
+	VFMADD231PS Z13, Z14, Z5
+	VBROADCASTSS 12(SI), Z15
+	VFMADD231PS Z12, Z15, Z6
+	VFMADD231PS Z13, Z15, Z7
+	VBROADCASTSS 16(SI), Z14
+	VFMADD231PS Z12, Z14, Z8
+	VFMADD231PS Z13, Z14, Z9
+	VBROADCASTSS 20(SI), Z15
+	VFMADD231PS Z12, Z15, Z10
+	VFMADD231PS Z13, Z15, Z11
+	ADDQ $24, SI
+	ADDQ $64, DI
+	ADDQ $64, R9
+	DECQ CX
+	JNZ  loop
+
+	MOVBLZX overwrite+48(FP), AX
+	TESTL AX, AX
+	JNZ  store
+
+	VADDPS (DX), Z0, Z0
+	VADDPS 64(DX), Z1, Z1
+	VMOVUPS Z0, (DX)
+	VMOVUPS Z1, 64(DX)
+	ADDQ R8, DX
+	VADDPS (DX), Z2, Z2
+	VADDPS 64(DX), Z3, Z3
+	VMOVUPS Z2, (DX)
+	VMOVUPS Z3, 64(DX)
+	ADDQ R8, DX
+	VADDPS (DX), Z4, Z4
+	VADDPS 64(DX), Z5, Z5
+	VMOVUPS Z4, (DX)
+	VMOVUPS Z5, 64(DX)
+	ADDQ R8, DX
+	VADDPS (DX), Z6, Z6
+	VADDPS 64(DX), Z7, Z7
+	VMOVUPS Z6, (DX)
+	VMOVUPS Z7, 64(DX)
+	ADDQ R8, DX
+	VADDPS (DX), Z8, Z8
+	VADDPS 64(DX), Z9, Z9
+	VMOVUPS Z8, (DX)
+	VMOVUPS Z9, 64(DX)
+	ADDQ R8, DX
+	VADDPS (DX), Z10, Z10
+	VADDPS 64(DX), Z11, Z11
+	VMOVUPS Z10, (DX)
+	VMOVUPS Z11, 64(DX)
+	VZEROUPPER
+	RET
+
+store:
+	VMOVUPS Z0, (DX)
+	VMOVUPS Z1, 64(DX)
+	ADDQ R8, DX
+	VMOVUPS Z2, (DX)
+	VMOVUPS Z3, 64(DX)
+	ADDQ R8, DX
+	VMOVUPS Z4, (DX)
+	VMOVUPS Z5, 64(DX)
+	ADDQ R8, DX
+	VMOVUPS Z6, (DX)
+	VMOVUPS Z7, 64(DX)
+	ADDQ R8, DX
+	VMOVUPS Z8, (DX)
+	VMOVUPS Z9, 64(DX)
+	ADDQ R8, DX
+	VMOVUPS Z10, (DX)
+	VMOVUPS Z11, 64(DX)
+	VZEROUPPER
+	RET
