@@ -10,6 +10,8 @@ import (
 	"runtime"
 	"sync"
 
+	"github.com/quernlab/quern/internal/par"
+
 	"gonum.org/v1/gonum/blas"
 )
 
@@ -116,40 +118,26 @@ func sgemmFlat(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, l
 	fb := bufs.Get().(*buffers)
 	fb.flat = grow(fb.flat, mp*mr*k)
 	panels := (n + nr - 1) / nr
-	w := min(workers, panels)
-	if w <= 1 {
-		flatPackA(nil, fb.flat, 0, mp, tA, m, k, alpha, a, lda)
+	if workers <= 1 {
+		flatPackA(fb.flat, 0, mp, tA, m, k, alpha, a, lda)
+		flatColumns(fb.flat, 0, panels, m, n, k, tB, b, ldb, beta, c, ldc)
 	} else {
-		// pack A in parallel too, then share out the columns
-		var wg sync.WaitGroup
-		pw := min(w, mp)
-		for t := 1; t < pw; t++ {
-			wg.Add(1)
-			go flatPackA(&wg, fb.flat, t*mp/pw, (t+1)*mp/pw, tA, m, k, alpha, a, lda)
-		}
-		flatPackA(nil, fb.flat, 0, mp/pw, tA, m, k, alpha, a, lda)
-		wg.Wait()
-	}
-	if w <= 1 {
-		flatColumns(nil, fb.flat, 0, panels, m, n, k, tB, b, ldb, beta, c, ldc)
-	} else {
-		var wg sync.WaitGroup
-		for t := 1; t < w; t++ {
-			wg.Add(1)
-			go flatColumns(&wg, fb.flat, t*panels/w, (t+1)*panels/w, m, n, k, tB, b, ldb, beta, c, ldc)
-		}
-		flatColumns(nil, fb.flat, 0, panels/w, m, n, k, tB, b, ldb, beta, c, ldc)
-		wg.Wait()
+		// pack A in groups of row panels, then share out pairs of column
+		// panels; the caller takes groups and pairs too (par.Items)
+		groups := min(mp, 4*workers)
+		par.Items(groups, func(g int) {
+			flatPackA(fb.flat, g*mp/groups, (g+1)*mp/groups, tA, m, k, alpha, a, lda)
+		})
+		par.Items((panels+1)/2, func(u int) {
+			flatColumns(fb.flat, 2*u, min(2*u+2, panels), m, n, k, tB, b, ldb, beta, c, ldc)
+		})
 	}
 	bufs.Put(fb)
 }
 
 // flatPackA packs row panels [q0, q1) of op(A), for every depth block,
 // into the layout of sgemmFlat: depth block pc starts at pc*mp*mr.
-func flatPackA(wg *sync.WaitGroup, dst []float32, q0, q1 int, tA blas.Transpose, m, k int, alpha float32, a []float32, lda int) {
-	if wg != nil {
-		defer wg.Done()
-	}
+func flatPackA(dst []float32, q0, q1 int, tA blas.Transpose, m, k int, alpha float32, a []float32, lda int) {
 	mp := (m + mr - 1) / mr
 	if q0 >= q1 {
 		return
@@ -162,10 +150,7 @@ func flatPackA(wg *sync.WaitGroup, dst []float32, q0, q1 int, tA blas.Transpose,
 }
 
 // flatColumns computes column panels [p0, p1) of C from the packed A.
-func flatColumns(wg *sync.WaitGroup, ap []float32, p0, p1, m, n, k int, tB blas.Transpose, b []float32, ldb int, beta float32, c []float32, ldc int) {
-	if wg != nil {
-		defer wg.Done()
-	}
+func flatColumns(ap []float32, p0, p1, m, n, k int, tB blas.Transpose, b []float32, ldb int, beta float32, c []float32, ldc int) {
 	bf := bufs.Get().(*buffers)
 	bf.b = grow(bf.b, 2*kc*nr)
 	bf.tile = grow(bf.tile, mr*nr)
@@ -269,31 +254,23 @@ func sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda i
 					block(bb, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, bb.b, nb, c, ldc, jc, over)
 				}
 			} else {
-				blocksParallel(w, blocks, m, tA, a, lda, alpha, pc, kb, bb.b, nb, c, ldc, jc, over)
+				blocksParallel(blocks, m, tA, a, lda, alpha, pc, kb, bb.b, nb, c, ldc, jc, over)
 			}
 			bufs.Put(bb)
 		}
 	}
 }
 
-// blocksParallel shares the row blocks of one packed B block among w
-// goroutines. It is a function of its own so that the serial path
-// allocates nothing (variables captured by the goroutines escape).
-func blocksParallel(w, blocks, m int, tA blas.Transpose, a []float32, lda int, alpha float32, pc, kb int, pb []float32, nb int, c []float32, ldc, jc int, over bool) {
-	var wg sync.WaitGroup
-	for t := 0; t < w; t++ {
-		wg.Add(1)
-		go func(t int) {
-			defer wg.Done()
-			ab := bufs.Get().(*buffers)
-			for blk := t; blk < blocks; blk += w {
-				ic := blk * mc
-				block(ab, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, pb, nb, c, ldc, jc, over)
-			}
-			bufs.Put(ab)
-		}(t)
-	}
-	wg.Wait()
+// blocksParallel shares the row blocks of one packed B block among the
+// calling goroutine and helpers (par.Items). It is a function of its own
+// so that the serial path allocates nothing.
+func blocksParallel(blocks, m int, tA blas.Transpose, a []float32, lda int, alpha float32, pc, kb int, pb []float32, nb int, c []float32, ldc, jc int, over bool) {
+	par.Items(blocks, func(blk int) {
+		ab := bufs.Get().(*buffers)
+		ic := blk * mc
+		block(ab, tA, a, lda, alpha, ic, min(mc, m-ic), pc, kb, pb, nb, c, ldc, jc, over)
+		bufs.Put(ab)
+	})
 }
 
 // block multiplies rows [ic, ic+mb) of op(A) (depth [pc, pc+kb)) by the

@@ -65,3 +65,17 @@ func TestSpreadCoversEveryIndexOnce(t *testing.T) {
 		runtime.GOMAXPROCS(old)
 	}
 }
+
+func TestItemsCoversEveryItemOnce(t *testing.T) {
+	for _, procs := range []int{1, 2, 4} {
+		old := runtime.GOMAXPROCS(procs)
+		for _, n := range []int{0, 1, 3, 50} {
+			hits := make([]int32, n)
+			Items(n, func(i int) { atomic.AddInt32(&hits[i], 1) })
+			for i, h := range hits {
+				require.Equal(t, int32(1), h, "n=%d i=%d procs=%d", n, i, procs)
+			}
+		}
+		runtime.GOMAXPROCS(old)
+	}
+}
