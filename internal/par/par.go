@@ -3,16 +3,20 @@
 // depend on the number of goroutines.
 //
 // The work is cut into more chunks than goroutines, and the calling
-// goroutine takes chunks too, from a shared counter, alongside the
-// helpers it starts: where waking a helper is slow (an idle virtual CPU
-// can take a long while to wake), the caller simply does more of the
-// chunks itself, so a split loop is never much slower than a plain one.
+// goroutine takes chunks too, from a shared counter, alongside a pool of
+// helper goroutines that spin for a while between jobs before parking:
+// waking a parked goroutine costs the caller several microseconds on a
+// virtual machine, and where a helper is late anyway the caller simply
+// does more of the chunks itself, so a split loop is never much slower
+// than a plain one. Jobs from several goroutines at once are fine: while
+// the pool serves one, the others start helpers of their own.
 package par
 
 import (
 	"runtime"
 	"sync"
 	"sync/atomic"
+	"time"
 )
 
 // MinWork is the smallest number of elements worth splitting.
@@ -37,24 +41,118 @@ func Items(n int, f func(i int)) {
 		}
 		return
 	}
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	wg.Add(n)
-	work := func() {
-		for {
-			i := int(next.Add(1) - 1)
-			if i >= n {
-				return
+	j := &job{n: int64(n), f: f}
+	if !helpers.busy.CompareAndSwap(false, true) {
+		// another goroutine's job holds the helpers: start our own
+		for t := 1; t < w; t++ {
+			go j.work()
+		}
+		j.work()
+		j.wait()
+		return
+	}
+	helpers.start(w - 1)
+	helpers.cur.Store(j)
+	if p := int(helpers.parked.Load()); p > 0 {
+		for i := 0; i < min(p, w-1); i++ {
+			select {
+			case helpers.wake <- struct{}{}:
+			default:
 			}
-			f(i)
-			wg.Done()
 		}
 	}
-	for t := 1; t < w; t++ {
-		go work()
+	j.work()
+	j.wait()
+	helpers.cur.Store(nil)
+	helpers.busy.Store(false)
+}
+
+// job is one call of Items.
+type job struct {
+	n          int64
+	next, done atomic.Int64
+	f          func(int)
+}
+
+func (j *job) work() {
+	for {
+		i := j.next.Add(1) - 1
+		if i >= j.n {
+			return
+		}
+		j.f(int(i))
+		j.done.Add(1)
 	}
-	work()
-	wg.Wait()
+}
+
+// wait returns when every item is done (the caller has run out of items
+// to take; what remains is at most one item per helper).
+func (j *job) wait() {
+	for spins := 0; j.done.Load() < j.n; spins++ {
+		if spins&63 == 63 {
+			runtime.Gosched()
+		}
+	}
+}
+
+// helperPool holds goroutines that take items of the current job. Between
+// jobs each spins for spinFor before parking: a parked helper must be
+// woken through the operating system, which on a virtual machine costs
+// the caller several microseconds per job, and a training step runs
+// dozens of jobs a few tens of microseconds apart.
+type helperPool struct {
+	mu     sync.Mutex
+	size   int
+	busy   atomic.Bool
+	cur    atomic.Pointer[job]
+	parked atomic.Int32
+	wake   chan struct{}
+}
+
+var helpers = helperPool{wake: make(chan struct{}, 256)}
+
+const spinFor = 200 * time.Microsecond
+
+// start makes sure at least k helpers run (at most 255).
+func (h *helperPool) start(k int) {
+	k = min(k, cap(h.wake)-1)
+	h.mu.Lock()
+	for ; h.size < k; h.size++ {
+		go h.loop()
+	}
+	h.mu.Unlock()
+}
+
+func (h *helperPool) loop() {
+	for {
+		if j := h.cur.Load(); j != nil && j.next.Load() < j.n {
+			j.work()
+			continue
+		}
+		if h.spin() {
+			continue
+		}
+		h.parked.Add(1)
+		if j := h.cur.Load(); j != nil && j.next.Load() < j.n {
+			h.parked.Add(-1)
+			continue
+		}
+		<-h.wake
+		h.parked.Add(-1)
+	}
+}
+
+// spin waits up to spinFor for a job with items left.
+func (h *helperPool) spin() bool {
+	deadline := time.Now().Add(spinFor)
+	for i := 0; ; i++ {
+		if j := h.cur.Load(); j != nil && j.next.Load() < j.n {
+			return true
+		}
+		if i&255 == 255 && time.Now().After(deadline) {
+			return false
+		}
+	}
 }
 
 // For calls f(lo, hi) over [0, n) in contiguous chunks, concurrently when
