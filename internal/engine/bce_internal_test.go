@@ -1,5 +1,3 @@
-//go:build amd64 && !purego
-
 package engine
 
 import (
@@ -7,6 +5,7 @@ import (
 	"math/rand/v2"
 	"testing"
 
+	"github.com/quernlab/quern/internal/vec"
 	"github.com/stretchr/testify/require"
 )
 
@@ -15,7 +14,7 @@ import (
 // gradient within 2e-7, each block's loss within 1e-6 relative, and a NaN
 // logit makes the loss NaN.
 func TestBCEVectorMatchesScalar(t *testing.T) {
-	if !haveBCEAVX {
+	if !vec.Enabled {
 		t.Skip("no AVX2/FMA on this CPU")
 	}
 	rng := rand.New(rand.NewPCG(5, 5))
@@ -27,9 +26,9 @@ func TestBCEVectorMatchesScalar(t *testing.T) {
 	}
 	x[0], x[1], x[2], x[3] = 0, -0.0, 200, -200
 	run := func(vector bool) ([]float64, []float32) {
-		saved := haveBCEAVX
-		haveBCEAVX = vector
-		defer func() { haveBCEAVX = saved }()
+		saved := vec.Enabled
+		vec.Enabled = vector
+		defer func() { vec.Enabled = saved }()
 		part, d := make([]float64, 4), make([]float32, n)
 		bceSumBlocks32(part, d, x, y, 0, n)
 		return part, d

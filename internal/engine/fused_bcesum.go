@@ -6,6 +6,7 @@ import (
 
 	"github.com/chewxy/hm"
 	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/vec"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )
@@ -110,7 +111,7 @@ func bceSumBlocks32(part []float64, d, xs, ys []float32, lo, hi int) {
 		x, y, dd := xs[b:end], ys[b:end], d[b:end]
 		y, dd = y[:len(x)], dd[:len(x)]
 		// the vector kernel where the CPU has one, then the rest here
-		acc, done := bceBlockFast(dd, x, y)
+		acc, done := vec.BCE(dd, x, y)
 		x, y, dd = x[done:], y[done:], dd[done:]
 		var s float32
 		for i, v := range x {

@@ -1,6 +1,6 @@
 //go:build amd64 && !purego
 
-package engine
+package vec
 
 import (
 	"math"
@@ -11,7 +11,9 @@ import (
 //go:noescape
 func bceAVX(xp, yp, dp *float32, n int, c *[20][8]float32) float64
 
-var haveBCEAVX = cpu.X86.HasAVX2 && cpu.X86.HasFMA
+// Enabled reports whether the vector kernels run (AVX2 and FMA present);
+// tests turn it off to compare with the Go loops.
+var Enabled = cpu.X86.HasAVX2 && cpu.X86.HasFMA
 
 // bceTable holds bceAVX's constants, each repeated in eight lanes.
 var bceTable = func() (t [20][8]float32) {
@@ -29,12 +31,14 @@ var bceTable = func() (t [20][8]float32) {
 	return
 }()
 
-// bceBlockFast is the vector form of one block of bceSumBlocks32 for
-// its largest multiple of 8 elements; it returns that part's loss sum and
-// the count handled (0 when the CPU lacks AVX2 and FMA).
-func bceBlockFast(d, x, y []float32) (float64, int) {
+// BCE computes, for the largest multiple of 8 elements of x (logits) and
+// y (targets), the binary cross-entropy on logits max(x,0) - x y +
+// log1p(exp(-|x|)) summed in float64, and d = sigmoid(x) - y; it returns
+// the sum and the count handled (0 when the vector kernel is not
+// enabled). The caller finishes the rest.
+func BCE(d, x, y []float32) (float64, int) {
 	n := len(x) &^ 7
-	if !haveBCEAVX || n == 0 {
+	if !Enabled || n == 0 {
 		return 0, 0
 	}
 	_, _ = y[n-1], d[n-1]

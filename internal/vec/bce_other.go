@@ -1,0 +1,9 @@
+//go:build !amd64 || purego
+
+package vec
+
+// Enabled is false: there is no vector kernel in this build.
+var Enabled = false
+
+// BCE handles nothing in this build; see the amd64 version.
+func BCE(d, x, y []float32) (float64, int) { return 0, 0 }
