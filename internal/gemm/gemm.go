@@ -1,9 +1,3 @@
-// Package gemm is quern's float32 matrix product: packed panels, a 6x16
-// register-blocked micro-kernel in AVX2/FMA assembly on amd64 CPUs that
-// have it (detected at run time) and a portable Go kernel elsewhere, and
-// a split of the work across GOMAXPROCS goroutines for large products.
-// It is plugged into gorgonia's BLAS hook by package engine; every other
-// routine still comes from gonum.
 package gemm
 
 import (
