@@ -6,6 +6,7 @@ import (
 	"math"
 	"sync"
 	"sync/atomic"
+	"unsafe"
 
 	"github.com/quernlab/quern/internal/par"
 	"github.com/quernlab/quern/layers"
@@ -814,12 +815,54 @@ func checkGrad(q *layers.Param) error {
 
 // firstNonFinite is the index of the first NaN or infinity in g, or -1.
 func firstNonFinite(g []float32) int {
+	if !anyNonFinite(g) {
+		return -1
+	}
 	for i, v := range g {
 		if v-v != 0 {
 			return i
 		}
 	}
 	return -1
+}
+
+// anyNonFinite scans two values per 64-bit word for an all-ones
+// exponent: (bits & exponent mask) + lowest exponent bit overflows into
+// the sign bit exactly then, and the low half cannot carry into the high
+// one. A first value off 8-byte alignment is checked alone.
+func anyNonFinite(g []float32) bool {
+	if len(g) == 0 {
+		return false
+	}
+	if uintptr(unsafe.Pointer(&g[0]))%8 != 0 {
+		if g[0]-g[0] != 0 {
+			return true
+		}
+		g = g[1:]
+	}
+	if len(g)%2 == 1 {
+		if v := g[len(g)-1]; v-v != 0 {
+			return true
+		}
+		g = g[:len(g)-1]
+	}
+	if len(g) == 0 {
+		return false
+	}
+	const mask, one = 0x7f8000007f800000, 0x0080000000800000
+	words := unsafe.Slice((*uint64)(unsafe.Pointer(&g[0])), len(g)/2)
+	var a0, a1, a2, a3 uint64
+	i := 0
+	for ; i+4 <= len(words); i += 4 {
+		a0 |= words[i]&mask + one
+		a1 |= words[i+1]&mask + one
+		a2 |= words[i+2]&mask + one
+		a3 |= words[i+3]&mask + one
+	}
+	for ; i < len(words); i++ {
+		a0 |= words[i]&mask + one
+	}
+	return (a0|a1|a2|a3)&0x8000000080000000 != 0
 }
 
 func copyGrad(q *layers.Param, gv G.Value, acc bool) error {

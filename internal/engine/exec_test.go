@@ -256,3 +256,30 @@ func TestTanh32Accuracy(t *testing.T) {
 	require.Equal(t, float32(1), engine.Tanh32(float32(math.Inf(1))))
 	require.Equal(t, float32(-1), engine.Tanh32(-100))
 }
+
+// The word-wise scan for NaN and infinity finds each kind at every
+// position, odd lengths included, and passes the largest finite values.
+func TestFirstNonFinite(t *testing.T) {
+	for _, n := range []int{0, 1, 2, 7, 8, 9, 33} {
+		g := make([]float32, n)
+		for i := range g {
+			g[i] = float32(i) - 3
+		}
+		if n > 0 {
+			g[0] = math.MaxFloat32
+			g[n-1] = -math.MaxFloat32
+		}
+		require.Equal(t, -1, engine.FirstNonFinite(g), "n=%d all finite", n)
+		for pos := 0; pos < n; pos++ {
+			for _, bad := range []float32{float32(math.NaN()), float32(math.Inf(1)), float32(math.Inf(-1))} {
+				old := g[pos]
+				g[pos] = bad
+				require.Equal(t, pos, engine.FirstNonFinite(g), "n=%d %v at %d", n, bad, pos)
+				if pos > 0 { // a slice off 8-byte alignment
+					require.Equal(t, pos-1, engine.FirstNonFinite(g[1:]), "n=%d %v at %d, shifted", n, bad, pos)
+				}
+				g[pos] = old
+			}
+		}
+	}
+}

@@ -38,3 +38,6 @@ var ExpNeg32 = expNeg32
 
 // Tanh32 exposes tanh32 to the tests.
 var Tanh32 = tanh32
+
+// FirstNonFinite exposes firstNonFinite to the tests.
+var FirstNonFinite = firstNonFinite

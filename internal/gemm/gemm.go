@@ -29,6 +29,10 @@ var kernel = kernelGo
 // element as kernel.
 var kernelPair func(k int, a, b0, b1, c []float32, ldc int, overwrite bool)
 
+// kernelAVX2 is the AVX2 kernel where there is one, kept for the test
+// that checks the AVX-512 kernels against it.
+var kernelAVX2 func(k int, a, b, c []float32, ldc int, overwrite bool)
+
 // UsingAVX512 reports whether the AVX-512 kernel for pairs of panels is
 // in use.
 func UsingAVX512() bool { return kernelPair != nil }

@@ -120,9 +120,9 @@ func BenchmarkSgemm1024(b *testing.B) {
 	b.ReportMetric(2*n*n*n*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
 }
 
-// The AVX-512 kernel for pairs of panels accumulates every element in the
-// same order with the same fused multiply-adds as the AVX2 kernel: the
-// products are bitwise the same with and without it, in the flat path
+// The AVX-512 kernels (pairs of panels, single panels) accumulate every
+// element in the same order with the same fused multiply-adds as the AVX2
+// kernel: the products are bitwise the same with and without them, in the flat path
 // (up to 512 rows) and the blocked one, for every transpose, partial
 // panels and partial row panels included.
 func TestPairKernelIsBitwiseTheSame(t *testing.T) {
@@ -146,11 +146,11 @@ func TestPairKernelIsBitwiseTheSame(t *testing.T) {
 				for _, beta := range []float32{0, 1} {
 					with := append([]float32(nil), c0...)
 					Sgemm(tA, tB, m, n, k, 1, a, lda, b, ldb, beta, with, n)
-					saved := kernelPair
-					kernelPair = nil
+					saved, savedOne := kernelPair, kernel
+					kernelPair, kernel = nil, kernelAVX2
 					without := append([]float32(nil), c0...)
 					Sgemm(tA, tB, m, n, k, 1, a, lda, b, ldb, beta, without, n)
-					kernelPair = saved
+					kernelPair, kernel = saved, savedOne
 					require.Equal(t, without, with, "%dx%dx%d %c%c beta %v", m, n, k, tA, tB, beta)
 				}
 			}

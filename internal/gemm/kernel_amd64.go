@@ -21,6 +21,7 @@ func kernelAsm(k int, a, b, c []float32, ldc int, overwrite bool) {
 func init() {
 	if cpu.X86.HasAVX2 && cpu.X86.HasFMA {
 		kernel = kernelAsm
+		kernelAVX2 = kernelAsm
 		useAsm = true
 	}
 }
@@ -41,8 +42,23 @@ func kernelPairAsm(k int, a, b0, b1, c []float32, ldc int, overwrite bool) {
 	kern6x32(k, &a[0], &b0[0], &b1[0], &c[0], ldc, overwrite)
 }
 
+//go:noescape
+func kern6x16z(k int, a, b, c *float32, ldc int, overwrite bool)
+
+// kernelAsm512 is kernelAsm in AVX-512 registers.
+func kernelAsm512(k int, a, b, c []float32, ldc int, overwrite bool) {
+	if k == 0 {
+		return
+	}
+	_ = a[k*mr-1]
+	_ = b[k*nr-1]
+	_ = c[(mr-1)*ldc+nr-1]
+	kern6x16z(k, &a[0], &b[0], &c[0], ldc, overwrite)
+}
+
 func init() {
 	if useAsm && cpu.X86.HasAVX512F {
 		kernelPair = kernelPairAsm
+		kernel = kernelAsm512
 	}
 }
