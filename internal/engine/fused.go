@@ -35,6 +35,58 @@ func fusedType(arity int) hm.Type {
 	return hm.NewFnType(ts...)
 }
 
+// opType is the type of an operation from a signature such as "tta":
+// 't' a matrix, 'a' a scalar, of one element type; the last letter is the
+// result.
+func opType(sig string) hm.Type {
+	a := hm.TypeVariable('a')
+	t := G.TensorType{Dims: 2, Of: a}
+	ts := make([]hm.Type, len(sig))
+	for i, c := range sig {
+		if c == 't' {
+			ts[i] = t
+		} else {
+			ts[i] = a
+		}
+	}
+	return hm.NewFnType(ts...)
+}
+
+// firstShape is the shape of input 0, a matrix.
+func firstShape(in []G.DimSizer) (tensor.Shape, error) {
+	s, err := shape2(in, 0)
+	if err != nil {
+		return nil, err
+	}
+	return s.Clone(), nil
+}
+
+// reductionShape checks that the inputs share one shape and gives the
+// scalar shape of their reduction.
+func reductionShape(in []G.DimSizer) (tensor.Shape, error) {
+	if _, err := shapeOf(in); err != nil {
+		return nil, err
+	}
+	return tensor.ScalarShape(), nil
+}
+
+// upstream32 and upstream64 read a scalar upstream gradient.
+func upstream32(v G.Value, what string) (float32, error) {
+	g, ok := v.(*G.F32)
+	if !ok {
+		return 0, fmt.Errorf("engine: %s scale is %T", what, v)
+	}
+	return float32(*g), nil
+}
+
+func upstream64(v G.Value, what string) (float64, error) {
+	g, ok := v.(*G.F64)
+	if !ok {
+		return 0, fmt.Errorf("engine: %s scale is %T", what, v)
+	}
+	return float64(*g), nil
+}
+
 func hashOf(s string) uint32 {
 	h := fnv.New32a()
 	h.Write([]byte(s))

@@ -37,18 +37,9 @@ const bceBlock = 4096
 
 func (bceSumOp) Arity() int { return 2 }
 
-func (bceSumOp) Type() hm.Type {
-	a := hm.TypeVariable('a')
-	t := G.TensorType{Dims: 2, Of: a}
-	return hm.NewFnType(t, t, a)
-}
+func (bceSumOp) Type() hm.Type { return opType("tta") }
 
-func (bceSumOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	if _, err := shapeOf(in); err != nil {
-		return nil, err
-	}
-	return tensor.ScalarShape(), nil
-}
+func (bceSumOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return reductionShape(in) }
 
 func (bceSumOp) DiffWRT(int) []bool { return []bool{true, true} }
 
@@ -189,19 +180,9 @@ type bceSumGradOp struct {
 
 func (bceSumGradOp) Arity() int { return 3 }
 
-func (bceSumGradOp) Type() hm.Type {
-	a := hm.TypeVariable('a')
-	t := G.TensorType{Dims: 2, Of: a}
-	return hm.NewFnType(t, a, a, t)
-}
+func (bceSumGradOp) Type() hm.Type { return opType("taat") }
 
-func (bceSumGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	s, err := shape2(in, 0)
-	if err != nil {
-		return nil, err
-	}
-	return s.Clone(), nil
-}
+func (bceSumGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return firstShape(in) }
 
 func (op bceSumGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
@@ -217,30 +198,29 @@ func (op bceSumGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) 
 	out := op.out(p, x[0].Dtype(), r, c)
 	switch x[0].Dtype() {
 	case tensor.Float32:
-		g, ok := in[1].(*G.F32)
-		if !ok {
-			return nil, fmt.Errorf("engine: BCE sum gradient scale is %T", in[1])
+		k, err := upstream32(in[1], "BCE sum gradient")
+		if err != nil {
+			return nil, err
 		}
 		o, d := f32(out), op.side.d32
 		if len(d) != len(o) {
 			return nil, fmt.Errorf("engine: BCE sum gradient before its forward run")
 		}
-		k := float32(*g)
 		if par.Worth(len(o)) {
 			par.For(len(o), func(lo, hi int) { scaleInto(o[lo:hi], d[lo:hi], k) })
 		} else {
 			scaleInto(o, d, k)
 		}
 	case tensor.Float64:
-		g, ok := in[1].(*G.F64)
-		if !ok {
-			return nil, fmt.Errorf("engine: BCE sum gradient scale is %T", in[1])
+		k, err := upstream64(in[1], "BCE sum gradient")
+		if err != nil {
+			return nil, err
 		}
 		o, d := f64(out), op.side.d64
 		if len(d) != len(o) {
 			return nil, fmt.Errorf("engine: BCE sum gradient before its forward run")
 		}
-		scaleInto(o, d, float64(*g))
+		scaleInto(o, d, k)
 	default:
 		return nil, fmt.Errorf("engine: BCE sum gradient of %v", x[0].Dtype())
 	}

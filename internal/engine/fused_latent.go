@@ -86,15 +86,9 @@ type sliceColsGradOp struct {
 	from, to int
 }
 
-func (sliceColsGradOp) Arity() int    { return 2 }
-func (sliceColsGradOp) Type() hm.Type { return fusedType(2) }
-func (sliceColsGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	s, err := shape2(in, 0)
-	if err != nil {
-		return nil, err
-	}
-	return s.Clone(), nil
-}
+func (sliceColsGradOp) Arity() int                                        { return 2 }
+func (sliceColsGradOp) Type() hm.Type                                     { return fusedType(2) }
+func (sliceColsGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return firstShape(in) }
 
 func (op sliceColsGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
@@ -241,18 +235,9 @@ type klOp struct{ opBase }
 
 func (klOp) Arity() int { return 2 }
 
-func (klOp) Type() hm.Type {
-	a := hm.TypeVariable('a')
-	t := G.TensorType{Dims: 2, Of: a}
-	return hm.NewFnType(t, t, a)
-}
+func (klOp) Type() hm.Type { return opType("tta") }
 
-func (klOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	if _, err := shapeOf(in); err != nil {
-		return nil, err
-	}
-	return tensor.ScalarShape(), nil
-}
+func (klOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return reductionShape(in) }
 
 func (klOp) DiffWRT(int) []bool { return []bool{true, true} }
 
@@ -308,19 +293,9 @@ type klGradOp struct {
 
 func (klGradOp) Arity() int { return 2 }
 
-func (klGradOp) Type() hm.Type {
-	a := hm.TypeVariable('a')
-	t := G.TensorType{Dims: 2, Of: a}
-	return hm.NewFnType(t, a, t)
-}
+func (klGradOp) Type() hm.Type { return opType("tat") }
 
-func (klGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	s, err := shape2(in, 0)
-	if err != nil {
-		return nil, err
-	}
-	return s.Clone(), nil
-}
+func (klGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return firstShape(in) }
 
 func (op klGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
@@ -336,11 +311,11 @@ func (op klGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	out := op.out(p, x[0].Dtype(), r, c)
 	switch x[0].Dtype() {
 	case tensor.Float32:
-		g, ok := in[1].(*G.F32)
-		if !ok {
-			return nil, fmt.Errorf("engine: KL gradient scale is %T", in[1])
+		g, err := upstream32(in[1], "KL gradient")
+		if err != nil {
+			return nil, err
 		}
-		k := float32(*g) / float32(r)
+		k := g / float32(r)
 		v, o := f32(x[0]), f32(out)
 		for i, e := range v {
 			if op.logVar {
@@ -350,11 +325,11 @@ func (op klGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 			}
 		}
 	case tensor.Float64:
-		g, ok := in[1].(*G.F64)
-		if !ok {
-			return nil, fmt.Errorf("engine: KL gradient scale is %T", in[1])
+		g, err := upstream64(in[1], "KL gradient")
+		if err != nil {
+			return nil, err
 		}
-		k := float64(*g) / float64(r)
+		k := g / float64(r)
 		v, o := f64(x[0]), f64(out)
 		for i, e := range v {
 			if op.logVar {

@@ -22,18 +22,9 @@ type mseGradOp struct{ opBase }
 
 func (mseOp) Arity() int { return 2 }
 
-func (mseOp) Type() hm.Type {
-	a := hm.TypeVariable('a')
-	t := G.TensorType{Dims: 2, Of: a}
-	return hm.NewFnType(t, t, a)
-}
+func (mseOp) Type() hm.Type { return opType("tta") }
 
-func (mseOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	if _, err := shapeOf(in); err != nil {
-		return nil, err
-	}
-	return tensor.ScalarShape(), nil
-}
+func (mseOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return reductionShape(in) }
 
 func (mseOp) DiffWRT(int) []bool { return []bool{true, true} }
 
@@ -129,11 +120,7 @@ func sqErr[T float32 | float64](p, t []T) float64 {
 
 func (mseGradOp) Arity() int { return 3 }
 
-func (mseGradOp) Type() hm.Type {
-	a := hm.TypeVariable('a')
-	t := G.TensorType{Dims: 2, Of: a}
-	return hm.NewFnType(t, t, a, t)
-}
+func (mseGradOp) Type() hm.Type { return opType("ttat") }
 
 func (mseGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
 	if len(in) != 3 {
@@ -157,11 +144,11 @@ func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	switch x[0].Dtype() {
 	case tensor.Float32:
 		ps := f32(x[0])
-		g, ok := in[2].(*G.F32)
-		if !ok {
-			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2])
+		g, err := upstream32(in[2], "MSE gradient")
+		if err != nil {
+			return nil, err
 		}
-		o, ts, k := f32(out), f32(x[1]), 2*float32(*g)/float32(len(ps))
+		o, ts, k := f32(out), f32(x[1]), 2*g/float32(len(ps))
 		if par.Worth(len(ps)) {
 			par.For(len(ps), func(lo, hi int) { mseGrad(o[lo:hi], ps[lo:hi], ts[lo:hi], k) })
 		} else {
@@ -169,11 +156,11 @@ func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		}
 	case tensor.Float64:
 		ps := f64(x[0])
-		g, ok := in[2].(*G.F64)
-		if !ok {
-			return nil, fmt.Errorf("engine: MSE gradient scale is %T", in[2])
+		g, err := upstream64(in[2], "MSE gradient")
+		if err != nil {
+			return nil, err
 		}
-		mseGrad(f64(out), ps, f64(x[1]), 2*float64(*g)/float64(len(ps)))
+		mseGrad(f64(out), ps, f64(x[1]), 2*g/float64(len(ps)))
 	default:
 		return nil, fmt.Errorf("engine: MSE gradient of %v", x[0].Dtype())
 	}
