@@ -2,7 +2,9 @@
 // register-blocked micro-kernel in AVX2/FMA assembly on amd64 CPUs that
 // have it, a 6x32 one over pairs of panels in AVX-512 where the CPU has
 // that (both detected at run time; they give bitwise the same results), a
-// portable Go kernel elsewhere (or with -tags purego), and a split of the
+// 6x16 NEON kernel on arm64 (bitwise the same as the Go kernel there; its
+// correctness is tested under qemu, its speed has not been measured on
+// arm64 hardware), a portable Go kernel elsewhere (or with -tags purego), and a split of the
 // work across GOMAXPROCS goroutines for large products. Products of up to
 // 512 rows (a batch) pack A once and share out column panels; larger ones
 // share out blocks of rows. Results do not depend on the thread count.
