@@ -169,7 +169,7 @@ func (m *Model) sigmaInputs(g *engine.Graph) []*engine.Node {
 	}
 	s := make([]*engine.Node, len(m.Discriminator.Layers))
 	for l := range s {
-		s[l] = g.Sum(g.Input(fmt.Sprintf("invsigma.%d", l), 1, 1))
+		s[l] = g.Sum(g.Input(sigmaName(l), 1, 1))
 	}
 	return s
 }
@@ -286,11 +286,27 @@ func (m *Model) fillCommon(p *engine.Program, n int, rng *rand.Rand, class int) 
 		set(p, "fake_labels", func(i int) float64 { return b2f(labels[i/k] == i%k) })
 	}
 	for l, s := range m.invSigma {
-		name := fmt.Sprintf("invsigma.%d", l)
+		name := sigmaName(l)
 		if p.HasInput(name) {
 			set(p, name, func(int) float64 { return s })
 		}
 	}
+}
+
+// sigmaNames holds the names of the spectral-scale inputs, made once.
+var sigmaNames = func() (n [16]string) {
+	for l := range n {
+		n[l] = fmt.Sprintf("invsigma.%d", l)
+	}
+	return
+}()
+
+// sigmaName is the input name of layer l's spectral scale.
+func sigmaName(l int) string {
+	if l < len(sigmaNames) {
+		return sigmaNames[l]
+	}
+	return fmt.Sprintf("invsigma.%d", l)
 }
 
 func b2f(b bool) float64 {

@@ -157,7 +157,7 @@ func (m *Model) build(trainMode bool) engine.BuildFunc {
 			klTerm = g.Sum(g.Shift(g.ReLU(g.Shift(dims, -c.FreeBits)), c.FreeBits))
 		}
 		beta := g.Input("beta", 1, 1)
-		return g.Add(recon, g.Sum(g.Mul(klTerm, beta))), []*engine.Node{recon, kl}
+		return g.Add(recon, g.Mul(klTerm, g.Sum(beta))), []*engine.Node{recon, kl}
 	}
 }
 

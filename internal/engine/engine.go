@@ -234,6 +234,16 @@ func (gr *Graph) binary(op string, a, b *Node, f func(a, b *G.Node) (*G.Node, er
 	if !gr.ok(a, b) {
 		return &Node{g: gr}
 	}
+	if a.IsScalar() && b.IsScalar() && !isConst(a) && !isConst(b) {
+		switch op {
+		case "add":
+			return gr.scalarArith(op, '+', 0, a, b)
+		case "sub":
+			return gr.scalarArith(op, '-', 0, a, b)
+		case "mul":
+			return gr.scalarArith(op, '*', 0, a, b)
+		}
+	}
 	if a.IsScalar() != b.IsScalar() {
 		// scalar with matrix: gorgonia broadcasts scalars itself.
 		n, err := f(a.n, b.n)
@@ -268,7 +278,16 @@ func (gr *Graph) Mul(a, b *Node) *Node {
 func (gr *Graph) Div(a, b *Node) *Node { return gr.binary("div", a, b, G.HadamardDiv) }
 
 // Scale is c * x.
-func (gr *Graph) Scale(x *Node, c float64) *Node { return gr.Mul(gr.Const(c), x) }
+func (gr *Graph) Scale(x *Node, c float64) *Node {
+	if x != nil && x.IsScalar() && x.n != nil && !isConst(x) {
+		return gr.scalarArith("scale", 's', c, x)
+	}
+	return gr.Mul(gr.Const(c), x)
+}
+
+// isConst reports whether x is a constant node (gorgonia's own operations
+// handle those).
+func isConst(x *Node) bool { return x.n != nil && x.n.Op() != nil && x.n.Op().Arity() == 0 }
 
 // Shift is x + c.
 func (gr *Graph) Shift(x *Node, c float64) *Node { return gr.Add(x, gr.Const(c)) }
@@ -394,7 +413,7 @@ func (gr *Graph) Sum(x *Node) *Node {
 	if x.IsScalar() {
 		return x
 	}
-	n, err := G.Sum(x.n, 0, 1)
+	n, err := G.ApplyOp(sumAllOp{base("SumAll")}, x.n)
 	return gr.wrap("sum", n, err, 0, 0)
 }
 

@@ -2,6 +2,7 @@ package engine
 
 import (
 	"fmt"
+	"strings"
 
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
@@ -28,6 +29,7 @@ type step struct {
 	buf  G.Value
 	args []int     // positions of the node's children in Program.vals
 	in   []G.Value // scratch for the children's values
+	fast fastOp    // see fastKind
 }
 
 // overwritingPrealloc lists gorgonia operations whose UsePreallocDo
@@ -111,8 +113,141 @@ func schedule(g *G.ExprGraph, roots []*G.Node) ([]step, map[*G.Node]int, error) 
 				s.buf = tensor.New(tensor.WithShape(shp...), tensor.Of(dt))
 			}
 		}
+		var kidNodes []*G.Node
+		for _, j := range s.args {
+			kidNodes = append(kidNodes, steps[j].node)
+		}
+		if s.fast = fastKind(op, n, kidNodes); s.fast.kind != 0 && s.buf == nil {
+			s.buf = tensor.New(tensor.WithShape(n.Shape()...), tensor.Of(n.Dtype()))
+		}
 	}
 	return steps, index, nil
+}
+
+// fastOp is a gorgonia element-wise operation that the executor computes
+// itself into the node's buffer: +, - or the product of two float
+// matrices of the node's shape, or of one such matrix and a scalar (on
+// either side), or the negation of a matrix. gorgonia's own preallocated
+// path allocates its options on every call; the arithmetic is the same,
+// element by element.
+type fastOp struct {
+	kind   byte // '+', '-', '*' or 'n' (negation); 0 for none
+	scalar int  // which operand is a scalar, or -1
+}
+
+func fastKind(op G.Op, n *G.Node, kids []*G.Node) fastOp {
+	none := fastOp{scalar: -1}
+	if n.IsScalar() || (n.Dtype() != tensor.Float32 && n.Dtype() != tensor.Float64) {
+		return none
+	}
+	scalar := -1
+	for i, k := range kids {
+		switch {
+		case k.IsScalar() && len(kids) == 2 && scalar < 0 && k.Dtype() == n.Dtype():
+			scalar = i
+		case !k.Shape().Eq(n.Shape()):
+			return none
+		}
+	}
+	name, typ := op.String(), fmt.Sprintf("%T", op)
+	switch {
+	case typ == "gorgonia.elemBinOp" && len(kids) == 2:
+		if len(name) > 2 && name[1] == ' ' && (name[0] == '+' || name[0] == '-') {
+			return fastOp{name[0], scalar}
+		}
+		if strings.HasPrefix(name, "⊙ ") {
+			return fastOp{'*', scalar}
+		}
+	case typ == "gorgonia.elemUnaryOp" && len(kids) == 1 && name == "neg" && scalar < 0:
+		return fastOp{'n', -1}
+	}
+	return none
+}
+
+// fastDo computes a fastOp into out; it reports false when the values are
+// not what fastKind expected.
+func fastDo(f fastOp, out G.Value, in []G.Value) bool {
+	if o := f32(out); o != nil {
+		return fastLoop(f, o, in, f32, scalarOf32)
+	}
+	if o := f64(out); o != nil {
+		return fastLoop(f, o, in, f64, scalarOf64)
+	}
+	return false
+}
+
+func scalarOf32(v G.Value) (float32, bool) {
+	s, ok := v.(*G.F32)
+	if !ok {
+		return 0, false
+	}
+	return float32(*s), true
+}
+
+func scalarOf64(v G.Value) (float64, bool) {
+	s, ok := v.(*G.F64)
+	if !ok {
+		return 0, false
+	}
+	return float64(*s), true
+}
+
+func fastLoop[T float32 | float64](f fastOp, o []T, in []G.Value, get func(G.Value) []T, scalar func(G.Value) (T, bool)) bool {
+	if f.kind == 'n' {
+		a := get(in[0])
+		if len(a) != len(o) {
+			return false
+		}
+		for i, v := range a {
+			o[i] = -v
+		}
+		return true
+	}
+	if f.scalar >= 0 {
+		c, ok := scalar(in[f.scalar])
+		m := get(in[1-f.scalar])
+		if !ok || len(m) != len(o) {
+			return false
+		}
+		switch {
+		case f.kind == '+':
+			for i, v := range m {
+				o[i] = v + c
+			}
+		case f.kind == '*':
+			for i, v := range m {
+				o[i] = c * v
+			}
+		case f.scalar == 1: // m - c
+			for i, v := range m {
+				o[i] = v - c
+			}
+		default: // c - m
+			for i, v := range m {
+				o[i] = c - v
+			}
+		}
+		return true
+	}
+	a, b := get(in[0]), get(in[1])
+	if len(a) != len(o) || len(b) != len(o) {
+		return false
+	}
+	switch f.kind {
+	case '+':
+		for i, v := range a {
+			o[i] = v + b[i]
+		}
+	case '-':
+		for i, v := range a {
+			o[i] = v - b[i]
+		}
+	default:
+		for i, v := range a {
+			o[i] = v * b[i]
+		}
+	}
+	return true
 }
 
 // ownsBuffer marks quern's fused operations, whose UsePreallocDo writes
@@ -149,6 +284,10 @@ func execute(steps []step, vals []G.Value) error {
 		}
 		for j, a := range s.args {
 			s.in[j] = vals[a]
+		}
+		if s.fast.kind != 0 && fastDo(s.fast, s.buf, s.in) {
+			vals[i] = s.buf
+			continue
 		}
 		var v G.Value
 		var err error

@@ -25,7 +25,7 @@ func buildMixed(g *engine.Graph, enc, dec *layers.MLP, rows int) *engine.Node {
 	z := g.Add(g.Reparameterise(mu, lv, eps), g.Mul(g.Exp(g.Scale(lv, 0.5)), eps))
 	logits := g.MLP(dec, z, false)
 	loss := g.Add(losses.GraphBCEWithLogits(g, logits, g.Sigmoid(x)), losses.GraphKLStdNormal(g, mu, lv))
-	both := g.Concat(logits, g.Tanh(z))
+	both := g.Concat(logits, g.Mul(g.Sub(g.Const(1), g.Tanh(z)), g.Sub(g.Tanh(z), g.Const(0.5))))
 	w := g.Input("w", 1, 8)
 	r := g.MulRow(g.AddRow(both, w), w)
 	loss = g.Add(loss, g.Mean(g.Square(r)))
@@ -282,4 +282,35 @@ func TestFirstNonFinite(t *testing.T) {
 			}
 		}
 	}
+}
+
+// The fused sum and scalar arithmetic: value and gradients against central
+// differences of a float64 reference written out here,
+// (sum A * sum B - 0.3 sum A) + mean B - sum A + 2 (common practice, no
+// source).
+func TestScalarArithmeticGradient(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 11))
+	pa, pb := layers.NewParam("a", 2, 3, layers.Float64), layers.NewParam("b", 3, 2, layers.Float64)
+	for _, p := range []*layers.Param{pa, pb} {
+		for i := range p.F64() {
+			p.F64()[i] = rng.NormFloat64()
+		}
+	}
+	sum := func(v []float64) (s float64) {
+		for _, x := range v {
+			s += x
+		}
+		return s
+	}
+	ref := func() float64 {
+		sa, sb := sum(pa.F64()), sum(pb.F64())
+		return (sa*sb - 0.3*sa) + sb/6 - sa + 2
+	}
+	res, err := gradcheck.Check([]*layers.Param{pa, pb}, func(g *engine.Graph) *engine.Node {
+		sa, sb := g.Sum(g.Param(pa)), g.Sum(g.Param(pb))
+		l := g.Add(g.Sub(g.Mul(sa, sb), g.Scale(sa, 0.3)), g.Mean(g.Param(pb)))
+		return g.Shift(g.Sub(l, sa), 2)
+	}, ref, 1e-4)
+	require.NoError(t, err)
+	require.Less(t, res.MaxRelErr, 1e-7, res.String())
 }
