@@ -29,6 +29,14 @@ var kernel = kernelGo
 // element as kernel.
 var kernelPair func(k int, a, b0, b1, c []float32, ldc int, overwrite bool)
 
+// copyPanel copies n rows of nr values, lds apart in src, into dst (an
+// untransposed B panel into its packed form); assembly where available.
+var copyPanel = func(dst, src []float32, n, lds int) {
+	for p := 0; p < n; p++ {
+		copy(dst[p*nr:p*nr+nr], src[p*lds:p*lds+nr])
+	}
+}
+
 // kernelAVX2 is the AVX2 kernel where there is one, kept for the test
 // that checks the AVX-512 kernels against it.
 var kernelAVX2 func(k int, a, b, c []float32, ldc int, overwrite bool)
@@ -393,10 +401,7 @@ func packB(dst []float32, tB blas.Transpose, b []float32, ldb, pc, kb, jc, nb in
 		w := min(nr, nb-jp*nr)
 		if tB == blas.NoTrans {
 			if w == nr {
-				for p := 0; p < kb; p++ {
-					o := (pc+p)*ldb + j0
-					*(*[nr]float32)(pan[p*nr:]) = *(*[nr]float32)(b[o : o+nr])
-				}
+				copyPanel(pan, b[pc*ldb+j0:], kb, ldb)
 				continue
 			}
 			for p := 0; p < kb; p++ {

@@ -7,6 +7,19 @@ import "golang.org/x/sys/cpu"
 //go:noescape
 func kern6x16(k int, a, b, c *float32, ldc int, overwrite bool)
 
+//go:noescape
+func copyRows16(dst, src *float32, n, lds int)
+
+// copyPanelAsm copies n rows of 16 values, lds apart in src, into dst.
+func copyPanelAsm(dst, src []float32, n, lds int) {
+	if n == 0 {
+		return
+	}
+	_ = dst[n*nr-1]
+	_ = src[(n-1)*lds+nr-1]
+	copyRows16(&dst[0], &src[0], n, lds)
+}
+
 func kernelAsm(k int, a, b, c []float32, ldc int, overwrite bool) {
 	if k == 0 {
 		return
@@ -22,6 +35,7 @@ func init() {
 	if cpu.X86.HasAVX2 && cpu.X86.HasFMA {
 		kernel = kernelAsm
 		kernelAVX2 = kernelAsm
+		copyPanel = copyPanelAsm
 		useAsm = true
 	}
 }

@@ -107,3 +107,29 @@ store:
 	VMOVUPS Y11, 32(DX)
 	VZEROUPPER
 	RET
+
+// func copyRows16(dst, src *float32, n, lds int)
+// dst[i*16 : i*16+16] = src[i*lds : i*lds+16] for i < n: the rows of an
+// untransposed B panel into its packed form.
+TEXT ·copyRows16(SB), NOSPLIT, $0-32
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ n+16(FP), CX
+	MOVQ lds+24(FP), R8
+	SHLQ $2, R8
+	TESTQ CX, CX
+	JEQ  done16
+
+rows16:
+	VMOVUPS (SI), Y0
+	VMOVUPS 32(SI), Y1
+	VMOVUPS Y0, (DI)
+	VMOVUPS Y1, 32(DI)
+	ADDQ R8, SI
+	ADDQ $64, DI
+	DECQ CX
+	JNZ  rows16
+
+done16:
+	VZEROUPPER
+	RET
