@@ -37,6 +37,14 @@ var copyPanel = func(dst, src []float32, n, lds int) {
 	}
 }
 
+// copyPanel6 copies n rows of mr values, lds apart in src, into dst (a
+// transposed A panel into its packed form); assembly where available.
+var copyPanel6 = func(dst, src []float32, n, lds int) {
+	for p := 0; p < n; p++ {
+		copy(dst[p*mr:p*mr+mr], src[p*lds:p*lds+mr])
+	}
+}
+
 // kernelAVX2 is the AVX2 kernel where there is one, kept for the test
 // that checks the AVX-512 kernels against it.
 var kernelAVX2 func(k int, a, b, c []float32, ldc int, overwrite bool)
@@ -362,6 +370,10 @@ func packA(dst []float32, tA blas.Transpose, a []float32, lda int, alpha float32
 			// op(A) = A^T: the panel's mr values at depth p are
 			// consecutive in row pc+p of A
 			r0 := ic + ip*mr
+			if alpha == 1 {
+				copyPanel6(pan, a[pc*lda+r0:], kb, lda)
+				continue
+			}
 			for p := 0; p < kb; p++ {
 				src := a[(pc+p)*lda+r0 : (pc+p)*lda+r0+mr]
 				d := pan[p*mr : p*mr+mr]

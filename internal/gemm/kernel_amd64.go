@@ -20,6 +20,19 @@ func copyPanelAsm(dst, src []float32, n, lds int) {
 	copyRows16(&dst[0], &src[0], n, lds)
 }
 
+//go:noescape
+func copyRows6(dst, src *float32, n, lds int)
+
+// copyPanel6Asm copies n rows of 6 values, lds apart in src, into dst.
+func copyPanel6Asm(dst, src []float32, n, lds int) {
+	if n == 0 {
+		return
+	}
+	_ = dst[n*mr-1]
+	_ = src[(n-1)*lds+mr-1]
+	copyRows6(&dst[0], &src[0], n, lds)
+}
+
 func kernelAsm(k int, a, b, c []float32, ldc int, overwrite bool) {
 	if k == 0 {
 		return
@@ -36,6 +49,7 @@ func init() {
 		kernel = kernelAsm
 		kernelAVX2 = kernelAsm
 		copyPanel = copyPanelAsm
+		copyPanel6 = copyPanel6Asm
 		useAsm = true
 	}
 }

@@ -133,3 +133,28 @@ rows16:
 done16:
 	VZEROUPPER
 	RET
+
+// func copyRows6(dst, src *float32, n, lds int)
+// dst[i*6 : i*6+6] = src[i*lds : i*lds+6] for i < n: a transposed A's
+// panel, six consecutive values per depth step, into its packed form.
+TEXT ·copyRows6(SB), NOSPLIT, $0-32
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ n+16(FP), CX
+	MOVQ lds+24(FP), R8
+	SHLQ $2, R8
+	TESTQ CX, CX
+	JEQ  done6
+
+rows6:
+	MOVUPS (SI), X0
+	MOVQ   16(SI), AX
+	MOVUPS X0, (DI)
+	MOVQ   AX, 16(DI)
+	ADDQ R8, SI
+	ADDQ $24, DI
+	DECQ CX
+	JNZ  rows6
+
+done6:
+	RET
