@@ -45,6 +45,10 @@ var copyPanel6 = func(dst, src []float32, n, lds int) {
 	}
 }
 
+// packTrans, when not nil, packs the first multiple of 8 depth steps of a
+// full transposed B panel and returns how many it packed (assembly).
+var packTrans func(pan, b []float32, ldb, pc, kb, j0 int) int
+
 // kernelAVX2 is the AVX2 kernel where there is one, kept for the test
 // that checks the AVX-512 kernels against it.
 var kernelAVX2 func(k int, a, b, c []float32, ldc int, overwrite bool)
@@ -425,13 +429,20 @@ func packB(dst []float32, tB blas.Transpose, b []float32, ldb, pc, kb, jc, nb in
 		}
 		// op(B) = B^T: column j of the panel is row j0+j of B, read
 		// in order
+		done := 0
+		if w == nr && packTrans != nil {
+			done = packTrans(pan, b, ldb, pc, kb, j0)
+		}
+		if done == kb {
+			continue
+		}
 		if w < nr {
 			clear(pan)
 		}
 		for j := 0; j < w; j++ {
-			src := b[(j0+j)*ldb+pc : (j0+j)*ldb+pc+kb]
+			src := b[(j0+j)*ldb+pc+done : (j0+j)*ldb+pc+kb]
 			for p, v := range src {
-				pan[p*nr+j] = v
+				pan[(done+p)*nr+j] = v
 			}
 		}
 	}

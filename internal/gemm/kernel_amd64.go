@@ -33,6 +33,23 @@ func copyPanel6Asm(dst, src []float32, n, lds int) {
 	copyRows6(&dst[0], &src[0], n, lds)
 }
 
+//go:noescape
+func transpose16(dst, src *float32, lds, groups int)
+
+// packTransAsm packs the first multiple of 8 depth steps of a full
+// transposed B panel (rows j0..j0+15 of B from column pc) and returns how
+// many it packed.
+func packTransAsm(pan, b []float32, ldb, pc, kb, j0 int) int {
+	g := kb / 8
+	if g == 0 {
+		return 0
+	}
+	_ = pan[g*8*nr-1]
+	_ = b[(j0+nr-1)*ldb+pc+g*8-1]
+	transpose16(&pan[0], &b[j0*ldb+pc], ldb, g)
+	return g * 8
+}
+
 func kernelAsm(k int, a, b, c []float32, ldc int, overwrite bool) {
 	if k == 0 {
 		return
@@ -50,6 +67,7 @@ func init() {
 		kernelAVX2 = kernelAsm
 		copyPanel = copyPanelAsm
 		copyPanel6 = copyPanel6Asm
+		packTrans = packTransAsm
 		useAsm = true
 	}
 }
