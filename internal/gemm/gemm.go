@@ -49,6 +49,10 @@ var copyPanel6 = func(dst, src []float32, n, lds int) {
 // full transposed B panel and returns how many it packed (assembly).
 var packTrans func(pan, b []float32, ldb, pc, kb, j0 int) int
 
+// packRows, when not nil, packs the first multiple of 8 depth steps of a
+// full untransposed A panel and returns how many it packed (assembly).
+var packRows func(pan, a []float32, lda, pc, kb, r0 int) int
+
 // kernelAVX2 is the AVX2 kernel where there is one, kept for the test
 // that checks the AVX-512 kernels against it.
 var kernelAVX2 func(k int, a, b, c []float32, ldc int, overwrite bool)
@@ -351,7 +355,16 @@ func packA(dst []float32, tA blas.Transpose, a []float32, lda int, alpha float32
 		pan := dst[ip*kb*mr : (ip+1)*kb*mr]
 		rows := min(mr, mb-ip*mr)
 		if tA == blas.NoTrans && rows == mr {
+			done := 0
+			if alpha == 1 && packRows != nil {
+				done = packRows(pan, a, lda, pc, kb, ic+ip*mr)
+			}
+			if done == kb {
+				continue
+			}
 			// six rows read side by side, the panel written in order
+			pan := pan[done*mr:]
+			kb, pc := kb-done, pc+done
 			base := (ic+ip*mr)*lda + pc
 			r0 := a[base : base+kb]
 			r1 := a[base+lda : base+lda+kb]

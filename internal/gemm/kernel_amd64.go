@@ -50,6 +50,23 @@ func packTransAsm(pan, b []float32, ldb, pc, kb, j0 int) int {
 	return g * 8
 }
 
+//go:noescape
+func interleave6(dst, src *float32, lda, groups int)
+
+// packRowsAsm packs the first multiple of 8 depth steps of a full
+// untransposed A panel (rows r0..r0+5 of A from column pc) and returns
+// how many it packed.
+func packRowsAsm(pan, a []float32, lda, pc, kb, r0 int) int {
+	g := kb / 8
+	if g == 0 {
+		return 0
+	}
+	_ = pan[g*8*mr-1]
+	_ = a[(r0+mr-1)*lda+pc+g*8-1]
+	interleave6(&pan[0], &a[r0*lda+pc], lda, g)
+	return g * 8
+}
+
 func kernelAsm(k int, a, b, c []float32, ldc int, overwrite bool) {
 	if k == 0 {
 		return
@@ -68,6 +85,7 @@ func init() {
 		copyPanel = copyPanelAsm
 		copyPanel6 = copyPanel6Asm
 		packTrans = packTransAsm
+		packRows = packRowsAsm
 		useAsm = true
 	}
 }

@@ -275,3 +275,80 @@ groupt:
 donet:
 	VZEROUPPER
 	RET
+
+// func interleave6(dst, src *float32, lda, groups int)
+// Packs an untransposed A panel: for p < 8*groups and i < 6,
+// dst[p*6+i] = src[i*lda+p], by an 8x8 register transpose (two rows of
+// zeros) per group of eight depth steps. Each of the first seven stores
+// writes two values past its six, which the next store overwrites; the
+// last stores exactly six, so nothing past the group is touched.
+TEXT ·interleave6(SB), NOSPLIT, $0-32
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ lda+16(FP), R8
+	MOVQ groups+24(FP), CX
+	SHLQ $2, R8
+	TESTQ CX, CX
+	JEQ  donei
+	LEAQ (SI)(R8*1), R9
+	LEAQ (R9)(R8*1), R10
+	LEAQ (R10)(R8*1), R11
+	LEAQ (SI)(R8*4), R12
+	LEAQ (R9)(R8*4), R13
+
+groupi:
+	VMOVUPS (SI), Y0
+	VMOVUPS (R9), Y1
+	VMOVUPS (R10), Y2
+	VMOVUPS (R11), Y3
+	VMOVUPS (R12), Y4
+	VMOVUPS (R13), Y5
+	VXORPS Y6, Y6, Y6
+	VXORPS Y7, Y7, Y7
+	VUNPCKLPS Y1, Y0, Y8
+	VUNPCKHPS Y1, Y0, Y9
+	VUNPCKLPS Y3, Y2, Y10
+	VUNPCKHPS Y3, Y2, Y11
+	VUNPCKLPS Y5, Y4, Y12
+	VUNPCKHPS Y5, Y4, Y13
+	VUNPCKLPS Y7, Y6, Y14
+	VUNPCKHPS Y7, Y6, Y15
+	VSHUFPS $0x44, Y10, Y8, Y0
+	VSHUFPS $0xEE, Y10, Y8, Y1
+	VSHUFPS $0x44, Y11, Y9, Y2
+	VSHUFPS $0xEE, Y11, Y9, Y3
+	VSHUFPS $0x44, Y14, Y12, Y4
+	VSHUFPS $0xEE, Y14, Y12, Y5
+	VSHUFPS $0x44, Y15, Y13, Y6
+	VSHUFPS $0xEE, Y15, Y13, Y7
+	VPERM2F128 $0x20, Y4, Y0, Y8
+	VPERM2F128 $0x20, Y5, Y1, Y9
+	VPERM2F128 $0x20, Y6, Y2, Y10
+	VPERM2F128 $0x20, Y7, Y3, Y11
+	VPERM2F128 $0x31, Y4, Y0, Y12
+	VPERM2F128 $0x31, Y5, Y1, Y13
+	VPERM2F128 $0x31, Y6, Y2, Y14
+	VPERM2F128 $0x31, Y7, Y3, Y15
+	VMOVUPS Y8, (DI)
+	VMOVUPS Y9, 24(DI)
+	VMOVUPS Y10, 48(DI)
+	VMOVUPS Y11, 72(DI)
+	VMOVUPS Y12, 96(DI)
+	VMOVUPS Y13, 120(DI)
+	VMOVUPS Y14, 144(DI)
+	VMOVUPS X15, 168(DI)
+	VEXTRACTF128 $1, Y15, X14
+	VMOVQ X14, 184(DI)
+	ADDQ $32, SI
+	ADDQ $32, R9
+	ADDQ $32, R10
+	ADDQ $32, R11
+	ADDQ $32, R12
+	ADDQ $32, R13
+	ADDQ $192, DI
+	DECQ CX
+	JNZ  groupi
+
+donei:
+	VZEROUPPER
+	RET
