@@ -9,6 +9,7 @@ import (
 	"unsafe"
 
 	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/vec"
 	"github.com/quernlab/quern/layers"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
@@ -850,6 +851,11 @@ func firstNonFinite(g []float32) int {
 // the sign bit exactly then, and the low half cannot carry into the high
 // one. A first value off 8-byte alignment is checked alone.
 func anyNonFinite(g []float32) bool {
+	bad, done := vec.NonFinite(g)
+	if bad {
+		return true
+	}
+	g = g[done:]
 	if len(g) == 0 {
 		return false
 	}

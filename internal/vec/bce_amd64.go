@@ -44,3 +44,17 @@ func BCE(d, x, y []float32) (float64, int) {
 	_, _ = y[n-1], d[n-1]
 	return bceAVX(&x[0], &y[0], &d[0], n, &bceTable), n
 }
+
+//go:noescape
+func nonFiniteAVX(xp *float32, n int) bool
+
+// NonFinite reports whether the largest multiple of 8 values at the start
+// of g holds a NaN or an infinity, and how many values it looked at (0
+// when the vector kernel is not enabled). The caller checks the rest.
+func NonFinite(g []float32) (bool, int) {
+	n := len(g) &^ 7
+	if !Enabled || n == 0 {
+		return false, 0
+	}
+	return nonFiniteAVX(&g[0], n), n
+}

@@ -84,3 +84,37 @@ done:
 	VMOVSD  X14, ret+40(FP)
 	VZEROUPPER
 	RET
+
+// func nonFiniteAVX(xp *float32, n int) bool
+// Reports whether any of the n values (a multiple of 8) has an all-ones
+// exponent (NaN or infinity): (bits & 0x7f800000) + 0x00800000 carries
+// into the sign bit exactly then; the lanes are ORed and the sign bits
+// tested at the end.
+TEXT ·nonFiniteAVX(SB), NOSPLIT, $0-17
+	MOVQ xp+0(FP), SI
+	MOVQ n+8(FP), CX
+	MOVL $0x7f800000, AX
+	MOVQ AX, X8
+	VPBROADCASTD X8, Y8
+	MOVL $0x00800000, AX
+	MOVQ AX, X9
+	VPBROADCASTD X9, Y9
+	VPXOR Y10, Y10, Y10
+	VPXOR Y11, Y11, Y11
+	XORQ BX, BX
+
+loopnf:
+	CMPQ BX, CX
+	JGE  endnf
+	VPAND (SI)(BX*4), Y8, Y0
+	VPADDD Y9, Y0, Y0
+	VPOR Y0, Y10, Y10
+	ADDQ $8, BX
+	JMP  loopnf
+
+endnf:
+	VMOVMSKPS Y10, AX
+	TESTL AX, AX
+	SETNE ret+16(FP)
+	VZEROUPPER
+	RET
