@@ -58,3 +58,39 @@ func NonFinite(g []float32) (bool, int) {
 	}
 	return nonFiniteAVX(&g[0], n), n
 }
+
+//go:noescape
+func addAVX(dst, src *float32, n int)
+
+// Add adds src into dst for the largest multiple of 8 values of dst
+// (src at least as long) and returns how many it added.
+func Add(dst, src []float32) int {
+	n := len(dst) &^ 7
+	if !Enabled || n == 0 {
+		return 0
+	}
+	_ = src[n-1]
+	addAVX(&dst[0], &src[0], n)
+	return n
+}
+
+//go:noescape
+func leakyAVX(dst, xp, gp *float32, n int, slope float32)
+
+// Leaky writes x (or slope*x where x's sign bit is set) into dst, or,
+// with g not nil, g (or slope*g there), for the largest multiple of 8
+// values of x, and returns how many it wrote.
+func Leaky(dst, x, g []float32, slope float32) int {
+	n := len(x) &^ 7
+	if !Enabled || n == 0 {
+		return 0
+	}
+	_ = dst[n-1]
+	if g == nil {
+		leakyAVX(&dst[0], &x[0], nil, n, slope)
+		return n
+	}
+	_ = g[n-1]
+	leakyAVX(&dst[0], &x[0], &g[0], n, slope)
+	return n
+}

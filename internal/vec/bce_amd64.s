@@ -118,3 +118,65 @@ endnf:
 	SETNE ret+16(FP)
 	VZEROUPPER
 	RET
+
+// func addAVX(dst, src *float32, n int)
+// dst[i] += src[i] for i < n (a multiple of 8).
+TEXT ·addAVX(SB), NOSPLIT, $0-24
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ n+16(FP), CX
+	XORQ BX, BX
+
+loopadd:
+	CMPQ BX, CX
+	JGE  endadd
+	VMOVUPS (DI)(BX*4), Y0
+	VADDPS  (SI)(BX*4), Y0, Y0
+	VMOVUPS Y0, (DI)(BX*4)
+	ADDQ $8, BX
+	JMP  loopadd
+
+endadd:
+	VZEROUPPER
+	RET
+
+// func leakyAVX(dst, xp, gp *float32, n int, slope float32)
+// With g nil: dst[i] = x[i] * f(x[i]); else dst[i] = g[i] * f(x[i]), where
+// f is slope where the sign bit of x[i] is set and 1 elsewhere; n is a
+// multiple of 8.
+TEXT ·leakyAVX(SB), NOSPLIT, $0-36
+	MOVQ dst+0(FP), DI
+	MOVQ xp+8(FP), SI
+	MOVQ gp+16(FP), DX
+	MOVQ n+24(FP), CX
+	VBROADCASTSS slope+32(FP), Y8
+	MOVL $0x3f800000, AX
+	MOVQ AX, X9
+	VPBROADCASTD X9, Y9
+	XORQ BX, BX
+	TESTQ DX, DX
+	JNE  loopgrad
+
+loopfwd:
+	CMPQ BX, CX
+	JGE  endleaky
+	VMOVUPS (SI)(BX*4), Y0
+	VBLENDVPS Y0, Y8, Y9, Y1
+	VMULPS Y1, Y0, Y0
+	VMOVUPS Y0, (DI)(BX*4)
+	ADDQ $8, BX
+	JMP  loopfwd
+
+loopgrad:
+	CMPQ BX, CX
+	JGE  endleaky
+	VMOVUPS (SI)(BX*4), Y0
+	VBLENDVPS Y0, Y8, Y9, Y1
+	VMULPS (DX)(BX*4), Y1, Y1
+	VMOVUPS Y1, (DI)(BX*4)
+	ADDQ $8, BX
+	JMP  loopgrad
+
+endleaky:
+	VZEROUPPER
+	RET

@@ -10,3 +10,9 @@ func BCE(d, x, y []float32) (float64, int) { return 0, 0 }
 
 // NonFinite looks at nothing in this build; see the amd64 version.
 func NonFinite(g []float32) (bool, int) { return false, 0 }
+
+// Add adds nothing in this build; see the amd64 version.
+func Add(dst, src []float32) int { return 0 }
+
+// Leaky writes nothing in this build; see the amd64 version.
+func Leaky(dst, x, g []float32, slope float32) int { return 0 }

@@ -2,6 +2,7 @@ package vec_test
 
 import (
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"github.com/quernlab/quern/internal/vec"
@@ -34,6 +35,51 @@ func TestNonFinite(t *testing.T) {
 				bad, _ := vec.NonFinite(g)
 				require.True(t, bad, "n=%d %v at %d", n, v, pos)
 				g[pos] = old
+			}
+		}
+	}
+}
+
+// Add and Leaky give bitwise what the plain loops give (the same single
+// operation per element), over lengths around the vector width, with
+// negative zero and both signs.
+func TestAddAndLeakyMatchLoops(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 3))
+	for _, n := range []int{0, 1, 8, 13, 64, 67} {
+		x, y, g := make([]float32, n), make([]float32, n), make([]float32, n)
+		for i := range x {
+			x[i] = float32(rng.NormFloat64())
+			y[i] = float32(rng.NormFloat64())
+			g[i] = float32(rng.NormFloat64())
+		}
+		if n > 1 {
+			x[0], x[1] = float32(math.Copysign(0, -1)), 0
+		}
+		sum := append([]float32(nil), y...)
+		done := vec.Add(sum, x)
+		for i := range sum {
+			want := y[i] + x[i]
+			if i >= done {
+				sum[i] += x[i]
+			}
+			require.Equal(t, math.Float32bits(want), math.Float32bits(sum[i]), "add n=%d i=%d", n, i)
+		}
+		for _, grad := range [][]float32{nil, g} {
+			out := make([]float32, n)
+			done := vec.Leaky(out, x, grad, 0.2)
+			for i := done; i < n; i++ {
+				out[i] = math.Float32frombits(0x7fc00000) // the caller's part: left as NaN
+			}
+			for i := 0; i < done; i++ {
+				f := float32(1)
+				if math.Signbit(float64(x[i])) {
+					f = 0.2
+				}
+				want := x[i] * f
+				if grad != nil {
+					want = grad[i] * f
+				}
+				require.Equal(t, math.Float32bits(want), math.Float32bits(out[i]), "leaky n=%d i=%d grad=%v", n, i, grad != nil)
 			}
 		}
 	}
