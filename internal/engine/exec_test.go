@@ -314,3 +314,16 @@ func TestScalarArithmeticGradient(t *testing.T) {
 	require.NoError(t, err)
 	require.Less(t, res.MaxRelErr, 1e-7, res.String())
 }
+
+// exp32 against Go's math.Exp (the reference) across the range the
+// log-variances and logits of the models use, both signs.
+func TestExp32Accuracy(t *testing.T) {
+	for x := -80.0; x <= 80; x += 0.0137 {
+		x32 := float32(x)
+		want := math.Exp(float64(x32))
+		got := float64(engine.Exp32(x32))
+		require.InDelta(t, want, got, 3.5e-7*want, "x=%v", x32)
+	}
+	require.True(t, math.IsInf(float64(engine.Exp32(100)), 1))
+	require.Zero(t, engine.Exp32(-100))
+}

@@ -41,3 +41,6 @@ var Tanh32 = tanh32
 
 // FirstNonFinite exposes firstNonFinite to the tests.
 var FirstNonFinite = firstNonFinite
+
+// Exp32 exposes exp32 to the tests.
+var Exp32 = exp32

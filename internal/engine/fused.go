@@ -260,9 +260,9 @@ func bceLogitsGrad32(o, xs, ys, gs []float32) {
 	for i, v := range xs {
 		var s float32
 		if v >= 0 {
-			s = 1 / (1 + math32.Exp(-v))
+			s = 1 / (1 + expNeg32(v))
 		} else {
-			e := math32.Exp(v)
+			e := expNeg32(-v)
 			s = e / (1 + e)
 		}
 		o[i] = (s - ys[i]) * gs[i]

@@ -132,6 +132,15 @@ func bceSumBlocks32(part []float64, d, xs, ys []float32, lo, hi int) {
 	}
 }
 
+// exp32 is exp(x) in float32 by expNeg32: directly for x <= 0, as the
+// reciprocal of exp(-x) above (one more rounding; +Inf beyond 87.3).
+func exp32(x float32) float32 {
+	if x <= 0 {
+		return expNeg32(-x)
+	}
+	return 1 / expNeg32(x)
+}
+
 // expNeg32 is exp(-a) for a >= 0 in float32: a = k ln2 + r with |r| <=
 // ln2/2 (ln2 split in two parts so that k ln2 is exact), exp(r) by its
 // Taylor series to degree 7 (remainder below 6e-9 relative), scaled by

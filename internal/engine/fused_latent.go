@@ -4,7 +4,6 @@ import (
 	"fmt"
 
 	"github.com/chewxy/hm"
-	"github.com/chewxy/math32"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 	"math"
@@ -150,7 +149,7 @@ func (op reparamOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	case tensor.Float32:
 		mu, lv, eps, o := f32(x[0]), f32(x[1]), f32(x[2]), f32(out)
 		for i, m := range mu {
-			o[i] = m + math32.Exp(0.5*lv[i])*eps[i]
+			o[i] = m + exp32(0.5*lv[i])*eps[i]
 		}
 	case tensor.Float64:
 		mu, lv, eps, o := f64(x[0]), f64(x[1]), f64(x[2]), f64(out)
@@ -203,7 +202,7 @@ func (op reparamGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error)
 	case tensor.Float32:
 		lv, eps, g, o := f32(x[0]), f32(x[1]), f32(x[2]), f32(out)
 		for i, l := range lv {
-			s := math32.Exp(0.5 * l)
+			s := exp32(0.5 * l)
 			if op.logVar {
 				o[i] = g[i] * eps[i] * s * 0.5
 			} else {
@@ -256,7 +255,7 @@ func (op klOp) Do(in ...G.Value) (G.Value, error) {
 		var s float64
 		for i, m := range mu {
 			l := lv[i]
-			s += float64(m*m + math32.Exp(l) - 1 - l)
+			s += float64(m*m + exp32(l) - 1 - l)
 		}
 		return op.scalar32(float32(0.5 * s / float64(r))), nil
 	case tensor.Float64:
@@ -319,7 +318,7 @@ func (op klGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		v, o := f32(x[0]), f32(out)
 		for i, e := range v {
 			if op.logVar {
-				o[i] = k * 0.5 * (math32.Exp(e) - 1)
+				o[i] = k * 0.5 * (exp32(e) - 1)
 			} else {
 				o[i] = k * e
 			}
