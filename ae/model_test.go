@@ -272,5 +272,7 @@ func TestInferenceAllocatesNothing(t *testing.T) {
 		_, _ = m.ContributionsInto(contrib, x, 5)
 	}
 	warm()
-	require.Zero(t, testing.AllocsPerRun(50, warm))
+	if !raceBuild { // the race detector's instrumentation allocates
+		require.Zero(t, testing.AllocsPerRun(50, warm))
+	}
 }

@@ -69,7 +69,9 @@ func TestGenerateIntoAllocatesNothing(t *testing.T) {
 	dst := make([]float32, 30)
 	_, err = m.GenerateInto(dst, 10, 1, -1)
 	require.NoError(t, err)
-	require.Zero(t, testing.AllocsPerRun(50, func() { _, _ = m.GenerateInto(dst, 10, 1, 1) }))
+	if !raceBuild { // the race detector's instrumentation allocates
+		require.Zero(t, testing.AllocsPerRun(50, func() { _, _ = m.GenerateInto(dst, 10, 1, 1) }))
+	}
 	a, _ := m.Generate(10, 5, 1)
 	b, _ := m.GenerateInto(nil, 10, 5, 1)
 	require.Equal(t, a, b)

@@ -159,5 +159,7 @@ func TestIntoVariants(t *testing.T) {
 		_, _ = m.SampleInto(smp, 6, 9)
 	}
 	run()
-	require.Zero(t, testing.AllocsPerRun(50, run))
+	if !raceBuild { // the race detector's instrumentation allocates
+		require.Zero(t, testing.AllocsPerRun(50, run))
+	}
 }
