@@ -8,6 +8,7 @@ import (
 
 	"github.com/quernlab/quern/internal/engine"
 	"github.com/quernlab/quern/internal/gradcheck"
+	"github.com/quernlab/quern/internal/vec"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/stretchr/testify/require"
@@ -326,4 +327,27 @@ func TestExp32Accuracy(t *testing.T) {
 	}
 	require.True(t, math.IsInf(float64(engine.Exp32(100)), 1))
 	require.Zero(t, engine.Exp32(-100))
+}
+
+// The vector tanh gives bitwise what tanh32 gives (the same operations in
+// the same order), densely across both branches and their boundary,
+// signed zeros, tiny and huge values.
+func TestVectorTanhMatchesTanh32(t *testing.T) {
+	var xs []float32
+	for x := -30.0; x <= 30; x += 0.000917 {
+		xs = append(xs, float32(x))
+	}
+	xs = append(xs, 0, float32(math.Copysign(0, -1)), 0.35, -0.35, math.Nextafter32(0.35, 0), 1e-30, -1e-30, 43.65, 43.7, 1e30, -1e30)
+	for len(xs)%8 != 0 {
+		xs = append(xs, 1)
+	}
+	got := make([]float32, len(xs))
+	done := vec.Tanh(got, xs)
+	if done == 0 {
+		t.Skip("no vector kernel on this CPU or build")
+	}
+	require.Equal(t, len(xs), done)
+	for i, x := range xs {
+		require.Equal(t, math.Float32bits(engine.Tanh32(x)), math.Float32bits(got[i]), "x=%v", x)
+	}
 }

@@ -7,6 +7,7 @@ import (
 	"github.com/chewxy/hm"
 	"github.com/chewxy/math32"
 	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/vec"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )
@@ -86,8 +87,9 @@ func squash32(o, xs []float32, kind squash) {
 	o = o[:len(xs)]
 	switch kind {
 	case squashTanh:
-		for i, v := range xs {
-			o[i] = tanh32(v)
+		done := vec.Tanh(o, xs)
+		for i, v := range xs[done:] {
+			o[done+i] = tanh32(v)
 		}
 		return
 	case squashSoftplus:

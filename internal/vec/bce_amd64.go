@@ -94,3 +94,55 @@ func Leaky(dst, x, g []float32, slope float32) int {
 	leakyAVX(&dst[0], &x[0], &g[0], n, slope)
 	return n
 }
+
+//go:noescape
+func tanhAVX(dst, xp *float32, n int, c *[23][8]float32)
+
+// tanhTable holds tanhAVX's constants, each in eight lanes, as float32
+// values rounded from the same expressions as in package engine's tanh32.
+var tanhTable = func() (t [23][8]float32) {
+	vals := [23]float32{
+		math.Float32frombits(0x7fffffff), // absmask
+		math.Float32frombits(0x80000000), // signmask
+		0.35,                             // c035
+		87.3,                             // c873
+		1.44269504088896341,              // log2e
+		0.5,                              // half
+		0.693359375,                      // ln2hi
+		-2.12194440e-4,                   // ln2lo
+		1.0 / 5040,                       // e7
+		1.0 / 720,                        // e6
+		1.0 / 120,                        // e5
+		1.0 / 24,                         // e4
+		1.0 / 6,                          // e3
+		1.0 / 2,                          // e2
+		1,                                // one
+		math.Float32frombits(127),        // i127
+		2,                                // two
+		21844.0 / 6081075,                // t7
+		-1382.0 / 155925,                 // t6
+		62.0 / 2835,                      // t5
+		-17.0 / 315,                      // t4
+		2.0 / 15,                         // t3
+		-1.0 / 3,                         // t2
+	}
+	for i, v := range vals {
+		for j := range t[i] {
+			t[i][j] = v
+		}
+	}
+	return
+}()
+
+// Tanh writes tanh(x) into dst for the largest multiple of 8 values of x,
+// bitwise as package engine's tanh32 computes it, and returns how many it
+// wrote (0 when the vector kernel is not enabled).
+func Tanh(dst, x []float32) int {
+	n := len(x) &^ 7
+	if !Enabled || n == 0 {
+		return 0
+	}
+	_ = dst[n-1]
+	tanhAVX(&dst[0], &x[0], n, &tanhTable)
+	return n
+}

@@ -180,3 +180,82 @@ loopgrad:
 endleaky:
 	VZEROUPPER
 	RET
+
+// func tanhAVX(dst, xp *float32, n int, c *[23][8]float32)
+// dst[i] = tanh(x[i]) for i < n (a multiple of 8) by the method and in the
+// operation order of package engine's tanh32 (separate multiplies and
+// adds, no fused multiply-add), so the results are bitwise those of the
+// Go function: the Taylor series below |x| = 0.35, (1 - e)/(1 + e) with
+// e = exp(-2|x|) above, the sign copied from x.
+TEXT ·tanhAVX(SB), NOSPLIT, $0-32
+	MOVQ dst+0(FP), DI
+	MOVQ xp+8(FP), SI
+	MOVQ n+16(FP), CX
+	MOVQ c+24(FP), AX
+	XORQ BX, BX
+
+looptanh:
+	CMPQ BX, CX
+	JGE  endtanh
+	VMOVUPS (SI)(BX*4), Y0          // x
+	VANDPS  0(AX), Y0, Y1        // a = |x|
+	// series: a * (1 + a2*(t2 + a2*(t3 + ... + a2*t7)))
+	VMULPS  Y1, Y1, Y2              // a2
+	VMULPS  544(AX), Y2, Y3
+	VADDPS  576(AX), Y3, Y3
+	VMULPS  Y2, Y3, Y3
+	VADDPS  608(AX), Y3, Y3
+	VMULPS  Y2, Y3, Y3
+	VADDPS  640(AX), Y3, Y3
+	VMULPS  Y2, Y3, Y3
+	VADDPS  672(AX), Y3, Y3
+	VMULPS  Y2, Y3, Y3
+	VADDPS  704(AX), Y3, Y3
+	VMULPS  Y2, Y3, Y3
+	VADDPS  448(AX), Y3, Y3
+	VMULPS  Y1, Y3, Y3              // series value
+	// exp(-2a) as expNeg32
+	VADDPS  Y1, Y1, Y4              // b = 2a
+	VMULPS  128(AX), Y4, Y5
+	VADDPS  160(AX), Y5, Y5
+	VCVTTPS2DQ Y5, Y6               // int32(b log2e + 0.5)
+	VCVTDQ2PS Y6, Y5                // k
+	VMULPS  192(AX), Y5, Y7          // k ln2hi
+	VSUBPS  Y4, Y7, Y7              // - b
+	VMULPS  224(AX), Y5, Y8          // k ln2lo
+	VADDPS  Y8, Y7, Y7              // r
+	VMULPS  256(AX), Y7, Y8
+	VADDPS  288(AX), Y8, Y8
+	VMULPS  Y7, Y8, Y8
+	VADDPS  320(AX), Y8, Y8
+	VMULPS  Y7, Y8, Y8
+	VADDPS  352(AX), Y8, Y8
+	VMULPS  Y7, Y8, Y8
+	VADDPS  384(AX), Y8, Y8
+	VMULPS  Y7, Y8, Y8
+	VADDPS  416(AX), Y8, Y8
+	VMULPS  Y7, Y8, Y8
+	VADDPS  448(AX), Y8, Y8
+	VMULPS  Y7, Y8, Y8
+	VADDPS  448(AX), Y8, Y8            // exp(r)
+	VMOVDQU 480(AX), Y9
+	VPSUBD  Y6, Y9, Y9
+	VPSLLD  $23, Y9, Y9             // 2^-k
+	VMULPS  Y9, Y8, Y8              // e
+	VCMPPS  $2, 96(AX), Y4, Y10     // b <= 87.3
+	VANDPS  Y10, Y8, Y8             // else e = 0
+	VMOVUPS 448(AX), Y11
+	VSUBPS  Y8, Y11, Y12            // 1 - e
+	VADDPS  Y8, Y11, Y13            // 1 + e
+	VDIVPS  Y13, Y12, Y12           // (1 - e)/(1 + e)
+	VCMPPS  $1, 64(AX), Y1, Y14     // a < 0.35
+	VBLENDVPS Y14, Y3, Y12, Y12     // series where a < 0.35
+	VANDPS  32(AX), Y0, Y15
+	VORPS   Y15, Y12, Y12           // sign of x
+	VMOVUPS Y12, (DI)(BX*4)
+	ADDQ    $8, BX
+	JMP     looptanh
+
+endtanh:
+	VZEROUPPER
+	RET
