@@ -191,7 +191,7 @@ func (m *Model) discriminate(g *engine.Graph, x, y *engine.Node, sig []*engine.N
 		if sig != nil {
 			w = g.Mul(sig[l], w)
 		}
-		h = g.Activate(g.Affine(h, w, g.Param(d.B)), d.Act, d.Slope)
+		h = g.AffineAct(h, w, g.Param(d.B), d.Act, d.Slope)
 	}
 	return h
 }

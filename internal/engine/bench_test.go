@@ -90,3 +90,7 @@ func sgemmBench(b *testing.B, f func(tA, tB blas.Transpose, m, n, k int, alpha f
 	}
 	b.ReportMetric(2*n*n*n*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
 }
+
+// BenchmarkSgemm1024Graph times the product the graphs use in this build
+// (quern's own, or OpenBLAS's under -tags openblas).
+func BenchmarkSgemm1024Graph(b *testing.B) { sgemmBench(b, engine.GraphSgemm) }

@@ -20,10 +20,13 @@ func (blasImpl) Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []flo
 
 func init() { G.Use(blasImpl{}) }
 
-// sgemm and dgemm are the matrix products of the fused operations.
+// sgemm and dgemm are the matrix products of the fused operations;
+// sgemmThen also hands the finished blocks of the product to a
+// gemm.Finisher.
 var (
-	sgemm = gemm.Sgemm
-	dgemm = gonumblas.Implementation{}.Dgemm
+	sgemm     = gemm.Sgemm
+	sgemmThen = gemm.SgemmThen
+	dgemm     = gonumblas.Implementation{}.Dgemm
 )
 
 // BLASName names the BLAS the graphs use: "quern-gemm" here, "openblas"

@@ -6,6 +6,8 @@ package engine
 import "C"
 
 import (
+	"github.com/quernlab/quern/internal/gemm"
+	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/netlib/blas/netlib"
 	G "gorgonia.org/gorgonia"
 )
@@ -21,6 +23,14 @@ var (
 	sgemm = netlib.Implementation{}.Sgemm
 	dgemm = netlib.Implementation{}.Dgemm
 )
+
+// sgemmThen is OpenBLAS's product, then one call finishing the whole of C.
+func sgemmThen(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, then gemm.Finisher) {
+	sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+	if then != nil && m > 0 && n > 0 {
+		then.Finish(0, m, 0, n)
+	}
+}
 
 // BLASName names the BLAS the graphs use.
 func BLASName() string { return "openblas" }

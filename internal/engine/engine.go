@@ -378,6 +378,27 @@ func (gr *Graph) Affine(x, w, b *Node) *Node {
 	return gr.wrap("affine", n, err, x.rows, w.cols)
 }
 
+// AffineAct is Activate(Affine(x, w, b), a, slope), with ReLU and leaky
+// ReLU (slope >= 0) fused into the affine operation: they are applied to
+// each block of the product as it is finished, and their gradient is
+// taken from the output.
+func (gr *Graph) AffineAct(x, w, b *Node, a layers.Activation, slope float64) *Node {
+	if a == layers.ReLU {
+		a, slope = layers.LeakyReLU, 0
+	}
+	if a != layers.LeakyReLU || !(slope >= 0) {
+		return gr.Activate(gr.Affine(x, w, b), a, slope)
+	}
+	if !gr.ok(x, w, b) {
+		return &Node{g: gr}
+	}
+	if x.cols != w.rows || b.rows != 1 || b.cols != w.cols {
+		return gr.fail("affine", fmt.Errorf("shapes %dx%d, %dx%d, %dx%d do not chain", x.rows, x.cols, w.rows, w.cols, b.rows, b.cols))
+	}
+	n, err := G.ApplyOp(newAffineLeaky(slope), x.n, w.n, b.n)
+	return gr.wrap("affine_leaky_relu", n, err, x.rows, w.cols)
+}
+
 // ELU is x for x > 0 and exp(x)-1 otherwise, written as
 // relu(x) - relu(1-exp(x)).
 func (gr *Graph) ELU(x *Node) *Node {
@@ -464,8 +485,7 @@ func (gr *Graph) Dense(d *layers.Dense, x, mask *Node) *Node {
 	if x.cols != d.In {
 		return gr.fail("dense", fmt.Errorf("layer %q takes %d inputs, got %d", d.W.Name(), d.In, x.cols))
 	}
-	h := gr.Affine(x, gr.Param(d.W), gr.Param(d.B))
-	h = gr.Activate(h, d.Act, d.Slope)
+	h := gr.AffineAct(x, gr.Param(d.W), gr.Param(d.B), d.Act, d.Slope)
 	if mask != nil {
 		h = gr.Mul(h, mask)
 	}

@@ -1,6 +1,7 @@
 package engine_test
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"runtime"
@@ -349,5 +350,89 @@ func TestVectorTanhMatchesTanh32(t *testing.T) {
 	require.Equal(t, len(xs), done)
 	for i, x := range xs {
 		require.Equal(t, math.Float32bits(engine.Tanh32(x)), math.Float32bits(got[i]), "x=%v", x)
+	}
+}
+
+// AffineAct (the bias and leaky ReLU applied by the matrix product's
+// goroutines, the gradient taken from the output) gives bitwise the loss,
+// outputs and gradients of Affine followed by LeakyReLU, at slope 0 (ReLU)
+// and 0.2, at one and two threads, with rows of zeros and a zero bias so
+// that some pre-activations are exactly 0 or -0 (common practice, no
+// source: the fused form must not change the arithmetic).
+func TestAffineActMatchesUnfused(t *testing.T) {
+	const rows, in, out = 128, 300, 200 // large enough for the shared product
+	for _, prec := range []layers.Precision{layers.Float32, layers.Float64} {
+		for _, slope := range []float64{0, 0.2} {
+			for _, procs := range []int{1, 2} {
+				run := func(fused bool) (float64, []float64, [][]float64) {
+					old := runtime.GOMAXPROCS(procs)
+					defer runtime.GOMAXPROCS(old)
+					rng := rand.New(rand.NewPCG(4, 4))
+					w := layers.NewParam("w", in, out, prec)
+					b := layers.NewParam("b", 1, out, prec)
+					for i := 0; i < in*out; i++ {
+						w.SetAt(i, rng.NormFloat64()*0.1)
+					}
+					g := engine.NewGraph(prec)
+					x := g.Input("x", rows, in)
+					var h *engine.Node
+					if fused {
+						h = g.AffineAct(x, g.Param(w), g.Param(b), layers.LeakyReLU, slope)
+					} else {
+						h = g.LeakyReLU(g.Affine(x, g.Param(w), g.Param(b)), slope)
+					}
+					// a weighted sum: the gradient reaching h is nonzero where h is 0
+					p, err := g.Compile(g.Sum(g.Mul(h, g.Input("c", rows, out))), engine.CompileOptions{Grad: true, Outputs: []*engine.Node{h}})
+					require.NoError(t, err)
+					defer p.Close()
+					vals := make([]float64, rows*in)
+					for i := range vals {
+						if (i/in)%5 != 0 { // every fifth row stays zero
+							vals[i] = rng.NormFloat64()
+						}
+					}
+					cs := make([]float64, rows*out)
+					for i := range cs {
+						cs[i] = rng.NormFloat64()
+					}
+					if prec == layers.Float32 {
+						for i, v := range vals {
+							p.Input32("x")[i] = float32(v)
+						}
+						for i, v := range cs {
+							p.Input32("c")[i] = float32(v)
+						}
+					} else {
+						copy(p.Input64("x"), vals)
+						copy(p.Input64("c"), cs)
+					}
+					loss, err := p.Run(engine.RunOptions{})
+					require.NoError(t, err)
+					var outs []float64
+					if prec == layers.Float32 {
+						for _, v := range p.Output32(0) {
+							outs = append(outs, float64(v))
+						}
+					} else {
+						outs = append(outs, p.Output64(0)...)
+					}
+					var grads [][]float64
+					for _, q := range p.Params() {
+						var gr []float64
+						for i := 0; i < q.Len(); i++ {
+							gr = append(gr, q.GradAt(i))
+						}
+						grads = append(grads, gr)
+					}
+					return loss, outs, grads
+				}
+				l0, o0, g0 := run(false)
+				l1, o1, g1 := run(true)
+				name := fmt.Sprintf("%v slope %v, %d threads", prec, slope, procs)
+				require.Equal(t, math.Float64bits(l0), math.Float64bits(l1), name)
+				require.Equal(t, o0, o1, name)
+				require.Equal(t, g0, g1, name)
+			}
+		}
 	}
 }

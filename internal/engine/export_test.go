@@ -44,3 +44,6 @@ var FirstNonFinite = firstNonFinite
 
 // Exp32 exposes exp32 to the tests.
 var Exp32 = exp32
+
+// GraphSgemm is the float32 product the fused operations use in this build.
+var GraphSgemm = sgemm

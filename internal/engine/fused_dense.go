@@ -125,10 +125,45 @@ func gemmT(tA, tB blas.Transpose, m, n, k int, a, b, c *tensor.Dense) error {
 	return nil
 }
 
-// affineOp: (x n x in, W in x out, b 1 x out) -> x W + b.
-type affineOp struct{ opBase }
+// affineOp: (x n x in, W in x out, b 1 x out) -> x W + b, or with leaky
+// set leakyReLU(x W + b) at slope >= 0. In float32 the bias and the
+// activation are applied by the matrix product's goroutines to each block
+// of the product as they finish it (gemm.Finisher), while it is in their
+// cache, instead of in two more passes over the whole output.
+type affineOp struct {
+	opBase
+	leaky bool
+	slope float64
+	fin   *affineFinish
+}
 
-func newAffine() affineOp { return affineOp{base("Affine")} }
+func newAffine() affineOp { return affineOp{opBase: base("Affine"), fin: new(affineFinish)} }
+
+// newAffineLeaky is newAffine followed by leaky ReLU at slope (>= 0).
+func newAffineLeaky(slope float64) affineOp {
+	return affineOp{opBase: base(fmt.Sprintf("AffineLeakyReLU(%g)", slope)), leaky: true, slope: slope, fin: new(affineFinish)}
+}
+
+// affineFinish adds the bias to finished blocks of the product c (ldc
+// columns) and applies leaky ReLU where leaky is set: the same element
+// operations, in the same order per element, as addRows then leaky.
+type affineFinish struct {
+	c, b  []float32
+	ldc   int
+	leaky bool
+	slope float32
+}
+
+func (f *affineFinish) Finish(i0, i1, j0, j1 int) {
+	b := f.b[j0:j1]
+	for i := i0; i < i1; i++ {
+		row := f.c[i*f.ldc+j0 : i*f.ldc+j1]
+		addTo32(row, b)
+		if f.leaky {
+			leaky32(row, row, nil, f.slope)
+		}
+	}
+}
 
 func (affineOp) Arity() int         { return 3 }
 func (affineOp) Type() hm.Type      { return fusedType(3) }
@@ -161,27 +196,38 @@ func (op affineOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		return nil, fmt.Errorf("engine: affine shapes %v, %v, %v", t[0].Shape(), t[1].Shape(), t[2].Shape())
 	}
 	out := op.out(p, t[0].Dtype(), n, m)
-	if err := gemmT(blas.NoTrans, blas.NoTrans, n, m, k, t[0], t[1], out); err != nil {
-		return nil, err
-	}
 	switch out.Dtype() {
 	case tensor.Float32:
-		o := f32(out)
-		b := f32(t[2])[:m]
-		if par.Worth(len(o)) {
-			// whole rows to each goroutine
-			par.Blocks(len(o), m, func(lo, hi int) { addRows(o[lo:hi], b, (hi-lo)/m) })
-		} else {
-			addRows(o, b, n)
-		}
+		f := op.fin
+		f.c, f.b, f.ldc, f.leaky, f.slope = f32(out), f32(t[2])[:m], m, op.leaky, float32(op.slope)
+		sgemmThen(blas.NoTrans, blas.NoTrans, n, m, k, 1, f32(t[0]), k, f32(t[1]), m, 0, f.c, m, f)
+		f.c, f.b = nil, nil
 	case tensor.Float64:
+		if err := gemmT(blas.NoTrans, blas.NoTrans, n, m, k, t[0], t[1], out); err != nil {
+			return nil, err
+		}
 		o := f64(out)
 		addRows(o, f64(t[2])[:m], n)
+		if op.leaky {
+			leaky(o, o, nil, op.slope)
+		}
+	default:
+		return nil, fmt.Errorf("engine: affine map of %v", out.Dtype())
 	}
 	return out, nil
 }
 
 func (op affineOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
+	if op.leaky {
+		// the gradient through leaky ReLU at slope >= 0 needs only the
+		// sign bits of its input, which its output keeps (slope*x with
+		// x < 0 is negative or -0)
+		g, err := G.ApplyOp(leakyGradOp{base("Grad" + op.name), op.slope}, output, grad)
+		if err != nil {
+			return nil, err
+		}
+		grad = g
+	}
 	dx, err := G.ApplyOp(affineGradOp{base("AffineGradX"), 0}, grad, in[1])
 	if err != nil {
 		return nil, err
@@ -430,7 +476,9 @@ func colSums[T float32 | float64](o, g []T, rows int) {
 }
 
 // leaky writes x (or slope*x below zero) into o; with g given it writes
-// the gradient instead: g where x >= 0, slope*g elsewhere.
+// the gradient instead: g where x's sign bit is clear, slope*g where it is
+// set (-0 included, as in leaky32; the output keeps the input's sign bit
+// at slope >= 0, so the gradient can be taken from either).
 func leaky[T float32 | float64](o, x, g []T, slope T) {
 	if xs, ok := any(x).([]float32); ok {
 		leaky32(any(o).([]float32), xs, any(g).([]float32), float32(slope))
@@ -448,10 +496,10 @@ func leaky[T float32 | float64](o, x, g []T, slope T) {
 	}
 	g = g[:len(x)]
 	for i, v := range x {
-		if v >= 0 {
-			o[i] = g[i]
-		} else {
+		if math.Signbit(float64(v)) {
 			o[i] = slope * g[i]
+		} else {
+			o[i] = g[i]
 		}
 	}
 }

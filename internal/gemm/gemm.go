@@ -106,18 +106,56 @@ func grow(s []float32, n int) []float32 {
 // with the meaning of every argument as in gonum's blas32 Sgemm; m, n and k
 // are the sizes of op(A) (m x k), op(B) (k x n) and C (m x n).
 func Sgemm(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	SgemmThen(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, nil)
+}
+
+// Finisher is work on finished blocks of C, such as adding a bias and
+// applying an activation while the block is still in the cache of the
+// processor that computed it.
+type Finisher interface {
+	// Finish is called once for each of a set of blocks that together
+	// cover C exactly once: rows [i0, i1) and columns [j0, j1), each block
+	// complete when called. Calls for different blocks may run at once, on
+	// different goroutines.
+	Finish(i0, i1, j0, j1 int)
+}
+
+// SgemmThen is Sgemm followed by then.Finish over the blocks of C (then
+// may be nil). In products of up to 512 rows (a batch) each pair of column
+// panels is finished by the goroutine that computed it, as soon as it is
+// done, while it is in that processor's cache; larger products are
+// finished by blocks of rows once the whole product is done.
+func SgemmThen(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, then Finisher) {
 	if m == 0 || n == 0 {
 		return
 	}
 	workers := runtime.GOMAXPROCS(0)
-	if m*n*k < 1<<18 {
+	if m*n*k < parMinWork {
 		workers = 1
 	}
 	if m <= flatMaxM {
-		sgemmFlat(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers)
+		sgemmFlat(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers, then)
 		return
 	}
 	sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers)
+	if then != nil {
+		finishRows(m, n, then)
+	}
+}
+
+// parMinWork is the smallest m*n*k shared between goroutines: below it
+// the hand-over costs more than the second processor gains.
+const parMinWork = 1 << 18
+
+// finishRows calls then.Finish over blocks of mc rows, sharing them
+// between goroutines where that is worth it.
+func finishRows(m, n int, then Finisher) {
+	blocks := (m + mc - 1) / mc
+	if !par.Worth(m * n) {
+		then.Finish(0, m, 0, n)
+		return
+	}
+	par.Items(blocks, func(blk int) { then.Finish(blk*mc, min((blk+1)*mc, m), 0, n) })
 }
 
 // flatMaxM is the most rows of C for which sgemmFlat packs the whole of A
@@ -131,9 +169,14 @@ const flatMaxM = 512
 // panel at a time and running it past every panel of A. Every tile gets
 // the same packed values, depth blocks and kernel calls as in sgemm, so
 // the results are bitwise the same whatever the number of goroutines.
-func sgemmFlat(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, workers int) {
+// then, when not nil, finishes each pair of column panels as soon as it
+// is done.
+func sgemmFlat(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, workers int, then Finisher) {
 	scaleC(m, n, k, alpha, beta, c, ldc)
 	if k == 0 || alpha == 0 {
+		if then != nil {
+			then.Finish(0, m, 0, n)
+		}
 		return
 	}
 	mp := (m + mr - 1) / mr
@@ -143,6 +186,9 @@ func sgemmFlat(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, l
 	if workers <= 1 {
 		flatPackA(fb.flat, 0, mp, tA, m, k, alpha, a, lda)
 		flatColumns(fb.flat, 0, panels, m, n, k, tB, b, ldb, beta, c, ldc)
+		if then != nil {
+			then.Finish(0, m, 0, n)
+		}
 	} else {
 		// pack A in groups of row panels, then share out pairs of column
 		// panels; the caller takes groups and pairs too (par.Items)
@@ -152,6 +198,9 @@ func sgemmFlat(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, l
 		})
 		par.Items((panels+1)/2, func(u int) {
 			flatColumns(fb.flat, 2*u, min(2*u+2, panels), m, n, k, tB, b, ldb, beta, c, ldc)
+			if then != nil {
+				then.Finish(0, m, 2*u*nr, min((2*u+2)*nr, n))
+			}
 		})
 	}
 	bufs.Put(fb)

@@ -4,6 +4,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"sync"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -154,6 +155,50 @@ func TestPairKernelIsBitwiseTheSame(t *testing.T) {
 					require.Equal(t, without, with, "%dx%dx%d %c%c beta %v", m, n, k, tA, tB, beta)
 				}
 			}
+		}
+	}
+}
+
+// recorder is a Finisher that counts how often each element of C is
+// finished and keeps its value at that moment.
+type recorder struct {
+	mu    sync.Mutex
+	c     []float32
+	ldc   int
+	count []int
+	seen  []float32
+}
+
+func (r *recorder) Finish(i0, i1, j0, j1 int) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	for i := i0; i < i1; i++ {
+		for j := j0; j < j1; j++ {
+			r.count[i*r.ldc+j]++
+			r.seen[i*r.ldc+j] = r.c[i*r.ldc+j]
+		}
+	}
+}
+
+// SgemmThen finishes every element of C exactly once, after its value is
+// final, in the flat path and the blocked one, serial and shared.
+func TestSgemmThenFinishesEveryBlockOnce(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 3))
+	for _, s := range [][3]int{{128, 400, 784}, {64, 785, 512}, {7, 17, 3}, {600, 200, 150}, {20, 30, 0}} {
+		m, n, k := s[0], s[1], s[2]
+		a, b := randSlice(rng, m*k), randSlice(rng, k*n)
+		want := make([]float32, m*n)
+		Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, max(k, 1), b, n, 0, want, n)
+		for _, procs := range []int{1, 2, 3} {
+			c := make([]float32, m*n)
+			r := &recorder{c: c, ldc: n, count: make([]int, m*n), seen: make([]float32, m*n)}
+			old := runtime.GOMAXPROCS(procs)
+			SgemmThen(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, max(k, 1), b, n, 0, c, n, r)
+			runtime.GOMAXPROCS(old)
+			for i, v := range r.count {
+				require.Equal(t, 1, v, "%dx%dx%d at %d threads: element %d finished %d times", m, n, k, procs, i, v)
+			}
+			require.Equal(t, want, r.seen, "%dx%dx%d at %d threads: values when finished", m, n, k, procs)
 		}
 	}
 }
