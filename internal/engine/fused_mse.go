@@ -4,6 +4,7 @@ import (
 	"fmt"
 
 	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/vec"
 
 	"github.com/chewxy/hm"
 	G "gorgonia.org/gorgonia"
@@ -88,21 +89,26 @@ func sqErrRange(part []float64, p, t []float32, lo, hi int) {
 	for b := lo; b < hi; b += bceBlock {
 		ps := p[b:min(b+bceBlock, hi)]
 		ts := t[b : b+len(ps)]
-		var s0, s1, s2, s3 float64
-		i := 0
+		// the vector kernel first where the CPU has one: the same lanes,
+		// order and roundings as the loop below
+		var acc [4]float64
+		i := vec.SqErr(&acc, ps, ts)
+		s0, s1, s2, s3 := acc[0], acc[1], acc[2], acc[3]
 		for ; i+4 <= len(ps); i += 4 {
 			d0 := float64(ps[i]) - float64(ts[i])
 			d1 := float64(ps[i+1]) - float64(ts[i+1])
 			d2 := float64(ps[i+2]) - float64(ts[i+2])
 			d3 := float64(ps[i+3]) - float64(ts[i+3])
-			s0 += d0 * d0
-			s1 += d1 * d1
-			s2 += d2 * d2
-			s3 += d3 * d3
+			// each square rounded (a conversion stops the compiler
+			// fusing it into the sum), as in the kernel
+			s0 += float64(d0 * d0)
+			s1 += float64(d1 * d1)
+			s2 += float64(d2 * d2)
+			s3 += float64(d3 * d3)
 		}
 		for ; i < len(ps); i++ {
 			d := float64(ps[i]) - float64(ts[i])
-			s0 += d * d
+			s0 += float64(d * d)
 		}
 		part[b/bceBlock] = (s0 + s1) + (s2 + s3)
 	}
@@ -169,6 +175,10 @@ func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 
 func mseGrad[T float32 | float64](o, p, t []T, k T) {
 	o, t = o[:len(p)], t[:len(p)]
+	if p32, ok := any(p).([]float32); ok {
+		done := vec.ScaledDiff(any(o).([]float32), p32, any(t).([]float32), float32(k))
+		o, p, t = o[done:], p[done:], t[done:]
+	}
 	for i, v := range p {
 		o[i] = k * (v - t[i])
 	}

@@ -84,3 +84,43 @@ func TestAddAndLeakyMatchLoops(t *testing.T) {
 		}
 	}
 }
+
+// SqErr and ScaledDiff give bitwise what the plain loops give: the same
+// float64 difference, rounded square and sum per accumulator in the same
+// order, and the same float32 difference and product (common practice,
+// no source: the kernels must not change the arithmetic).
+func TestSqErrAndScaledDiffMatchLoops(t *testing.T) {
+	rng := rand.New(rand.NewPCG(4, 4))
+	for _, n := range []int{0, 3, 4, 8, 13, 64, 4099} {
+		p, q := make([]float32, n), make([]float32, n)
+		for i := range p {
+			p[i] = float32(rng.NormFloat64() * math.Pow(10, float64(rng.IntN(9)-4)))
+			q[i] = float32(rng.NormFloat64())
+		}
+		if n > 3 {
+			p[0], p[1], p[2] = float32(math.Copysign(0, -1)), math.Float32frombits(1), math.MaxFloat32
+		}
+		acc := [4]float64{0.5, -1, 2, 0}
+		want := acc
+		done := vec.SqErr(&acc, p, q)
+		for i := 0; i < done; i++ {
+			d := float64(p[i]) - float64(q[i])
+			want[i%4] += float64(d * d)
+		}
+		for i := range acc {
+			require.Equal(t, math.Float64bits(want[i]), math.Float64bits(acc[i]), "SqErr n=%d lane %d", n, i)
+		}
+		if vec.Enabled {
+			require.Equal(t, n&^3, done, "SqErr n=%d", n)
+		}
+		out := make([]float32, n)
+		done = vec.ScaledDiff(out, p, q, -0.37)
+		for i := 0; i < done; i++ {
+			w := float32(-0.37) * (p[i] - q[i])
+			require.Equal(t, math.Float32bits(w), math.Float32bits(out[i]), "ScaledDiff n=%d i=%d", n, i)
+		}
+		if vec.Enabled {
+			require.Equal(t, n&^7, done, "ScaledDiff n=%d", n)
+		}
+	}
+}
