@@ -115,3 +115,26 @@ func BenchmarkTrainStepAE784(b *testing.B) {
 func BenchmarkTrainStepTiny(b *testing.B) {
 	trainStepBench(b, Config{Inputs: 16, Hidden: []int{8}, Latent: 2, Scaling: data.ScaleNone, Seed: 1}, 32)
 }
+
+// BenchmarkScoreBatch784 scores 4096 rows of the reference training shape
+// (784-128-32-128-784, untrained weights) per call and reports rows/s.
+func BenchmarkScoreBatch784(b *testing.B) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	x := make([]float32, 784*4096)
+	for i := range x {
+		x[i] = rng.Float32()
+	}
+	m, err := New(Config{Inputs: 784, Hidden: []int{128}, Latent: 32, Seed: 1, Scaling: data.ScaleNone})
+	if err != nil {
+		b.Fatal(err)
+	}
+	dst := make([]float64, 4096)
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := m.RowErrorsInto(dst, x, 4096); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(4096*b.N)/b.Elapsed().Seconds(), "rows/s")
+}

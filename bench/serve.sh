@@ -16,7 +16,7 @@ echo "$ours" | grep Benchmark
 echo "$peer"
 p50=$(echo "$ours" | awk '/ScoreOneRow/ {for(i=1;i<=NF;i++) if($i=="p50-us") print $(i-1)}')
 p99=$(echo "$ours" | awk '/ScoreOneRow/ {for(i=1;i<=NF;i++) if($i=="p99-us") print $(i-1)}')
-rps=$(echo "$ours" | awk '/ScoreBatch/ {for(i=1;i<=NF;i++) if($i=="rows/s") print $(i-1)}')
+rps=$(echo "$ours" | awk '$1 ~ /ScoreBatch(-[0-9]+)?$/ {for(i=1;i<=NF;i++) if($i=="rows/s") print $(i-1)}')
 pp50=$(echo "$peer" | awk '/p50/ {print $2}')
 pp99=$(echo "$peer" | awk '/p99/ {print $2}')
 prps=$(echo "$peer" | awk '/rows_per_s/ {print $2}')

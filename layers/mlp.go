@@ -4,6 +4,10 @@ import (
 	"errors"
 	"fmt"
 	"math/rand/v2"
+
+	"github.com/quernlab/quern/internal/gemm"
+	"github.com/quernlab/quern/internal/vec"
+	"gonum.org/v1/gonum/blas"
 )
 
 // Dense is an affine layer y = act(x W + b) with W of shape In x Out and b
@@ -170,6 +174,7 @@ func (m *MLP) Freeze(f bool) {
 type Workspace struct {
 	a32, b32 []float32
 	a64, b64 []float64
+	fin      finish32
 }
 
 func grow[T any](s []T, n int) []T {
@@ -202,11 +207,38 @@ func (m *MLP) Forward32(x []float32, rows int, ws *Workspace) ([]float32, error)
 			ws.b32 = grow(ws.b32, rows*d.Out)
 			dst = ws.b32
 		}
-		affine(dst, cur, d.W.v32, d.B.v32, rows, d.In, d.Out)
-		applyInPlace32(d.Act, dst, float32(d.Slope))
+		if rows > 0 {
+			// the training graphs' matrix product; the bias and the
+			// activation go on each block as it is finished
+			f := &ws.fin
+			f.c, f.b, f.ldc, f.act, f.slope = dst, d.B.v32, d.Out, d.Act, float32(d.Slope)
+			gemm.SgemmThen(blas.NoTrans, blas.NoTrans, rows, d.Out, d.In, 1, cur, d.In, d.W.v32, d.Out, 0, dst, d.Out, f)
+			f.c, f.b = nil, nil
+		}
 		cur = dst
 	}
 	return cur, nil
+}
+
+// finish32 adds the bias b to finished blocks of c (ldc columns) and
+// applies the activation (gemm.Finisher).
+type finish32 struct {
+	c, b  []float32
+	ldc   int
+	act   Activation
+	slope float32
+}
+
+func (f *finish32) Finish(i0, i1, j0, j1 int) {
+	b := f.b[j0:j1]
+	for i := i0; i < i1; i++ {
+		row := f.c[i*f.ldc+j0 : i*f.ldc+j1]
+		done := vec.Add(row, b)
+		for j := done; j < len(row); j++ {
+			row[j] += b[j]
+		}
+		applyInPlace32(f.act, row, f.slope)
+	}
 }
 
 // Forward64 is Forward32 for float64 networks.
@@ -234,10 +266,11 @@ func (m *MLP) Forward64(x []float64, rows int, ws *Workspace) ([]float64, error)
 	return cur, nil
 }
 
-// affine computes dst = x w + b for x (rows x in), w (in x out), b (out).
+// affine computes dst = x w + b for x (rows x in), w (in x out), b (out)
+// (Forward64; float32 networks use gemm).
 // Rows are taken four at a time so that each row of w is loaded once per
 // block; zero inputs (common after ReLU) are skipped.
-func affine[T float32 | float64](dst, x, w, b []T, rows, in, out int) {
+func affine(dst, x, w, b []float64, rows, in, out int) {
 	r := 0
 	for ; r+4 <= rows; r += 4 {
 		d0 := dst[r*out : (r+1)*out]

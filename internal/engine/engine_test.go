@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"sync"
 	"testing"
 
@@ -316,5 +317,39 @@ func TestLog1pExpNegAccuracy(t *testing.T) {
 		want := math.Log1p(math.Exp(-a))
 		got := float64(engine.Log1pExpNeg32(float32(a)))
 		require.InDelta(t, want, got, 1e-7+1e-6*want, "a=%v", a)
+	}
+}
+
+// The graph-free forward pass runs the training graphs' matrix product and
+// the same bias and activation arithmetic, so for ReLU, leaky ReLU and
+// identity layers it gives the values the graph gives, equal as numbers
+// (ReLU may give +0 where the graph gives -0), at one and two threads and
+// at a size that shares the product between goroutines (common practice,
+// no source: scores must not depend on the path that computed them).
+func TestForward32EqualsGraph(t *testing.T) {
+	for _, act := range []layers.Activation{layers.ReLU, layers.LeakyReLU, layers.Identity} {
+		for _, procs := range []int{1, 2} {
+			old := runtime.GOMAXPROCS(procs)
+			m := mlp(t, 11, layers.Float32, []int{300, 200, 7, 300}, act, layers.Identity)
+			ph := engine.NewPhase(layers.Float32, false, denseLoss(m, 0))
+			p, err := ph.Program(128)
+			require.NoError(t, err)
+			rng := rand.New(rand.NewPCG(12, 12))
+			x := p.Input32("x")
+			for i := range x {
+				x[i] = float32(rng.NormFloat64())
+			}
+			_, err = p.Run(engine.RunOptions{})
+			require.NoError(t, err)
+			var ws layers.Workspace
+			want, err := m.Forward32(x, 128, &ws)
+			require.NoError(t, err)
+			got := p.Output32(0)
+			for i := range want {
+				require.True(t, want[i] == got[i], "%v, %d threads: element %d: forward %v, graph %v", act, procs, i, want[i], got[i])
+			}
+			ph.Close()
+			runtime.GOMAXPROCS(old)
+		}
 	}
 }
