@@ -129,6 +129,14 @@ func SgemmThen(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, l
 	if m == 0 || n == 0 {
 		return
 	}
+	if m < mr && tA == blas.NoTrans && tB == blas.NoTrans && alpha == 1 && k > 0 {
+		scaleC(m, n, k, alpha, beta, c, ldc)
+		rowsDirect(m, n, k, a, lda, b, ldb, beta, c, ldc)
+		if then != nil {
+			then.Finish(0, m, 0, n)
+		}
+		return
+	}
 	workers := runtime.GOMAXPROCS(0)
 	if m*n*k < parMinWork {
 		workers = 1
@@ -140,6 +148,51 @@ func SgemmThen(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, l
 	sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, workers)
 	if then != nil {
 		finishRows(m, n, then)
+	}
+}
+
+// rowKernel computes c[0:w] += sum over p < k of a[p] * b[p*ldb+j] (or =
+// when overwrite is set), w >= 1, with the arithmetic of kernel for each
+// element: one accumulator from +0, one multiply-add per depth step in
+// order, then one addition into c. Assembly where the CPU allows.
+var rowKernel = rowGo
+
+func rowGo(k, w int, a, b []float32, ldb int, c []float32, overwrite bool) {
+	for j0 := 0; j0 < w; j0 += nr {
+		nw := min(nr, w-j0)
+		// the loop of kernelGo, for one row
+		var acc [nr]float32
+		for p := 0; p < k; p++ {
+			ap := a[p]
+			bp := b[p*ldb+j0 : p*ldb+j0+nw]
+			for j := range bp {
+				acc[j] += ap * bp[j]
+			}
+		}
+		ci := c[j0 : j0+nw]
+		if overwrite {
+			copy(ci, acc[:nw])
+			continue
+		}
+		for j := range ci {
+			ci[j] += acc[j]
+		}
+	}
+}
+
+// rowsDirect is Sgemm for fewer than mr rows, untransposed operands and
+// alpha 1, C already scaled: each row runs past the unpacked rows of B
+// (packing B and a row panel of mr rows costs more than it saves for a
+// few rows, as in scoring one request). Every element gets the
+// arithmetic it gets in the packed path, so the results are bitwise the
+// same.
+func rowsDirect(m, n, k int, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int) {
+	for pc := 0; pc < k; pc += kc {
+		kb := min(kc, k-pc)
+		over := pc == 0 && beta == 0
+		for i := 0; i < m; i++ {
+			rowKernel(kb, n, a[i*lda+pc:], b[pc*ldb:], ldb, c[i*ldc:], over)
+		}
 	}
 }
 

@@ -202,3 +202,34 @@ func TestSgemmThenFinishesEveryBlockOnce(t *testing.T) {
 		}
 	}
 }
+
+// A few rows (one scoring request) skip packing; every element must still
+// get bitwise what the packed path gives it, for partial panels, several
+// depth blocks and every beta, with the kernel in use and the Go one.
+func TestRowsDirectMatchesPackedPath(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 5))
+	type kernels struct {
+		row  func(int, int, []float32, []float32, int, []float32, bool)
+		tile func(int, []float32, []float32, []float32, int, bool)
+		pair func(int, []float32, []float32, []float32, []float32, int, bool)
+	}
+	for _, ks := range []kernels{{rowGo, kernelGo, nil}, {rowKernel, kernel, kernelPair}} {
+		savedRow, savedTile, savedPair := rowKernel, kernel, kernelPair
+		rowKernel, kernel, kernelPair = ks.row, ks.tile, ks.pair
+		for m := 1; m < mr; m++ {
+			for _, n := range []int{1, 15, 16, 17, 64, 70, 130} {
+				for _, k := range []int{1, 255, 256, 257, 600} {
+					for _, beta := range []float32{0, 1, 0.5} {
+						a, b, c0 := randSlice(rng, m*k), randSlice(rng, k*n), randSlice(rng, m*n)
+						want := append([]float32(nil), c0...)
+						sgemmFlat(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, beta, want, n, 1, nil)
+						got := append([]float32(nil), c0...)
+						Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, beta, got, n)
+						require.Equal(t, want, got, "m=%d n=%d k=%d beta=%v", m, n, k, beta)
+					}
+				}
+			}
+		}
+		rowKernel, kernel, kernelPair = savedRow, savedTile, savedPair
+	}
+}
