@@ -94,3 +94,43 @@ func sgemmBench(b *testing.B, f func(tA, tB blas.Transpose, m, n, k int, alpha f
 // BenchmarkSgemm1024Graph times the product the graphs use in this build
 // (quern's own, or OpenBLAS's under -tags openblas).
 func BenchmarkSgemm1024Graph(b *testing.B) { sgemmBench(b, engine.GraphSgemm) }
+
+// BenchmarkSgemmShapesGraph times the products of one training step of the
+// reference VAE and GAN with the product the graphs use in this build:
+// forward x W, weight gradient x^T dy, input gradient dy W^T.
+func BenchmarkSgemmShapesGraph(b *testing.B) {
+	for _, s := range []struct {
+		name    string
+		tA, tB  blas.Transpose
+		m, n, k int
+	}{
+		{"vae_fwd_128x784x400", blas.NoTrans, blas.NoTrans, 128, 400, 784},
+		{"vae_dW_784x128x400", blas.Trans, blas.NoTrans, 784, 400, 128},
+		{"vae_dX_128x400x784", blas.NoTrans, blas.Trans, 128, 784, 400},
+		{"gan_fwd_64x784x512", blas.NoTrans, blas.NoTrans, 64, 512, 784},
+		{"gan_dW_784x64x512", blas.Trans, blas.NoTrans, 784, 512, 64},
+	} {
+		b.Run(s.name, func(b *testing.B) {
+			rng := rand.New(rand.NewPCG(1, 1))
+			x, y, out := make([]float32, s.m*s.k), make([]float32, s.k*s.n), make([]float32, s.m*s.n)
+			for i := range x {
+				x[i] = rng.Float32()
+			}
+			for i := range y {
+				y[i] = rng.Float32()
+			}
+			lda, ldb := s.k, s.n
+			if s.tA == blas.Trans {
+				lda = s.m
+			}
+			if s.tB == blas.Trans {
+				ldb = s.k
+			}
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				engine.GraphSgemm(s.tA, s.tB, s.m, s.n, s.k, 1, x, lda, y, ldb, 0, out, s.n)
+			}
+			b.ReportMetric(2*float64(s.m*s.n*s.k)*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
+		})
+	}
+}
