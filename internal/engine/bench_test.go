@@ -95,15 +95,20 @@ func sgemmBench(b *testing.B, f func(tA, tB blas.Transpose, m, n, k int, alpha f
 // (quern's own, or OpenBLAS's under -tags openblas).
 func BenchmarkSgemm1024Graph(b *testing.B) { sgemmBench(b, engine.GraphSgemm) }
 
-// BenchmarkSgemmShapesGraph times the products of one training step of the
-// reference VAE and GAN with the product the graphs use in this build:
-// forward x W, weight gradient x^T dy, input gradient dy W^T.
-func BenchmarkSgemmShapesGraph(b *testing.B) {
+// BenchmarkSgemmShapes times the products of one training step of the
+// reference autoencoder (784-128-32-128-784, batch 256), VAE and GAN with
+// the product the graphs use in this build (quern's own, or OpenBLAS's
+// under -tags openblas): forward x W, weight gradient x^T dy, input
+// gradient dy W^T.
+func BenchmarkSgemmShapes(b *testing.B) {
 	for _, s := range []struct {
 		name    string
 		tA, tB  blas.Transpose
 		m, n, k int
 	}{
+		{"ae_fwd_256x784x128", blas.NoTrans, blas.NoTrans, 256, 128, 784},
+		{"ae_dW_784x256x128", blas.Trans, blas.NoTrans, 784, 128, 256},
+		{"ae_dX_256x128x784", blas.NoTrans, blas.Trans, 256, 784, 128},
 		{"vae_fwd_128x784x400", blas.NoTrans, blas.NoTrans, 128, 400, 784},
 		{"vae_dW_784x128x400", blas.Trans, blas.NoTrans, 784, 400, 128},
 		{"vae_dX_128x400x784", blas.NoTrans, blas.Trans, 128, 784, 400},
