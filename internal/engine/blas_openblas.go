@@ -7,6 +7,7 @@ import "C"
 
 import (
 	"github.com/quernlab/quern/internal/gemm"
+	"github.com/quernlab/quern/internal/par"
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/netlib/blas/netlib"
 	G "gorgonia.org/gorgonia"
@@ -24,12 +25,19 @@ var (
 	dgemm = netlib.Implementation{}.Dgemm
 )
 
-// sgemmThen is OpenBLAS's product, then one call finishing the whole of C.
+// sgemmThen is OpenBLAS's product, then C finished in blocks of rows,
+// shared between goroutines where that is worth it.
 func sgemmThen(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int, then gemm.Finisher) {
 	sgemm(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
-	if then != nil && m > 0 && n > 0 {
-		then.Finish(0, m, 0, n)
+	if then == nil || m == 0 || n == 0 {
+		return
 	}
+	if !par.Worth(m * n) {
+		then.Finish(0, m, 0, n)
+		return
+	}
+	const rows = 32
+	par.Items((m+rows-1)/rows, func(i int) { then.Finish(i*rows, min((i+1)*rows, m), 0, n) })
 }
 
 // BLASName names the BLAS the graphs use.
