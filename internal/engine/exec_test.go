@@ -9,7 +9,6 @@ import (
 
 	"github.com/quernlab/quern/internal/engine"
 	"github.com/quernlab/quern/internal/gradcheck"
-	"github.com/quernlab/quern/internal/vec"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/stretchr/testify/require"
@@ -126,25 +125,6 @@ func TestReparameteriseGradient(t *testing.T) {
 	require.Less(t, res.MaxRelErr, 1e-7, res.String())
 }
 
-// expNeg32 against Go's math.Exp in float64 (the reference) over the whole
-// range it serves, and zero where exp(-a) is below float32's normal range.
-func TestExpNeg32Accuracy(t *testing.T) {
-	worst := 0.0
-	for a := 0.0; a < 87.3; a += 0.00731 {
-		want := math.Exp(-a)
-		got := float64(engine.ExpNeg32(float32(a)))
-		// float32(a) differs from a; compare with exp of what was passed
-		want = math.Exp(-float64(float32(a)))
-		rel := math.Abs(got-want) / want
-		worst = max(worst, rel)
-		require.Less(t, rel, 3e-7, "a=%v: %v against %v", a, got, want)
-	}
-	t.Logf("largest relative error %.3g", worst)
-	for _, a := range []float32{87.4, 100, 1e30, float32(math.Inf(1))} {
-		require.Zero(t, engine.ExpNeg32(a), "a=%v", a)
-	}
-}
-
 // The fused BCE sum: value against the float64 reference form of package
 // losses (times the element count) in both precisions, gradient against
 // sigmoid(x) - y, and the loss bitwise the same at 1 and 3 threads on a
@@ -159,7 +139,7 @@ func TestBCESum(t *testing.T) {
 				xs[i] = 6 * rng.NormFloat64()
 				ys[i] = rng.Float64()
 			}
-			xs[0], xs[1] = 120, -95 // beyond expNeg32's range
+			xs[0], xs[1] = 120, -95 // beyond vec.ExpNeg32's range
 			px, py := layers.NewParam("x", r, c, prec), layers.NewParam("y", r, c, prec)
 			require.NoError(t, px.SetValues(xs))
 			require.NoError(t, py.SetValues(ys))
@@ -238,27 +218,6 @@ func TestFusedSquashFloat32(t *testing.T) {
 	}
 }
 
-// tanh32 against Go's math.Tanh in float64 (the reference), densely across
-// the switch from the series to the exponential form at |x| = 0.35.
-func TestTanh32Accuracy(t *testing.T) {
-	worst := 0.0
-	for x := -12.0; x <= 12; x += 0.000731 {
-		x32 := float32(x)
-		want := math.Tanh(float64(x32))
-		got := float64(engine.Tanh32(x32))
-		if want == 0 {
-			require.Zero(t, got)
-			continue
-		}
-		rel := math.Abs(got-want) / math.Abs(want)
-		worst = max(worst, rel)
-		require.Less(t, rel, 2.5e-7, "x=%v: %v against %v", x32, got, want)
-	}
-	t.Logf("largest relative error %.3g", worst)
-	require.Equal(t, float32(1), engine.Tanh32(float32(math.Inf(1))))
-	require.Equal(t, float32(-1), engine.Tanh32(-100))
-}
-
 // The word-wise scan for NaN and infinity finds each kind at every
 // position, odd lengths included, and passes the largest finite values.
 func TestFirstNonFinite(t *testing.T) {
@@ -315,42 +274,6 @@ func TestScalarArithmeticGradient(t *testing.T) {
 	}, ref, 1e-4)
 	require.NoError(t, err)
 	require.Less(t, res.MaxRelErr, 1e-7, res.String())
-}
-
-// exp32 against Go's math.Exp (the reference) across the range the
-// log-variances and logits of the models use, both signs.
-func TestExp32Accuracy(t *testing.T) {
-	for x := -80.0; x <= 80; x += 0.0137 {
-		x32 := float32(x)
-		want := math.Exp(float64(x32))
-		got := float64(engine.Exp32(x32))
-		require.InDelta(t, want, got, 3.5e-7*want, "x=%v", x32)
-	}
-	require.True(t, math.IsInf(float64(engine.Exp32(100)), 1))
-	require.Zero(t, engine.Exp32(-100))
-}
-
-// The vector tanh gives bitwise what tanh32 gives (the same operations in
-// the same order), densely across both branches and their boundary,
-// signed zeros, tiny and huge values.
-func TestVectorTanhMatchesTanh32(t *testing.T) {
-	var xs []float32
-	for x := -30.0; x <= 30; x += 0.000917 {
-		xs = append(xs, float32(x))
-	}
-	xs = append(xs, 0, float32(math.Copysign(0, -1)), 0.35, -0.35, math.Nextafter32(0.35, 0), 1e-30, -1e-30, 43.65, 43.7, 1e30, -1e30)
-	for len(xs)%8 != 0 {
-		xs = append(xs, 1)
-	}
-	got := make([]float32, len(xs))
-	done := vec.Tanh(got, xs)
-	if done == 0 {
-		t.Skip("no vector kernel on this CPU or build")
-	}
-	require.Equal(t, len(xs), done)
-	for i, x := range xs {
-		require.Equal(t, math.Float32bits(engine.Tanh32(x)), math.Float32bits(got[i]), "x=%v", x)
-	}
 }
 
 // AffineAct (the bias and leaky ReLU applied by the matrix product's

@@ -2,9 +2,6 @@ package engine
 
 import G "gorgonia.org/gorgonia"
 
-// Log1pExpNeg32 exposes log1pExpNeg32 to the tests.
-var Log1pExpNeg32 = log1pExpNeg32
-
 // TapeRun runs p's graph once on gorgonia's own tape machine and returns
 // the loss and the gradients' values, for comparison with Program.Run.
 func TapeRun(p *Program) (float64, [][]float64, error) {
@@ -33,17 +30,8 @@ func TapeRun(p *Program) (float64, [][]float64, error) {
 	return loss, grads, nil
 }
 
-// ExpNeg32 exposes expNeg32 to the tests.
-var ExpNeg32 = expNeg32
-
-// Tanh32 exposes tanh32 to the tests.
-var Tanh32 = tanh32
-
 // FirstNonFinite exposes firstNonFinite to the tests.
 var FirstNonFinite = firstNonFinite
-
-// Exp32 exposes exp32 to the tests.
-var Exp32 = exp32
 
 // GraphSgemm is the float32 product the fused operations use in this build.
 var GraphSgemm = sgemm

@@ -2,6 +2,7 @@ package engine
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/internal/vec"
 	"hash/fnv"
 	"math"
 
@@ -187,17 +188,6 @@ func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Valu
 	return out, nil
 }
 
-// log1pExpNeg32 is log(1 + exp(-a)) for a >= 0 in float32 arithmetic.
-// With e = exp(-a) in (0, 1] and s = e/(2+e) in (0, 1/3],
-// log(1+e) = 2 atanh(s) = 2 (s + s^3/3 + s^5/5 + ...); seven terms leave a
-// truncation error below 1e-8, under float32's own rounding.
-func log1pExpNeg32(a float32) float32 {
-	e := expNeg32(a)
-	s := e / (2 + e)
-	s2 := s * s
-	return 2 * s * (1 + s2*(1.0/3+s2*(1.0/5+s2*(1.0/7+s2*(1.0/9+s2*(1.0/11+s2*(1.0/13)))))))
-}
-
 func shapeOf(in []G.DimSizer) (tensor.Shape, error) {
 	if len(in) == 0 {
 		return nil, fmt.Errorf("engine: no input shapes")
@@ -250,7 +240,7 @@ func (gr *Graph) BCEWithLogits(x, y *Node) *Node {
 func bceLogits32(o, xs, ys []float32) {
 	o, ys = o[:len(xs)], ys[:len(xs)]
 	for i, v := range xs {
-		o[i] = math32.Max(v, 0) - v*ys[i] + log1pExpNeg32(math32.Abs(v))
+		o[i] = math32.Max(v, 0) - v*ys[i] + vec.Log1pExpNeg32(math32.Abs(v))
 	}
 }
 
@@ -260,9 +250,9 @@ func bceLogitsGrad32(o, xs, ys, gs []float32) {
 	for i, v := range xs {
 		var s float32
 		if v >= 0 {
-			s = 1 / (1 + expNeg32(v))
+			s = 1 / (1 + vec.ExpNeg32(v))
 		} else {
-			e := expNeg32(-v)
+			e := vec.ExpNeg32(-v)
 			s = e / (1 + e)
 		}
 		o[i] = (s - ys[i]) * gs[i]

@@ -5,7 +5,6 @@ import (
 	"math"
 
 	"github.com/chewxy/hm"
-	"github.com/chewxy/math32"
 	"github.com/quernlab/quern/internal/par"
 	"github.com/quernlab/quern/internal/vec"
 	G "gorgonia.org/gorgonia"
@@ -84,51 +83,14 @@ func (op squashOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 }
 
 func squash32(o, xs []float32, kind squash) {
-	o = o[:len(xs)]
 	switch kind {
 	case squashTanh:
-		done := vec.Tanh(o, xs)
-		for i, v := range xs[done:] {
-			o[done+i] = tanh32(v)
-		}
-		return
+		vec.ApplyTanh(o, xs)
 	case squashSoftplus:
-		for i, v := range xs {
-			o[i] = math32.Max(v, 0) + log1pExpNeg32(math32.Abs(v))
-		}
-		return
+		vec.ApplySoftplus(o, xs)
+	default:
+		vec.ApplySigmoid(o, xs)
 	}
-	for i, v := range xs {
-		o[i] = sigmoid32(v)
-	}
-}
-
-// tanh32 is the hyperbolic tangent in float32: its Taylor series to
-// degree 13 below |x| = 0.35 (truncation below 2e-8 relative), else
-// (1 - e)/(1 + e) with e = exp(-2|x|) >= 0.5 away from cancellation; the
-// sign is copied from x.
-func tanh32(x float32) float32 {
-	bits := math.Float32bits(x)
-	a := math.Float32frombits(bits &^ (1 << 31))
-	var t float32
-	if a < 0.35 {
-		a2 := a * a
-		t = a * (1 + a2*(-1.0/3+a2*(2.0/15+a2*(-17.0/315+a2*(62.0/2835+a2*(-1382.0/155925+a2*(21844.0/6081075)))))))
-	} else {
-		e := expNeg32(2 * a)
-		t = (1 - e) / (1 + e)
-	}
-	return math.Float32frombits(math.Float32bits(t) | bits&(1<<31))
-}
-
-// sigmoid32 is 1/(1+exp(-v)) for v >= 0 and exp(v)/(1+exp(v)) below (no
-// overflow), in float32.
-func sigmoid32(v float32) float32 {
-	e := expNeg32(math32.Abs(v))
-	if v >= 0 {
-		return 1 / (1 + e)
-	}
-	return e / (1 + e)
 }
 
 func sigmoid64(v float64) float64 {
@@ -197,7 +159,7 @@ func squashGrad[T float32 | float64](o, y, g []T, kind squash) {
 		if y32, ok := any(y).([]float32); ok {
 			o32, g32 := any(o).([]float32), any(g).([]float32)
 			for i, v := range y32 {
-				o32[i] = g32[i] * sigmoid32(v)
+				o32[i] = g32[i] * vec.Sigmoid32(v)
 			}
 			return
 		}

@@ -108,7 +108,7 @@ func bceSumBlocks32(part []float64, d, xs, ys []float32, lo, hi int) {
 		for i, v := range x {
 			bits := math.Float32bits(v)
 			a := math.Float32frombits(bits &^ (1 << 31)) // |v|
-			e := expNeg32(a)
+			e := vec.ExpNeg32(a)
 			// log(1+e) = 2 atanh(e/(2+e)), a series in t = e/(2+e) <= 1/3
 			t := e / (2 + e)
 			t2 := t * t
@@ -130,35 +130,6 @@ func bceSumBlocks32(part []float64, d, xs, ys []float32, lo, hi int) {
 		}
 		part[b/bceBlock] = acc + float64(s)
 	}
-}
-
-// exp32 is exp(x) in float32 by expNeg32: directly for x <= 0, as the
-// reciprocal of exp(-x) above (one more rounding; +Inf beyond 87.3).
-func exp32(x float32) float32 {
-	if x <= 0 {
-		return expNeg32(-x)
-	}
-	return 1 / expNeg32(x)
-}
-
-// expNeg32 is exp(-a) for a >= 0 in float32: a = k ln2 + r with |r| <=
-// ln2/2 (ln2 split in two parts so that k ln2 is exact), exp(r) by its
-// Taylor series to degree 7 (remainder below 6e-9 relative), scaled by
-// 2^-k through the exponent bits. Below exp(-87.3), the smallest normal
-// float32's order, it returns 0.
-func expNeg32(a float32) float32 {
-	if a > 87.3 {
-		return 0
-	}
-	const (
-		log2e = 1.44269504088896341
-		ln2hi = 0.693359375
-		ln2lo = -2.12194440e-4
-	)
-	k := float32(int32(a*log2e + 0.5))
-	r := k*ln2hi - a + k*ln2lo // -a - (-k) ln2
-	p := 1 + r*(1+r*(1.0/2+r*(1.0/6+r*(1.0/24+r*(1.0/120+r*(1.0/720+r*(1.0/5040)))))))
-	return p * math.Float32frombits(uint32(127-int32(k))<<23)
 }
 
 func (op bceSumOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {

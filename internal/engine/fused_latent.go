@@ -2,6 +2,7 @@ package engine
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/internal/vec"
 
 	"github.com/chewxy/hm"
 	G "gorgonia.org/gorgonia"
@@ -149,7 +150,7 @@ func (op reparamOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	case tensor.Float32:
 		mu, lv, eps, o := f32(x[0]), f32(x[1]), f32(x[2]), f32(out)
 		for i, m := range mu {
-			o[i] = m + exp32(0.5*lv[i])*eps[i]
+			o[i] = m + vec.Exp32(0.5*lv[i])*eps[i]
 		}
 	case tensor.Float64:
 		mu, lv, eps, o := f64(x[0]), f64(x[1]), f64(x[2]), f64(out)
@@ -202,7 +203,7 @@ func (op reparamGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error)
 	case tensor.Float32:
 		lv, eps, g, o := f32(x[0]), f32(x[1]), f32(x[2]), f32(out)
 		for i, l := range lv {
-			s := exp32(0.5 * l)
+			s := vec.Exp32(0.5 * l)
 			if op.logVar {
 				o[i] = g[i] * eps[i] * s * 0.5
 			} else {
@@ -255,7 +256,7 @@ func (op klOp) Do(in ...G.Value) (G.Value, error) {
 		var s float64
 		for i, m := range mu {
 			l := lv[i]
-			s += float64(m*m + exp32(l) - 1 - l)
+			s += float64(m*m + vec.Exp32(l) - 1 - l)
 		}
 		return op.scalar32(float32(0.5 * s / float64(r))), nil
 	case tensor.Float64:
@@ -318,7 +319,7 @@ func (op klGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 		v, o := f32(x[0]), f32(out)
 		for i, e := range v {
 			if op.logVar {
-				o[i] = k * 0.5 * (exp32(e) - 1)
+				o[i] = k * 0.5 * (vec.Exp32(e) - 1)
 			} else {
 				o[i] = k * e
 			}

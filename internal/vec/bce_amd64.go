@@ -99,7 +99,7 @@ func Leaky(dst, x, g []float32, slope float32) int {
 func tanhAVX(dst, xp *float32, n int, c *[23][8]float32)
 
 // tanhTable holds tanhAVX's constants, each in eight lanes, as float32
-// values rounded from the same expressions as in package engine's tanh32.
+// values rounded from the same expressions as in Tanh32.
 var tanhTable = func() (t [23][8]float32) {
 	vals := [23]float32{
 		math.Float32frombits(0x7fffffff), // absmask
@@ -135,7 +135,7 @@ var tanhTable = func() (t [23][8]float32) {
 }()
 
 // Tanh writes tanh(x) into dst for the largest multiple of 8 values of x,
-// bitwise as package engine's tanh32 computes it, and returns how many it
+// bitwise as Tanh32 computes it, and returns how many it
 // wrote (0 when the vector kernel is not enabled).
 func Tanh(dst, x []float32) int {
 	n := len(x) &^ 7
