@@ -3,6 +3,8 @@ package layers
 import (
 	"fmt"
 	"math"
+
+	"github.com/quernlab/quern/internal/vec"
 )
 
 // Activation is an element-wise non-linearity applied after an affine layer.
@@ -121,23 +123,23 @@ func softplus64(x float64) float64 {
 	return math.Max(x, 0) + math.Log1p(math.Exp(-math.Abs(x)))
 }
 
-// applyInPlace32 applies a to every element of v, in float32 except where
-// the function itself needs the wider exponent range.
+// applyInPlace32 applies a to every element of v in float32, with the
+// functions the training graphs use (package vec), so that the graph-free
+// passes give the graphs' values; ELU, which the graphs compose from other
+// operations, goes through float64.
 func applyInPlace32(a Activation, v []float32, slope float32) {
 	switch a {
 	case Identity:
 	case ReLU:
-		for i, x := range v {
-			if x < 0 {
-				v[i] = 0
-			}
-		}
+		vec.ApplyLeaky(v, v, nil, 0)
 	case LeakyReLU:
-		for i, x := range v {
-			if x < 0 {
-				v[i] = slope * x
-			}
-		}
+		vec.ApplyLeaky(v, v, nil, slope)
+	case Tanh:
+		vec.ApplyTanh(v, v)
+	case Sigmoid:
+		vec.ApplySigmoid(v, v)
+	case Softplus:
+		vec.ApplySoftplus(v, v)
 	default:
 		for i, x := range v {
 			v[i] = float32(a.Eval(float64(x), float64(slope)))

@@ -160,7 +160,7 @@ func (f *affineFinish) Finish(i0, i1, j0, j1 int) {
 		row := f.c[i*f.ldc+j0 : i*f.ldc+j1]
 		addTo32(row, b)
 		if f.leaky {
-			leaky32(row, row, nil, f.slope)
+			vec.ApplyLeaky(row, row, nil, f.slope)
 		}
 	}
 }
@@ -477,11 +477,11 @@ func colSums[T float32 | float64](o, g []T, rows int) {
 
 // leaky writes x (or slope*x below zero) into o; with g given it writes
 // the gradient instead: g where x's sign bit is clear, slope*g where it is
-// set (-0 included, as in leaky32; the output keeps the input's sign bit
+// set (-0 included, as in vec.ApplyLeaky; the output keeps the input's sign bit
 // at slope >= 0, so the gradient can be taken from either).
 func leaky[T float32 | float64](o, x, g []T, slope T) {
 	if xs, ok := any(x).([]float32); ok {
-		leaky32(any(o).([]float32), xs, any(g).([]float32), float32(slope))
+		vec.ApplyLeaky(any(o).([]float32), xs, any(g).([]float32), float32(slope))
 		return
 	}
 	o = o[:len(x)]
@@ -501,31 +501,6 @@ func leaky[T float32 | float64](o, x, g []T, slope T) {
 		} else {
 			o[i] = g[i]
 		}
-	}
-}
-
-// leaky32 is leaky for float32 without branches on the sign, which
-// mispredict half the time on activations: the factor (1 or slope) is
-// chosen by masking with the sign bit, so -0 takes the slope too.
-func leaky32(o, x, g []float32, slope float32) {
-	done := vec.Leaky(o, x, g, slope)
-	o, x = o[done:len(x)], x[done:]
-	if g != nil {
-		g = g[done:]
-	}
-	const one = 0x3f800000 // float32 1
-	diff := one ^ math.Float32bits(slope)
-	if g == nil {
-		for i, v := range x {
-			m := uint32(int32(math.Float32bits(v)) >> 31)
-			o[i] = v * math.Float32frombits(one^(diff&m))
-		}
-		return
-	}
-	g = g[:len(x)]
-	for i, v := range x {
-		m := uint32(int32(math.Float32bits(v)) >> 31)
-		o[i] = g[i] * math.Float32frombits(one^(diff&m))
 	}
 }
 
