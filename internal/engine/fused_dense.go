@@ -145,8 +145,8 @@ func newAffineLeaky(slope float64) affineOp {
 }
 
 // affineFinish adds the bias to finished blocks of the product c (ldc
-// columns) and applies leaky ReLU where leaky is set: the same element
-// operations, in the same order per element, as addRows then leaky.
+// columns) and applies leaky ReLU where leaky is set: per element the same
+// operations as Affine followed by the separate LeakyReLU operation.
 type affineFinish struct {
 	c, b  []float32
 	ldc   int
@@ -413,16 +413,10 @@ func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 	return out, nil
 }
 
-// addRows adds the row b to each of the rows of o.
-func addRows[T float32 | float64](o, b []T, rows int) {
+// addRows adds the row b to each of the rows of o (float64; float32
+// products add their bias in affineFinish).
+func addRows(o, b []float64, rows int) {
 	m := len(b)
-	if o32, ok := any(o).([]float32); ok {
-		b32 := any(b).([]float32)
-		for r := 0; r < rows; r++ {
-			addTo32(o32[r*m:r*m+m], b32)
-		}
-		return
-	}
 	for r := 0; r < rows; r++ {
 		row := o[r*m : r*m+m]
 		for j, v := range b {
