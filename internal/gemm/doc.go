@@ -7,9 +7,9 @@
 // arm64 hardware), a portable Go kernel elsewhere (or with -tags purego), and a split of the
 // work across GOMAXPROCS goroutines for large products. Products of up to
 // 512 rows (a batch) pack A once and share out column panels; larger ones
-// share out blocks of rows; fewer than six rows (a scoring request) skip
-// packing and run each row past B directly, with the same arithmetic per
-// element. Results do not depend on the thread count or on how many rows
+// share out blocks of rows; one to three rows (up to five where B is
+// small), as in a scoring request, skip packing and run each row past B
+// directly, with the same arithmetic per element. Results do not depend on the thread count or on how many rows
 // are computed together. SgemmThen hands finished blocks of the product to
 // a Finisher (bias and activation, in quern).
 // It is plugged into gorgonia's BLAS hook by package engine; every other

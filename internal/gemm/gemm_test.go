@@ -224,8 +224,12 @@ func TestRowsDirectMatchesPackedPath(t *testing.T) {
 						want := append([]float32(nil), c0...)
 						sgemmFlat(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, beta, want, n, 1, nil)
 						got := append([]float32(nil), c0...)
-						Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, beta, got, n)
+						scaleC(m, n, k, 1, beta, got, n)
+						rowsDirect(m, n, k, a, k, b, n, beta, got, n)
 						require.Equal(t, want, got, "m=%d n=%d k=%d beta=%v", m, n, k, beta)
+						got = append(got[:0], c0...)
+						Sgemm(blas.NoTrans, blas.NoTrans, m, n, k, 1, a, k, b, n, beta, got, n)
+						require.Equal(t, want, got, "Sgemm m=%d n=%d k=%d beta=%v", m, n, k, beta)
 					}
 				}
 			}
