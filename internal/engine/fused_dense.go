@@ -374,7 +374,9 @@ func (op leakyOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
 	return G.Nodes{g}, nil
 }
 
-// leakyGradOp is grad where x >= 0 and slope*grad elsewhere.
+// leakyGradOp is grad where x's sign bit is clear and slope*grad where it
+// is set (-0 included); x may be the forward's input or, at slope >= 0,
+// its output, which keeps the input's sign bits.
 type leakyGradOp struct {
 	opBase
 	slope float64

@@ -181,7 +181,8 @@ func (r *recorder) Finish(i0, i1, j0, j1 int) {
 }
 
 // SgemmThen finishes every element of C exactly once, after its value is
-// final, in the flat path and the blocked one, serial and shared.
+// final (the value Sgemm gives), in the flat path and the blocked one,
+// serial and shared (common practice, no source).
 func TestSgemmThenFinishesEveryBlockOnce(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 3))
 	for _, s := range [][3]int{{128, 400, 784}, {64, 785, 512}, {7, 17, 3}, {600, 200, 150}, {20, 30, 0}} {
@@ -205,7 +206,9 @@ func TestSgemmThenFinishesEveryBlockOnce(t *testing.T) {
 
 // A few rows (one scoring request) skip packing; every element must still
 // get bitwise what the packed path gives it, for partial panels, several
-// depth blocks and every beta, with the kernel in use and the Go one.
+// depth blocks and every beta, with the kernel in use and the Go one
+// (common practice, no source: the packed path is checked against gonum
+// in TestAgainstGonum).
 func TestRowsDirectMatchesPackedPath(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 5))
 	type kernels struct {
