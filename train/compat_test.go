@@ -1,0 +1,316 @@
+package train_test
+
+import (
+	"context"
+	"encoding/json"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/quernlab/quern/ae"
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/modelfile"
+	"github.com/quernlab/quern/train"
+	"github.com/quernlab/quern/vae"
+	"github.com/stretchr/testify/require"
+)
+
+// The files under testdata/compat were written by the library at commit
+// 0295ee8 (testdata/compat/make_golden.go). Today's code must train the
+// same cases to bitwise the same weights and histories, resume their
+// checkpoints to bitwise the same models, and give bitwise the same outputs
+// from their model files.
+
+const compatDir = "../testdata/compat"
+
+type compatGolden struct {
+	Case     string              `json:"case"`
+	Data     string              `json:"data"`
+	Seed     uint64              `json:"seed"`
+	Batch    int                 `json:"batch"`
+	Patience int                 `json:"patience"`
+	Epochs   []train.EpochRecord `json:"epochs"`
+	Best     int                 `json:"best_epoch"`
+	Outputs  map[string]json.RawMessage
+}
+
+func compatData(t *testing.T, name string) *data.Dataset {
+	t.Helper()
+	var d *data.Dataset
+	var err error
+	switch name {
+	case "breast_cancer":
+		d, err = data.LoadCSV("../testdata/sklearn/breast_cancer.csv", data.CSVConfig{NoHeader: true, SkipLines: 1, Label: "c30"})
+	case "digits":
+		d, err = data.LoadCSV("../testdata/sklearn/digits.csv.gz", data.CSVConfig{NoHeader: true, Label: "c64"})
+	case "fashion500":
+		d, err = data.LoadIDX("../testdata/fashion-mnist/t10k-images-idx3-ubyte-first500.gz", data.IDXConfig{Labels: "../testdata/fashion-mnist/t10k-labels-idx1-ubyte-first500.gz"})
+	default:
+		t.Fatalf("unknown data %q", name)
+	}
+	require.NoError(t, err)
+	return d
+}
+
+// compatCase is one case of make_golden.go in today's API.
+type compatCase struct {
+	name   string
+	labels bool // the case trains on the labels
+	build  func() trainable
+}
+
+type trainable interface {
+	Train(ctx context.Context, tr, va *data.Dataset, cfg train.Config) (*train.History, error)
+	File(prov *modelfile.Provenance, h *train.History) (*modelfile.File, error)
+}
+
+func mustModel[M any](m M, err error) M {
+	if err != nil {
+		panic(err)
+	}
+	return m
+}
+
+var compatCases = []compatCase{
+	{"ae-plain", false, func() trainable { return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: 3})) }},
+	{"ae-kinds", true, func() trainable {
+		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{12, 8}, Latent: 3, Activation: layers.Tanh, Dropout: 0.1,
+			Noise: ae.Corruption{Kind: ae.MaskingNoise, Level: 0.2}, Sparsity: ae.Sparsity{Kind: ae.L1Sparsity, Weight: 1e-3},
+			Classes: 2, WeightDecay: 1e-3, ClipNorm: 1, Rate: 3e-3, Seed: 4}))
+	}},
+	{"ae-f64", false, func() trainable {
+		return mustModel(ae.New(ae.Config{Inputs: 64, Hidden: []int{16}, Latent: 4, Activation: layers.LeakyReLU,
+			Noise: ae.Corruption{Kind: ae.SaltPepperNoise, Level: 0.1}, Scaling: data.ScaleMinMax, Precision: layers.Float64, Seed: 5}))
+	}},
+	{"vae-bernoulli", false, func() trainable {
+		return mustModel(vae.New(vae.Config{Inputs: 784, Hidden: []int{16}, Latent: 3, FreeBits: 0.1,
+			Schedule: vae.BetaSchedule{Kind: vae.Linear, Steps: 10}, Seed: 6}))
+	}},
+	{"vae-gaussian", false, func() trainable {
+		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{16}, Latent: 3, Likelihood: vae.GaussianLearned,
+			ClipNorm: 5, WeightDecay: 1e-4, Rate: 3e-3, Seed: 7}))
+	}},
+	{"vae-f64", false, func() trainable {
+		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.GaussianShared,
+			Beta: 0.5, Schedule: vae.BetaSchedule{Kind: vae.Cyclical, Steps: 12}, Precision: layers.Float64, Seed: 8}))
+	}},
+	{"gan-bce", false, func() trainable {
+		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Pack: 2, DiscSteps: 2,
+			LabelSmoothing: 0.1, Seed: 9}))
+	}},
+	{"gan-wasserstein", true, func() trainable {
+		return mustModel(gan.New(gan.Config{Outputs: 64, Noise: 8, GenHidden: []int{32}, DiscHidden: []int{32}, Critic: gan.Wasserstein,
+			Classes: 10, Scaling: data.ScaleMinMax, Seed: 10}))
+	}},
+	{"gan-f64", false, func() trainable {
+		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 4, GenHidden: []int{8}, DiscHidden: []int{8}, Loss: gan.Minimax,
+			Precision: layers.Float64, Seed: 11}))
+	}},
+}
+
+func readGolden(t *testing.T, name string) (compatGolden, *modelfile.File, *modelfile.File) {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join(compatDir, name+".json"))
+	require.NoError(t, err)
+	var g compatGolden
+	require.NoError(t, json.Unmarshal(b, &g))
+	var raw struct {
+		Outputs map[string]json.RawMessage `json:"outputs"`
+	}
+	require.NoError(t, json.Unmarshal(b, &raw))
+	g.Outputs = raw.Outputs
+	qm, err := modelfile.Read(filepath.Join(compatDir, name+".qm"), 0)
+	require.NoError(t, err)
+	ck, err := modelfile.Read(filepath.Join(compatDir, name+".ckpt"), 0)
+	require.NoError(t, err)
+	return g, qm, ck
+}
+
+// sameTensors requires every parameter tensor of want (the old file) to
+// be in got with bitwise the same values.
+func sameTensors(t *testing.T, want, got *modelfile.File) {
+	t.Helper()
+	n := 0
+	for _, w := range want.Tensors {
+		g, ok := got.Tensor(w.Name)
+		require.True(t, ok, "tensor %q missing", w.Name)
+		require.Equal(t, w.Rows, g.Rows, w.Name)
+		require.Equal(t, w.Cols, g.Cols, w.Name)
+		require.Equal(t, w.F32, g.F32, "tensor %q differs", w.Name)
+		require.Equal(t, w.F64, g.F64, "tensor %q differs", w.Name)
+		n++
+	}
+	require.NotZero(t, n)
+}
+
+func compatSplit(t *testing.T, c compatCase, g compatGolden) (*data.Dataset, *data.Dataset, *data.Dataset) {
+	full := compatData(t, g.Data)
+	if g.Data == "fashion500" {
+		full.Labels = nil
+	}
+	tr, va, err := full.Split(0.2, rand.New(rand.NewPCG(g.Seed, 7)))
+	require.NoError(t, err)
+	if !c.labels {
+		tr.Labels, va.Labels = nil, nil
+	}
+	return full, tr, va
+}
+
+func TestCompatTrainingIsBitwiseTheSame(t *testing.T) {
+	for _, c := range compatCases {
+		t.Run(c.name, func(t *testing.T) {
+			g, qm, _ := readGolden(t, c.name)
+			_, tr, va := compatSplit(t, c, g)
+			m := c.build()
+			h, err := m.Train(context.Background(), tr, va, train.Config{Epochs: 4, BatchSize: g.Batch, Patience: g.Patience})
+			require.NoError(t, err)
+			require.Equal(t, g.Epochs, h.Epochs)
+			require.Equal(t, g.Best, h.BestEpoch)
+			f, err := m.File(nil, nil)
+			require.NoError(t, err)
+			sameTensors(t, qm, f)
+		})
+	}
+}
+
+func TestCompatCheckpointsResume(t *testing.T) {
+	for _, c := range compatCases {
+		t.Run(c.name, func(t *testing.T) {
+			g, qm, ck := readGolden(t, c.name)
+			_, tr, va := compatSplit(t, c, g)
+			m, h, err := compatResume(ck)
+			require.NoError(t, err)
+			require.Len(t, h.Epochs, 2)
+			h, err = m.Train(context.Background(), tr, va, train.Config{Epochs: 4, BatchSize: g.Batch, Patience: g.Patience, Start: h})
+			require.NoError(t, err)
+			require.Equal(t, g.Epochs, h.Epochs)
+			f, err := m.File(nil, nil)
+			require.NoError(t, err)
+			sameTensors(t, qm, f)
+		})
+	}
+}
+
+func compatResume(f *modelfile.File) (trainable, *train.History, error) {
+	switch f.Kind {
+	case ae.Kind:
+		m, h, _, err := ae.FromFile(f)
+		return m, h, err
+	case vae.Kind:
+		m, h, _, err := vae.FromFile(f)
+		return m, h, err
+	}
+	m, h, _, err := gan.FromFile(f)
+	return m, h, err
+}
+
+// jsonOf marshals v in a canonical form (objects' keys sorted), for
+// comparison with the golden outputs.
+func jsonOf(t *testing.T, v any) string {
+	b, err := json.Marshal(v)
+	require.NoError(t, err)
+	var a any
+	require.NoError(t, json.Unmarshal(b, &a))
+	b, err = json.Marshal(a)
+	require.NoError(t, err)
+	return string(b)
+}
+
+func f64s(v []float32) []float64 {
+	o := make([]float64, len(v))
+	for i, x := range v {
+		o[i] = float64(x)
+	}
+	return o
+}
+
+func TestCompatOutputsAreBitwiseTheSame(t *testing.T) {
+	for _, c := range compatCases {
+		t.Run(c.name, func(t *testing.T) {
+			g, qm, _ := readGolden(t, c.name)
+			full, _, _ := compatSplit(t, c, g)
+			got := compatOutputs(t, qm, full)
+			require.Equal(t, len(g.Outputs), len(got))
+			for k, want := range g.Outputs {
+				var w any
+				require.NoError(t, json.Unmarshal(want, &w))
+				if jsonOf(t, w) != jsonOf(t, got[k]) {
+					t.Errorf("output %q differs from the golden file's", k)
+				}
+			}
+		})
+	}
+}
+
+func compatOutputs(t *testing.T, f *modelfile.File, d *data.Dataset) map[string]any {
+	o := map[string]any{}
+	first := func(n int) ([]float32, int) { return d.X[:n*d.Cols], n }
+	switch f.Kind {
+	case ae.Kind:
+		m, _, _, err := ae.FromFile(f)
+		require.NoError(t, err)
+		e, err := m.RowErrors(d.X, d.Rows)
+		require.NoError(t, err)
+		o["row_errors"] = e
+		x, n := first(10)
+		c, err := m.Encode(x, n)
+		require.NoError(t, err)
+		o["codes"] = f64s(c)
+		x, n = first(3)
+		r, err := m.Reconstruct(x, n)
+		require.NoError(t, err)
+		o["reconstructions"] = f64s(r)
+		x, n = first(20)
+		s, err := m.Score(x, n, 3)
+		require.NoError(t, err)
+		o["scores"] = s
+		if m.Head != nil {
+			l, p, err := m.Classify(x, n)
+			require.NoError(t, err)
+			o["classes"], o["class_probabilities"] = l, p
+		}
+	case vae.Kind:
+		m, _, _, err := vae.FromFile(f)
+		require.NoError(t, err)
+		x, n := first(20)
+		s, err := m.NegELBO(x, n)
+		require.NoError(t, err)
+		o["neg_elbo"] = s
+		iw, err := m.IWAE(x[:5*d.Cols], 5, 5, 3)
+		require.NoError(t, err)
+		o["iwae5"] = iw
+		c, err := m.Encode(x[:10*d.Cols], 10)
+		require.NoError(t, err)
+		o["codes"] = f64s(c)
+		smp, err := m.Sample(5, 9)
+		require.NoError(t, err)
+		o["samples"] = f64s(smp)
+		r, err := m.Reconstruct(x[:3*d.Cols], 3)
+		require.NoError(t, err)
+		o["reconstructions"] = f64s(r)
+		sc, err := m.Score(x, n, 3)
+		require.NoError(t, err)
+		o["scores"] = sc
+	case gan.Kind:
+		m, _, _, err := gan.FromFile(f)
+		require.NoError(t, err)
+		s, err := m.Generate(10, 9, -1)
+		require.NoError(t, err)
+		o["samples"] = f64s(s)
+		x, n := first(10)
+		var labels []int
+		if m.Config().Classes > 0 {
+			labels = d.Labels[:n]
+		}
+		p, err := m.Discriminate(x, n, labels)
+		require.NoError(t, err)
+		o["discriminator"] = p
+	}
+	return o
+}
+
+var _ = anomaly.Caution
