@@ -76,7 +76,9 @@ func mustModel[M any](m M, err error) M {
 }
 
 var compatCases = []compatCase{
-	{"ae-plain", false, func() trainable { return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: 3})) }},
+	{"ae-plain", false, func() trainable {
+		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: 3}))
+	}},
 	{"ae-kinds", true, func() trainable {
 		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{12, 8}, Latent: 3, Activation: layers.Tanh, Dropout: 0.1,
 			Noise: ae.Corruption{Kind: ae.MaskingNoise, Level: 0.2}, Sparsity: ae.Sparsity{Kind: ae.L1Sparsity, Weight: 1e-3},
