@@ -6,6 +6,7 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/losses"
 )
 
 // work is one goroutine's scratch space for graph-free inference.
@@ -198,9 +199,7 @@ func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float
 
 func (m *Model) elemError(target, out float64) float64 {
 	if m.cfg.Loss == BCE {
-		const eps = 1e-7 // keeps log finite for saturated outputs
-		p := math.Min(math.Max(out, eps), 1-eps)
-		return -(target*math.Log(p) + (1-target)*math.Log1p(-p))
+		return losses.BCEProbabilityElem(out, target)
 	}
 	d := target - out
 	return d * d

@@ -149,8 +149,7 @@ func (m *Model) build(trainMode bool) engine.BuildFunc {
 			logits := g.MLP(m.Head, code, trainMode)
 			onehot := g.Input("onehot", n, c.Classes)
 			lw := g.Input("labelweight", 1, 1)
-			// -sum(onehot * log softmax) / labelled rows
-			ce = g.Sum(g.Mul(g.Sum(g.Mul(onehot, g.LogSoftmax(logits))), g.Neg(lw)))
+			ce = losses.GraphLabelledCrossEntropy(g, logits, onehot, lw)
 			if total == nil {
 				total = ce
 			} else {

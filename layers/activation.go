@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/vec"
 )
 
 // Activation is an element-wise non-linearity applied after an affine layer.

@@ -5,8 +5,8 @@ import (
 	"fmt"
 	"math/rand/v2"
 
-	"github.com/quernlab/quern/internal/gemm"
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/gemm"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	"gonum.org/v1/gonum/blas"
 )
 

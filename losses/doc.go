@@ -8,17 +8,23 @@
 // discriminator BCE, the non-saturating and minimax generator losses
 // (Goodfellow et al. 2014) and the Wasserstein critic (Arjovsky et al. 2017).
 //
-// Each loss has two forms that compute the same number with the same
-// reduction:
+// Each objective has up to three forms that compute the same number:
 //
 //   - a plain float64 reference function (MSE, KLStdNormal, ...), for
 //     evaluation, reporting and as the independent side of the tests;
-//   - a graph form (GraphMSE, GraphKLStdNormal, ...) that the ae, vae and gan
-//     trainers put into their training graphs.
+//   - element forms (BCEWithLogitsElem, GaussianNLLElem, KLStdNormalElem,
+//     ...), the per-value terms that the models' graph-free passes sum into
+//     scores, bounds and per-column contributions;
+//   - a graph form (GraphMSE, GraphBernoulliNLL, GraphKLFreeBits, ...) that
+//     package train builds into the training graphs. Graph forms are
+//     generic over the small Graph interface, so this package imports no
+//     graph library; the likelihoods of a VAE's decoder, free bits and the
+//     semi-supervised cross-entropy are graph forms here too.
 //
-// Both are checked against golden values computed by general-purpose
-// libraries (testdata/losses/make_golden.py), and every graph form's
-// gradient is checked by finite differences against its reference.
+// Reference functions are checked against golden values computed by
+// general-purpose libraries (testdata/losses/make_golden.py); graph forms
+// against the references, and every graph form's gradient by finite
+// differences against its reference. Log2Pi is the one log(2 pi).
 //
 // Reductions: element-wise losses (MSE, BCE, GaussianNLL) average over all
 // elements; per-row divergences (the Gaussian KLs, SoftmaxCrossEntropy,

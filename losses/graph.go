@@ -1,15 +1,55 @@
 package losses
 
-import (
-	"github.com/quernlab/quern/internal/engine"
-)
+import "math"
 
-// The Graph* functions are the graph forms of the losses above, used by the
-// ae, vae and gan trainers to build training graphs. Each computes the same
-// quantity as its reference function with the same reduction; the tests
-// hold the two together and check their gradients by finite differences.
+// Node is a value of a computation graph: a Rows x Cols matrix, or a
+// scalar (0 x 0).
+type Node interface {
+	Rows() int
+	Cols() int
+}
 
-func same(g *engine.Graph, name string, a, b *engine.Node) bool {
+// Graph is what the graph forms need of a computation graph. quern's
+// training engine implements it; the three fused methods (MSE,
+// BCEWithLogitsSum, KLStdNormal) are kernels that bring their own
+// gradients, the rest are element-wise arithmetic and reductions.
+type Graph[N Node] interface {
+	Const(v float64) N
+	Add(a, b N) N
+	Sub(a, b N) N
+	Mul(a, b N) N
+	Scale(x N, c float64) N
+	Shift(x N, c float64) N
+	Neg(x N) N
+	Exp(x N) N
+	Log(x N) N
+	Square(x N) N
+	Abs(x N) N
+	ReLU(x N) N
+	Softplus(x N) N
+	Sum(x N) N
+	Mean(x N) N
+	SumRows(x N) N
+	AddRow(x, r N) N
+	MulRow(x, r N) N
+	LogSoftmax(x N) N
+	// MSE is the mean of (p - t)^2 over all elements.
+	MSE(p, t N) N
+	// BCEWithLogitsSum is the sum of BCEWithLogitsElem over all elements.
+	BCEWithLogitsSum(x, y N) N
+	// KLStdNormal is KLStdNormalElem summed over columns, averaged over
+	// rows.
+	KLStdNormal(mu, logvar N) N
+	// Failf records a construction error.
+	Failf(format string, args ...any)
+}
+
+// The Graph* functions are the graph forms of the objectives, built into
+// the training graphs. Each computes the same quantity as its reference
+// function with the same reduction; the tests hold the two together and
+// check their gradients by finite differences.
+
+func same[N Node](g Graph[N], name string, a, b N) bool {
 	if a.Rows() != b.Rows() || a.Cols() != b.Cols() {
 		g.Failf("losses: %s: shapes %dx%d and %dx%d differ", name, a.Rows(), a.Cols(), b.Rows(), b.Cols())
 		return false
@@ -18,13 +58,13 @@ func same(g *engine.Graph, name string, a, b *engine.Node) bool {
 }
 
 // GraphMSE is the graph form of MSE, one fused operation.
-func GraphMSE(g *engine.Graph, pred, target *engine.Node) *engine.Node {
+func GraphMSE[N Node](g Graph[N], pred, target N) N {
 	same(g, "MSE", pred, target)
 	return g.MSE(pred, target)
 }
 
 // GraphBCE is the graph form of BCE for probabilities strictly inside (0, 1).
-func GraphBCE(g *engine.Graph, p, y *engine.Node) *engine.Node {
+func GraphBCE[N Node](g Graph[N], p, y N) N {
 	same(g, "BCE", p, y)
 	one := g.Const(1)
 	t := g.Add(g.Mul(y, g.Log(p)), g.Mul(g.Sub(one, y), g.Log(g.Sub(one, p))))
@@ -33,51 +73,94 @@ func GraphBCE(g *engine.Graph, p, y *engine.Node) *engine.Node {
 
 // GraphBCEWithLogits is the graph form of BCEWithLogits: the fused
 // max(x,0) - x*y + log1p(exp(-|x|)), whose gradient sigmoid(x) - y is exact
-// and finite for any x.
-func GraphBCEWithLogits(g *engine.Graph, x, y *engine.Node) *engine.Node {
+// and finite for any x, averaged over all elements.
+func GraphBCEWithLogits[N Node](g Graph[N], x, y N) N {
 	same(g, "BCEWithLogits", x, y)
 	return g.Scale(g.BCEWithLogitsSum(x, y), 1/float64(max(1, x.Rows()*x.Cols())))
 }
 
-// BCEWithLogitsElems is the element-wise BCE on logits, before reduction,
-// as one fused operation.
-func BCEWithLogitsElems(g *engine.Graph, x, y *engine.Node) *engine.Node {
-	return g.BCEWithLogits(x, y)
-}
-
 // GraphGaussianNLL is the graph form of GaussianNLL.
-func GraphGaussianNLL(g *engine.Graph, x, mu, logvar *engine.Node) *engine.Node {
+func GraphGaussianNLL[N Node](g Graph[N], x, mu, logvar N) N {
 	same(g, "GaussianNLL", x, mu)
 	same(g, "GaussianNLL", x, logvar)
 	d := g.Sub(x, mu)
 	t := g.Add(logvar, g.Mul(g.Square(d), g.Exp(g.Neg(logvar))))
-	return g.Shift(g.Scale(g.Mean(t), 0.5), 0.5*log2Pi)
+	return g.Shift(g.Scale(g.Mean(t), 0.5), 0.5*Log2Pi)
 }
 
-const log2Pi = 1.8378770664093453 // log(2*pi)
+// The likelihood forms below are the reconstruction terms of a VAE's
+// objective: the negative log-likelihood of each row x under the decoder's
+// output, summed over the row's columns and averaged over rows.
+
+// GraphBernoulliNLL is -log p(x | logits) for Bernoulli columns:
+// BCEWithLogitsElem summed over each row, averaged over rows.
+func GraphBernoulliNLL[N Node](g Graph[N], logits, x N) N {
+	same(g, "BernoulliNLL", logits, x)
+	return g.Scale(g.BCEWithLogitsSum(logits, x), 1/float64(x.Rows()))
+}
+
+// GraphGaussianNLLFixed is -log N(x | mean, variance) with one fixed
+// variance for every column.
+func GraphGaussianNLLFixed[N Node](g Graph[N], x, mean N, variance float64) N {
+	same(g, "GaussianNLLFixed", x, mean)
+	sq := g.Square(g.Sub(x, mean))
+	elems := g.Shift(g.Scale(sq, 0.5/variance), 0.5*(Log2Pi+math.Log(variance)))
+	return g.Scale(g.Sum(elems), 1/float64(x.Rows()))
+}
+
+// GraphGaussianNLLColumns is -log N(x | mean, exp(logvar)) with one
+// log-variance per column: logvar is a 1 x Cols row.
+func GraphGaussianNLLColumns[N Node](g Graph[N], x, mean, logvar N) N {
+	same(g, "GaussianNLLColumns", x, mean)
+	if logvar.Rows() != 1 || logvar.Cols() != x.Cols() {
+		g.Failf("losses: GaussianNLLColumns: log-variance %dx%d for %d columns", logvar.Rows(), logvar.Cols(), x.Cols())
+	}
+	sq := g.Square(g.Sub(x, mean))
+	elems := g.Scale(g.Shift(g.AddRow(g.MulRow(sq, g.Exp(g.Neg(logvar))), logvar), Log2Pi), 0.5)
+	return g.Scale(g.Sum(elems), 1/float64(x.Rows()))
+}
+
+// GraphGaussianNLLShared is -log N(x | mean, exp(logvar)) with one
+// log-variance for every column: logvar is 1 x 1.
+func GraphGaussianNLLShared[N Node](g Graph[N], x, mean, logvar N) N {
+	s := g.Sum(logvar)
+	same(g, "GaussianNLLShared", x, mean)
+	sq := g.Square(g.Sub(x, mean))
+	elems := g.Scale(g.Add(g.Shift(g.Mul(sq, g.Exp(g.Neg(s))), Log2Pi), s), 0.5)
+	return g.Scale(g.Sum(elems), 1/float64(x.Rows()))
+}
 
 // GraphKLStdNormal is the graph form of KLStdNormal: the KL of each row's
 // diagonal Gaussian from N(0, I), summed over dimensions, averaged over rows.
-func GraphKLStdNormal(g *engine.Graph, mu, logvar *engine.Node) *engine.Node {
+func GraphKLStdNormal[N Node](g Graph[N], mu, logvar N) N {
 	same(g, "KLStdNormal", mu, logvar)
 	return g.KLStdNormal(mu, logvar)
 }
 
 // GraphKLStdNormalDims is the per-dimension KL from N(0, I) averaged over
 // rows, as a 1 x dim row (used for free bits and reporting).
-func GraphKLStdNormalDims(g *engine.Graph, mu, logvar *engine.Node) *engine.Node {
+func GraphKLStdNormalDims[N Node](g Graph[N], mu, logvar N) N {
 	same(g, "KLStdNormal", mu, logvar)
 	return g.Scale(g.SumRows(klStdElems(g, mu, logvar)), 1/float64(mu.Rows()))
 }
 
-func klStdElems(g *engine.Graph, mu, logvar *engine.Node) *engine.Node {
+// GraphKLFreeBits is the KL of GraphKLStdNormalDims with every dimension
+// charged at least floor nats, summed over dimensions (free bits, Kingma
+// et al. 2016): dimensions below the floor are not pushed further toward
+// the prior.
+func GraphKLFreeBits[N Node](g Graph[N], mu, logvar N, floor float64) N {
+	dims := GraphKLStdNormalDims(g, mu, logvar)
+	return g.Sum(g.Shift(g.ReLU(g.Shift(dims, -floor)), floor))
+}
+
+func klStdElems[N Node](g Graph[N], mu, logvar N) N {
 	// 0.5 * (mu^2 + exp(lv) - 1 - lv)
 	t := g.Sub(g.Add(g.Square(mu), g.Exp(logvar)), g.Shift(logvar, 1))
 	return g.Scale(t, 0.5)
 }
 
 // GraphKLDiagGaussians is the graph form of KLDiagGaussians.
-func GraphKLDiagGaussians(g *engine.Graph, mu1, lv1, mu2, lv2 *engine.Node) *engine.Node {
+func GraphKLDiagGaussians[N Node](g Graph[N], mu1, lv1, mu2, lv2 N) N {
 	same(g, "KLDiagGaussians", mu1, lv1)
 	same(g, "KLDiagGaussians", mu1, mu2)
 	same(g, "KLDiagGaussians", mu1, lv2)
@@ -89,21 +172,21 @@ func GraphKLDiagGaussians(g *engine.Graph, mu1, lv1, mu2, lv2 *engine.Node) *eng
 
 // GraphKL is the discrete KL divergence between rows of p and q (all entries
 // strictly positive), averaged over rows.
-func GraphKL(g *engine.Graph, p, q *engine.Node) *engine.Node {
+func GraphKL[N Node](g Graph[N], p, q N) N {
 	same(g, "KL", p, q)
 	return g.Scale(g.Sum(g.Mul(p, g.Sub(g.Log(p), g.Log(q)))), 1/float64(p.Rows()))
 }
 
 // GraphCrossEntropy is -sum p log q per row (q strictly positive), averaged
 // over rows.
-func GraphCrossEntropy(g *engine.Graph, p, q *engine.Node) *engine.Node {
+func GraphCrossEntropy[N Node](g Graph[N], p, q N) N {
 	same(g, "CrossEntropy", p, q)
 	return g.Scale(g.Sum(g.Mul(p, g.Log(q))), -1/float64(p.Rows()))
 }
 
 // GraphJensenShannon is the Jensen-Shannon divergence between rows of p and
 // q (strictly positive), averaged over rows.
-func GraphJensenShannon(g *engine.Graph, p, q *engine.Node) *engine.Node {
+func GraphJensenShannon[N Node](g Graph[N], p, q N) N {
 	same(g, "JensenShannon", p, q)
 	m := g.Scale(g.Add(p, q), 0.5)
 	lm := g.Log(m)
@@ -113,19 +196,28 @@ func GraphJensenShannon(g *engine.Graph, p, q *engine.Node) *engine.Node {
 }
 
 // GraphSoftmaxCrossEntropy is the graph form of SoftmaxCrossEntropy.
-func GraphSoftmaxCrossEntropy(g *engine.Graph, logits, t *engine.Node) *engine.Node {
+func GraphSoftmaxCrossEntropy[N Node](g Graph[N], logits, t N) N {
 	same(g, "SoftmaxCrossEntropy", logits, t)
 	return g.Scale(g.Sum(g.Mul(t, g.LogSoftmax(logits))), -1/float64(logits.Rows()))
 }
 
+// GraphLabelledCrossEntropy is the softmax cross-entropy of logits against
+// one-hot rows, summed over the rows and multiplied by weight (a 1 x 1
+// node): with all-zero rows for unlabelled rows and weight 1/(labelled
+// rows), the mean over the labelled rows, for semi-supervised training.
+func GraphLabelledCrossEntropy[N Node](g Graph[N], logits, onehot, weight N) N {
+	same(g, "LabelledCrossEntropy", logits, onehot)
+	return g.Sum(g.Mul(g.Sum(g.Mul(onehot, g.LogSoftmax(logits))), g.Neg(weight)))
+}
+
 // GraphL1Activity is the graph form of L1Activity.
-func GraphL1Activity(g *engine.Graph, h *engine.Node) *engine.Node {
+func GraphL1Activity[N Node](g Graph[N], h N) N {
 	return g.Scale(g.Sum(g.Abs(h)), 1/float64(h.Rows()))
 }
 
 // GraphKLSparsity is the graph form of KLSparsity; h must lie in (0, 1)
 // (sigmoid codes) and 0 < rho < 1.
-func GraphKLSparsity(g *engine.Graph, h *engine.Node, rho float64) *engine.Node {
+func GraphKLSparsity[N Node](g Graph[N], h N, rho float64) N {
 	rhoHat := g.Scale(g.SumRows(h), 1/float64(h.Rows()))
 	one := g.Const(1)
 	// rho log rho + (1-rho) log(1-rho) - rho log rhoHat - (1-rho) log(1-rhoHat)
@@ -135,7 +227,7 @@ func GraphKLSparsity(g *engine.Graph, h *engine.Node, rho float64) *engine.Node 
 }
 
 // GraphDiscriminatorBCE is the graph form of DiscriminatorBCE on logits.
-func GraphDiscriminatorBCE(g *engine.Graph, real, fake *engine.Node, realLabel float64) *engine.Node {
+func GraphDiscriminatorBCE[N Node](g Graph[N], real, fake N, realLabel float64) N {
 	// BCE(x, l) = softplus(x) - l*x
 	r := g.Mean(g.Sub(g.Softplus(real), g.Scale(real, realLabel)))
 	f := g.Mean(g.Softplus(fake))
@@ -143,21 +235,21 @@ func GraphDiscriminatorBCE(g *engine.Graph, real, fake *engine.Node, realLabel f
 }
 
 // GraphGeneratorNonSaturating is the graph form of GeneratorNonSaturating.
-func GraphGeneratorNonSaturating(g *engine.Graph, fake *engine.Node) *engine.Node {
+func GraphGeneratorNonSaturating[N Node](g Graph[N], fake N) N {
 	return g.Mean(g.Softplus(g.Neg(fake)))
 }
 
 // GraphGeneratorMinimax is the graph form of GeneratorMinimax.
-func GraphGeneratorMinimax(g *engine.Graph, fake *engine.Node) *engine.Node {
+func GraphGeneratorMinimax[N Node](g Graph[N], fake N) N {
 	return g.Neg(g.Mean(g.Softplus(fake)))
 }
 
 // GraphWassersteinCritic is the graph form of WassersteinCritic.
-func GraphWassersteinCritic(g *engine.Graph, real, fake *engine.Node) *engine.Node {
+func GraphWassersteinCritic[N Node](g Graph[N], real, fake N) N {
 	return g.Sub(g.Mean(fake), g.Mean(real))
 }
 
 // GraphWassersteinGenerator is the graph form of WassersteinGenerator.
-func GraphWassersteinGenerator(g *engine.Graph, fake *engine.Node) *engine.Node {
+func GraphWassersteinGenerator[N Node](g Graph[N], fake N) N {
 	return g.Neg(g.Mean(fake))
 }

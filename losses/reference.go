@@ -58,13 +58,9 @@ func BCEWithLogits(x, y []float64) (float64, error) {
 	}
 	var s float64
 	for i, xi := range x {
-		s += bceLogit(xi, y[i])
+		s += BCEWithLogitsElem(xi, y[i])
 	}
 	return s / float64(len(x)), nil
-}
-
-func bceLogit(x, y float64) float64 {
-	return math.Max(x, 0) - x*y + math.Log1p(math.Exp(-math.Abs(x)))
 }
 
 // GaussianNLL is the mean negative log-density of x under N(mu, exp(logvar))
@@ -78,8 +74,7 @@ func GaussianNLL(x, mu, logvar []float64) (float64, error) {
 	}
 	var s float64
 	for i, xi := range x {
-		d := xi - mu[i]
-		s += 0.5 * (math.Log(2*math.Pi) + logvar[i] + d*d*math.Exp(-logvar[i]))
+		s += GaussianNLLElem(xi, mu[i], logvar[i])
 	}
 	return s / float64(len(x)), nil
 }
@@ -102,7 +97,7 @@ func KLStdNormal(mu, logvar []float64, dim int, perDim []float64) (float64, erro
 	rows := len(mu) / dim
 	var s float64
 	for i, m := range mu {
-		k := -0.5 * (1 + logvar[i] - m*m - math.Exp(logvar[i]))
+		k := KLStdNormalElem(m, logvar[i])
 		s += k
 		if perDim != nil {
 			perDim[i%dim] += k / float64(rows)
@@ -294,10 +289,10 @@ func DiscriminatorBCE(real, fake []float64, realLabel float64) (float64, error) 
 	}
 	var a, b float64
 	for _, x := range real {
-		a += bceLogit(x, realLabel)
+		a += BCEWithLogitsElem(x, realLabel)
 	}
 	for _, x := range fake {
-		b += bceLogit(x, 0)
+		b += BCEWithLogitsElem(x, 0)
 	}
 	return a/float64(len(real)) + b/float64(len(fake)), nil
 }
@@ -311,7 +306,7 @@ func GeneratorNonSaturating(fake []float64) (float64, error) {
 	}
 	var s float64
 	for _, x := range fake {
-		s += bceLogit(x, 1)
+		s += BCEWithLogitsElem(x, 1)
 	}
 	return s / float64(len(fake)), nil
 }
@@ -325,7 +320,7 @@ func GeneratorMinimax(fake []float64) (float64, error) {
 	}
 	var s float64
 	for _, x := range fake {
-		s -= bceLogit(x, 0)
+		s -= BCEWithLogitsElem(x, 0)
 	}
 	return s / float64(len(fake)), nil
 }

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/kernel/par"
 	"github.com/quernlab/quern/layers"
 )
 

@@ -7,6 +7,7 @@ import (
 	"sort"
 
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/losses"
 )
 
 type work struct {
@@ -436,13 +437,10 @@ func (m *Model) logLik(xs, out []float64, rows int) []float64 {
 		var s float64
 		for j := 0; j < d; j++ {
 			x, o := xs[r*d+j], out[r*d+j]
-			switch m.cfg.Likelihood {
-			case Bernoulli:
-				s -= math.Max(o, 0) - o*x + math.Log1p(math.Exp(-math.Abs(o)))
-			default:
-				lv := m.logVarAt(j)
-				e := x - o
-				s -= 0.5 * (log2Pi + lv + e*e*math.Exp(-lv))
+			if m.cfg.Likelihood == Bernoulli {
+				s -= losses.BCEWithLogitsElem(o, x)
+			} else {
+				s -= losses.GaussianNLLElem(x, o, m.logVarAt(j))
 			}
 		}
 		res[r] = s + m.jacobian()
@@ -552,8 +550,7 @@ func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, er
 		}
 		var kl float64
 		for j := 0; j < L; j++ {
-			a, b := d.mu[r*L+j], d.lv[r*L+j]
-			kl += -0.5 * (1 + b - a*a - math.Exp(b))
+			kl += losses.KLStdNormalElem(d.mu[r*L+j], d.lv[r*L+j])
 		}
 		res[r] = s/float64(samples) - kl
 	}
@@ -580,8 +577,8 @@ func (m *Model) IWAE(x []float32, rows, k int, seed uint64) ([]float64, error) {
 			var lp, lq float64
 			for j := 0; j < L; j++ {
 				q := (r*k+s)*L + j
-				lp -= 0.5 * (log2Pi + d.z[q]*d.z[q])
-				lq -= 0.5 * (log2Pi + d.lv[r*L+j] + d.eps[q]*d.eps[q])
+				lp -= losses.StdNormalNLLElem(d.z[q])
+				lq -= losses.ReparamNLLElem(d.eps[q], d.lv[r*L+j])
 			}
 			lw[s] = d.logLik[r*k+s] + lp - lq
 		}
@@ -654,7 +651,7 @@ func (m *Model) KLPerDim(x []float32, rows int) ([]float64, error) {
 	L := m.cfg.Latent
 	k := make([]float64, L)
 	for i := range mu {
-		k[i%L] += -0.5 * (1 + lv[i] - mu[i]*mu[i] - math.Exp(lv[i])) / float64(rows)
+		k[i%L] += losses.KLStdNormalElem(mu[i], lv[i]) / float64(rows)
 	}
 	return k, nil
 }

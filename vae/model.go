@@ -3,7 +3,6 @@ package vae
 import (
 	"context"
 	"fmt"
-	"math"
 	"math/rand/v2"
 	"sync"
 
@@ -15,8 +14,6 @@ import (
 	"github.com/quernlab/quern/optim"
 	"github.com/quernlab/quern/train"
 )
-
-const log2Pi = 1.8378770664093453
 
 // Model is a variational autoencoder: a Gaussian encoder q(z|x) with mean
 // and log-variance heads, a decoder p(x|z), the prior N(0, I), the input
@@ -115,25 +112,16 @@ func Reparameterise(g *engine.Graph, mu, logvar, eps *engine.Node) *engine.Node 
 // rows, of x under the decoder output out.
 func (m *Model) reconstruction(g *engine.Graph, out, x *engine.Node) *engine.Node {
 	c := m.cfg
-	n := float64(x.Rows())
-	var elems *engine.Node
 	switch c.Likelihood {
-	case Bernoulli:
-		// one fused sum: no element-wise losses, no broadcast gradient
-		return g.Scale(g.BCEWithLogitsSum(out, x), 1/n)
 	case Gaussian:
-		sq := g.Square(g.Sub(x, out))
-		elems = g.Shift(g.Scale(sq, 0.5/c.OutputVariance), 0.5*(log2Pi+math.Log(c.OutputVariance)))
+		return losses.GraphGaussianNLLFixed(g, x, out, c.OutputVariance)
 	case GaussianLearned:
-		lv := g.Param(m.LogVar)
-		sq := g.Square(g.Sub(x, out))
-		elems = g.Scale(g.Shift(g.AddRow(g.MulRow(sq, g.Exp(g.Neg(lv))), lv), log2Pi), 0.5)
+		return losses.GraphGaussianNLLColumns(g, x, out, g.Param(m.LogVar))
 	case GaussianShared:
-		s := g.Sum(g.Param(m.LogVar))
-		sq := g.Square(g.Sub(x, out))
-		elems = g.Scale(g.Add(g.Shift(g.Mul(sq, g.Exp(g.Neg(s))), log2Pi), s), 0.5)
+		return losses.GraphGaussianNLLShared(g, x, out, g.Param(m.LogVar))
 	}
-	return g.Scale(g.Sum(elems), 1/n)
+	// one fused sum: no element-wise losses, no broadcast gradient
+	return losses.GraphBernoulliNLL(g, out, x)
 }
 
 func (m *Model) build(trainMode bool) engine.BuildFunc {
@@ -153,8 +141,7 @@ func (m *Model) build(trainMode bool) engine.BuildFunc {
 		}
 		klTerm := kl
 		if c.FreeBits > 0 {
-			dims := losses.GraphKLStdNormalDims(g, mu, lv)
-			klTerm = g.Sum(g.Shift(g.ReLU(g.Shift(dims, -c.FreeBits)), c.FreeBits))
+			klTerm = losses.GraphKLFreeBits(g, mu, lv, c.FreeBits)
 		}
 		beta := g.Input("beta", 1, 1)
 		return g.Add(recon, g.Mul(klTerm, g.Sum(beta))), []*engine.Node{recon, kl}

@@ -5,6 +5,7 @@ import (
 	"math"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/losses"
 )
 
 // ScoreSamples is the number of reparameterised draws behind a density
@@ -53,7 +54,7 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	for i, v := range xs {
 		o := out[i]
 		if m.cfg.Likelihood == Bernoulli {
-			c[i] = math.Max(o, 0) - o*v + math.Log1p(math.Exp(-math.Abs(o)))
+			c[i] = losses.BCEWithLogitsElem(o, v)
 			continue
 		}
 		e := v - o

@@ -12,7 +12,7 @@ import (
 
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/internal/fleet"
+	"github.com/quernlab/quern/demo/fleet"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/report"

@@ -23,7 +23,7 @@ import (
 
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/internal/fleet"
+	"github.com/quernlab/quern/demo/fleet"
 	"github.com/quernlab/quern/train"
 )
 

@@ -23,8 +23,8 @@ import (
 	"strconv"
 
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/demo/fleet"
 	"github.com/quernlab/quern/gan"
-	"github.com/quernlab/quern/internal/fleet"
 	"github.com/quernlab/quern/train"
 )
 

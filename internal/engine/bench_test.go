@@ -5,7 +5,7 @@ import (
 	"testing"
 
 	"github.com/quernlab/quern/internal/engine"
-	"github.com/quernlab/quern/internal/gemm"
+	"github.com/quernlab/quern/internal/kernel/gemm"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/quernlab/quern/optim"

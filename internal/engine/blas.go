@@ -3,7 +3,7 @@
 package engine
 
 import (
-	"github.com/quernlab/quern/internal/gemm"
+	"github.com/quernlab/quern/internal/kernel/gemm"
 	"gonum.org/v1/gonum/blas"
 	gonumblas "gonum.org/v1/gonum/blas/gonum"
 	G "gorgonia.org/gorgonia"

@@ -6,8 +6,8 @@ package engine
 import "C"
 
 import (
-	"github.com/quernlab/quern/internal/gemm"
-	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/kernel/gemm"
+	"github.com/quernlab/quern/internal/kernel/par"
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/netlib/blas/netlib"
 	G "gorgonia.org/gorgonia"

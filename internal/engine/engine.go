@@ -8,8 +8,8 @@ import (
 	"sync/atomic"
 	"unsafe"
 
-	"github.com/quernlab/quern/internal/par"
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/par"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	"github.com/quernlab/quern/layers"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"

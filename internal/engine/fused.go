@@ -2,13 +2,13 @@ package engine
 
 import (
 	"fmt"
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	"hash/fnv"
 	"math"
 
 	"github.com/chewxy/hm"
 	"github.com/chewxy/math32"
-	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/kernel/par"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )

@@ -5,8 +5,8 @@ import (
 	"math"
 
 	"github.com/chewxy/hm"
-	"github.com/quernlab/quern/internal/par"
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/par"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )

@@ -2,7 +2,7 @@ package engine
 
 import (
 	"fmt"
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/vec"
 
 	"github.com/chewxy/hm"
 	G "gorgonia.org/gorgonia"

@@ -3,8 +3,8 @@ package engine
 import (
 	"fmt"
 
-	"github.com/quernlab/quern/internal/par"
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/par"
+	"github.com/quernlab/quern/internal/kernel/vec"
 
 	"github.com/chewxy/hm"
 	G "gorgonia.org/gorgonia"

@@ -4,7 +4,7 @@ import (
 	"math"
 	"testing"
 
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	"github.com/stretchr/testify/require"
 )
 

@@ -4,7 +4,7 @@ import (
 	"runtime"
 	"sync"
 
-	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/kernel/par"
 
 	"gonum.org/v1/gonum/blas"
 )

@@ -3,7 +3,7 @@ package gemm_test
 import (
 	"fmt"
 
-	"github.com/quernlab/quern/internal/gemm"
+	"github.com/quernlab/quern/internal/kernel/gemm"
 	"gonum.org/v1/gonum/blas"
 )
 

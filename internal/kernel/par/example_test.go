@@ -3,7 +3,7 @@ package par_test
 import (
 	"fmt"
 
-	"github.com/quernlab/quern/internal/par"
+	"github.com/quernlab/quern/internal/kernel/par"
 )
 
 // Per-block partial sums added in order give the same total whatever the

@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"github.com/quernlab/quern/internal/vec"
+	"github.com/quernlab/quern/internal/kernel/vec"
 )
 
 // The kernel handles the largest multiple of eight elements; the caller
