@@ -1,24 +1,19 @@
-package ae
+package ae_test
 
 import (
-	"context"
 	"testing"
 
+	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/train"
 	"github.com/stretchr/testify/require"
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/stat"
 )
-
-func digits(t testing.TB) *data.Dataset {
-	t.Helper()
-	d, err := data.LoadCSV("../testdata/sklearn/digits.csv.gz", data.CSVConfig{NoHeader: true, Label: "c64"})
-	require.NoError(t, err)
-	return d
-}
 
 // anomalySplit: the normal class's even-indexed rows train (and fit the
 // scaling); its odd-indexed rows and every other row are scored, the others
@@ -80,11 +75,10 @@ func pcaAUC(t testing.TB, fit, test *data.Dataset, positive []bool, k int) float
 	return auc
 }
 
-func aeAUC(t testing.TB, cfg Config, tc train.Config, fit, test *data.Dataset, positive []bool) float64 {
-	m, err := New(cfg)
+func aeAUC(t testing.TB, cfg ae.Config, s train.Settings, fit, test *data.Dataset, positive []bool) float64 {
+	m, err := ae.New(cfg)
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), fit, nil, tc)
-	require.NoError(t, err)
+	trainenv.Fit(t, m, fit, nil, s)
 	scores, err := m.RowErrors(test.X, test.Rows)
 	require.NoError(t, err)
 	auc, err := anomaly.ROCAUC(scores, positive)
@@ -99,24 +93,25 @@ func aeAUC(t testing.TB, cfg Config, tc train.Config, fit, test *data.Dataset, p
 // k=5. The autoencoder must come within 0.01 of the baseline everywhere and
 // beat it at least once.
 func TestAnomalyAUCAgainstPCA(t *testing.T) {
-	bc, dg := breastCancer(t), digits(t)
+	bc, dg := testenv.BreastCancer(t), testenv.Digits(t)
 	type tcase struct {
 		name   string
 		d      *data.Dataset
 		normal int
 		ks     []int
-		cfg    Config
-		tc     train.Config
+		cfg    ae.Config
+		s      train.Settings
 	}
+	s := train.Settings{Epochs: 100, BatchSize: 32, Optimizer: train.Optimizer{Rate: 3e-3, WeightDecay: 1e-3}}
 	cases := []tcase{
-		{"breast_cancer/benign", bc, 1, []int{2, 10}, Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Activation: layers.Tanh, Rate: 3e-3, WeightDecay: 1e-3, Seed: 1}, train.Config{Epochs: 100, BatchSize: 32}},
-		{"digits/0", dg, 0, []int{5}, Config{Inputs: 64, Hidden: []int{32}, Latent: 5, Rate: 3e-3, WeightDecay: 1e-3, Seed: 1}, train.Config{Epochs: 100, BatchSize: 32}},
-		{"digits/1", dg, 1, []int{5}, Config{Inputs: 64, Hidden: []int{32}, Latent: 5, Rate: 3e-3, WeightDecay: 1e-3, Seed: 1}, train.Config{Epochs: 100, BatchSize: 32}},
+		{"breast_cancer/benign", bc, 1, []int{2, 10}, ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Activation: layers.Tanh, Seed: 1}, s},
+		{"digits/0", dg, 0, []int{5}, ae.Config{Inputs: 64, Hidden: []int{32}, Latent: 5, Seed: 1}, s},
+		{"digits/1", dg, 1, []int{5}, ae.Config{Inputs: 64, Hidden: []int{32}, Latent: 5, Seed: 1}, s},
 	}
 	beat := 0
 	for _, c := range cases {
 		fit, test, pos := anomalySplit(c.d, c.normal)
-		got := aeAUC(t, c.cfg, c.tc, fit, test, pos)
+		got := aeAUC(t, c.cfg, c.s, fit, test, pos)
 		for _, k := range c.ks {
 			base := pcaAUC(t, fit, test, pos, k)
 			t.Logf("%s: autoencoder AUC %.4f, PCA k=%d %.4f", c.name, got, k, base)

@@ -1,19 +1,17 @@
 package ae
 
 import (
-	"context"
 	"math/rand/v2"
 	"sort"
 	"testing"
 	"time"
 
 	"github.com/quernlab/quern/data"
-	"github.com/quernlab/quern/layers"
-	"github.com/quernlab/quern/train"
 )
 
-// benchModel is the serving reference shape, a 34-16-4-16-34 autoencoder,
-// trained briefly on random rows (weights only need to be realistic).
+// benchModel is the serving reference shape, a 34-16-4-16-34 autoencoder
+// with its initial weights and a scaler fitted on random rows (the time a
+// score takes does not depend on the values of the weights).
 func benchModel(b *testing.B) (*Model, []float32) {
 	rng := rand.New(rand.NewPCG(1, 1))
 	x := make([]float32, 34*4096)
@@ -25,10 +23,9 @@ func benchModel(b *testing.B) (*Model, []float32) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	if _, err := m.Train(context.Background(), d, nil, train.Config{Epochs: 1}); err != nil {
+	if m.Scaler, err = data.Fit(data.ScaleStandard, d); err != nil {
 		b.Fatal(err)
 	}
-	m.Release()
 	return m, x
 }
 
@@ -71,54 +68,6 @@ func scoreBatch(b *testing.B, m *Model, x []float32) {
 		}
 	}
 	b.ReportMetric(float64(4096*b.N)/b.Elapsed().Seconds(), "rows/s")
-}
-
-// trainStepBench times one training step (forward, backward, Adam) of an
-// autoencoder on a fixed batch of random values in [0, 1].
-func trainStepBench(b *testing.B, cfg Config, batch int) {
-	rng := rand.New(rand.NewPCG(2, 2))
-	x := make([]float32, cfg.Inputs*batch)
-	for i := range x {
-		x[i] = rng.Float32()
-	}
-	d, _ := data.New(x, batch, cfg.Inputs)
-	m, err := New(cfg)
-	if err != nil {
-		b.Fatal(err)
-	}
-	if _, err := m.Train(context.Background(), d, nil, train.Config{Epochs: 1, BatchSize: batch}); err != nil {
-		b.Fatal(err)
-	}
-	tb := train.Batch{Rows: batch, Cols: cfg.Inputs, X: x}
-	b.ReportAllocs()
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		if _, err := (trainee{m}).Step(context.Background(), tb); err != nil {
-			b.Fatal(err)
-		}
-	}
-	b.ReportMetric(float64(batch*b.N)/b.Elapsed().Seconds(), "samples/s")
-	// 6 per weight (forward, weight gradient, input gradient) less the
-	// input gradient of the first layer, fed with data: neither side
-	// computes it
-	var flops float64
-	for _, net := range []*layers.MLP{m.Encoder, m.Decoder} {
-		for _, l := range net.Layers {
-			flops += 6 * float64(l.In*l.Out)
-		}
-	}
-	flops -= 2 * float64(m.Encoder.Layers[0].In*m.Encoder.Layers[0].Out)
-	b.ReportMetric(flops*float64(batch*b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
-}
-
-// The reference shapes: 784-128-32-128-784 with MSE at batch 256, and the
-// 16-8-2-8-16 autoencoder at batch 32 (fixed cost per step).
-func BenchmarkTrainStepAE784(b *testing.B) {
-	trainStepBench(b, Config{Inputs: 784, Hidden: []int{128}, Latent: 32, Scaling: data.ScaleNone, Seed: 1}, 256)
-}
-
-func BenchmarkTrainStepTiny(b *testing.B) {
-	trainStepBench(b, Config{Inputs: 16, Hidden: []int{8}, Latent: 2, Scaling: data.ScaleNone, Seed: 1}, 32)
 }
 
 // BenchmarkScoreBatch784 scores 4096 rows of the reference training shape

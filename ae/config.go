@@ -3,58 +3,16 @@ package ae
 import (
 	"errors"
 	"fmt"
-	"math"
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/layers"
-	"github.com/quernlab/quern/optim"
 )
 
 // ErrConfig is wrapped by every configuration error.
 var ErrConfig = errors.New("ae: invalid configuration")
 
-// NoiseKind selects a corruption process for denoising training.
-type NoiseKind string
-
-const (
-	// NoNoise trains a plain autoencoder.
-	NoNoise NoiseKind = ""
-	// GaussianNoise adds N(0, Level^2) to every input.
-	GaussianNoise NoiseKind = "gaussian"
-	// MaskingNoise sets a fraction Level of the inputs to zero.
-	MaskingNoise NoiseKind = "masking"
-	// SaltPepperNoise sets a fraction Level of the inputs to the column's
-	// training minimum or maximum, half each.
-	SaltPepperNoise NoiseKind = "salt_pepper"
-)
-
-// Corruption describes the noise applied to inputs during training; the
-// loss is always taken against the clean input.
-type Corruption struct {
-	Kind  NoiseKind
-	Level float64
-}
-
-// SparsityKind selects a penalty on the code.
-type SparsityKind string
-
-const (
-	NoSparsity SparsityKind = ""
-	// L1Sparsity adds Weight times the mean per-row L1 norm of the code.
-	L1Sparsity SparsityKind = "l1"
-	// KLSparsity adds Weight times sum_j KL(Target || mean activation of
-	// unit j); it needs a sigmoid code (CodeActivation Sigmoid).
-	KLSparsity SparsityKind = "kl"
-)
-
-// Sparsity configures a sparsity penalty. Target defaults to 0.05.
-type Sparsity struct {
-	Kind   SparsityKind
-	Weight float64
-	Target float64
-}
-
-// Reconstruction chooses the reconstruction loss.
+// Reconstruction chooses the reconstruction loss, which is also the
+// anomaly score.
 type Reconstruction string
 
 const (
@@ -65,8 +23,10 @@ const (
 	BCE Reconstruction = "bce"
 )
 
-// Config describes an autoencoder. Zero fields take the documented
-// defaults; New validates the result.
+// Config describes an autoencoder's architecture. Zero fields take the
+// documented defaults; New validates the result. How it is trained (the
+// optimiser, input corruption, sparsity, the weight of the classification
+// term) is package train's business.
 type Config struct {
 	// Inputs is the number of input columns. Required.
 	Inputs int
@@ -86,43 +46,23 @@ type Config struct {
 	LeakySlope float64
 	// Loss is the reconstruction loss. Default MSE.
 	Loss Reconstruction
-	// Noise corrupts training inputs (denoising autoencoder).
-	Noise Corruption
-	// Sparsity penalises the code (sparse autoencoder).
-	Sparsity Sparsity
-	// Classes > 0 adds a supervised head on the code with that many
-	// classes; rows with a label add a softmax cross-entropy term, rows
-	// without one train the reconstruction only (semi-supervised).
+	// Classes > 0 adds a classification head on the code with that many
+	// classes (trained on the rows that have a label).
 	Classes int
 	// HeadHidden lists hidden widths of the head. Default none.
 	HeadHidden []int
-	// HeadWeight weighs the classification term. Default 1.
-	HeadWeight float64
-	// HeadOnly trains the head alone (no reconstruction term), for a
-	// trained encoder reused under a new head.
-	HeadOnly bool
 	// Encoder, when set, supplies trained encoder weights (copied); its
 	// widths must match Inputs, Hidden and Latent.
 	Encoder *layers.MLP `json:"-"`
-	// FreezeEncoder keeps the encoder's weights fixed during training.
-	FreezeEncoder bool
 	// Dropout rate after hidden layers during training. Default 0.
 	Dropout float64
-	// Rate is Adam's learning rate. Default 1e-3.
-	Rate float64
-	// RateSchedule multiplies Rate per update (see package optim); nil
-	// keeps it constant.
-	RateSchedule optim.Schedule `json:"-"`
-	// WeightDecay is AdamW's decoupled weight decay. Default 0.
-	WeightDecay float64
-	// ClipNorm clips gradients to this global norm when > 0.
-	ClipNorm float64
 	// Scaling of input columns, fitted on the training data. Default
 	// standard (zero mean, unit variance).
 	Scaling data.ScaleKind
 	// Precision of the parameters. Default float32.
 	Precision layers.Precision
-	// Seed drives initialisation, noise, dropout and shuffling.
+	// Seed draws the initial weights and, when the model is trained, the
+	// training's own random streams.
 	Seed uint64
 }
 
@@ -133,8 +73,11 @@ func (c Config) withDefaults() Config {
 	if c.Hidden == nil {
 		c.Hidden = []int{max(2*c.Latent, 16)}
 	}
-	if c.Activation == layers.Identity && !c.Linear {
+	if c.Activation == layers.Default {
 		c.Activation = layers.ReLU
+	}
+	if c.CodeActivation == layers.Default {
+		c.CodeActivation = layers.Identity
 	}
 	if c.Linear {
 		c.Activation, c.CodeActivation = layers.Identity, layers.Identity
@@ -144,15 +87,6 @@ func (c Config) withDefaults() Config {
 	}
 	if c.Loss == "" {
 		c.Loss = MSE
-	}
-	if c.Sparsity.Kind == KLSparsity && c.Sparsity.Target == 0 {
-		c.Sparsity.Target = 0.05
-	}
-	if c.HeadWeight == 0 {
-		c.HeadWeight = 1
-	}
-	if c.Rate == 0 {
-		c.Rate = 1e-3
 	}
 	if c.Scaling == "" {
 		c.Scaling = data.ScaleStandard
@@ -168,68 +102,34 @@ func bad(format string, args ...any) error {
 func (c Config) Validate() error {
 	c = c.withDefaults()
 	if c.Inputs <= 0 {
-		return bad("Inputs is %d, want > 0", c.Inputs)
+		return bad("%d input columns, want at least 1", c.Inputs)
 	}
 	if c.Latent <= 0 {
-		return bad("Latent is %d, want > 0", c.Latent)
+		return bad("code width %d, want at least 1", c.Latent)
 	}
 	for i, w := range c.Hidden {
 		if w <= 0 {
-			return bad("hidden width %d is %d", i, w)
+			return bad("hidden layer %d has width %d, want at least 1", i+1, w)
+		}
+	}
+	for i, w := range c.HeadHidden {
+		if w <= 0 {
+			return bad("head hidden layer %d has width %d, want at least 1", i+1, w)
 		}
 	}
 	switch c.Loss {
 	case MSE, BCE:
 	default:
-		return bad("unknown loss %q", c.Loss)
-	}
-	switch c.Noise.Kind {
-	case NoNoise:
-	case GaussianNoise:
-		if !(c.Noise.Level > 0) || math.IsInf(c.Noise.Level, 0) {
-			return bad("Gaussian noise level %v, want > 0", c.Noise.Level)
-		}
-	case MaskingNoise, SaltPepperNoise:
-		if !(c.Noise.Level > 0 && c.Noise.Level < 1) {
-			return bad("%s noise fraction %v outside (0, 1)", c.Noise.Kind, c.Noise.Level)
-		}
-	default:
-		return bad("unknown noise %q", c.Noise.Kind)
-	}
-	switch c.Sparsity.Kind {
-	case NoSparsity:
-	case L1Sparsity, KLSparsity:
-		if !(c.Sparsity.Weight > 0) {
-			return bad("sparsity weight %v, want > 0", c.Sparsity.Weight)
-		}
-		if c.Sparsity.Kind == KLSparsity {
-			if c.CodeActivation != layers.Sigmoid {
-				return bad("KL sparsity needs CodeActivation Sigmoid")
-			}
-			if !(c.Sparsity.Target > 0 && c.Sparsity.Target < 1) {
-				return bad("sparsity target %v outside (0, 1)", c.Sparsity.Target)
-			}
-		}
-	default:
-		return bad("unknown sparsity %q", c.Sparsity.Kind)
+		return bad("unknown reconstruction loss %q (want mse or bce)", c.Loss)
 	}
 	if c.Classes < 0 || c.Classes == 1 {
-		return bad("Classes is %d, want 0 or >= 2", c.Classes)
-	}
-	if c.HeadOnly && c.Classes == 0 {
-		return bad("HeadOnly needs Classes")
-	}
-	if !(c.HeadWeight > 0) {
-		return bad("HeadWeight %v, want > 0", c.HeadWeight)
-	}
-	if !(c.Rate > 0) || math.IsInf(c.Rate, 0) {
-		return bad("Rate %v, want > 0", c.Rate)
-	}
-	if c.WeightDecay < 0 || c.ClipNorm < 0 {
-		return bad("negative weight decay or clip norm")
+		return bad("%d classes, want 0 or at least 2", c.Classes)
 	}
 	if !(c.Dropout >= 0 && c.Dropout < 1) {
-		return bad("Dropout %v outside [0, 1)", c.Dropout)
+		return bad("dropout %v outside [0, 1)", c.Dropout)
+	}
+	if !(c.LeakySlope >= 0 && c.LeakySlope < 1) {
+		return bad("leaky slope %v outside [0, 1)", c.LeakySlope)
 	}
 	switch c.Scaling {
 	case data.ScaleNone, data.ScaleStandard, data.ScaleMinMax:
@@ -239,11 +139,11 @@ func (c Config) Validate() error {
 	if !c.Precision.Valid() {
 		return bad("unknown precision")
 	}
-	if !c.Activation.Valid() || !c.CodeActivation.Valid() {
+	if !c.Activation.Concrete() || !c.CodeActivation.Concrete() {
 		return bad("unknown activation")
 	}
 	if c.Encoder != nil {
-		want := append(append([]int{c.Inputs}, c.Hidden...), c.Latent)
+		want := c.encoderWidths()
 		if len(c.Encoder.Layers) != len(want)-1 {
 			return bad("reused encoder has %d layers, want %d", len(c.Encoder.Layers), len(want)-1)
 		}
@@ -254,4 +154,23 @@ func (c Config) Validate() error {
 		}
 	}
 	return nil
+}
+
+// encoderWidths, decoderWidths and headWidths are the networks' layer
+// widths (defaults filled in).
+func (c Config) encoderWidths() []int {
+	return append(append([]int{c.Inputs}, c.Hidden...), c.Latent)
+}
+
+func (c Config) decoderWidths() []int {
+	e := c.encoderWidths()
+	d := make([]int, len(e))
+	for i := range e {
+		d[i] = e[len(e)-1-i]
+	}
+	return d
+}
+
+func (c Config) headWidths() []int {
+	return append(append([]int{c.Latent}, c.HeadHidden...), c.Classes)
 }

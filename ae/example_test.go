@@ -38,7 +38,12 @@ func Example() {
 		fmt.Println(err)
 		return
 	}
-	if _, err := m.Train(context.Background(), normal, nil, train.Config{Epochs: 20, BatchSize: 64}); err != nil {
+	t, err := train.New(m, train.Settings{Epochs: 20, BatchSize: 64})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	if _, err := t.Run(context.Background(), normal, nil); err != nil {
 		fmt.Println(err)
 		return
 	}

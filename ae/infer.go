@@ -5,6 +5,8 @@ import (
 	"math"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 )
@@ -14,74 +16,26 @@ type work struct {
 	ws      layers.Workspace
 	ws2     layers.Workspace
 	in32    []float32
-	in64    []float64
 	out32   []float32
 	code32  []float32
 	scratch []float32
 }
 
-func (m *Model) getWork() *work {
-	if w, ok := m.pool.Get().(*work); ok {
-		return w
-	}
-	return &work{}
-}
-
-func grow[T any](s []T, n int) []T {
-	if cap(s) < n {
-		return make([]T, n)
-	}
-	return s[:n]
-}
-
-// checkRows validates raw input: rows x cols finite values.
-func checkRows(x []float32, rows, cols int) error {
-	if rows < 0 || len(x) != rows*cols {
-		return fmt.Errorf("ae: input has %d values, want %d rows x %d columns", len(x), rows, cols)
-	}
-	for i, v := range x {
-		if v-v != 0 {
-			return fmt.Errorf("ae: row %d column %d is %v", i/cols+1, i%cols+1, v)
-		}
+func checkRows(x []float32, rows, cols int, what string) error {
+	if err := data.CheckRows(x, rows, cols, what); err != nil {
+		return fmt.Errorf("ae: %w", err)
 	}
 	return nil
 }
 
 // scaled copies x into w.in32 and applies the scaler.
 func (m *Model) scaled(w *work, x []float32) []float32 {
-	w.in32 = grow(w.in32, len(x))
+	w.in32 = scratch.Grow(w.in32, len(x))
 	copy(w.in32, x)
 	if m.Scaler != nil {
 		m.Scaler.ApplyRows(w.in32)
 	}
 	return w.in32
-}
-
-// forward runs net on rows of in (float32 values) in the model's precision
-// and writes the float32 result to dst.
-func (m *Model) forward(w *work, ws *layers.Workspace, net *layers.MLP, in []float32, rows int, dst []float32) ([]float32, error) {
-	if m.cfg.Precision == layers.Float64 {
-		w.in64 = grow(w.in64, len(in))
-		for i, v := range in {
-			w.in64[i] = float64(v)
-		}
-		out, err := net.Forward64(w.in64, rows, ws)
-		if err != nil {
-			return nil, err
-		}
-		dst = grow(dst, len(out))
-		for i, v := range out {
-			dst[i] = float32(v)
-		}
-		return dst, nil
-	}
-	out, err := net.Forward32(in, rows, ws)
-	if err != nil {
-		return nil, err
-	}
-	dst = grow(dst, len(out))
-	copy(dst, out)
-	return dst, nil
 }
 
 // Encode maps raw rows (Inputs columns each) to their codes (Latent
@@ -91,12 +45,12 @@ func (m *Model) Encode(x []float32, rows int) ([]float32, error) { return m.Enco
 // EncodeInto is Encode writing into dst (grown if too short). With dst
 // large enough it allocates nothing in steady state (float32 models).
 func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
-	return m.forward(w, &w.ws, m.Encoder, m.scaled(w, x), rows, dst)
+	return layers.Run(m.Encoder, m.scaled(w, x), rows, &w.ws, dst)
 }
 
 // Decode maps codes back to raw-space rows.
@@ -105,12 +59,12 @@ func (m *Model) Decode(z []float32, rows int) ([]float32, error) { return m.Deco
 // DecodeInto is Decode writing into dst (grown if too short); no
 // allocation in steady state for float32 models.
 func (m *Model) DecodeInto(dst, z []float32, rows int) ([]float32, error) {
-	if err := checkRows(z, rows, m.cfg.Latent); err != nil {
+	if err := checkRows(z, rows, m.cfg.Latent, "code"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
-	out, err := m.forward(w, &w.ws, m.Decoder, z, rows, dst)
+	out, err := layers.Run(m.Decoder, z, rows, &w.ws, dst)
 	if err != nil {
 		return nil, err
 	}
@@ -134,11 +88,11 @@ func (m *Model) finishOutput(out []float32) {
 // reconstruction (probabilities for BCE models), in w's buffers.
 func (m *Model) reconstructScaled(w *work, x []float32, rows int) (in, out []float32, err error) {
 	in = m.scaled(w, x)
-	w.code32, err = m.forward(w, &w.ws, m.Encoder, in, rows, w.code32)
+	w.code32, err = layers.Run(m.Encoder, in, rows, &w.ws, w.code32)
 	if err != nil {
 		return nil, nil, err
 	}
-	w.out32, err = m.forward(w, &w.ws2, m.Decoder, w.code32, rows, w.out32)
+	w.out32, err = layers.Run(m.Decoder, w.code32, rows, &w.ws2, w.out32)
 	if err != nil {
 		return nil, nil, err
 	}
@@ -153,16 +107,16 @@ func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
 
 // ReconstructInto is Reconstruct writing into dst (grown if too short).
 func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	_, out, err := m.reconstructScaled(w, x, rows)
 	if err != nil {
 		return nil, err
 	}
-	dst = grow(dst, len(out))
+	dst = scratch.Grow(dst, len(out))
 	copy(dst, out)
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(dst)
@@ -181,16 +135,16 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 // ContributionsInto is Contributions writing into dst (grown if too
 // short); no allocation in steady state for float32 models.
 func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float64, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	in, out, err := m.reconstructScaled(w, x, rows)
 	if err != nil {
 		return nil, err
 	}
-	dst = grow(dst, len(in))
+	dst = scratch.Grow(dst, len(in))
 	for i := range in {
 		dst[i] = m.elemError(float64(in[i]), float64(out[i]))
 	}
@@ -211,20 +165,25 @@ func (m *Model) RowErrors(x []float32, rows int) ([]float64, error) {
 	return m.RowErrorsInto(nil, x, rows)
 }
 
+// RowScores is RowErrors: the score Score compares with the threshold.
+func (m *Model) RowScores(x []float32, rows int) ([]float64, error) {
+	return m.RowErrorsInto(nil, x, rows)
+}
+
 // RowErrorsInto is RowErrors writing into dst (grown if too short) and
 // returning it: with a dst of rows entries it allocates nothing in steady
 // state, for hot scoring paths.
 func (m *Model) RowErrorsInto(dst []float64, x []float32, rows int) ([]float64, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	in, out, err := m.reconstructScaled(w, x, rows)
 	if err != nil {
 		return nil, err
 	}
-	dst = grow(dst, rows)
+	dst = scratch.Grow(dst, rows)
 	cols := m.cfg.Inputs
 	for r := range dst {
 		var t float64
@@ -268,17 +227,19 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 		return nil, err
 	}
 	cols := m.cfg.Inputs
-	out := make([]Score, rows)
-	for r := range out {
-		row := c[r*cols : (r+1)*cols]
+	scores := make([]float64, rows)
+	for r := range scores {
 		var total float64
-		for _, v := range row {
+		for _, v := range c[r*cols : (r+1)*cols] {
 			total += v
 		}
-		out[r] = anomaly.Assess(total/float64(cols), row, m.Columns, top, *m.Threshold)
+		scores[r] = total / float64(cols)
 	}
-	return out, nil
+	return anomaly.AssessRows(scores, c, cols, m.Columns, top, *m.Threshold), nil
 }
+
+// Calibrated returns the model's threshold (nil before calibration).
+func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }
 
 // Calibrate sets the model's threshold from held-out normal rows (not used
 // for training) and returns it.
@@ -301,17 +262,17 @@ func (m *Model) Classify(x []float32, rows int) ([]int, []float64, error) {
 	if m.Head == nil {
 		return nil, nil, fmt.Errorf("ae: model has no classification head")
 	}
-	if err := checkRows(x, rows, m.cfg.Inputs); err != nil {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	var err error
-	w.code32, err = m.forward(w, &w.ws, m.Encoder, m.scaled(w, x), rows, w.code32)
+	w.code32, err = layers.Run(m.Encoder, m.scaled(w, x), rows, &w.ws, w.code32)
 	if err != nil {
 		return nil, nil, err
 	}
-	w.scratch, err = m.forward(w, &w.ws2, m.Head, w.code32, rows, w.scratch)
+	w.scratch, err = layers.Run(m.Head, w.code32, rows, &w.ws2, w.scratch)
 	if err != nil {
 		return nil, nil, err
 	}

@@ -1,29 +1,19 @@
-package ae
+package ae_test
 
 import (
-	"context"
 	"math/rand/v2"
+	"strconv"
 	"testing"
 
+	"github.com/quernlab/quern/ae"
+	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/train"
 	"github.com/stretchr/testify/require"
 )
-
-func fashion(t testing.TB, name string, n int) *data.Dataset {
-	t.Helper()
-	d, err := data.LoadIDX("../testdata/fashion-mnist/"+name+"-images-idx3-ubyte-first"+itoa(n)+".gz", data.IDXConfig{})
-	require.NoError(t, err)
-	return d
-}
-
-func itoa(n int) string {
-	if n == 2000 {
-		return "2000"
-	}
-	return "500"
-}
 
 func mse32(a, b []float32) float64 {
 	var s float64
@@ -38,12 +28,11 @@ func mse32(a, b []float32) float64 {
 // noise the reconstruction of a corrupted test image is at least twice as
 // close to the clean image as the corrupted input is.
 func TestDenoisingHalvesTheError(t *testing.T) {
-	tr, te := fashion(t, "train", 2000), fashion(t, "t10k", 500)
-	m, err := New(Config{Inputs: 784, Hidden: []int{256}, Latent: 64, Loss: BCE, Scaling: data.ScaleNone,
-		Noise: Corruption{Kind: MaskingNoise, Level: 0.3}, Rate: 2e-3, Seed: 5})
+	tr, te := testenv.Fashion(t, "train"), testenv.Fashion(t, "t10k")
+	m, err := ae.New(ae.Config{Inputs: 784, Hidden: []int{256}, Latent: 64, Loss: ae.BCE, Scaling: data.ScaleNone, Seed: 5})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), tr, nil, train.Config{Epochs: 8, BatchSize: 64})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, tr, nil, train.Settings{Epochs: 8, BatchSize: 64, Optimizer: train.Optimizer{Rate: 2e-3},
+		Objective: train.Reconstruction{Noise: train.Corruption{Kind: train.MaskingNoise, Level: 0.3}}})
 	noisy := append([]float32(nil), te.X...)
 	rng := rand.New(rand.NewPCG(77, 77))
 	for i := range noisy {
@@ -54,19 +43,18 @@ func TestDenoisingHalvesTheError(t *testing.T) {
 	out, err := m.Reconstruct(noisy, te.Rows)
 	require.NoError(t, err)
 	before, after := mse32(noisy, te.X), mse32(out, te.X)
-	t.Logf("MSE to clean: corrupted input %.4f, denoised %.4f (ratio %.2f)", before, after, before/after)
+	t.Logf("ae.MSE to clean: corrupted input %.4f, denoised %.4f (ratio %.2f)", before, after, before/after)
 	require.Greater(t, before/after, 2.0)
 }
 
 // Sparse coding with a KL penalty toward rho = 0.05: the mean code
 // activation on the training data ends within 0.02 of rho.
 func TestKLSparsityReachesTarget(t *testing.T) {
-	d := digits(t)
-	m, err := New(Config{Inputs: 64, Hidden: []int{64}, Latent: 32, CodeActivation: layers.Sigmoid,
-		Sparsity: Sparsity{Kind: KLSparsity, Weight: 1, Target: 0.05}, Rate: 3e-3, Seed: 3})
+	d := testenv.Digits(t)
+	m, err := ae.New(ae.Config{Inputs: 64, Hidden: []int{64}, Latent: 32, CodeActivation: layers.Sigmoid, Seed: 3})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 40, BatchSize: 64})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 40, BatchSize: 64, Optimizer: train.Optimizer{Rate: 3e-3},
+		Objective: train.Reconstruction{Sparsity: train.Sparsity{Kind: train.KLSparsity, Weight: 1, Target: 0.05}}})
 	codes, err := m.Encode(d.X, d.Rows)
 	require.NoError(t, err)
 	var mean float64
@@ -78,7 +66,7 @@ func TestKLSparsityReachesTarget(t *testing.T) {
 	require.InDelta(t, 0.05, mean, 0.02)
 }
 
-func accuracy(t testing.TB, m *Model, d *data.Dataset) float64 {
+func accuracy(t testing.TB, m *ae.Model, d *data.Dataset) float64 {
 	pred, _, err := m.Classify(d.X, d.Rows)
 	require.NoError(t, err)
 	ok := 0
@@ -96,7 +84,7 @@ func accuracy(t testing.TB, m *Model, d *data.Dataset) float64 {
 // rows alone, on held-out accuracy. Measured over seeds 4-7 before fixing
 // seed 4: pretrained 0.911-0.924, scratch 0.876-0.905.
 func TestPretrainedEncoderHelpsWithFewLabels(t *testing.T) {
-	d := digits(t)
+	d := testenv.Digits(t)
 	rng := rand.New(rand.NewPCG(9, 9))
 	trainSet, test, err := d.Split(0.3, rng)
 	require.NoError(t, err)
@@ -107,27 +95,26 @@ func TestPretrainedEncoderHelpsWithFewLabels(t *testing.T) {
 		}
 	}
 	few := trainSet.Subset(labelled)
-	base := Config{Inputs: 64, Hidden: []int{32}, Latent: 32, Rate: 3e-3, Seed: 4}
-	pre, err := New(base)
+	base := ae.Config{Inputs: 64, Hidden: []int{32}, Latent: 32, Seed: 4}
+	rate := train.Optimizer{Rate: 3e-3}
+	pre, err := ae.New(base)
 	require.NoError(t, err)
-	_, err = pre.Train(context.Background(), trainSet, nil, train.Config{Epochs: 60, BatchSize: 32})
-	require.NoError(t, err)
+	trainenv.Fit(t, pre, trainSet, nil, train.Settings{Epochs: 60, BatchSize: 32, Optimizer: rate})
 
 	headCfg := base
-	headCfg.Classes, headCfg.HeadOnly = 10, true
+	headCfg.Classes = 10
+	headOnly := train.Settings{Epochs: 150, BatchSize: 32, Optimizer: rate, Objective: train.Reconstruction{HeadOnly: true}}
 	reuse := headCfg
 	reuse.Encoder = pre.Encoder
-	tuned, err := New(reuse)
+	tuned, err := ae.New(reuse)
 	require.NoError(t, err)
 	tuned.Scaler = pre.Scaler // the encoder expects the pretraining scale
 	require.Equal(t, pre.Encoder.Params()[0].Values(), tuned.Encoder.Params()[0].Values())
-	_, err = tuned.Train(context.Background(), few, nil, train.Config{Epochs: 150, BatchSize: 32})
-	require.NoError(t, err)
+	trainenv.Fit(t, tuned, few, nil, headOnly)
 
-	scratch, err := New(headCfg)
+	scratch, err := ae.New(headCfg)
 	require.NoError(t, err)
-	_, err = scratch.Train(context.Background(), few, nil, train.Config{Epochs: 150, BatchSize: 32})
-	require.NoError(t, err)
+	trainenv.Fit(t, scratch, few, nil, headOnly)
 	a, b := accuracy(t, tuned, test), accuracy(t, scratch, test)
 	t.Logf("held-out accuracy with %d labelled rows: pretrained encoder + head %.3f, from scratch %.3f", few.Rows, a, b)
 	require.Greater(t, a, b)
@@ -136,7 +123,7 @@ func TestPretrainedEncoderHelpsWithFewLabels(t *testing.T) {
 // Partly labelled rows train jointly: unlabelled rows add only the
 // reconstruction term, and the head still learns from the labelled ones.
 func TestPartialLabelsTrainJointly(t *testing.T) {
-	d := digits(t)
+	d := testenv.Digits(t)
 	part := d.Subset(func() []int {
 		idx := make([]int, d.Rows)
 		for i := range idx {
@@ -149,10 +136,9 @@ func TestPartialLabelsTrainJointly(t *testing.T) {
 			part.Labels[i] = data.Unlabelled
 		}
 	}
-	m, err := New(Config{Inputs: 64, Hidden: []int{32}, Latent: 16, Classes: 10, Rate: 3e-3, Seed: 8})
+	m, err := ae.New(ae.Config{Inputs: 64, Hidden: []int{32}, Latent: 16, Classes: 10, Seed: 8})
 	require.NoError(t, err)
-	h, err := m.Train(context.Background(), part, nil, train.Config{Epochs: 30, BatchSize: 64})
-	require.NoError(t, err)
+	h := trainenv.Fit(t, m, part, nil, train.Settings{Epochs: 30, BatchSize: 64, Optimizer: train.Optimizer{Rate: 3e-3}})
 	require.Equal(t, []string{"loss", "reconstruction", "classification"}, names(h.Epochs[0].Train))
 	acc := accuracy(t, m, d)
 	t.Logf("accuracy with a quarter of the labels: %.3f", acc)
@@ -169,12 +155,11 @@ func names(ms []train.Metric) []string {
 
 // A frozen reused encoder stays bitwise unchanged while its new head trains.
 func TestFrozenEncoderUnchanged(t *testing.T) {
-	d := digits(t)
-	pre, err := New(Config{Inputs: 64, Hidden: []int{16}, Latent: 8, Seed: 1})
+	d := testenv.Digits(t)
+	pre, err := ae.New(ae.Config{Inputs: 64, Hidden: []int{16}, Latent: 8, Seed: 1})
 	require.NoError(t, err)
-	_, err = pre.Train(context.Background(), d, nil, train.Config{Epochs: 2})
-	require.NoError(t, err)
-	m, err := New(Config{Inputs: 64, Hidden: []int{16}, Latent: 8, Classes: 10, HeadOnly: true, Encoder: pre.Encoder, FreezeEncoder: true, Seed: 2})
+	trainenv.Fit(t, pre, d, nil, train.Settings{Epochs: 2})
+	m, err := ae.New(ae.Config{Inputs: 64, Hidden: []int{16}, Latent: 8, Classes: 10, Encoder: pre.Encoder, Seed: 2})
 	require.NoError(t, err)
 	m.Scaler = pre.Scaler
 	var before [][]float64
@@ -182,12 +167,77 @@ func TestFrozenEncoderUnchanged(t *testing.T) {
 		before = append(before, p.Values())
 	}
 	head0 := m.Head.Params()[0].Values()
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 3})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 3, Objective: train.Reconstruction{HeadOnly: true, FreezeEncoder: true}})
 	for i, p := range m.Encoder.Params() {
 		require.Equal(t, before[i], p.Values(), p.Name())
 	}
 	require.NotEqual(t, head0, m.Head.Params()[0].Values())
-	_, err = New(Config{Inputs: 64, Hidden: []int{16}, Latent: 9, Encoder: pre.Encoder})
-	require.ErrorIs(t, err, ErrConfig)
+	_, err = ae.New(ae.Config{Inputs: 64, Hidden: []int{16}, Latent: 9, Encoder: pre.Encoder})
+	require.ErrorIs(t, err, ae.ErrConfig)
+}
+
+// Calibration on held-out normal rows and scores with their top columns:
+// the max threshold's expected false-alarm rate is 1/(n+1) (see package
+// anomaly); precision and recall floors are common practice, no source.
+func TestCalibrateAndScore(t *testing.T) {
+	bc := testenv.BreastCancer(t)
+	fit, test, pos := anomalySplit(bc, 1)
+	// hold out part of the normal rows for calibration
+	var trIdx, calIdx []int
+	for i := 0; i < fit.Rows; i++ {
+		if i%3 == 0 {
+			calIdx = append(calIdx, i)
+		} else {
+			trIdx = append(trIdx, i)
+		}
+	}
+	tr, cal := fit.Subset(trIdx), fit.Subset(calIdx)
+	m, err := ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Activation: layers.Tanh, Seed: 1})
+	require.NoError(t, err)
+	trainenv.Fit(t, m, tr, nil, train.Settings{Epochs: 100, BatchSize: 32, Optimizer: train.Optimizer{Rate: 3e-3, WeightDecay: 1e-3}})
+	_, err = m.Score(test.X, test.Rows, 3)
+	require.ErrorContains(t, err, "no threshold")
+	mx, err := m.Calibrate(cal.X, cal.Rows, anomaly.Config{Method: anomaly.Max})
+	require.NoError(t, err)
+	require.InDelta(t, 1/float64(cal.Rows+1), mx.ExpectedFalseAlarm, 1e-12)
+	th, err := m.Calibrate(cal.X, cal.Rows, anomaly.Config{FalseAlarm: 0.05})
+	require.NoError(t, err)
+	require.LessOrEqual(t, th.ExpectedFalseAlarm, 0.05)
+	require.LessOrEqual(t, th.Value, mx.Value)
+	scores, err := m.Score(test.X, test.Rows, 3)
+	require.NoError(t, err)
+	s := make([]float64, len(scores))
+	var flaggedNormal, normal int
+	for i, sc := range scores {
+		s[i] = sc.Value
+		require.Len(t, sc.Top, 3)
+		require.GreaterOrEqual(t, sc.Top[0].Share, sc.Top[1].Share)
+		require.Equal(t, "c"+strconv.Itoa(sc.Top[0].Column), sc.Top[0].Name)
+		require.Equal(t, sc.Value > th.Value, sc.Anomaly)
+		if !pos[i] {
+			normal++
+			if sc.Anomaly {
+				flaggedNormal++
+			}
+		}
+	}
+	prec, rec, err := anomaly.PrecisionRecall(s, pos, th.Value)
+	require.NoError(t, err)
+	t.Logf("5%% false-alarm threshold: precision %.3f recall %.3f, normal rows flagged %d/%d", prec, rec, flaggedNormal, normal)
+	require.Greater(t, prec, 0.8)
+	require.Greater(t, rec, 0.5)
+}
+
+// Salt-and-pepper noise and an L1 penalty train, with the penalty among
+// the metrics; the loss falls. Common practice, no source.
+func TestSaltPepperAndL1Train(t *testing.T) {
+	d := testenv.Digits(t)
+	m, err := ae.New(ae.Config{Inputs: 64, Hidden: []int{16}, Latent: 8, Seed: 1})
+	require.NoError(t, err)
+	h := trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 3, Objective: train.Reconstruction{
+		Noise: train.Corruption{Kind: train.SaltPepperNoise, Level: 0.1}, Sparsity: train.Sparsity{Kind: train.L1Sparsity, Weight: 1e-3}}})
+	require.Equal(t, []string{"loss", "reconstruction", "sparsity"}, names(h.Epochs[0].Train))
+	l1, _ := h.Loss(1)
+	l3, _ := h.Loss(3)
+	require.Less(t, l3, l1)
 }

@@ -1,24 +1,19 @@
-package ae
+package ae_test
 
 import (
-	"context"
 	"math"
 	"testing"
 
+	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/train"
 	"github.com/stretchr/testify/require"
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/stat"
 )
-
-func breastCancer(t testing.TB) *data.Dataset {
-	t.Helper()
-	d, err := data.LoadCSV("../testdata/sklearn/breast_cancer.csv", data.CSVConfig{NoHeader: true, SkipLines: 1, Label: "c30"})
-	require.NoError(t, err)
-	return d
-}
 
 func toDense(d *data.Dataset) *mat.Dense {
 	m := mat.NewDense(d.Rows, d.Cols, nil)
@@ -56,7 +51,7 @@ func largestPrincipalAngle(a, b mat.Matrix) float64 {
 // subspace (Baldi & Hornik 1989), and its error reaches the best rank-k
 // error (Eckart & Young 1936). Principal components from gonum's stat.PC.
 func TestLinearAutoencoderFindsPrincipalSubspace(t *testing.T) {
-	raw := breastCancer(t)
+	raw := testenv.BreastCancer(t)
 	sc, err := data.Fit(data.ScaleStandard, raw)
 	require.NoError(t, err)
 	z, err := sc.Apply(raw)
@@ -69,10 +64,9 @@ func TestLinearAutoencoderFindsPrincipalSubspace(t *testing.T) {
 	n, d := raw.Rows, raw.Cols
 	for _, k := range []int{2, 5} {
 		t.Run("k="+string(rune('0'+k)), func(t *testing.T) {
-			m, err := New(Config{Inputs: d, Hidden: []int{}, Latent: k, Linear: true, Rate: 0.01, Precision: layers.Float64, Seed: 11})
+			m, err := ae.New(ae.Config{Inputs: d, Hidden: []int{}, Latent: k, Linear: true, Precision: layers.Float64, Seed: 11})
 			require.NoError(t, err)
-			_, err = m.Train(context.Background(), raw, nil, train.Config{Epochs: 1500, BatchSize: n})
-			require.NoError(t, err)
+			trainenv.Fit(t, m, raw, nil, train.Settings{Epochs: 1500, BatchSize: n, Optimizer: train.Optimizer{Rate: 0.01}})
 			// decoder weight is k x d: its rows span the reconstruction space
 			w := m.Decoder.Layers[0].W
 			wd := mat.NewDense(k, d, w.Values())

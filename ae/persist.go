@@ -1,90 +1,76 @@
 package ae
 
 import (
+	"encoding/json"
 	"fmt"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
-	"github.com/quernlab/quern/internal/persist"
 	"github.com/quernlab/quern/modelfile"
-	"github.com/quernlab/quern/train"
 )
 
-// Kind is the model-file kind of an autoencoder.
-const Kind = "ae"
-
+// meta is the autoencoder's part of a model file's metadata.
 type meta struct {
 	Config     Config                `json:"config"`
 	Scaler     *data.Scaler          `json:"scaler,omitempty"`
 	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
 	Columns    []string              `json:"columns,omitempty"`
+	Image      []int                 `json:"image,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
-	Resume     *persist.Resume       `json:"resume,omitempty"`
 }
 
-const optimPrefix = "optimizer/"
-
-// File converts the model to a model file. With history not nil the file
-// is a checkpoint: it also holds the optimiser's moments, both generators'
-// states and the history, so that training can resume bitwise.
-func (m *Model) File(prov *modelfile.Provenance, history *train.History) (*modelfile.File, error) {
-	md := meta{Config: m.cfg, Scaler: m.Scaler, Threshold: m.Threshold, Columns: m.Columns, Provenance: prov}
-	ts := persist.Params(m.Params())
-	if history != nil {
-		ots, r, err := persist.SaveTraining(m.opt, optimPrefix, m.noisePCG, m.shufflePCG, history)
-		if err != nil {
-			return nil, fmt.Errorf("ae: %w", err)
-		}
-		ts, md.Resume = append(ts, ots...), r
-	}
-	f, err := persist.Encode(Kind, md, ts)
+// File converts the model to a model file, with prov (may be nil) as its
+// provenance section.
+func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
+	md := meta{Config: m.cfg, Scaler: m.Scaler, Threshold: m.Threshold, Columns: m.Columns, Image: m.Image, Provenance: prov}
+	b, err := json.Marshal(md)
 	if err != nil {
 		return nil, fmt.Errorf("ae: %w", err)
 	}
-	return f, nil
+	return &modelfile.File{Kind: Kind, Meta: b, Tensors: modelfile.FromParams(m.Params())}, nil
 }
 
-// Save writes the model (without training state) to path atomically.
+// Save writes the model to path atomically.
 func (m *Model) Save(path string, prov *modelfile.Provenance) error {
-	f, err := m.File(prov, nil)
+	f, err := m.File(prov)
 	if err != nil {
 		return err
 	}
 	return modelfile.Write(path, f)
 }
 
-// FromFile rebuilds a model from a model file. For a checkpoint it also
-// returns the history to resume from (nil otherwise) after restoring the
-// optimiser and generator states.
-func FromFile(f *modelfile.File) (*Model, *train.History, *modelfile.Provenance, error) {
+// FromFile rebuilds a model from a model file (or a checkpoint, whose
+// training state it ignores). The settings are checked against the
+// tensors the file holds before anything is built.
+func FromFile(f *modelfile.File) (*Model, error) {
 	var md meta
-	if err := persist.Decode(f, Kind, &md); err != nil {
-		return nil, nil, nil, fmt.Errorf("ae: %w", err)
+	if err := f.Header(Kind, &md); err != nil {
+		return nil, fmt.Errorf("ae: %w", err)
 	}
-	m, err := New(md.Config)
-	if err != nil {
-		return nil, nil, nil, err
+	if err := md.Config.Validate(); err != nil {
+		return nil, err
 	}
-	if err := persist.SetParams(f, m.Params()); err != nil {
-		return nil, nil, nil, fmt.Errorf("ae: %w", err)
-	}
-	if err := persist.CheckNoExtra(f, m.Params(), optimPrefix); err != nil {
-		return nil, nil, nil, fmt.Errorf("ae: %w", err)
+	cfg := md.Config.withDefaults()
+	if err := f.CheckShapes(cfg.paramShapes(), cfg.Precision); err != nil {
+		return nil, fmt.Errorf("ae: %w", err)
 	}
 	if md.Scaler != nil {
-		if err := md.Scaler.Validate(md.Config.Inputs); err != nil {
-			return nil, nil, nil, fmt.Errorf("ae: %w", err)
+		if err := md.Scaler.Validate(cfg.Inputs); err != nil {
+			return nil, fmt.Errorf("ae: %w", err)
 		}
 	}
-	m.Scaler, m.Threshold, m.Columns = md.Scaler, md.Threshold, md.Columns
-	if md.Resume == nil {
-		return m, nil, md.Provenance, nil
-	}
-	h, err := persist.LoadTraining(f, md.Resume, m.opt, optimPrefix, m.noisePCG, m.shufflePCG)
+	m, err := New(cfg)
 	if err != nil {
-		return nil, nil, nil, fmt.Errorf("ae: %w", err)
+		return nil, err
 	}
-	return m, h, md.Provenance, nil
+	if err := f.SetParams(m.Params()); err != nil {
+		return nil, fmt.Errorf("ae: %w", err)
+	}
+	if err := f.CheckNoExtra(m.Params()); err != nil {
+		return nil, fmt.Errorf("ae: %w", err)
+	}
+	m.Scaler, m.Threshold, m.Columns, m.Image = md.Scaler, md.Threshold, md.Columns, md.Image
+	return m, nil
 }
 
 // Load reads a model file written by Save (or a checkpoint, whose
@@ -94,6 +80,5 @@ func Load(path string) (*Model, error) {
 	if err != nil {
 		return nil, err
 	}
-	m, _, _, err := FromFile(f)
-	return m, err
+	return FromFile(f)
 }

@@ -45,3 +45,14 @@ func Assess(value float64, contrib []float64, names []string, top int, t Thresho
 	}
 	return s
 }
+
+// AssessRows assesses rows at once: scores[r] is row r's score and
+// contrib[r*cols:(r+1)*cols] its columns' contributions; each row gets
+// Assess's verdict and its top columns.
+func AssessRows(scores, contrib []float64, cols int, names []string, top int, t Threshold) []Score {
+	out := make([]Score, len(scores))
+	for r := range out {
+		out[r] = Assess(scores[r], contrib[r*cols:(r+1)*cols], names, top, t)
+	}
+	return out
+}

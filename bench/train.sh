@@ -18,10 +18,10 @@ tmp="$(mktemp -d)"
 trap 'rm -rf "$tmp"' EXIT
 (cd "$tmp" && apt-get download libopenblas0-pthread >/dev/null 2>&1 && dpkg -x libopenblas0-pthread*.deb ob)
 ob="$tmp/ob/usr/lib/x86_64-linux-gnu/openblas-pthread"
-go test -c -o "$tmp/ae.test" ./ae/ && go test -c -o "$tmp/vae.test" ./vae/ && go test -c -o "$tmp/gan.test" ./gan/ && go test -c -o "$tmp/engine.test" ./internal/engine/
+go test -c -o "$tmp/train.test" ./train/ && go test -c -o "$tmp/engine.test" ./internal/engine/
 # the optional cgo build on OpenBLAS (needs Debian's libopenblas-dev)
 have_ob=0
-if go test -tags openblas -c -o "$tmp/ae_ob.test" ./ae/ 2>/dev/null && go test -tags openblas -c -o "$tmp/vae_ob.test" ./vae/ && go test -tags openblas -c -o "$tmp/gan_ob.test" ./gan/; then have_ob=1; fi
+if go test -tags openblas -c -o "$tmp/train_ob.test" ./train/ 2>/dev/null; then have_ob=1; fi
 avx512=0
 if grep -qw avx512f /proc/cpuinfo; then avx512=1; fi
 ours() { # threads binary pattern: three runs of each benchmark, the best kept by metric()
@@ -29,9 +29,9 @@ ours() { # threads binary pattern: three runs of each benchmark, the best kept b
 }
 for th in 1 2; do
 	{
-		ours "$th" vae.test TrainStepVAE784
-		ours "$th" ae.test 'TrainStep(AE784|Tiny)'
-		ours "$th" gan.test TrainStepGAN784
+		ours "$th" train.test TrainStepVAE784
+		ours "$th" train.test 'TrainStep(AE784|Tiny)'
+		ours "$th" train.test TrainStepGAN784
 		ours "$th" engine.test 'Sgemm1024$'
 	} > "$tmp/ours$th.txt"
 	/usr/bin/time -f "rss_kb %M" env LD_LIBRARY_PATH="$ob" OPENBLAS_NUM_THREADS="$th" OMP_NUM_THREADS="$th" /usr/bin/python3 bench/peer_train.py "$th" > "$tmp/peer$th.txt" 2>&1
@@ -63,7 +63,7 @@ echo "ratio = quern epoch time / peer epoch time (below 1: quern is faster); rat
 if [ "$have_ob" = 1 ]; then
 	echo
 	echo "quern's own build against its -tags openblas build, 1 thread (samples/s):"
-	for s in vae:TrainStepVAE784 ae:TrainStepAE784 gan:TrainStepGAN784; do
+	for s in train:TrainStepVAE784 train:TrainStepAE784 train:TrainStepGAN784; do
 		pkg=${s%%:*}; bench=${s#*:}
 		d=$(GOMAXPROCS=1 "$tmp/$pkg.test" -test.run '^$' -test.bench "$bench" -test.benchtime 20x -test.count 3 | awk '{for(i=1;i<=NF;i++) if($i=="samples/s") print $(i-1)}' | sort -g | tail -1)
 		o=$(GOMAXPROCS=1 OPENBLAS_NUM_THREADS=1 "$tmp/${pkg}_ob.test" -test.run '^$' -test.bench "$bench" -test.benchtime 20x -test.count 3 | awk '{for(i=1;i<=NF;i++) if($i=="samples/s") print $(i-1)}' | sort -g | tail -1)

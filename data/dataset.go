@@ -207,3 +207,25 @@ func (b *Batches) Gather(i int, x []float32, labels []int) {
 		}
 	}
 }
+
+// CheckRows reports whether x holds rows rows of cols finite values, the
+// check every graph-free pass makes of its input; what names the input in
+// the message ("input", "latent").
+func CheckRows(x []float32, rows, cols int, what string) error {
+	if rows < 0 || len(x) != rows*cols {
+		return fmt.Errorf("%s has %d values, want %d rows x %d columns", what, len(x), rows, cols)
+	}
+	for i, v := range x {
+		if v-v != 0 {
+			return fmt.Errorf("%s row %d column %d is %v", what, i/cols+1, i%cols+1, v)
+		}
+	}
+	return nil
+}
+
+// Schema describes the rows a model reads and writes: the names of the
+// columns and, for image rows, their height, width and channels.
+type Schema struct {
+	Columns []string
+	Image   []int
+}

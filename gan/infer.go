@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math/rand/v2"
 
+	"github.com/quernlab/quern/internal/scratch"
+	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
 )
 
@@ -14,10 +16,7 @@ type work struct {
 	rng *rand.Rand
 }
 
-func (m *Model) getWork() *work {
-	if w, ok := m.pool.Get().(*work); ok {
-		return w
-	}
+func newWork() *work {
 	w := &work{pcg: rand.NewPCG(0, 0)}
 	w.rng = rand.New(w.pcg)
 	return w
@@ -38,14 +37,12 @@ func (m *Model) GenerateInto(dst []float32, n int, seed uint64, class int) ([]fl
 	if err := m.checkGenerate(n, class); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
-	w.pcg.Seed(seed, 0x6e)
+	w.pcg.Seed(seed, stream.GeneratorInput)
 	width := c.Noise + c.Classes
-	if cap(w.in) < n*width {
-		w.in = make([]float32, n*width)
-	}
-	z := w.in[:n*width]
+	w.in = scratch.Grow(w.in, n*width)
+	z := w.in
 	clear(z)
 	for r := 0; r < n; r++ {
 		for j := 0; j < c.Noise; j++ {
@@ -63,10 +60,7 @@ func (m *Model) GenerateInto(dst []float32, n int, seed uint64, class int) ([]fl
 	if err != nil {
 		return nil, err
 	}
-	if cap(dst) < len(out) {
-		dst = make([]float32, len(out))
-	}
-	dst = dst[:len(out)]
+	dst = scratch.Grow(dst, len(out))
 	copy(dst, out)
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(dst)
@@ -88,32 +82,6 @@ func (m *Model) checkGenerate(n, class int) error {
 	return nil
 }
 
-func (m *Model) forward(w *work, net *layers.MLP, in []float64, rows int) ([]float64, error) {
-	if m.cfg.Precision == layers.Float64 {
-		out, err := net.Forward64(in, rows, &w.ws)
-		if err != nil {
-			return nil, err
-		}
-		return append([]float64(nil), out...), nil
-	}
-	if cap(w.in) < len(in) {
-		w.in = make([]float32, len(in))
-	}
-	w.in = w.in[:len(in)]
-	for i, v := range in {
-		w.in[i] = float32(v)
-	}
-	out, err := net.Forward32(w.in, rows, &w.ws)
-	if err != nil {
-		return nil, err
-	}
-	r := make([]float64, len(out))
-	for i, v := range out {
-		r[i] = float64(v)
-	}
-	return r, nil
-}
-
 // Generate draws n rows (raw units) from noise seeded by seed. For a
 // conditional model, class picks the class of every row, or -1 draws
 // classes uniformly.
@@ -125,7 +93,7 @@ func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
 	if c.Precision == layers.Float32 {
 		return m.GenerateInto(nil, n, seed, class)
 	}
-	rng := rand.New(rand.NewPCG(seed, 0x6e))
+	rng := rand.New(rand.NewPCG(seed, stream.GeneratorInput))
 	width := c.Noise + c.Classes
 	z := make([]float64, n*width)
 	for r := 0; r < n; r++ {
@@ -140,9 +108,9 @@ func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
 			z[r*width+c.Noise+k] = 1
 		}
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
-	out, err := m.forward(w, m.Generator, z, n)
+	out, err := layers.Run(m.Generator, z, n, &w.ws, nil)
 	if err != nil {
 		return nil, err
 	}
@@ -155,6 +123,10 @@ func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
 	}
 	return res, nil
 }
+
+// Sample draws n rows (raw units) from noise seeded by seed; a conditional
+// model draws the classes too (Generate with class -1).
+func (m *Model) Sample(n int, seed uint64) ([]float32, error) { return m.Generate(n, seed, -1) }
 
 // Discriminate returns the discriminator's probability that each pack of
 // raw rows is real (one value per Pack rows; for a Wasserstein critic, the
@@ -199,7 +171,7 @@ func (m *Model) Discriminate(x []float32, rows int, labels []int) ([]float64, er
 			for j := 0; j < d.Out; j++ {
 				acc := d.B.At(j)
 				for i := 0; i < d.In; i++ {
-					acc += h[r*d.In+i] * d.W.At(i*d.Out+j) * m.invSigma[l]
+					acc += h[r*d.In+i] * d.W.At(i*d.Out+j) * m.SpectralScale[l]
 				}
 				out[r*d.Out+j] = d.Act.Eval(acc, d.Slope)
 			}
@@ -217,7 +189,7 @@ func (m *Model) Discriminate(x []float32, rows int, labels []int) ([]float64, er
 // NoiseRows returns the noise Generate feeds an unconditional generator for
 // n rows with the given seed (n x dim values), for reproducing its output.
 func NoiseRows(n, dim int, seed uint64) []float64 {
-	rng := rand.New(rand.NewPCG(seed, 0x6e))
+	rng := rand.New(rand.NewPCG(seed, stream.GeneratorInput))
 	z := make([]float64, n*dim)
 	for i := range z {
 		z[i] = rng.NormFloat64()

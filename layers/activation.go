@@ -11,8 +11,12 @@ import (
 type Activation uint8
 
 const (
+	// Default, the zero value, stands for the default activation of
+	// whatever it configures (documented there); every other value asks
+	// for itself, so Identity can be asked for.
+	Default Activation = iota
 	// Identity leaves its input unchanged.
-	Identity Activation = iota
+	Identity
 	// ReLU is max(0, x).
 	ReLU
 	// LeakyReLU is x for x >= 0 and slope*x otherwise.
@@ -28,7 +32,7 @@ const (
 	numActivations
 )
 
-var activationNames = [...]string{"identity", "relu", "leaky_relu", "elu", "tanh", "sigmoid", "softplus"}
+var activationNames = [...]string{"default", "identity", "relu", "leaky_relu", "elu", "tanh", "sigmoid", "softplus"}
 
 // String returns the activation's lower-case name.
 func (a Activation) String() string {
@@ -38,8 +42,12 @@ func (a Activation) String() string {
 	return fmt.Sprintf("Activation(%d)", uint8(a))
 }
 
-// Valid reports whether a is a known activation.
+// Valid reports whether a is a known activation (Default included).
 func (a Activation) Valid() bool { return a < numActivations }
+
+// Concrete reports whether a is a known activation other than Default:
+// what a layer can apply.
+func (a Activation) Concrete() bool { return a > Default && a < numActivations }
 
 // ParseActivation maps a name produced by String back to its Activation.
 func ParseActivation(s string) (Activation, error) {
@@ -48,7 +56,7 @@ func ParseActivation(s string) (Activation, error) {
 			return Activation(i), nil
 		}
 	}
-	return 0, fmt.Errorf("layers: unknown activation %q (want one of %v)", s, activationNames)
+	return Default, fmt.Errorf("layers: unknown activation %q (want one of %v)", s, activationNames[1:])
 }
 
 // Eval applies the activation to x in float64; slope is used by LeakyReLU.

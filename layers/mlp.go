@@ -36,8 +36,7 @@ type MLPConfig struct {
 	// entries, all positive. Required.
 	Widths []int
 	// Hidden is the activation after every layer but the last. Default
-	// ReLU (the zero value Identity is replaced by ReLU; set
-	// LinearHidden for a linear network).
+	// ReLU.
 	Hidden Activation
 	// LinearHidden forces identity activations on hidden layers.
 	LinearHidden bool
@@ -67,11 +66,14 @@ func (c MLPConfig) withDefaults() MLPConfig {
 	if c.Name == "" {
 		c.Name = "mlp"
 	}
-	if c.Hidden == Identity && !c.LinearHidden {
+	if c.Hidden == Default {
 		c.Hidden = ReLU
 	}
 	if c.LinearHidden {
 		c.Hidden = Identity
+	}
+	if c.Output == Default {
+		c.Output = Identity
 	}
 	if c.LeakySlope == 0 {
 		c.LeakySlope = 0.01
@@ -81,6 +83,7 @@ func (c MLPConfig) withDefaults() MLPConfig {
 
 // Validate reports the first problem with the configuration.
 func (c MLPConfig) Validate() error {
+	c = c.withDefaults()
 	if len(c.Widths) < 2 {
 		return fmt.Errorf("%w: MLP %q needs at least 2 widths, got %v", ErrConfig, c.Name, c.Widths)
 	}
@@ -89,7 +92,7 @@ func (c MLPConfig) Validate() error {
 			return fmt.Errorf("%w: MLP %q width %d is %d, want > 0", ErrConfig, c.Name, i, w)
 		}
 	}
-	if !c.Hidden.Valid() || !c.Output.Valid() {
+	if !c.Hidden.Concrete() || !c.Output.Concrete() {
 		return fmt.Errorf("%w: MLP %q has an unknown activation", ErrConfig, c.Name)
 	}
 	if c.Init > HeNormal {
@@ -153,6 +156,9 @@ func (m *MLP) In() int { return m.Layers[0].In }
 // Out is the output width.
 func (m *MLP) Out() int { return m.Layers[len(m.Layers)-1].Out }
 
+// Precision is the precision of the MLP's parameters.
+func (m *MLP) Precision() Precision { return m.Layers[0].W.prec }
+
 // Params lists every parameter in layer order (weight then bias).
 func (m *MLP) Params() []*Param {
 	ps := make([]*Param, 0, 2*len(m.Layers))
@@ -175,6 +181,9 @@ type Workspace struct {
 	a32, b32 []float32
 	a64, b64 []float64
 	fin      finish32
+	// inputs converted to the network's precision (Run)
+	in32 []float32
+	in64 []float64
 }
 
 func grow[T any](s []T, n int) []T {

@@ -324,15 +324,3 @@ func sha256Sum(b []byte) []byte {
 	s := sha256.Sum256(b)
 	return s[:]
 }
-
-// Provenance records where a model came from. It is stored in the
-// metadata of every model file that quern writes.
-type Provenance struct {
-	// DataFile is the training data's path as given.
-	DataFile string `json:"data_file,omitempty"`
-	// DataFingerprint is the SHA-256 of the loaded training rows.
-	DataFingerprint string `json:"data_fingerprint,omitempty"`
-	DataRows        int    `json:"data_rows,omitempty"`
-	// Training holds the training options (epochs, batch size, ...).
-	Training map[string]any `json:"training,omitempty"`
-}

@@ -171,7 +171,8 @@ func sgdKernel[T float32 | float64](w, g, v []T, lr, mom, damp, wd T, nesterov, 
 }
 
 // AdamConfig configures Adam and AdamW. Zero fields take the defaults
-// Beta1 0.9, Beta2 0.999, Epsilon 1e-8, no weight decay, no schedule.
+// Beta1 0.9, Beta2 0.999, Epsilon 1e-8, no weight decay, no schedule; a
+// negative Beta1 asks for 0 (no momentum).
 type AdamConfig struct {
 	// Rate is the learning rate, > 0. Required.
 	Rate    float64
@@ -185,8 +186,11 @@ type AdamConfig struct {
 }
 
 func (c AdamConfig) withDefaults() AdamConfig {
-	if c.Beta1 == 0 {
+	switch {
+	case c.Beta1 == 0:
 		c.Beta1 = 0.9
+	case c.Beta1 < 0:
+		c.Beta1 = 0
 	}
 	if c.Beta2 == 0 {
 		c.Beta2 = 0.999

@@ -25,7 +25,8 @@ func Example() {
 	}
 	d, _ := data.New(x, 200, 2)
 	m, _ := ae.New(ae.Config{Inputs: 2, Hidden: []int{4}, Latent: 1, Seed: 1})
-	m.Train(context.Background(), d, nil, train.Config{Epochs: 5})
+	t, _ := train.New(m, train.Settings{Epochs: 5})
+	t.Run(context.Background(), d, nil)
 	m.Calibrate(d.X, d.Rows, anomaly.Config{Method: anomaly.Max})
 	dir, _ := os.MkdirTemp("", "serve")
 	defer os.RemoveAll(dir)

@@ -13,55 +13,28 @@ import (
 	"sync/atomic"
 	"time"
 
-	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/gan"
-	"github.com/quernlab/quern/modelfile"
-	"github.com/quernlab/quern/vae"
+	"github.com/quernlab/quern/model"
 )
 
-// Model is a loaded model of any kind.
-type Model struct {
-	Kind   string
+// Loaded is the model being served: the model, the file it came from and
+// when it was read.
+type Loaded struct {
+	Model  model.Model
 	Path   string
 	Loaded time.Time
-	AE     *ae.Model
-	VAE    *vae.Model
-	GAN    *gan.Model
 }
+
+// Kind is the served model's kind.
+func (l *Loaded) Kind() string { return l.Model.Kind() }
 
 // LoadModel reads and checks a model file.
-func LoadModel(path string) (*Model, error) {
-	f, err := modelfile.Read(path, 0)
+func LoadModel(path string) (*Loaded, error) {
+	m, err := model.Open(path)
 	if err != nil {
 		return nil, err
 	}
-	m := &Model{Kind: f.Kind, Path: path, Loaded: time.Now()}
-	switch f.Kind {
-	case ae.Kind:
-		m.AE, _, _, err = ae.FromFile(f)
-	case vae.Kind:
-		m.VAE, _, _, err = vae.FromFile(f)
-	case gan.Kind:
-		m.GAN, _, _, err = gan.FromFile(f)
-	default:
-		err = fmt.Errorf("serve: %s holds an unknown model kind %q", path, f.Kind)
-	}
-	if err != nil {
-		return nil, err
-	}
-	return m, nil
-}
-
-// inputs is the width of the rows the model takes.
-func (m *Model) inputs() int {
-	switch {
-	case m.AE != nil:
-		return m.AE.Config().Inputs
-	case m.VAE != nil:
-		return m.VAE.Config().Inputs
-	}
-	return m.GAN.Config().Outputs
+	return &Loaded{Model: m, Path: path, Loaded: time.Now()}, nil
 }
 
 // Config configures a Server. Zero fields mean the documented defaults.
@@ -90,7 +63,7 @@ type Config struct {
 // reload. It is safe for concurrent use.
 type Server struct {
 	cfg   Config
-	model atomic.Pointer[Model]
+	model atomic.Pointer[Loaded]
 	m     *metrics
 	log   *slog.Logger
 	mux   *http.ServeMux
@@ -140,7 +113,7 @@ type discard struct{}
 func (discard) Write(p []byte) (int, error) { return len(p), nil }
 
 // Model returns the model being served.
-func (s *Server) Model() *Model { return s.model.Load() }
+func (s *Server) Model() *Loaded { return s.model.Load() }
 
 // Reload reads the model file again and swaps it in atomically. A bad file
 // is refused and the current model keeps serving. Requests in flight
@@ -154,7 +127,7 @@ func (s *Server) Reload() error {
 	}
 	s.model.Store(m)
 	s.m.reloads.Add(1)
-	s.log.Info("model reloaded", "path", s.cfg.ModelPath, "kind", m.Kind)
+	s.log.Info("model reloaded", "path", s.cfg.ModelPath, "kind", m.Kind())
 	return nil
 }
 
@@ -230,7 +203,7 @@ func (s *Server) routes() {
 			return
 		}
 		m := s.Model()
-		writeJSON(w, http.StatusOK, map[string]string{"status": "reloaded", "kind": m.Kind})
+		writeJSON(w, http.StatusOK, map[string]string{"status": "reloaded", "kind": m.Kind()})
 	}))
 	s.mux.HandleFunc("/healthz", only("GET", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
@@ -241,12 +214,12 @@ func (s *Server) routes() {
 			writeError(w, http.StatusServiceUnavailable, "no model loaded")
 			return
 		}
-		writeJSON(w, http.StatusOK, map[string]any{"status": "ready", "kind": m.Kind, "inputs": m.inputs(), "loaded": m.Loaded.UTC().Format(time.RFC3339)})
+		writeJSON(w, http.StatusOK, map[string]any{"status": "ready", "kind": m.Kind(), "inputs": m.Model.Width(), "loaded": m.Loaded.UTC().Format(time.RFC3339)})
 	}))
 	s.mux.HandleFunc("/metrics", only("GET", func(w http.ResponseWriter, r *http.Request) {
 		w.Header().Set("Content-Type", "text/plain; version=0.0.4; charset=utf-8")
 		m := s.Model()
-		s.m.write(w, m.Kind, m.Loaded)
+		s.m.write(w, m.Kind(), m.Loaded)
 	}))
 	s.mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, "no route %s %s; routes: POST /v1/score, /v1/encode, /v1/reconstruct, /v1/sample, /admin/reload; GET /healthz, /readyz, /metrics", r.Method, r.URL.Path)
@@ -342,24 +315,23 @@ type scoreResponse struct {
 	Caution string          `json:"caution"`
 }
 
+// unable answers 422 naming what the served model cannot do.
+func unable(w http.ResponseWriter, m *Loaded, what, kinds string) {
+	writeError(w, http.StatusUnprocessableEntity, "%s needs %s; the served model is of kind %q", what, kinds, m.Kind())
+}
+
 func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	var th *anomaly.Threshold
-	var score func(x []float32, rows, top int) ([]anomaly.Score, error)
-	switch {
-	case m.AE != nil:
-		th, score = m.AE.Threshold, m.AE.Score
-	case m.VAE != nil:
-		th, score = m.VAE.Threshold, m.VAE.Score
-	default:
-		writeError(w, http.StatusUnprocessableEntity, "scoring needs an autoencoder or VAE model; serving a %s", m.Kind)
+	sc, ok := m.Model.(model.Scorer)
+	if !ok {
+		unable(w, m, "scoring", "a model with anomaly scores (an autoencoder or a VAE)")
 		return
 	}
-	if th == nil {
+	if sc.Calibrated() == nil {
 		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold")
 		return
 	}
-	req, x, ok := s.decodeRows(w, r, m.inputs())
+	req, x, ok := s.decodeRows(w, r, m.Model.Width())
 	if !ok {
 		return
 	}
@@ -367,7 +339,7 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 	if top <= 0 {
 		top = 3
 	}
-	res, err := score(x, len(req.Rows), top)
+	res, err := sc.Score(x, len(req.Rows), top)
 	if err != nil {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
@@ -385,53 +357,40 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 
 func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	if m.AE == nil && m.VAE == nil {
-		writeError(w, http.StatusUnprocessableEntity, "encoding needs an autoencoder or VAE model; serving a %s", m.Kind)
+	enc, ok := m.Model.(model.Encoder)
+	if !ok {
+		unable(w, m, "encoding", "a model with codes (an autoencoder or a VAE)")
 		return
 	}
-	req, x, ok := s.decodeRows(w, r, m.inputs())
+	req, x, ok := s.decodeRows(w, r, m.Model.Width())
 	if !ok {
 		return
 	}
-	var codes []float32
-	var err error
-	var width int
-	if m.AE != nil {
-		codes, err = m.AE.Encode(x, len(req.Rows))
-		width = m.AE.Config().Latent
-	} else {
-		codes, err = m.VAE.Encode(x, len(req.Rows))
-		width = m.VAE.Config().Latent
-	}
+	codes, err := enc.Encode(x, len(req.Rows))
 	if err != nil {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"codes": chunk(codes, len(req.Rows), width)})
+	writeJSON(w, http.StatusOK, map[string]any{"codes": chunk(codes, len(req.Rows), enc.CodeWidth())})
 }
 
 func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	if m.AE == nil && m.VAE == nil {
-		writeError(w, http.StatusUnprocessableEntity, "reconstruction needs an autoencoder or VAE model; serving a %s", m.Kind)
+	rec, ok := m.Model.(model.Reconstructor)
+	if !ok {
+		unable(w, m, "reconstruction", "an autoencoder or a VAE")
 		return
 	}
-	req, x, ok := s.decodeRows(w, r, m.inputs())
+	req, x, ok := s.decodeRows(w, r, m.Model.Width())
 	if !ok {
 		return
 	}
-	var out []float32
-	var err error
-	if m.AE != nil {
-		out, err = m.AE.Reconstruct(x, len(req.Rows))
-	} else {
-		out, err = m.VAE.Reconstruct(x, len(req.Rows))
-	}
+	out, err := rec.Reconstruct(x, len(req.Rows))
 	if err != nil {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, len(req.Rows), m.inputs())})
+	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, len(req.Rows), m.Model.Width())})
 }
 
 type sampleRequest struct {
@@ -442,8 +401,9 @@ type sampleRequest struct {
 
 func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	if m.VAE == nil && m.GAN == nil {
-		writeError(w, http.StatusUnprocessableEntity, "sampling needs a VAE or GAN model; serving a %s", m.Kind)
+	smp, ok := m.Model.(model.Sampler)
+	if !ok {
+		unable(w, m, "sampling", "a generative model (a VAE or a GAN)")
 		return
 	}
 	var req sampleRequest
@@ -458,26 +418,23 @@ func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, "\"seed\" is required (samples are reproducible from it)")
 		return
 	}
-	class := -1
-	if req.Class != nil {
-		class = *req.Class
-	}
 	var out []float32
 	var err error
-	if m.VAE != nil {
-		if class != -1 {
-			writeError(w, http.StatusBadRequest, "\"class\" applies to conditional GANs only")
+	if req.Class != nil {
+		cs, ok := m.Model.(model.ClassSampler)
+		if !ok || cs.Classes() == 0 {
+			writeError(w, http.StatusBadRequest, "\"class\" applies to conditional models only")
 			return
 		}
-		out, err = m.VAE.Sample(req.Count, *req.Seed)
+		out, err = cs.Generate(req.Count, *req.Seed, *req.Class)
 	} else {
-		out, err = m.GAN.Generate(req.Count, *req.Seed, class)
+		out, err = smp.Sample(req.Count, *req.Seed)
 	}
 	if err != nil {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, req.Count, m.inputs())})
+	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, req.Count, m.Model.Width())})
 }
 
 // Serve answers on ln until ctx ends, then stops accepting connections and

@@ -9,6 +9,7 @@ import (
 	"net"
 	"net/http"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"sort"
 	"strings"
@@ -19,6 +20,7 @@ import (
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/train"
 	"github.com/quernlab/quern/vae"
 	"github.com/stretchr/testify/require"
@@ -39,8 +41,7 @@ func writeAE(t testing.TB, path string, seed uint64) {
 	d := breastCancer(t)
 	m, err := ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: seed})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 2})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 2})
 	_, err = m.Calibrate(d.X, d.Rows, anomaly.Config{FalseAlarm: 0.05})
 	require.NoError(t, err)
 	require.NoError(t, m.Save(path, nil))
@@ -185,7 +186,7 @@ func TestBadRequestsGet4xxAndServerKeepsServing(t *testing.T) {
 		{"too many rows", "POST", "/v1/score", rowsBody(d, 0, 6), 413, "6 rows, the limit is 5"},
 		{"unknown route", "GET", "/v2/nothing", nil, 404, "no route"},
 		{"wrong method", "GET", "/v1/score", nil, 405, "use POST"},
-		{"wrong kind", "POST", "/v1/sample", []byte(`{"count": 2, "seed": 1}`), 422, "VAE or GAN"},
+		{"wrong kind", "POST", "/v1/sample", []byte(`{"count": 2, "seed": 1}`), 422, "a VAE or a GAN"},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -301,8 +302,7 @@ func TestVAESampling(t *testing.T) {
 	d := breastCancer(t)
 	m, err := vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.Gaussian, Seed: 1})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 1})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 1})
 	require.NoError(t, m.Save(path, nil))
 	l := start(t, Config{ModelPath: path})
 	c := &http.Client{Timeout: 5 * time.Second}
@@ -324,4 +324,21 @@ func TestVAESampling(t *testing.T) {
 	code, v := post(t, c, l.url+"/v1/score", rowsBody(d, 0, 2))
 	require.Equal(t, 200, code)
 	require.Len(t, v["results"], 2)
+}
+
+// The server reads model files and answers from the graph-free passes: it
+// links no graph library (the training engine and gorgonia stay out of
+// every service that embeds it).
+func TestServerLinksNoGraphLibrary(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs the go command")
+	}
+	out, err := exec.Command("go", "list", "-deps", ".").Output()
+	require.NoError(t, err)
+	for _, p := range strings.Fields(string(out)) {
+		require.NotContains(t, p, "gorgonia", "serve depends on %s", p)
+		require.NotContains(t, p, "quern/internal/engine")
+		require.NotContains(t, p, "quern/train")
+		require.NotContains(t, p, "quern/optim")
+	}
 }

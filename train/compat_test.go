@@ -1,8 +1,10 @@
 package train_test
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -56,16 +58,13 @@ func compatData(t *testing.T, name string) *data.Dataset {
 	return d
 }
 
-// compatCase is one case of make_golden.go in today's API.
+// compatCase is one case of make_golden.go in today's API: the model and
+// the training settings beyond the epochs, batch size and patience.
 type compatCase struct {
-	name   string
-	labels bool // the case trains on the labels
-	build  func() trainable
-}
-
-type trainable interface {
-	Train(ctx context.Context, tr, va *data.Dataset, cfg train.Config) (*train.History, error)
-	File(prov *modelfile.Provenance, h *train.History) (*modelfile.File, error)
+	name     string
+	labels   bool // the case trains on the labels
+	build    func() train.Model
+	settings train.Settings
 }
 
 func mustModel[M any](m M, err error) M {
@@ -76,42 +75,36 @@ func mustModel[M any](m M, err error) M {
 }
 
 var compatCases = []compatCase{
-	{"ae-plain", false, func() trainable {
+	{"ae-plain", false, func() train.Model {
 		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: 3}))
-	}},
-	{"ae-kinds", true, func() trainable {
-		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{12, 8}, Latent: 3, Activation: layers.Tanh, Dropout: 0.1,
-			Noise: ae.Corruption{Kind: ae.MaskingNoise, Level: 0.2}, Sparsity: ae.Sparsity{Kind: ae.L1Sparsity, Weight: 1e-3},
-			Classes: 2, WeightDecay: 1e-3, ClipNorm: 1, Rate: 3e-3, Seed: 4}))
-	}},
-	{"ae-f64", false, func() trainable {
+	}, train.Settings{}},
+	{"ae-kinds", true, func() train.Model {
+		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{12, 8}, Latent: 3, Activation: layers.Tanh, Dropout: 0.1, Classes: 2, Seed: 4}))
+	}, train.Settings{Optimizer: train.Optimizer{WeightDecay: 1e-3, ClipNorm: 1, Rate: 3e-3},
+		Objective: train.Reconstruction{Noise: train.Corruption{Kind: train.MaskingNoise, Level: 0.2}, Sparsity: train.Sparsity{Kind: train.L1Sparsity, Weight: 1e-3}}}},
+	{"ae-f64", false, func() train.Model {
 		return mustModel(ae.New(ae.Config{Inputs: 64, Hidden: []int{16}, Latent: 4, Activation: layers.LeakyReLU,
-			Noise: ae.Corruption{Kind: ae.SaltPepperNoise, Level: 0.1}, Scaling: data.ScaleMinMax, Precision: layers.Float64, Seed: 5}))
-	}},
-	{"vae-bernoulli", false, func() trainable {
-		return mustModel(vae.New(vae.Config{Inputs: 784, Hidden: []int{16}, Latent: 3, FreeBits: 0.1,
-			Schedule: vae.BetaSchedule{Kind: vae.Linear, Steps: 10}, Seed: 6}))
-	}},
-	{"vae-gaussian", false, func() trainable {
-		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{16}, Latent: 3, Likelihood: vae.GaussianLearned,
-			ClipNorm: 5, WeightDecay: 1e-4, Rate: 3e-3, Seed: 7}))
-	}},
-	{"vae-f64", false, func() trainable {
-		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.GaussianShared,
-			Beta: 0.5, Schedule: vae.BetaSchedule{Kind: vae.Cyclical, Steps: 12}, Precision: layers.Float64, Seed: 8}))
-	}},
-	{"gan-bce", false, func() trainable {
-		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Pack: 2, DiscSteps: 2,
-			LabelSmoothing: 0.1, Seed: 9}))
-	}},
-	{"gan-wasserstein", true, func() trainable {
+			Scaling: data.ScaleMinMax, Precision: layers.Float64, Seed: 5}))
+	}, train.Settings{Objective: train.Reconstruction{Noise: train.Corruption{Kind: train.SaltPepperNoise, Level: 0.1}}}},
+	{"vae-bernoulli", false, func() train.Model {
+		return mustModel(vae.New(vae.Config{Inputs: 784, Hidden: []int{16}, Latent: 3, Seed: 6}))
+	}, train.Settings{Objective: train.Variational{FreeBits: 0.1, Schedule: train.BetaSchedule{Kind: train.BetaLinear, Steps: 10}}}},
+	{"vae-gaussian", false, func() train.Model {
+		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{16}, Latent: 3, Likelihood: vae.GaussianLearned, Seed: 7}))
+	}, train.Settings{Optimizer: train.Optimizer{ClipNorm: 5, WeightDecay: 1e-4, Rate: 3e-3}}},
+	{"vae-f64", false, func() train.Model {
+		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.GaussianShared, Precision: layers.Float64, Seed: 8}))
+	}, train.Settings{Objective: train.Variational{Beta: 0.5, Schedule: train.BetaSchedule{Kind: train.BetaCyclical, Steps: 12}}}},
+	{"gan-bce", false, func() train.Model {
+		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Pack: 2, Seed: 9}))
+	}, train.Settings{Objective: train.Adversarial{DiscSteps: 2, LabelSmoothing: 0.1}}},
+	{"gan-wasserstein", true, func() train.Model {
 		return mustModel(gan.New(gan.Config{Outputs: 64, Noise: 8, GenHidden: []int{32}, DiscHidden: []int{32}, Critic: gan.Wasserstein,
 			Classes: 10, Scaling: data.ScaleMinMax, Seed: 10}))
-	}},
-	{"gan-f64", false, func() trainable {
-		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 4, GenHidden: []int{8}, DiscHidden: []int{8}, Loss: gan.Minimax,
-			Precision: layers.Float64, Seed: 11}))
-	}},
+	}, train.Settings{}},
+	{"gan-f64", false, func() train.Model {
+		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 4, GenHidden: []int{8}, DiscHidden: []int{8}, Precision: layers.Float64, Seed: 11}))
+	}, train.Settings{Objective: train.Adversarial{Loss: train.Minimax}}},
 }
 
 func readGolden(t *testing.T, name string) (compatGolden, *modelfile.File, *modelfile.File) {
@@ -168,11 +161,15 @@ func TestCompatTrainingIsBitwiseTheSame(t *testing.T) {
 			g, qm, _ := readGolden(t, c.name)
 			_, tr, va := compatSplit(t, c, g)
 			m := c.build()
-			h, err := m.Train(context.Background(), tr, va, train.Config{Epochs: 4, BatchSize: g.Batch, Patience: g.Patience})
+			s := c.settings
+			s.Epochs, s.BatchSize, s.Patience = 4, g.Batch, g.Patience
+			tr0, err := train.New(m, s)
+			require.NoError(t, err)
+			h, err := tr0.Run(context.Background(), tr, va)
 			require.NoError(t, err)
 			require.Equal(t, g.Epochs, h.Epochs)
 			require.Equal(t, g.Best, h.BestEpoch)
-			f, err := m.File(nil, nil)
+			f, err := m.File(nil)
 			require.NoError(t, err)
 			sameTensors(t, qm, f)
 		})
@@ -184,30 +181,17 @@ func TestCompatCheckpointsResume(t *testing.T) {
 		t.Run(c.name, func(t *testing.T) {
 			g, qm, ck := readGolden(t, c.name)
 			_, tr, va := compatSplit(t, c, g)
-			m, h, err := compatResume(ck)
+			r, err := train.Resume(ck, &train.Settings{Epochs: 4, BatchSize: g.Batch, Patience: g.Patience})
 			require.NoError(t, err)
-			require.Len(t, h.Epochs, 2)
-			h, err = m.Train(context.Background(), tr, va, train.Config{Epochs: 4, BatchSize: g.Batch, Patience: g.Patience, Start: h})
+			require.Len(t, r.History().Epochs, 2)
+			h, err := r.Run(context.Background(), tr, va)
 			require.NoError(t, err)
 			require.Equal(t, g.Epochs, h.Epochs)
-			f, err := m.File(nil, nil)
+			f, err := r.Model().File(nil)
 			require.NoError(t, err)
 			sameTensors(t, qm, f)
 		})
 	}
-}
-
-func compatResume(f *modelfile.File) (trainable, *train.History, error) {
-	switch f.Kind {
-	case ae.Kind:
-		m, h, _, err := ae.FromFile(f)
-		return m, h, err
-	case vae.Kind:
-		m, h, _, err := vae.FromFile(f)
-		return m, h, err
-	}
-	m, h, _, err := gan.FromFile(f)
-	return m, h, err
 }
 
 // jsonOf marshals v in a canonical form (objects' keys sorted), for
@@ -253,7 +237,7 @@ func compatOutputs(t *testing.T, f *modelfile.File, d *data.Dataset) map[string]
 	first := func(n int) ([]float32, int) { return d.X[:n*d.Cols], n }
 	switch f.Kind {
 	case ae.Kind:
-		m, _, _, err := ae.FromFile(f)
+		m, err := ae.FromFile(f)
 		require.NoError(t, err)
 		e, err := m.RowErrors(d.X, d.Rows)
 		require.NoError(t, err)
@@ -276,7 +260,7 @@ func compatOutputs(t *testing.T, f *modelfile.File, d *data.Dataset) map[string]
 			o["classes"], o["class_probabilities"] = l, p
 		}
 	case vae.Kind:
-		m, _, _, err := vae.FromFile(f)
+		m, err := vae.FromFile(f)
 		require.NoError(t, err)
 		x, n := first(20)
 		s, err := m.NegELBO(x, n)
@@ -298,7 +282,7 @@ func compatOutputs(t *testing.T, f *modelfile.File, d *data.Dataset) map[string]
 		require.NoError(t, err)
 		o["scores"] = sc
 	case gan.Kind:
-		m, _, _, err := gan.FromFile(f)
+		m, err := gan.FromFile(f)
 		require.NoError(t, err)
 		s, err := m.Generate(10, 9, -1)
 		require.NoError(t, err)
@@ -316,3 +300,51 @@ func compatOutputs(t *testing.T, f *modelfile.File, d *data.Dataset) map[string]
 }
 
 var _ = anomaly.Caution
+
+// Today's checkpoints resume every case bitwise too: the straight run's
+// weights (the old files') after stopping at epoch 2 with a checkpoint and
+// resuming it with the settings it holds.
+func TestCheckpointResumeIsBitwise(t *testing.T) {
+	for _, c := range compatCases {
+		t.Run(c.name, func(t *testing.T) {
+			g, qm, _ := readGolden(t, c.name)
+			_, tr, va := compatSplit(t, c, g)
+			s := c.settings
+			s.Epochs, s.BatchSize, s.Patience = 4, g.Batch, g.Patience
+			first, err := train.New(c.build(), s)
+			require.NoError(t, err)
+			var ck *modelfile.File
+			stop := errors.New("stop")
+			first.SetCallbacks(train.Callbacks{OnEpoch: func(p train.Progress, _ *train.History) error {
+				if p.Epoch < 2 {
+					return nil
+				}
+				f, err := first.Checkpoint(&modelfile.Provenance{DataFile: g.Data})
+				require.NoError(t, err)
+				var b bytes.Buffer
+				require.NoError(t, modelfile.Encode(&b, f))
+				ck, err = modelfile.Decode(b.Bytes(), "checkpoint")
+				require.NoError(t, err)
+				return stop
+			}})
+			_, err = first.Run(context.Background(), tr, va)
+			require.ErrorIs(t, err, stop)
+			r, err := train.Resume(ck, nil)
+			require.NoError(t, err)
+			require.Equal(t, 4, r.Settings().Epochs)
+			h, err := r.Run(context.Background(), tr, va)
+			require.NoError(t, err)
+			require.Equal(t, g.Epochs, h.Epochs)
+			f, err := r.File(nil)
+			require.NoError(t, err)
+			sameTensors(t, qm, f)
+			// the model file records the run
+			sum, ok, err := train.SummaryOf(f)
+			require.NoError(t, err)
+			require.True(t, ok)
+			require.Equal(t, 4, sum.Epochs)
+			require.Equal(t, g.Best, sum.BestEpoch)
+			require.Equal(t, g.Batch, sum.Settings.BatchSize)
+		})
+	}
+}

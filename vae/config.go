@@ -7,7 +7,6 @@ import (
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/layers"
-	"github.com/quernlab/quern/optim"
 )
 
 // ErrConfig is wrapped by every configuration error.
@@ -28,47 +27,10 @@ const (
 	GaussianShared Likelihood = "gaussian_shared"
 )
 
-// ScheduleKind selects how the KL weight beta changes over training.
-type ScheduleKind string
-
-const (
-	// Constant keeps beta fixed (default).
-	Constant ScheduleKind = "constant"
-	// Linear raises beta from 0 to Beta over Steps updates (KL annealing,
-	// Bowman et al. 2016).
-	Linear ScheduleKind = "linear"
-	// Cyclical repeats cycles of Steps updates; in each, beta rises
-	// linearly from 0 to Beta over the first Ratio of the cycle and then
-	// stays at Beta (Fu et al. 2019).
-	Cyclical ScheduleKind = "cyclical"
-)
-
-// BetaSchedule configures the KL weight's schedule.
-type BetaSchedule struct {
-	Kind  ScheduleKind
-	Steps int
-	// Ratio is the rising fraction of a cyclical schedule. Default 0.5.
-	Ratio float64
-}
-
-// Factor returns the multiplier of Beta at update number step (from 0).
-func (s BetaSchedule) Factor(step int) float64 {
-	switch s.Kind {
-	case Linear:
-		return math.Min(1, float64(step)/float64(s.Steps))
-	case Cyclical:
-		r := s.Ratio
-		if r == 0 {
-			r = 0.5
-		}
-		tau := float64(step%s.Steps) / float64(s.Steps)
-		return math.Min(1, tau/r)
-	}
-	return 1
-}
-
-// Config describes a variational autoencoder. Zero fields take the
-// documented defaults; New validates the result.
+// Config describes a variational autoencoder's architecture. Zero fields
+// take the documented defaults; New validates the result. How it is
+// trained (the optimiser, the KL weight and its schedule, free bits) is
+// package train's business.
 type Config struct {
 	// Inputs is the number of input columns. Required.
 	Inputs int
@@ -86,30 +48,14 @@ type Config struct {
 	Likelihood Likelihood
 	// OutputVariance of the fixed Gaussian likelihood. Default 1.
 	OutputVariance float64
-	// Beta weighs the KL term. Default 1.
-	Beta float64
-	// Schedule varies beta over training. Default constant.
-	Schedule BetaSchedule
-	// FreeBits, when > 0, is the minimum KL in nats per latent dimension
-	// (averaged over the batch) that the objective charges (Kingma et al.
-	// 2016): dimensions below it are not pushed further toward the prior.
-	FreeBits float64
-	// Rate is Adam's learning rate. Default 1e-3.
-	Rate float64
-	// RateSchedule multiplies Rate per update (see package optim); nil
-	// keeps it constant.
-	RateSchedule optim.Schedule `json:"-"`
-	// WeightDecay is AdamW's decoupled weight decay. Default 0.
-	WeightDecay float64
-	// ClipNorm clips gradients to this global norm when > 0.
-	ClipNorm float64
 	// Scaling of inputs, fitted on the training data. Default none for
 	// Bernoulli (values must lie in [0, 1]) and standard for Gaussian
 	// likelihoods.
 	Scaling data.ScaleKind
 	// Precision of the parameters. Default float32.
 	Precision layers.Precision
-	// Seed drives initialisation, noise and shuffling.
+	// Seed draws the initial weights and, when the model is trained, the
+	// training's own random streams.
 	Seed uint64
 }
 
@@ -120,7 +66,7 @@ func (c Config) withDefaults() Config {
 	if c.Hidden == nil {
 		c.Hidden = []int{max(4*c.Latent, 64)}
 	}
-	if c.Activation == layers.Identity && !c.Linear {
+	if c.Activation == layers.Default {
 		c.Activation = layers.ReLU
 	}
 	if c.Linear {
@@ -131,18 +77,6 @@ func (c Config) withDefaults() Config {
 	}
 	if c.OutputVariance == 0 {
 		c.OutputVariance = 1
-	}
-	if c.Beta == 0 {
-		c.Beta = 1
-	}
-	if c.Schedule.Kind == "" {
-		c.Schedule.Kind = Constant
-	}
-	if c.Schedule.Kind == Cyclical && c.Schedule.Ratio == 0 {
-		c.Schedule.Ratio = 0.5
-	}
-	if c.Rate == 0 {
-		c.Rate = 1e-3
 	}
 	if c.Scaling == "" {
 		c.Scaling = data.ScaleStandard
@@ -161,14 +95,14 @@ func bad(format string, args ...any) error {
 func (c Config) Validate() error {
 	c = c.withDefaults()
 	if c.Inputs <= 0 {
-		return bad("Inputs is %d, want > 0", c.Inputs)
+		return bad("%d input columns, want at least 1", c.Inputs)
 	}
 	if c.Latent <= 0 {
-		return bad("Latent is %d, want > 0", c.Latent)
+		return bad("latent width %d, want at least 1", c.Latent)
 	}
 	for i, w := range c.Hidden {
 		if w <= 0 {
-			return bad("hidden width %d is %d", i, w)
+			return bad("hidden layer %d has width %d, want at least 1", i+1, w)
 		}
 	}
 	switch c.Likelihood {
@@ -177,31 +111,7 @@ func (c Config) Validate() error {
 		return bad("unknown likelihood %q", c.Likelihood)
 	}
 	if !(c.OutputVariance > 0) || math.IsInf(c.OutputVariance, 0) {
-		return bad("OutputVariance %v, want > 0", c.OutputVariance)
-	}
-	if !(c.Beta > 0) || math.IsInf(c.Beta, 0) {
-		return bad("Beta %v, want > 0", c.Beta)
-	}
-	switch c.Schedule.Kind {
-	case Constant:
-	case Linear, Cyclical:
-		if c.Schedule.Steps <= 0 {
-			return bad("%s schedule needs Steps > 0", c.Schedule.Kind)
-		}
-		if c.Schedule.Kind == Cyclical && !(c.Schedule.Ratio > 0 && c.Schedule.Ratio <= 1) {
-			return bad("cyclical ratio %v outside (0, 1]", c.Schedule.Ratio)
-		}
-	default:
-		return bad("unknown schedule %q", c.Schedule.Kind)
-	}
-	if c.FreeBits < 0 || math.IsNaN(c.FreeBits) {
-		return bad("FreeBits %v, want >= 0", c.FreeBits)
-	}
-	if !(c.Rate > 0) || math.IsInf(c.Rate, 0) {
-		return bad("Rate %v, want > 0", c.Rate)
-	}
-	if c.WeightDecay < 0 || c.ClipNorm < 0 {
-		return bad("negative weight decay or clip norm")
+		return bad("output variance %v, want > 0", c.OutputVariance)
 	}
 	switch c.Scaling {
 	case data.ScaleNone, data.ScaleStandard, data.ScaleMinMax:
@@ -211,8 +121,32 @@ func (c Config) Validate() error {
 	if c.Likelihood == Bernoulli && c.Scaling == data.ScaleStandard {
 		return bad("a Bernoulli likelihood needs values in [0, 1]: use no scaling or min-max")
 	}
-	if !c.Precision.Valid() || !c.Activation.Valid() {
+	if !c.Precision.Valid() || !c.Activation.Concrete() {
 		return bad("unknown precision or activation")
 	}
 	return nil
+}
+
+func (c Config) encoderWidths() []int {
+	return append(append([]int{c.Inputs}, c.Hidden...), 2*c.Latent)
+}
+
+func (c Config) decoderWidths() []int {
+	w := []int{c.Latent}
+	for i := len(c.Hidden) - 1; i >= 0; i-- {
+		w = append(w, c.Hidden[i])
+	}
+	return append(w, c.Inputs)
+}
+
+// logVarShape is the shape of the learned likelihood log-variance (0 x 0
+// without one).
+func (c Config) logVarShape() (int, int) {
+	switch c.Likelihood {
+	case GaussianLearned:
+		return 1, c.Inputs
+	case GaussianShared:
+		return 1, 1
+	}
+	return 0, 0
 }

@@ -26,10 +26,20 @@ func meterReadings(n int) *data.Dataset {
 	return d
 }
 
+// fit trains m for the given epochs through package train.
+func fit(m *vae.Model, d *data.Dataset, epochs int) error {
+	t, err := train.New(m, train.Settings{Epochs: epochs})
+	if err != nil {
+		return err
+	}
+	_, err = t.Run(context.Background(), d, nil)
+	return err
+}
+
 func Example_sampling() {
 	d := meterReadings(1000)
 	m, _ := vae.New(vae.Config{Inputs: 6, Hidden: []int{16}, Latent: 2, Likelihood: vae.GaussianLearned, Seed: 1})
-	if _, err := m.Train(context.Background(), d, nil, train.Config{Epochs: 10}); err != nil {
+	if err := fit(m, d, 10); err != nil {
 		fmt.Println(err)
 		return
 	}
@@ -48,7 +58,7 @@ func Example_interpolation() {
 func Example_embeddings() {
 	d := meterReadings(500)
 	m, _ := vae.New(vae.Config{Inputs: 6, Hidden: []int{16}, Latent: 2, Likelihood: vae.GaussianLearned, Seed: 1})
-	if _, err := m.Train(context.Background(), d, nil, train.Config{Epochs: 5}); err != nil {
+	if err := fit(m, d, 5); err != nil {
 		fmt.Println(err)
 		return
 	}

@@ -6,23 +6,23 @@ import (
 	"math/rand/v2"
 	"sort"
 
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/scratch"
+	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 )
 
+// work is one goroutine's scratch space for graph-free inference.
 type work struct {
 	ws1, ws2 layers.Workspace
 	in       []float32
-	in64     []float64
 	z        []float32
 	pcg      *rand.PCG
 	rng      *rand.Rand
 }
 
-func (m *Model) getWork() *work {
-	if w, ok := m.pool.Get().(*work); ok {
-		return w
-	}
+func newWork() *work {
 	w := &work{pcg: rand.NewPCG(0, 0)}
 	w.rng = rand.New(w.pcg)
 	return w
@@ -41,9 +41,9 @@ func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
-	w.in = grow(w.in, len(x))
+	w.in = scratch.Grow(w.in, len(x))
 	copy(w.in, x)
 	if m.Scaler != nil {
 		m.Scaler.ApplyRows(w.in)
@@ -53,7 +53,7 @@ func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
 		return nil, err
 	}
 	L := m.cfg.Latent
-	dst = grow(dst, rows*L)
+	dst = scratch.Grow(dst, rows*L)
 	for r := 0; r < rows; r++ {
 		copy(dst[r*L:(r+1)*L], h[r*2*L:r*2*L+L])
 	}
@@ -66,7 +66,7 @@ func (m *Model) decodeInto32(w *work, dst, z []float32, rows int) ([]float32, er
 	if err != nil {
 		return nil, err
 	}
-	dst = grow(dst, len(out))
+	dst = scratch.Grow(dst, len(out))
 	copy(dst, out)
 	if m.cfg.Likelihood == Bernoulli {
 		for i, v := range dst {
@@ -92,7 +92,7 @@ func (m *Model) DecodeInto(dst, z []float32, rows int) ([]float32, error) {
 	if err := checkRows(z, rows, m.cfg.Latent, "latent"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	return m.decodeInto32(w, dst, z, rows)
 }
@@ -110,58 +110,27 @@ func (m *Model) SampleInto(dst []float32, n int, seed uint64) ([]float32, error)
 		}
 		return append(dst[:0], r...), nil
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
-	w.pcg.Seed(seed, 0x5a)
-	w.z = grow(w.z, n*m.cfg.Latent)
+	w.pcg.Seed(seed, stream.PriorSample)
+	w.z = scratch.Grow(w.z, n*m.cfg.Latent)
 	for i := range w.z {
 		w.z[i] = float32(w.rng.NormFloat64())
 	}
 	return m.decodeInto32(w, dst, w.z, n)
 }
 
-func grow[T any](s []T, n int) []T {
-	if cap(s) < n {
-		return make([]T, n)
-	}
-	return s[:n]
-}
-
 func checkRows(x []float32, rows, cols int, what string) error {
-	if rows < 0 || len(x) != rows*cols {
-		return fmt.Errorf("vae: %s has %d values, want %d rows x %d columns", what, len(x), rows, cols)
-	}
-	for i, v := range x {
-		if v-v != 0 {
-			return fmt.Errorf("vae: %s row %d column %d is %v", what, i/cols+1, i%cols+1, v)
-		}
+	if err := data.CheckRows(x, rows, cols, what); err != nil {
+		return fmt.Errorf("vae: %w", err)
 	}
 	return nil
 }
 
 // forward runs net on float64 rows and returns float64 results (a new
 // slice), in the model's precision.
-func (m *Model) forward(w *work, ws *layers.Workspace, net *layers.MLP, in []float64, rows int) ([]float64, error) {
-	if m.cfg.Precision == layers.Float64 {
-		out, err := net.Forward64(in, rows, ws)
-		if err != nil {
-			return nil, err
-		}
-		return append([]float64(nil), out...), nil
-	}
-	w.in = grow(w.in, len(in))
-	for i, v := range in {
-		w.in[i] = float32(v)
-	}
-	out, err := net.Forward32(w.in, rows, ws)
-	if err != nil {
-		return nil, err
-	}
-	r := make([]float64, len(out))
-	for i, v := range out {
-		r[i] = float64(v)
-	}
-	return r, nil
+func (m *Model) forward(ws *layers.Workspace, net *layers.MLP, in []float64, rows int) ([]float64, error) {
+	return layers.Run(net, in, rows, ws, nil)
 }
 
 // scaled returns x scaled by the model's scaler, as float64.
@@ -179,7 +148,7 @@ func (m *Model) scaled(x []float32) []float64 {
 
 // posterior returns the means and log-variances of q(z|x) for scaled rows.
 func (m *Model) posterior(w *work, xs []float64, rows int) (mu, lv []float64, err error) {
-	h, err := m.forward(w, &w.ws1, m.Encoder, xs, rows)
+	h, err := m.forward(&w.ws1, m.Encoder, xs, rows)
 	if err != nil {
 		return nil, nil, err
 	}
@@ -197,7 +166,7 @@ func (m *Model) EncodeFull(x []float32, rows int) (mu, logvar []float64, err err
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	return m.posterior(w, m.scaled(x), rows)
 }
@@ -222,7 +191,7 @@ func to32(v []float64) []float32 {
 // decodeMean maps latent rows to the decoder's mean in scaled space
 // (probabilities for Bernoulli).
 func (m *Model) decodeMean(w *work, z []float64, rows int) ([]float64, error) {
-	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows)
+	out, err := m.forward(&w.ws2, m.Decoder, z, rows)
 	if err != nil {
 		return nil, err
 	}
@@ -248,7 +217,7 @@ func (m *Model) Decode(z []float32, rows int) ([]float32, error) {
 	if err := checkRows(z, rows, m.cfg.Latent, "latent"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	zz := make([]float64, len(z))
 	for i, v := range z {
@@ -273,7 +242,7 @@ func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
 // SampleLatent draws n latent rows from the prior N(0, I) with a
 // generator seeded by seed.
 func (m *Model) SampleLatent(n int, seed uint64) []float32 {
-	rng := rand.New(rand.NewPCG(seed, 0x5a))
+	rng := rand.New(rand.NewPCG(seed, stream.PriorSample))
 	z := make([]float32, n*m.cfg.Latent)
 	for i := range z {
 		z[i] = float32(rng.NormFloat64())
@@ -512,7 +481,7 @@ func (m *Model) draw(x []float32, rows, samples int, seed, stream uint64) (*draw
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	xs := m.scaled(x)
 	mu, lv, err := m.posterior(w, xs, rows)
@@ -520,7 +489,7 @@ func (m *Model) draw(x []float32, rows, samples int, seed, stream uint64) (*draw
 		return nil, err
 	}
 	z, eps := draws(mu, lv, rows, m.cfg.Latent, samples, rand.New(rand.NewPCG(seed, stream)))
-	out, err := m.forward(w, &w.ws2, m.Decoder, z, rows*samples)
+	out, err := m.forward(&w.ws2, m.Decoder, z, rows*samples)
 	if err != nil {
 		return nil, err
 	}
@@ -537,7 +506,7 @@ func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, er
 	if samples < 1 {
 		return nil, fmt.Errorf("vae: ELBO needs at least 1 sample")
 	}
-	d, err := m.draw(x, rows, samples, seed, 0xe1)
+	d, err := m.draw(x, rows, samples, seed, stream.ELBODraws)
 	if err != nil {
 		return nil, err
 	}
@@ -565,7 +534,7 @@ func (m *Model) IWAE(x []float32, rows, k int, seed uint64) ([]float64, error) {
 	if k < 1 {
 		return nil, fmt.Errorf("vae: IWAE needs k >= 1")
 	}
-	d, err := m.draw(x, rows, k, seed, 0x1e)
+	d, err := m.draw(x, rows, k, seed, stream.IWAEDraws)
 	if err != nil {
 		return nil, err
 	}

@@ -1,18 +1,15 @@
 package vae
 
 import (
+	"encoding/json"
 	"fmt"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
-	"github.com/quernlab/quern/internal/persist"
 	"github.com/quernlab/quern/modelfile"
-	"github.com/quernlab/quern/train"
 )
 
-// Kind is the model-file kind of a VAE.
-const Kind = "vae"
-
+// meta is the VAE's part of a model file's metadata.
 type meta struct {
 	Config     Config                `json:"config"`
 	Scaler     *data.Scaler          `json:"scaler,omitempty"`
@@ -20,70 +17,60 @@ type meta struct {
 	Columns    []string              `json:"columns,omitempty"`
 	Image      []int                 `json:"image,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
-	Resume     *persist.Resume       `json:"resume,omitempty"`
 }
 
-const optimPrefix = "optimizer/"
-
-// File converts the model to a model file; with history not nil it is a
-// checkpoint that also holds the optimiser, generator states and history.
-func (m *Model) File(prov *modelfile.Provenance, history *train.History) (*modelfile.File, error) {
+// File converts the model to a model file, with prov (may be nil) as its
+// provenance section.
+func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
 	md := meta{Config: m.cfg, Scaler: m.Scaler, Threshold: m.Threshold, Columns: m.Columns, Image: m.Image, Provenance: prov}
-	ts := persist.Params(m.Params())
-	if history != nil {
-		ots, r, err := persist.SaveTraining(m.opt, optimPrefix, m.noisePCG, m.shufflePCG, history)
-		if err != nil {
-			return nil, fmt.Errorf("vae: %w", err)
-		}
-		ts, md.Resume = append(ts, ots...), r
-	}
-	f, err := persist.Encode(Kind, md, ts)
+	b, err := json.Marshal(md)
 	if err != nil {
 		return nil, fmt.Errorf("vae: %w", err)
 	}
-	return f, nil
+	return &modelfile.File{Kind: Kind, Meta: b, Tensors: modelfile.FromParams(m.Params())}, nil
 }
 
-// Save writes the model (without training state) to path atomically.
+// Save writes the model to path atomically.
 func (m *Model) Save(path string, prov *modelfile.Provenance) error {
-	f, err := m.File(prov, nil)
+	f, err := m.File(prov)
 	if err != nil {
 		return err
 	}
 	return modelfile.Write(path, f)
 }
 
-// FromFile rebuilds a model from a model file, restoring training state
-// and returning the history when the file is a checkpoint.
-func FromFile(f *modelfile.File) (*Model, *train.History, *modelfile.Provenance, error) {
+// FromFile rebuilds a model from a model file (or a checkpoint, whose
+// training state it ignores). The settings are checked against the
+// tensors the file holds before anything is built.
+func FromFile(f *modelfile.File) (*Model, error) {
 	var md meta
-	if err := persist.Decode(f, Kind, &md); err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	if err := f.Header(Kind, &md); err != nil {
+		return nil, fmt.Errorf("vae: %w", err)
 	}
-	m, err := New(md.Config)
-	if err != nil {
-		return nil, nil, nil, err
+	if err := md.Config.Validate(); err != nil {
+		return nil, err
 	}
-	if err := persist.SetParams(f, m.Params()); err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: %w", err)
-	}
-	if err := persist.CheckNoExtra(f, m.Params(), optimPrefix); err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+	cfg := md.Config.withDefaults()
+	if err := f.CheckShapes(cfg.paramShapes(), cfg.Precision); err != nil {
+		return nil, fmt.Errorf("vae: %w", err)
 	}
 	if md.Scaler != nil {
-		if err := md.Scaler.Validate(md.Config.Inputs); err != nil {
-			return nil, nil, nil, fmt.Errorf("vae: %w", err)
+		if err := md.Scaler.Validate(cfg.Inputs); err != nil {
+			return nil, fmt.Errorf("vae: %w", err)
 		}
 	}
-	m.Scaler, m.Threshold, m.Columns, m.Image = md.Scaler, md.Threshold, md.Columns, md.Image
-	if md.Resume == nil {
-		return m, nil, md.Provenance, nil
-	}
-	h, err := persist.LoadTraining(f, md.Resume, m.opt, optimPrefix, m.noisePCG, m.shufflePCG)
+	m, err := New(cfg)
 	if err != nil {
-		return nil, nil, nil, fmt.Errorf("vae: %w", err)
+		return nil, err
 	}
-	return m, h, md.Provenance, nil
+	if err := f.SetParams(m.Params()); err != nil {
+		return nil, fmt.Errorf("vae: %w", err)
+	}
+	if err := f.CheckNoExtra(m.Params()); err != nil {
+		return nil, fmt.Errorf("vae: %w", err)
+	}
+	m.Scaler, m.Threshold, m.Columns, m.Image = md.Scaler, md.Threshold, md.Columns, md.Image
+	return m, nil
 }
 
 // Load reads a model file written by Save (or a checkpoint).
@@ -92,6 +79,5 @@ func Load(path string) (*Model, error) {
 	if err != nil {
 		return nil, err
 	}
-	m, _, _, err := FromFile(f)
-	return m, err
+	return FromFile(f)
 }

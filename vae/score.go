@@ -5,6 +5,7 @@ import (
 	"math"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/losses"
 )
 
@@ -13,13 +14,11 @@ import (
 // same.
 const ScoreSamples = 16
 
-const scoreSeed = 0x5c07e
-
 // NegELBO returns each raw row's negative ELBO in nats (ScoreSamples
 // draws, fixed seed): a density score whose expectation bounds -log p(x)
 // from above. Rows unlike the training data score high.
 func (m *Model) NegELBO(x []float32, rows int) ([]float64, error) {
-	e, err := m.ELBO(x, rows, ScoreSamples, scoreSeed)
+	e, err := m.ELBO(x, rows, ScoreSamples, stream.ScoreSeed)
 	if err != nil {
 		return nil, err
 	}
@@ -38,14 +37,14 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
-	w := m.getWork()
+	w := m.pool.Get()
 	defer m.pool.Put(w)
 	xs := m.scaled(x)
 	mu, _, err := m.posterior(w, xs, rows)
 	if err != nil {
 		return nil, err
 	}
-	out, err := m.forward(w, &w.ws2, m.Decoder, mu, rows)
+	out, err := m.forward(&w.ws2, m.Decoder, mu, rows)
 	if err != nil {
 		return nil, err
 	}
@@ -96,10 +95,11 @@ func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
 	if err != nil {
 		return nil, err
 	}
-	d := m.cfg.Inputs
-	out := make([]anomaly.Score, rows)
-	for r := range out {
-		out[r] = anomaly.Assess(s[r], c[r*d:(r+1)*d], m.Columns, top, *m.Threshold)
-	}
-	return out, nil
+	return anomaly.AssessRows(s, c, m.cfg.Inputs, m.Columns, top, *m.Threshold), nil
 }
+
+// RowScores is NegELBO: the score Score compares with the threshold.
+func (m *Model) RowScores(x []float32, rows int) ([]float64, error) { return m.NegELBO(x, rows) }
+
+// Calibrated returns the model's threshold (nil before calibration).
+func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }

@@ -1,12 +1,13 @@
-package vae
+package vae_test
 
 import (
-	"context"
 	"path/filepath"
 	"testing"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/train"
+	"github.com/quernlab/quern/vae"
 	"github.com/stretchr/testify/require"
 )
 
@@ -18,10 +19,9 @@ func TestDensityScores(t *testing.T) {
 	normal := ppcaData(2000, 8, 2, 0.3, 13, 1)
 	calib := ppcaData(500, 8, 2, 0.3, 13, 2)
 	test := ppcaData(200, 8, 2, 0.3, 13, 3)
-	m, err := New(Config{Inputs: 8, Hidden: []int{16}, Latent: 2, Likelihood: GaussianLearned, Rate: 3e-3, Seed: 1})
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{16}, Latent: 2, Likelihood: vae.GaussianLearned, Seed: 1})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), normal, nil, train.Config{Epochs: 30})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, normal, nil, train.Settings{Epochs: 30, Optimizer: train.Optimizer{Rate: 3e-3}})
 	th, err := m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01})
 	require.NoError(t, err)
 	x := append([]float32(nil), test.X...)
@@ -52,7 +52,7 @@ func TestDensityScores(t *testing.T) {
 	// the threshold travels with the model file
 	p := filepath.Join(t.TempDir(), "v.qm")
 	require.NoError(t, m.Save(p, nil))
-	l, err := Load(p)
+	l, err := vae.Load(p)
 	require.NoError(t, err)
 	require.Equal(t, th, *l.Threshold)
 	again, err := l.Score(x, test.Rows, 2)

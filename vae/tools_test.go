@@ -1,21 +1,23 @@
-package vae
+package vae_test
 
 import (
 	"context"
 	"math"
 	"testing"
 
+	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/train"
+	"github.com/quernlab/quern/vae"
 	"github.com/stretchr/testify/require"
 )
 
-func smallModel(t testing.TB) (*Model, []float32) {
+func smallModel(t testing.TB) (*vae.Model, []float32) {
 	d := ppcaData(400, 8, 2, 0.5, 7, 1)
-	m, err := New(Config{Inputs: 8, Hidden: []int{16}, Latent: 3, Likelihood: GaussianLearned, Seed: 3})
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{16}, Latent: 3, Likelihood: vae.GaussianLearned, Seed: 3})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 3})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 3})
 	return m, d.X
 }
 
@@ -31,7 +33,7 @@ func TestLatentToolsAreDeterministic(t *testing.T) {
 	require.NotEqual(t, a, c)
 	require.Len(t, a, 40)
 
-	for _, p := range []Path{Lerp, Slerp} {
+	for _, p := range []vae.Path{vae.Lerp, vae.Slerp} {
 		path, err := m.Interpolate(x[:8], x[8:16], 5, p)
 		require.NoError(t, err)
 		require.Len(t, path, 40)
@@ -59,53 +61,37 @@ func TestLatentToolsAreDeterministic(t *testing.T) {
 // (closed form); lerp passes through the midpoint.
 func TestInterpolateLatentGeometry(t *testing.T) {
 	a, b := []float32{2, 0}, []float32{0, 2}
-	s, err := InterpolateLatent(a, b, 3, Slerp)
+	s, err := vae.InterpolateLatent(a, b, 3, vae.Slerp)
 	require.NoError(t, err)
 	require.InDelta(t, math.Sqrt2, s[2], 1e-6)
 	require.InDelta(t, math.Sqrt2, s[3], 1e-6)
-	l, err := InterpolateLatent(a, b, 3, Lerp)
+	l, err := vae.InterpolateLatent(a, b, 3, vae.Lerp)
 	require.NoError(t, err)
 	require.Equal(t, []float32{2, 0, 1, 1, 0, 2}, l)
-	_, err = InterpolateLatent(a, b, 1, Lerp)
+	_, err = vae.InterpolateLatent(a, b, 1, vae.Lerp)
 	require.Error(t, err)
-	_, err = InterpolateLatent(a, []float32{1}, 3, Lerp)
+	_, err = vae.InterpolateLatent(a, []float32{1}, 3, vae.Lerp)
 	require.Error(t, err)
 }
 
 func TestLogMeanExp(t *testing.T) {
-	require.InDelta(t, 1000+math.Log(2)-math.Log(3), LogMeanExp([]float64{1000, 1000, math.Inf(-1)}), 1e-12)
-	require.InDelta(t, -1000, LogMeanExp([]float64{-1000, -1000}), 1e-12)
-}
-
-// Schedules from their definitions: linear warm-up (Bowman et al. 2016)
-// and cyclical with ratio 0.5 (Fu et al. 2019).
-func TestBetaSchedules(t *testing.T) {
-	lin := BetaSchedule{Kind: Linear, Steps: 10}
-	require.Equal(t, 0.0, lin.Factor(0))
-	require.Equal(t, 0.5, lin.Factor(5))
-	require.Equal(t, 1.0, lin.Factor(50))
-	cyc := BetaSchedule{Kind: Cyclical, Steps: 10, Ratio: 0.5}
-	require.Equal(t, 0.0, cyc.Factor(0))
-	require.InDelta(t, 0.4, cyc.Factor(2), 1e-15)
-	require.Equal(t, 1.0, cyc.Factor(7))
-	require.Equal(t, 0.0, cyc.Factor(10))
-	require.InDelta(t, 0.8, cyc.Factor(14), 1e-15)
-	require.Equal(t, 1.0, BetaSchedule{Kind: Constant}.Factor(99))
+	require.InDelta(t, 1000+math.Log(2)-math.Log(3), vae.LogMeanExp([]float64{1000, 1000, math.Inf(-1)}), 1e-12)
+	require.InDelta(t, -1000, vae.LogMeanExp([]float64{-1000, -1000}), 1e-12)
 }
 
 // Free bits: when every dimension's KL is below the floor, the objective
 // charges exactly beta * Latent * floor for the KL term.
 func TestFreeBitsFloor(t *testing.T) {
 	d := ppcaData(64, 8, 2, 0.5, 8, 1)
-	m, err := New(Config{Inputs: 8, Hidden: []int{8}, Latent: 3, Likelihood: Gaussian, FreeBits: 50, Beta: 0.5, Precision: layers.Float64, Seed: 1})
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{8}, Latent: 3, Likelihood: vae.Gaussian, Precision: layers.Float64, Seed: 1})
 	require.NoError(t, err)
 	var first []train.Metric
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 1, BatchSize: 64, OnStep: func(p train.Progress) {
-		if first == nil {
-			first = append([]train.Metric(nil), p.Metrics...)
-		}
-	}})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 1, BatchSize: 64, Objective: train.Variational{FreeBits: 50, Beta: 0.5},
+		Callbacks: train.Callbacks{OnStep: func(p train.Progress) {
+			if first == nil {
+				first = append([]train.Metric(nil), p.Metrics...)
+			}
+		}}})
 	loss, rec, kl := first[0].Value, first[1].Value, first[2].Value
 	require.Less(t, kl, 3*50.0)
 	require.InDelta(t, rec+0.5*3*50, loss, 1e-9)
@@ -113,25 +99,27 @@ func TestFreeBitsFloor(t *testing.T) {
 
 func TestBernoulliNeedsUnitInterval(t *testing.T) {
 	d := ppcaData(20, 8, 2, 0.5, 9, 1)
-	m, err := New(Config{Inputs: 8, Latent: 2})
+	m, err := vae.New(vae.Config{Inputs: 8, Latent: 2})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 1})
+	tr, err := train.New(m, train.Settings{Epochs: 1})
+	require.NoError(t, err)
+	_, err = tr.Run(context.Background(), d, nil)
 	require.ErrorContains(t, err, "Bernoulli likelihood needs values in [0, 1]")
-	_, err = New(Config{Inputs: 8, Latent: 2, Scaling: "standard"})
-	require.ErrorIs(t, err, ErrConfig)
-	_, err = New(Config{Inputs: 8, Schedule: BetaSchedule{Kind: Linear}})
-	require.ErrorIs(t, err, ErrConfig)
+	_, err = vae.New(vae.Config{Inputs: 8, Latent: 2, Scaling: "standard"})
+	require.ErrorIs(t, err, vae.ErrConfig)
+	_, err = train.New(m, train.Settings{Objective: train.Variational{Schedule: train.BetaSchedule{Kind: train.BetaLinear}}})
+	require.ErrorIs(t, err, train.ErrConfig)
 }
 
 func TestKLAnnealingRaisesBeta(t *testing.T) {
 	d := ppcaData(100, 8, 2, 0.5, 10, 1)
-	m, err := New(Config{Inputs: 8, Latent: 2, Likelihood: Gaussian, Schedule: BetaSchedule{Kind: Linear, Steps: 8}, Seed: 1})
+	m, err := vae.New(vae.Config{Inputs: 8, Latent: 2, Likelihood: vae.Gaussian, Seed: 1})
 	require.NoError(t, err)
 	var betas []float64
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 3, BatchSize: 25, OnStep: func(p train.Progress) {
-		betas = append(betas, p.Metrics[3].Value)
-	}})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 3, BatchSize: 25, Objective: train.Variational{Schedule: train.BetaSchedule{Kind: train.BetaLinear, Steps: 8}},
+		Callbacks: train.Callbacks{OnStep: func(p train.Progress) {
+			betas = append(betas, p.Metrics[3].Value)
+		}}})
 	require.Equal(t, []float64{0, 0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875, 1, 1, 1, 1}, betas)
 }
 
@@ -159,7 +147,7 @@ func TestIntoVariants(t *testing.T) {
 		_, _ = m.SampleInto(smp, 6, 9)
 	}
 	run()
-	if !raceBuild { // the race detector's instrumentation allocates
+	if !testenv.RaceBuild { // the race detector's instrumentation allocates
 		require.Zero(t, testing.AllocsPerRun(50, run))
 	}
 }

@@ -1,66 +1,23 @@
-package vae
+package vae_test
 
 import (
-	"context"
 	"math"
 	"math/rand/v2"
 	"sort"
 	"testing"
 
 	"github.com/quernlab/quern/data"
-	"github.com/quernlab/quern/internal/engine"
+	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/quernlab/quern/optim"
 	"github.com/quernlab/quern/train"
+	"github.com/quernlab/quern/vae"
 	"github.com/stretchr/testify/require"
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/stat"
 )
-
-// Reparameterisation gradient: for f(z) = z^2 with z ~ N(mu, sigma^2),
-// E f = mu^2 + sigma^2, so dE/dmu = 2 mu and dE/dsigma = 2 sigma
-// (closed form). The Monte Carlo gradient through z = mu + sigma*eps, as
-// the training graph builds it, lies within 3 standard errors.
-func TestReparameterisationGradient(t *testing.T) {
-	const n = 4000
-	mu, sigma := 0.7, 1.3
-	pm := layers.NewParam("mu", 1, 1, layers.Float64)
-	plv := layers.NewParam("logvar", 1, 1, layers.Float64)
-	pm.F64()[0], plv.F64()[0] = mu, 2*math.Log(sigma)
-	g := engine.NewGraph(layers.Float64)
-	eps := g.Input("eps", n, 1)
-	ones := g.Input("ones", n, 1)
-	// broadcast the 1x1 parameters over n rows: ones * mu
-	m := g.Mul(ones, g.Sum(g.Param(pm)))
-	lv := g.Mul(ones, g.Sum(g.Param(plv)))
-	z := Reparameterise(g, m, lv, eps)
-	prog, err := g.Compile(g.Mean(g.Square(z)), engine.CompileOptions{Grad: true})
-	require.NoError(t, err)
-	defer prog.Close()
-	rng := rand.New(rand.NewPCG(1, 1))
-	e := prog.Input64("eps")
-	for i := range e {
-		e[i] = rng.NormFloat64()
-		prog.Input64("ones")[i] = 1
-	}
-	_, err = prog.Run(engine.RunOptions{})
-	require.NoError(t, err)
-	gMu := pm.Grad64()[0]
-	gSigma := plv.Grad64()[0] * 2 / sigma // d lv / d sigma = 2/sigma
-	// per-sample gradients for the standard errors
-	var smu, ssig []float64
-	for _, x := range e {
-		zz := mu + sigma*x
-		smu = append(smu, 2*zz)
-		ssig = append(ssig, 2*zz*x)
-	}
-	_, sdMu := stat.MeanStdDev(smu, nil)
-	_, sdSig := stat.MeanStdDev(ssig, nil)
-	t.Logf("d/dmu %.4f (exact %.4f, se %.4f); d/dsigma %.4f (exact %.4f, se %.4f)", gMu, 2*mu, sdMu/math.Sqrt(n), gSigma, 2*sigma, sdSig/math.Sqrt(n))
-	require.InDelta(t, 2*mu, gMu, 3*sdMu/math.Sqrt(n))
-	require.InDelta(t, 2*sigma, gSigma, 3*sdSig/math.Sqrt(n))
-}
 
 // ppcaData draws n rows from x = W z + mu + sigma*eps with z ~ N(0, I_q);
 // model seeds W and mu, sample seeds the draws.
@@ -137,11 +94,10 @@ func mean(v []float64) float64 {
 func TestLinearVAERecoversPPCA(t *testing.T) {
 	d := ppcaData(2000, 8, 2, 0.5, 3, 1)
 	want := ppcaMaxLogLik(d, 2)
-	m, err := New(Config{Inputs: 8, Hidden: []int{}, Latent: 4, Linear: true, Likelihood: GaussianShared,
-		Scaling: data.ScaleNone, Rate: 0.02, RateSchedule: optim.Cosine{Steps: 4000, Min: 0.01}, Precision: layers.Float64, Seed: 2})
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{}, Latent: 4, Linear: true, Likelihood: vae.GaussianShared,
+		Scaling: data.ScaleNone, Precision: layers.Float64, Seed: 2})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 200, BatchSize: 100})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 200, BatchSize: 100, Optimizer: train.Optimizer{Rate: 0.02, Schedule: optim.Cosine{Steps: 4000, Min: 0.01}}})
 	elbo, err := m.ELBO(d.X, d.Rows, 64, 9)
 	require.NoError(t, err)
 	got := mean(elbo)
@@ -159,7 +115,7 @@ func TestLinearVAERecoversPPCA(t *testing.T) {
 // independent unit-variance inputs have variances c_j^2 (1, 0.0025, 0), so
 // exactly one unit exceeds 0.01.
 func TestActiveUnitsByHand(t *testing.T) {
-	m, err := New(Config{Inputs: 3, Hidden: []int{}, Latent: 3, Linear: true, Likelihood: Gaussian, Scaling: data.ScaleNone, Precision: layers.Float64})
+	m, err := vae.New(vae.Config{Inputs: 3, Hidden: []int{}, Latent: 3, Linear: true, Likelihood: vae.Gaussian, Scaling: data.ScaleNone, Precision: layers.Float64})
 	require.NoError(t, err)
 	w := m.Encoder.Layers[0].W // 3 x 6: means then log-variances
 	clear(w.F64())
@@ -182,10 +138,9 @@ func TestActiveUnitsByHand(t *testing.T) {
 func TestBoundOrdering(t *testing.T) {
 	tr := ppcaData(1500, 8, 2, 0.5, 4, 1)
 	te := ppcaData(300, 8, 2, 0.5, 4, 2)
-	m, err := New(Config{Inputs: 8, Hidden: []int{16}, Latent: 2, Likelihood: GaussianLearned, Activation: layers.Tanh, Rate: 5e-3, Seed: 1})
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{16}, Latent: 2, Likelihood: vae.GaussianLearned, Activation: layers.Tanh, Seed: 1})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), tr, nil, train.Config{Epochs: 20, BatchSize: 50})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, tr, nil, train.Settings{Epochs: 20, BatchSize: 50, Optimizer: train.Optimizer{Rate: 5e-3}})
 	e, err := m.ELBO(te.X, te.Rows, 50, 1)
 	require.NoError(t, err)
 	i5, err := m.IWAE(te.X, te.Rows, 5, 2)
@@ -201,14 +156,11 @@ func TestBoundOrdering(t *testing.T) {
 // same posterior parameters.
 func TestReportedKLMatchesLosses(t *testing.T) {
 	d := ppcaData(300, 8, 2, 0.5, 6, 1)
-	m, err := New(Config{Inputs: 8, Hidden: []int{8}, Latent: 3, Likelihood: Gaussian, Seed: 1})
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{8}, Latent: 3, Likelihood: vae.Gaussian, Seed: 1})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 2})
-	require.NoError(t, err)
-	scaled, err := m.Scaler.Apply(d)
-	require.NoError(t, err)
-	ms, err := trainee{m}.Evaluate(scaled)
-	require.NoError(t, err)
+	// validation on the training rows: the figures of the final weights
+	h := trainenv.Fit(t, m, d, d, train.Settings{Epochs: 2})
+	ms := h.Epochs[1].Validation
 	require.Equal(t, "kl", ms[2].Name)
 	mu, lv, err := m.EncodeFull(d.X, d.Rows)
 	require.NoError(t, err)
@@ -229,10 +181,7 @@ func TestFashionMNISTBeatsFactorisedBernoulli(t *testing.T) {
 	if testing.Short() {
 		t.Skip("short mode")
 	}
-	tr, err := data.LoadIDX("../testdata/fashion-mnist/train-images-idx3-ubyte-first2000.gz", data.IDXConfig{})
-	require.NoError(t, err)
-	te, err := data.LoadIDX("../testdata/fashion-mnist/t10k-images-idx3-ubyte-first500.gz", data.IDXConfig{})
-	require.NoError(t, err)
+	tr, te := testenv.Fashion(t, "train"), testenv.Fashion(t, "t10k")
 	p := make([]float64, 784)
 	for i := 0; i < tr.Rows; i++ {
 		for j, v := range tr.Row(i) {
@@ -247,14 +196,13 @@ func TestFashionMNISTBeatsFactorisedBernoulli(t *testing.T) {
 		}
 	}
 	nll /= float64(te.Rows)
-	m, err := New(Config{Inputs: 784, Hidden: []int{400}, Latent: 20, Seed: 1})
+	m, err := vae.New(vae.Config{Inputs: 784, Hidden: []int{400}, Latent: 20, Seed: 1})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), tr, nil, train.Config{Epochs: 5, BatchSize: 100})
-	require.NoError(t, err)
+	trainenv.Fit(t, m, tr, nil, train.Settings{Epochs: 5, BatchSize: 100})
 	elbo, err := m.ELBO(te.X, te.Rows, 1, 1)
 	require.NoError(t, err)
 	negELBO := -mean(elbo)
-	t.Logf("test negative ELBO %.1f nats vs factorised Bernoulli NLL %.1f nats", negELBO, nll)
+	t.Logf("test negative ELBO %.1f nats vs factorised vae.Bernoulli NLL %.1f nats", negELBO, nll)
 	require.Less(t, negELBO, 0.85*nll)
 	// the importance-weighted bound on the first 200 test images
 	const k = 200

@@ -35,27 +35,23 @@ func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
 	fs.BoolVar(&d.grey, "grey", false, "read PNG images as one grey channel")
 }
 
-func (d *dataFlags) args() []string {
-	var a []string
-	add := func(k, v string) {
-		if v != "" {
-			a = append(a, "-"+k+"="+v)
-		}
-	}
-	add("data", d.path)
-	add("labels", d.labels)
-	add("label", d.label)
-	add("columns", d.columns)
-	if d.noHeader {
-		a = append(a, "-no-header")
-	}
-	if d.skip > 0 {
-		add("skip", strconv.Itoa(d.skip))
-	}
-	if d.grey {
-		a = append(a, "-grey")
-	}
-	return a
+// dataSpec is how the data were read, as recorded in model files.
+type dataSpec struct {
+	Path     string `json:"path"`
+	Labels   string `json:"labels,omitempty"`
+	Label    string `json:"label,omitempty"`
+	Columns  string `json:"columns,omitempty"`
+	NoHeader bool   `json:"no_header,omitempty"`
+	Skip     int    `json:"skip,omitempty"`
+	Grey     bool   `json:"grey,omitempty"`
+}
+
+func (d *dataFlags) spec() dataSpec {
+	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey}
+}
+
+func (s dataSpec) flags() dataFlags {
+	return dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey}
 }
 
 func splitList(s string) []string {

@@ -12,6 +12,7 @@ import (
 
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/demo/fleet"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/modelfile"
@@ -63,15 +64,20 @@ func cmdDemo(e *env, args []string) error {
 		return err
 	}
 	trainSet.Labels, calib.Labels = nil, nil
-	m, err := ae.New(ae.Config{Inputs: 6, Hidden: []int{32, 16}, Latent: 3, Activation: layers.Tanh, Rate: 3e-3, Seed: *seed})
+	m, err := ae.New(ae.Config{Inputs: 6, Hidden: []int{32, 16}, Latent: 3, Activation: layers.Tanh, Seed: *seed})
 	if err != nil {
 		return err
 	}
 	pr := newProgress(e.stderr, *quiet)
-	h, err := m.Train(context.Background(), trainSet, calib, train.Config{Epochs: epochs, BatchSize: 64, OnStep: pr.step, OnEpoch: func(p train.Progress, _ *train.History) error {
-		pr.epoch(p)
-		return nil
-	}})
+	t, err := train.New(m, train.Settings{Epochs: epochs, BatchSize: 64, Optimizer: train.Optimizer{Rate: 3e-3},
+		Callbacks: train.Callbacks{OnStep: pr.step, OnEpoch: func(p train.Progress, _ *train.History) error {
+			pr.epoch(p)
+			return nil
+		}}})
+	if err != nil {
+		return err
+	}
+	h, err := t.Run(context.Background(), trainSet, calib)
 	pr.done()
 	if err != nil {
 		return err
@@ -82,10 +88,13 @@ func cmdDemo(e *env, args []string) error {
 	}
 	say("Trained an autoencoder on %d healthy readings; threshold %.4g set on %d held-out healthy readings (expected false-alarm rate %.2f%%).",
 		trainSet.Rows, th.Value, calib.Rows, 100*th.ExpectedFalseAlarm)
-	prov := &modelfile.Provenance{DataFile: filepath.Join(*out, "history.csv"), DataFingerprint: history.Fingerprint(), DataRows: history.Rows,
-		Training: map[string]any{"demo": true, "epochs": epochs, "seed": *seed}}
+	prov := &modelfile.Provenance{DataFile: filepath.Join(*out, "history.csv"), DataFormat: string(data.FormatCSV), DataFingerprint: history.Fingerprint(), DataRows: history.Rows}
 	modelPath := filepath.Join(*out, "pumps.qm")
-	if err := m.Save(modelPath, prov); err != nil {
+	f, err := t.File(prov)
+	if err != nil {
+		return err
+	}
+	if err := modelfile.Write(modelPath, f); err != nil {
 		return err
 	}
 	scores, err := m.Score(holdout.X, holdout.Rows, 2)

@@ -13,7 +13,9 @@ import (
 	"testing"
 	"time"
 
+	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/modelfile"
 	"github.com/stretchr/testify/require"
 )
 
@@ -194,9 +196,69 @@ func TestResumeAfterCrashDuringSave(t *testing.T) {
 	b, err := os.ReadFile(filepath.Join(crashed, "m.qm"))
 	require.NoError(t, err)
 	require.True(t, bytes.Equal(a, b), "resumed model differs from the uninterrupted one")
-	r = quern(t, crashed, nil, "train", "-resume", "m.qm.ckpt", "-epochs", "9")
+	r = quern(t, crashed, nil, "train", "-resume", "m.qm.ckpt", "-batch", "9")
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, "cannot be changed")
+	// a run taken further: the checkpoint (epoch 6) resumed to 8 epochs
+	ok(t, quern(t, crashed, nil, "train", "-resume", "m.qm.ckpt", "-epochs", "8", "-out", "m8.qm", "-quiet"))
+	r = ok(t, quern(t, crashed, nil, "inspect", "m8.qm"))
+	require.Contains(t, r.stdout, "summary     8 epochs")
+}
+
+// A checkpoint written by the command line before the architecture change
+// (testdata/compat/cli-ae.ckpt: settings stored as command-line strings,
+// among them an output path in a temporary folder) resumes to the model of
+// the uninterrupted run, bitwise in every tensor, and writes where it is
+// told, not where the checkpoint says.
+func TestResumeOldCheckpoint(t *testing.T) {
+	dir := t.TempDir()
+	old, err := os.ReadFile(abs("../../testdata/compat/cli-ae.ckpt"))
+	require.NoError(t, err)
+	require.NoError(t, os.WriteFile(filepath.Join(dir, "old.ckpt"), old, 0o644))
+	r := quern(t, dir, nil, "train", "-resume", "old.ckpt", "-quiet")
+	require.Equal(t, 1, r.code, "the stored data path is relative to another folder")
+	require.Contains(t, r.stderr, "breast_cancer.csv")
+	ok(t, quern(t, dir, nil, "train", "-resume", "old.ckpt", "-data", bc, "-quiet"))
+	got, err := modelfile.Read(filepath.Join(dir, "old"), 0)
+	require.NoError(t, err)
+	want, err := modelfile.Read(abs("../../testdata/compat/cli-ae.qm"), 0)
+	require.NoError(t, err)
+	for _, w := range want.Tensors {
+		g, ok := got.Tensor(w.Name)
+		require.True(t, ok, w.Name)
+		require.Equal(t, w.F32, g.F32, w.Name)
+	}
+	var th struct{ Value float64 }
+	_, err = want.Section("threshold", &th)
+	require.NoError(t, err)
+	m, err := ae.FromFile(got)
+	require.NoError(t, err)
+	require.Equal(t, th.Value, m.Threshold.Value)
+}
+
+// No command writes over its own input, and a bad -out is found before
+// any training.
+func TestOutputNeverReplacesInput(t *testing.T) {
+	dir := t.TempDir()
+	data := filepath.Join(dir, "x.csv")
+	b, err := os.ReadFile(bc)
+	require.NoError(t, err)
+	require.NoError(t, os.WriteFile(data, b, 0o644))
+	for _, args := range [][]string{
+		{"train", "-data", data, "-no-header", "-skip", "1", "-out", data},
+		{"train", "-data", data, "-no-header", "-skip", "1", "-out", "m.qm", "-every", "1", "-checkpoint", "./x.csv"},
+		{"score", "-model", "m.qm", "-data", data, "-out", data},
+	} {
+		r := quern(t, dir, nil, args...)
+		require.Equal(t, 2, r.code, "%v: %s", args, r.stderr)
+		require.Contains(t, r.stderr, "the same file")
+	}
+	after, err := os.ReadFile(data)
+	require.NoError(t, err)
+	require.Equal(t, b, after)
+	r := quern(t, dir, nil, "train", "-data", data, "-no-header", "-skip", "1", "-out", filepath.Join(dir, "no", "such", "m.qm"))
+	require.Equal(t, 1, r.code)
+	require.Contains(t, r.stderr, "does not exist")
 }
 
 // A run killed by SIGKILL once its first checkpoint exists also resumes to

@@ -102,3 +102,12 @@ func (p *progress) done() {
 		p.drawn = false
 	}
 }
+
+// note prints a line of its own (a warning), clearing a drawn line first.
+func (p *progress) note(s string) {
+	if p.quiet {
+		return
+	}
+	p.done()
+	fmt.Fprintln(p.w, s)
+}

@@ -1,18 +1,18 @@
 package main
 
 import (
+	"encoding/json"
 	"fmt"
 	"os"
 	"path/filepath"
-	"strings"
+	"strconv"
 
-	"github.com/quernlab/quern/ae"
-
+	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/report"
 	"github.com/quernlab/quern/train"
-	"github.com/quernlab/quern/vae"
 )
 
 // firstRows returns up to n rows of d.
@@ -34,15 +34,16 @@ func scatter2(x []float32, rows, w int) []float32 {
 	return out
 }
 
-func writeTrainReport(o trainOpts, model trainable, h *train.History, full, val *data.Dataset) error {
-	dir := o.report
+// writeTrainReport writes the training report: the loss curves, then a
+// figure for each thing the model can do (scores of the validation rows,
+// codes, reconstructions, samples).
+func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord, h *train.History, full, val *data.Dataset) error {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return err
 	}
-	pg := report.Page{Title: fmt.Sprintf("quern %s training report", o.kind)}
-	for _, a := range o.args() {
-		k, v, _ := strings.Cut(strings.TrimPrefix(a, "-"), "=")
-		pg.Settings = append(pg.Settings, report.Setting{Name: k, Value: v})
+	pg := report.Page{Title: fmt.Sprintf("quern %s training report", m.Kind())}
+	for _, st := range reportSettings(s, rec) {
+		pg.Settings = append(pg.Settings, st)
 	}
 	add := func(file, caption string, err error) error {
 		if err != nil {
@@ -60,94 +61,89 @@ func writeTrainReport(o trainOpts, model trainable, h *train.History, full, val 
 	if full.Labels != nil {
 		labels = full.Labels[:n]
 	}
-	switch m := model.(type) {
-	case *ae.Model:
-		pg.Caution = ae.Caution
-		if val != nil && m.Threshold != nil {
-			s, err := m.RowErrors(val.X, val.Rows)
+	img := full.Image
+	if sc, ok := m.(model.Scorer); ok {
+		pg.Caution = anomaly.Caution
+		if th := sc.Calibrated(); val != nil && th != nil {
+			s, err := sc.RowScores(val.X, val.Rows)
 			if err != nil {
 				return err
 			}
-			if err := add("scores.png", fmt.Sprintf("Scores of the validation rows; the dashed line is the threshold (%s, expected false-alarm rate %.2f%%).", m.Threshold.Method, 100*m.Threshold.ExpectedFalseAlarm),
-				report.ScoreHistogram(filepath.Join(dir, "scores.png"), s, m.Threshold.Value, nil)); err != nil {
+			if err := add("scores.png", fmt.Sprintf("Scores of the validation rows; the dashed line is the threshold (%s, expected false-alarm rate %.2f%%).", th.Method, 100*th.ExpectedFalseAlarm),
+				report.ScoreHistogram(filepath.Join(dir, "scores.png"), s, th.Value, nil)); err != nil {
 				return err
 			}
 		}
-		codes, err := m.Encode(sample, n)
+	}
+	if enc, ok := m.(model.Encoder); ok {
+		codes, err := enc.Encode(sample, n)
 		if err != nil {
 			return err
 		}
 		if err := add("latent.png", "First two code dimensions of the training rows.",
-			report.LatentScatter(filepath.Join(dir, "latent.png"), scatter2(codes, n, m.Config().Latent), labels, nil)); err != nil {
+			report.LatentScatter(filepath.Join(dir, "latent.png"), scatter2(codes, n, enc.CodeWidth()), labels, nil)); err != nil {
 			return err
 		}
-		if img := full.Image; img != nil {
-			k := min(n, 16)
-			rec, err := m.Reconstruct(sample[:k*full.Cols], k)
-			if err != nil {
-				return err
-			}
-			both := append(append([]float32(nil), sample[:k*full.Cols]...), rec...)
-			if err := add("reconstructions.png", "Top: inputs; bottom: reconstructions.",
-				report.ImageGrid(filepath.Join(dir, "reconstructions.png"), both, img[0], img[1], img[2], k, 3)); err != nil {
-				return err
-			}
-		}
-	case *vae.Model:
-		codes, err := m.Encode(sample, n)
+	}
+	smp, canSample := m.(model.Sampler)
+	if canSample && img != nil {
+		s, err := smp.Sample(32, rec.SplitSeed)
 		if err != nil {
 			return err
 		}
-		if err := add("latent.png", "First two latent dimensions (posterior means) of the training rows.",
-			report.LatentScatter(filepath.Join(dir, "latent.png"), scatter2(codes, n, m.Config().Latent), labels, nil)); err != nil {
+		if err := add("samples.png", "Samples drawn from the model.",
+			report.ImageGrid(filepath.Join(dir, "samples.png"), s, img[0], img[1], img[2], 8, 3)); err != nil {
 			return err
 		}
-		if img := full.Image; img != nil {
-			s, err := m.Sample(32, o.seed)
-			if err != nil {
-				return err
-			}
-			if err := add("samples.png", "Samples from the prior (decoder means).",
-				report.ImageGrid(filepath.Join(dir, "samples.png"), s, img[0], img[1], img[2], 8, 3)); err != nil {
-				return err
-			}
-			k := min(n, 16)
-			rec, err := m.Reconstruct(sample[:k*full.Cols], k)
-			if err != nil {
-				return err
-			}
-			both := append(append([]float32(nil), sample[:k*full.Cols]...), rec...)
-			if err := add("reconstructions.png", "Top: inputs; bottom: reconstructions.",
-				report.ImageGrid(filepath.Join(dir, "reconstructions.png"), both, img[0], img[1], img[2], k, 3)); err != nil {
-				return err
-			}
-		}
-	case *gan.Model:
-		s, err := m.Generate(n, o.seed, -1)
+	}
+	if r, ok := m.(model.Reconstructor); ok && img != nil {
+		k := min(n, 16)
+		out, err := r.Reconstruct(sample[:k*full.Cols], k)
 		if err != nil {
 			return err
 		}
-		if img := full.Image; img != nil {
-			if err := add("samples.png", "Generated samples.",
-				report.ImageGrid(filepath.Join(dir, "samples.png"), s[:min(n, 32)*full.Cols], img[0], img[1], img[2], 8, 3)); err != nil {
-				return err
-			}
-		} else {
-			both := append(scatter2(sample, n, full.Cols), scatter2(s, n, full.Cols)...)
-			lab := make([]int, 2*n)
-			for i := n; i < 2*n; i++ {
-				lab[i] = 1
-			}
-			if err := add("samples.png", "First two columns: real rows and generated rows.",
-				report.LatentScatter(filepath.Join(dir, "samples.png"), both, lab, []string{"real", "generated"})); err != nil {
-				return err
-			}
+		both := append(append([]float32(nil), sample[:k*full.Cols]...), out...)
+		if err := add("reconstructions.png", "Top: inputs; bottom: reconstructions.",
+			report.ImageGrid(filepath.Join(dir, "reconstructions.png"), both, img[0], img[1], img[2], k, 3)); err != nil {
+			return err
 		}
-		fd, err := gan.FrechetRows(sample, n, s, n, full.Cols)
-		if err == nil {
+	}
+	if canSample && img == nil && n >= 2 {
+		s, err := smp.Sample(n, rec.SplitSeed)
+		if err != nil {
+			return err
+		}
+		both := append(scatter2(sample, n, full.Cols), scatter2(s, n, full.Cols)...)
+		lab := make([]int, 2*n)
+		for i := n; i < 2*n; i++ {
+			lab[i] = 1
+		}
+		if err := add("samples.png", "First two columns: real rows and generated rows.",
+			report.LatentScatter(filepath.Join(dir, "samples.png"), both, lab, []string{"real", "generated"})); err != nil {
+			return err
+		}
+		if fd, err := gan.FrechetRows(sample, n, s, n, full.Cols); err == nil {
 			pg.Paragraphs = append(pg.Paragraphs, fmt.Sprintf("Fréchet distance between Gaussians fitted to %d real and %d generated rows (raw columns): %.4g.", n, n, fd))
 		}
 	}
-
 	return pg.Write(dir)
+}
+
+// reportSettings lists the run's settings for the report page.
+func reportSettings(s train.Settings, rec runRecord) []report.Setting {
+	st := []report.Setting{
+		{Name: "data", Value: rec.Data.Path},
+		{Name: "validation fraction", Value: strconv.FormatFloat(rec.Validation, 'g', -1, 64)},
+		{Name: "seed (split)", Value: strconv.FormatUint(rec.SplitSeed, 10)},
+		{Name: "epochs", Value: strconv.Itoa(s.Epochs)},
+		{Name: "batch size", Value: strconv.Itoa(s.BatchSize)},
+		{Name: "learning rate", Value: strconv.FormatFloat(s.Optimizer.Rate, 'g', -1, 64)},
+	}
+	if s.Patience > 0 {
+		st = append(st, report.Setting{Name: "patience", Value: strconv.Itoa(s.Patience)})
+	}
+	if b, err := json.Marshal(s.Objective); err == nil && string(b) != "{}" {
+		st = append(st, report.Setting{Name: "objective", Value: string(b)})
+	}
+	return st
 }

@@ -10,6 +10,8 @@ import (
 	"syscall"
 	"time"
 
+	"github.com/quernlab/quern/anomaly"
+	qmodel "github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/serve"
 )
 
@@ -56,7 +58,9 @@ func cmdServe(e *env, args []string) error {
 			s.Reload() // logged; a bad file keeps the current model
 		}
 	}()
-	log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind)
-	fmt.Fprintf(e.stderr, "%s\n", "Scores are a decision aid, calibrated only for data like the training data.")
+	log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind())
+	if _, ok := s.Model().Model.(qmodel.Scorer); ok {
+		fmt.Fprintln(e.stderr, anomaly.Caution)
+	}
 	return s.Serve(ctx, ln)
 }

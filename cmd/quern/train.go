@@ -17,23 +17,13 @@ import (
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/train"
 	"github.com/quernlab/quern/vae"
 )
-
-// calibrator is a model whose anomaly threshold is set on the validation
-// rows after training (ae: reconstruction error; vae: negative ELBO).
-type calibrator interface {
-	Calibrate(x []float32, rows int, c anomaly.Config) (anomaly.Threshold, error)
-}
-
-// trainable is what ae, vae and gan models share for the command.
-type trainable interface {
-	Train(ctx context.Context, tr, va *data.Dataset, cfg train.Config) (*train.History, error)
-	File(prov *modelfile.Provenance, h *train.History) (*modelfile.File, error)
-}
 
 type trainOpts struct {
 	kind       string
@@ -71,20 +61,20 @@ type trainOpts struct {
 }
 
 func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
-	fs := newFlags(e, "train", "-kind ae|vae|gan -data FILE -out MODEL [flags]")
+	fs := newFlags(e, "train", "-kind ae|vae|gan -data FILE -out MODEL [flags]\n       quern train -resume CHECKPOINT [-out MODEL] [-data FILE] [-epochs N]")
 	fs.StringVar(&o.kind, "kind", "ae", "model kind: ae (autoencoder), vae (variational autoencoder) or gan")
 	o.data.register(fs, true)
-	fs.StringVar(&o.out, "out", "", "model file to write (required)")
+	fs.StringVar(&o.out, "out", "", "model file to write (required, except when resuming CHECKPOINT.ckpt)")
 	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: the model's)")
 	fs.IntVar(&o.latent, "latent", 0, "code / latent width (default: the model's)")
-	fs.IntVar(&o.epochs, "epochs", 20, "training epochs")
+	fs.IntVar(&o.epochs, "epochs", 20, "training epochs (when resuming: the run's new total)")
 	fs.IntVar(&o.batch, "batch", 64, "mini-batch size")
-	fs.Float64Var(&o.rate, "rate", 0, "learning rate (default: the model's)")
+	fs.Float64Var(&o.rate, "rate", 0, "learning rate (default: the model kind's)")
 	fs.Uint64Var(&o.seed, "seed", 1, "random seed: same seed, same data, same model")
-	fs.Float64Var(&o.val, "val", 0.1, "fraction of rows held out for validation (and, for ae, threshold calibration)")
+	fs.Float64Var(&o.val, "val", 0.1, "fraction of rows held out for validation (and, for ae and vae, threshold calibration)")
 	fs.IntVar(&o.patience, "patience", 0, "stop after this many epochs without validation improvement (0: never)")
 	fs.StringVar(&o.scaling, "scaling", "", "column scaling: standard, minmax or none (default: by kind and data)")
-	fs.StringVar(&o.activation, "activation", "", "hidden activation: relu, leaky_relu, elu, tanh, sigmoid, softplus")
+	fs.StringVar(&o.activation, "activation", "", "hidden activation: relu, leaky_relu, elu, tanh, sigmoid, softplus, identity")
 	fs.StringVar(&o.denoise, "denoise", "", "ae: corrupt inputs while training, KIND:LEVEL with KIND gaussian, masking or salt_pepper")
 	fs.StringVar(&o.sparsity, "sparsity", "", "ae: sparsity penalty l1:WEIGHT or kl:WEIGHT[:TARGET]")
 	fs.StringVar(&o.loss, "loss", "", "ae: reconstruction loss mse or bce (default: bce for images, else mse)")
@@ -101,11 +91,27 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.StringVar(&o.method, "threshold", "quantile", "ae, vae: threshold method: quantile (for -false-alarm) or max")
 	fs.StringVar(&o.checkpoint, "checkpoint", "", "checkpoint file (default: MODEL.ckpt when -every > 0)")
 	fs.IntVar(&o.every, "every", 0, "write a checkpoint every N epochs")
-	fs.StringVar(&o.resume, "resume", "", "resume from a checkpoint (uses the settings it was started with)")
+	fs.StringVar(&o.resume, "resume", "", "resume from a checkpoint, with the settings it was started with")
 	fs.StringVar(&o.report, "report", "", "folder for the PNG figures and HTML report")
 	fs.BoolVar(&o.quiet, "quiet", false, "no progress output")
 	return fs
 }
+
+// runRecord is the command line's own section of the files it writes:
+// how the data were read and split and how the threshold is set, so that
+// a resumed run does the same. Output paths are not recorded: a
+// checkpoint never decides where a resumed run writes.
+type runRecord struct {
+	Data       dataSpec `json:"data"`
+	Validation float64  `json:"validation"`
+	SplitSeed  uint64   `json:"split_seed"`
+	FalseAlarm float64  `json:"false_alarm"`
+	Threshold  string   `json:"threshold"`
+	Every      int      `json:"every,omitempty"`
+}
+
+// commandSection is the record's section name in model files.
+const commandSection = "command"
 
 func cmdTrain(e *env, args []string) error {
 	var o trainOpts
@@ -113,40 +119,10 @@ func cmdTrain(e *env, args []string) error {
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	var ckpt *modelfile.File
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
 	if o.resume != "" {
-		allowed := map[string]bool{"resume": true, "quiet": true, "report": true, "out": true}
-		var bad []string
-		fs.Visit(func(f *flag.Flag) {
-			if !allowed[f.Name] {
-				bad = append(bad, "-"+f.Name)
-			}
-		})
-		if len(bad) > 0 {
-			return usagef("%s cannot be changed when resuming (the checkpoint keeps the original settings)", strings.Join(bad, ", "))
-		}
-		f, err := modelfile.Read(o.resume, 0)
-		if err != nil {
-			return err
-		}
-		ckpt = f
-		stored, err := storedArgs(f)
-		if err != nil {
-			return err
-		}
-		keep := o
-		o = trainOpts{}
-		fs2 := trainFlags(e, &o)
-		if _, err := parse(e, fs2, stored, 0); err != nil {
-			return fmt.Errorf("checkpoint settings: %w", err)
-		}
-		o.resume, o.quiet = keep.resume, keep.quiet
-		if keep.report != "" {
-			o.report = keep.report
-		}
-		if keep.out != "" {
-			o.out = keep.out
-		}
+		return resumeTrain(e, o, set)
 	}
 	if o.out == "" {
 		return usagef("-out is required")
@@ -154,63 +130,177 @@ func cmdTrain(e *env, args []string) error {
 	if o.kind != ae.Kind && o.kind != vae.Kind && o.kind != gan.Kind {
 		return usagef("-kind must be ae, vae or gan, not %q", o.kind)
 	}
-	if o.epochs <= 0 || o.batch <= 0 || o.val < 0 || o.val >= 1 || o.every < 0 || o.patience < 0 {
-		return usagef("epochs and batch must be positive, -val in [0, 1), -every and -patience not negative")
+	if err := o.checkNumbers(); err != nil {
+		return err
 	}
 	if o.every > 0 && o.checkpoint == "" {
 		o.checkpoint = o.out + ".ckpt"
+	}
+	if err := distinctPaths(map[string]string{"-data": o.data.path, "-out": o.out, "-checkpoint": o.checkpoint}); err != nil {
+		return err
+	}
+	if err := writable(o.out, "-out"); err != nil {
+		return err
 	}
 	full, format, err := o.data.load()
 	if err != nil {
 		return err
 	}
-	prov := &modelfile.Provenance{DataFile: o.data.path, DataFingerprint: full.Fingerprint(), DataRows: full.Rows,
-		Training: map[string]any{"args": o.args(), "format": string(format)}}
-	if ckpt != nil {
-		if err := checkFingerprint(ckpt, prov.DataFingerprint); err != nil {
-			return err
+	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Every: o.every}
+	m, obj, err := o.build(full)
+	if err != nil {
+		return err
+	}
+	s := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Optimizer: train.Optimizer{Rate: o.rate}, Objective: obj}
+	if s.Patience > 0 && o.val == 0 {
+		return usagef("-patience needs a validation split (-val > 0)")
+	}
+	t, err := train.New(m, s)
+	if err != nil {
+		return usageError{err.Error()}
+	}
+	return runTraining(e, t, full, format, rec, o.out, o.checkpoint, o.report, o.quiet)
+}
+
+func (o *trainOpts) checkNumbers() error {
+	switch {
+	case o.epochs <= 0:
+		return usagef("-epochs %d: want at least 1", o.epochs)
+	case o.batch <= 0:
+		return usagef("-batch %d: want at least 1", o.batch)
+	case o.val < 0 || o.val >= 1:
+		return usagef("-val %v: want a fraction in [0, 1)", o.val)
+	case o.every < 0:
+		return usagef("-every %d: want 0 (no checkpoints) or more", o.every)
+	case o.patience < 0:
+		return usagef("-patience %d: want 0 (no early stopping) or more", o.patience)
+	}
+	return nil
+}
+
+// resumeTrain continues a run from its checkpoint.
+func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
+	allowed := map[string]bool{"resume": true, "quiet": true, "report": true, "out": true, "data": true, "epochs": true}
+	var bad []string
+	for name := range set {
+		if !allowed[name] {
+			bad = append(bad, "-"+name)
 		}
 	}
+	if len(bad) > 0 {
+		return usagef("%s cannot be changed when resuming (the checkpoint keeps the run's settings; -out, -data, -epochs, -report and -quiet may be given)", strings.Join(bad, ", "))
+	}
+	if !set["out"] {
+		base, ok := strings.CutSuffix(o.resume, ".ckpt")
+		if !ok || base == "" {
+			return usagef("-out is required when the checkpoint's name does not end in .ckpt")
+		}
+		o.out = base
+	}
+	f, err := modelfile.Read(o.resume, 0)
+	if err != nil {
+		return err
+	}
+	var rec runRecord
+	var override *train.Settings
+	ok, err := f.Section(commandSection, &rec)
+	if err != nil {
+		return err
+	}
+	if !ok {
+		// a checkpoint of an older quern: its settings are command-line
+		// strings, read here for the data, the split and the threshold
+		// only (never for where to write)
+		legacy, err := legacyRun(e, f)
+		if err != nil {
+			return err
+		}
+		rec = legacy.rec
+		override = &legacy.settings
+	}
+	if set["epochs"] {
+		if o.epochs <= 0 {
+			return usagef("-epochs %d: want at least 1", o.epochs)
+		}
+		if override == nil {
+			override = &train.Settings{}
+		}
+		override.Epochs = o.epochs
+	}
+	t, err := train.Resume(f, override)
+	if err != nil {
+		return err
+	}
+	d := rec.Data.flags()
+	if set["data"] {
+		d.path = o.data.path
+	}
+	if err := distinctPaths(map[string]string{"-data": d.path, "-out": o.out, "-resume": o.resume}); err != nil {
+		return err
+	}
+	if err := writable(o.out, "-out"); err != nil {
+		return err
+	}
+	full, format, err := d.load()
+	if err != nil {
+		return err
+	}
+	if prov, err := modelfile.ProvenanceOf(f); err == nil && prov != nil && prov.DataFingerprint != "" && prov.DataFingerprint != full.Fingerprint() {
+		return fmt.Errorf("%s differs from the data the checkpoint was trained on (fingerprint %.12s..., now %.12s...)", d.path, prov.DataFingerprint, full.Fingerprint())
+	}
+	checkpoint := ""
+	if rec.Every > 0 {
+		checkpoint = o.resume
+	}
+	return runTraining(e, t, full, format, rec, o.out, checkpoint, o.report, o.quiet)
+}
+
+// runTraining splits the data, trains (writing checkpoints), calibrates
+// the threshold of a model that has one, and writes the model file and
+// the report.
+func runTraining(e *env, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report string, quiet bool) error {
+	prov := &modelfile.Provenance{DataFile: rec.Data.Path, DataFormat: string(format), DataFingerprint: full.Fingerprint(), DataRows: full.Rows}
 	trainSet, valSet := full, (*data.Dataset)(nil)
-	if o.val > 0 {
-		trainSet, valSet, err = full.Split(o.val, rand.New(rand.NewPCG(o.seed, 7)))
+	if rec.Validation > 0 {
+		var err error
+		trainSet, valSet, err = full.Split(rec.Validation, rand.New(rand.NewPCG(rec.SplitSeed, stream.Split)))
 		if err != nil {
 			return err
 		}
 	}
-	var model trainable
-	var start *train.History
-	if ckpt != nil {
-		model, start, err = fromCheckpoint(ckpt)
-	} else {
-		model, err = o.build(full)
+	if t.Settings().Patience > 0 && valSet == nil {
+		return usagef("-patience needs a validation split (-val > 0)")
 	}
-	if err != nil {
-		return err
-	}
-	pr := newProgress(e.stderr, o.quiet)
-	tc := train.Config{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Start: start, OnStep: pr.step}
+	pr := newProgress(e.stderr, quiet)
+	var s train.Callbacks
 	saves := 0
-	tc.OnEpoch = func(p train.Progress, h *train.History) error {
+	s.OnStep = pr.step
+	s.OnEpoch = func(p train.Progress, h *train.History) error {
 		pr.epoch(p)
-		if o.every > 0 && p.Epoch%o.every == 0 {
-			f, err := model.File(prov, h)
+		if rec.Every > 0 && checkpoint != "" && p.Epoch%rec.Every == 0 {
+			f, err := t.Checkpoint(prov)
+			if err == nil {
+				err = f.SetSection(commandSection, rec)
+			}
 			if err != nil {
 				return err
 			}
 			saves++
-			if err := writeCheckpoint(o.checkpoint, f, saves); err != nil {
+			if err := writeCheckpoint(checkpoint, f, saves); err != nil {
 				return fmt.Errorf("checkpoint: %w", err)
 			}
 		}
 		return nil
 	}
-	if o.patience > 0 && valSet == nil {
-		return usagef("-patience needs a validation split (-val > 0)")
+	s.OnWarning = func(w train.Warning) {
+		if !quiet {
+			pr.note(fmt.Sprintf("warning at step %d: %s", w.Step, w.Message))
+		}
 	}
+	t.SetCallbacks(s)
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	h, err := model.Train(ctx, trainSet, valSet, tc)
+	h, err := t.Run(ctx, trainSet, valSet)
 	pr.done()
 	if err != nil {
 		if errors.Is(err, context.Canceled) {
@@ -218,111 +308,77 @@ func cmdTrain(e *env, args []string) error {
 		}
 		return err
 	}
-	if m, ok := model.(calibrator); ok && valSet != nil {
-		th, err := m.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm})
-		if err != nil && o.method == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
-			if !o.quiet {
+	m := t.Model().(model.Model)
+	if c, ok := m.(model.Calibrator); ok && valSet != nil {
+		th, err := c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(rec.Threshold), FalseAlarm: rec.FalseAlarm})
+		if err != nil && rec.Threshold == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
+			if !quiet {
 				fmt.Fprintf(e.stderr, "%v; using the largest validation score instead\n", err)
 			}
-			th, err = m.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
+			th, err = c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
 		}
 		if err != nil {
 			fmt.Fprintf(e.stderr, "no threshold set: %v\n", err)
-		} else if !o.quiet {
+		} else if !quiet {
 			fmt.Fprintf(e.stderr, "threshold %.6g (%s), expected false-alarm rate %.2f%% on data like the validation rows\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm)
 		}
 	}
-	tl, vl := h.Loss(len(h.Epochs))
-	prov.Training["epochs_run"] = len(h.Epochs)
-	prov.Training["final_train_loss"] = tl
-	if valSet != nil {
-		prov.Training["final_validation_loss"] = vl
-		prov.Training["validation_rows"] = valSet.Rows
+	f, err := t.File(prov)
+	if err == nil {
+		err = f.SetSection(commandSection, rec)
 	}
-	prov.Training["best_epoch"] = h.BestEpoch
-	prov.Training["stopped_early"] = h.StoppedEarly
-	f, err := model.File(prov, nil)
 	if err != nil {
 		return err
 	}
-	if err := modelfile.Write(o.out, f); err != nil {
+	if err := modelfile.Write(out, f); err != nil {
 		return err
 	}
-	if !o.quiet {
-		fmt.Fprintf(e.stderr, "wrote %s: %s model, %d epochs, final training loss %.6g", o.out, o.kind, len(h.Epochs), tl)
+	if !quiet {
+		tl, vl := h.Loss(len(h.Epochs))
+		fmt.Fprintf(e.stderr, "wrote %s: %s model, %d epochs, final training loss %.6g", out, m.Kind(), len(h.Epochs), tl)
 		if valSet != nil {
 			fmt.Fprintf(e.stderr, ", validation loss %.6g (best epoch %d)", vl, h.BestEpoch)
 		}
 		fmt.Fprintln(e.stderr)
 	}
-	if o.report != "" {
-		if err := writeTrainReport(o, model, h, full, valSet); err != nil {
+	if report != "" {
+		if err := writeTrainReport(report, m, t.Settings(), rec, h, full, valSet); err != nil {
 			return err
 		}
-		if !o.quiet {
-			fmt.Fprintf(e.stderr, "report: %s\n", filepath.Join(o.report, "index.html"))
+		if !quiet {
+			fmt.Fprintf(e.stderr, "report: %s\n", filepath.Join(report, "index.html"))
 		}
 	}
 	return nil
 }
 
-// args are the settings stored in checkpoints and model files, enough to
-// repeat the run.
-func (o *trainOpts) args() []string {
-	a := []string{"-kind=" + o.kind}
-	a = append(a, o.data.args()...)
-	a = append(a, "-out="+o.out, "-epochs="+strconv.Itoa(o.epochs), "-batch="+strconv.Itoa(o.batch),
-		"-seed="+strconv.FormatUint(o.seed, 10), "-val="+strconv.FormatFloat(o.val, 'g', -1, 64))
-	add := func(k, v string, set bool) {
-		if set {
-			a = append(a, "-"+k+"="+v)
-		}
-	}
-	ff := func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
-	add("hidden", o.hidden, o.hidden != "")
-	add("latent", strconv.Itoa(o.latent), o.latent != 0)
-	add("rate", ff(o.rate), o.rate != 0)
-	add("patience", strconv.Itoa(o.patience), o.patience != 0)
-	add("scaling", o.scaling, o.scaling != "")
-	add("activation", o.activation, o.activation != "")
-	add("denoise", o.denoise, o.denoise != "")
-	add("sparsity", o.sparsity, o.sparsity != "")
-	add("loss", o.loss, o.loss != "")
-	add("supervised", "true", o.supervised)
-	add("likelihood", o.likelihood, o.likelihood != "")
-	add("beta", ff(o.beta), o.beta != 0)
-	add("warmup", strconv.Itoa(o.warmup), o.warmup != 0)
-	add("free-bits", ff(o.freeBits), o.freeBits != 0)
-	add("noise-dim", strconv.Itoa(o.noiseDim), o.noiseDim != 0)
-	add("disc-steps", strconv.Itoa(o.discSteps), o.discSteps != 0)
-	add("pack", strconv.Itoa(o.pack), o.pack != 0)
-	add("conditional", "true", o.cond)
-	add("false-alarm", ff(o.falseAlarm), true)
-	add("threshold", o.method, true)
-	add("checkpoint", o.checkpoint, o.checkpoint != "")
-	add("every", strconv.Itoa(o.every), o.every != 0)
-	return a
-}
-
-func (o *trainOpts) build(d *data.Dataset) (trainable, error) {
+// build makes the model the flags describe and its objective.
+func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error) {
 	hidden, err := parseInts(o.hidden, "hidden")
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	if o.hidden == "" {
 		hidden = nil
 	}
 	var act layers.Activation
 	if o.activation != "" {
-		if act, err = layers.ParseActivation(o.activation); err != nil {
-			return nil, usagef("-activation: %v", err)
+		if act, err = layers.ParseActivation(o.activation); err != nil || act == layers.Default {
+			return nil, nil, usagef("-activation: unknown activation %q (want relu, leaky_relu, elu, tanh, sigmoid, softplus or identity)", o.activation)
 		}
 	}
 	image := d.Image != nil
 	scaling := data.ScaleKind(o.scaling)
+	usage := func(m train.Model, obj train.Objective, err error) (train.Model, train.Objective, error) {
+		if err != nil {
+			return nil, nil, usageError{err.Error()}
+		}
+		return m, obj, nil
+	}
 	switch o.kind {
 	case ae.Kind:
-		c := ae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Rate: o.rate, Scaling: scaling, Seed: o.seed, Loss: ae.Reconstruction(o.loss)}
+		c := ae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Scaling: scaling, Seed: o.seed, Loss: ae.Reconstruction(o.loss)}
+		var obj train.Reconstruction
 		if image {
 			if c.Loss == "" {
 				c.Loss = ae.BCE
@@ -335,54 +391,49 @@ func (o *trainOpts) build(d *data.Dataset) (trainable, error) {
 			k, lv, ok := strings.Cut(o.denoise, ":")
 			l, err := strconv.ParseFloat(lv, 64)
 			if !ok || err != nil {
-				return nil, usagef("-denoise wants KIND:LEVEL, got %q", o.denoise)
+				return nil, nil, usagef("-denoise wants KIND:LEVEL, got %q", o.denoise)
 			}
-			c.Noise = ae.Corruption{Kind: ae.NoiseKind(k), Level: l}
+			obj.Noise = train.Corruption{Kind: train.NoiseKind(k), Level: l}
 		}
 		if o.sparsity != "" {
 			parts := strings.Split(o.sparsity, ":")
 			if len(parts) < 2 {
-				return nil, usagef("-sparsity wants l1:WEIGHT or kl:WEIGHT[:TARGET]")
+				return nil, nil, usagef("-sparsity wants l1:WEIGHT or kl:WEIGHT[:TARGET]")
 			}
 			w, err := strconv.ParseFloat(parts[1], 64)
 			if err != nil {
-				return nil, usagef("-sparsity weight %q", parts[1])
+				return nil, nil, usagef("-sparsity weight %q", parts[1])
 			}
-			c.Sparsity = ae.Sparsity{Kind: ae.SparsityKind(parts[0]), Weight: w}
+			obj.Sparsity = train.Sparsity{Kind: train.SparsityKind(parts[0]), Weight: w}
 			if len(parts) > 2 {
-				if c.Sparsity.Target, err = strconv.ParseFloat(parts[2], 64); err != nil {
-					return nil, usagef("-sparsity target %q", parts[2])
+				if obj.Sparsity.Target, err = strconv.ParseFloat(parts[2], 64); err != nil {
+					return nil, nil, usagef("-sparsity target %q", parts[2])
 				}
 			}
-			if c.Sparsity.Kind == ae.KLSparsity {
+			if obj.Sparsity.Kind == train.KLSparsity {
 				c.CodeActivation = layers.Sigmoid
 			}
 		}
 		if o.supervised {
 			if d.Labels == nil {
-				return nil, usagef("-supervised needs labels (-label or -labels)")
+				return nil, nil, usagef("-supervised needs labels (-label or -labels)")
 			}
 			c.Classes = max(2, d.Classes())
 		}
 		m, err := ae.New(c)
-		if err != nil {
-			return nil, usageError{err.Error()}
-		}
-		return m, nil
+		return usage(m, obj, err)
 	case vae.Kind:
-		c := vae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Rate: o.rate, Scaling: scaling, Seed: o.seed,
-			Likelihood: vae.Likelihood(o.likelihood), Beta: o.beta, FreeBits: o.freeBits}
+		c := vae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Scaling: scaling, Seed: o.seed,
+			Likelihood: vae.Likelihood(o.likelihood)}
+		obj := train.Variational{Beta: o.beta, FreeBits: o.freeBits}
 		if o.warmup > 0 {
-			c.Schedule = vae.BetaSchedule{Kind: vae.Linear, Steps: o.warmup}
+			obj.Schedule = train.BetaSchedule{Kind: train.BetaLinear, Steps: o.warmup}
 		}
 		m, err := vae.New(c)
-		if err != nil {
-			return nil, usageError{err.Error()}
-		}
-		return m, nil
+		return usage(m, obj, err)
 	default:
-		c := gan.Config{Outputs: d.Cols, Noise: o.noiseDim, GenHidden: hidden, DiscHidden: hidden, Activation: act, Scaling: scaling, Seed: o.seed,
-			GenRate: o.rate, DiscRate: o.rate, DiscSteps: o.discSteps, Pack: o.pack}
+		c := gan.Config{Outputs: d.Cols, Noise: o.noiseDim, GenHidden: hidden, DiscHidden: hidden, Activation: act, Scaling: scaling, Seed: o.seed, Pack: o.pack}
+		obj := train.Adversarial{DiscSteps: o.discSteps}
 		if image {
 			c.GenOutput = layers.Sigmoid
 			if c.Scaling == "" {
@@ -391,79 +442,100 @@ func (o *trainOpts) build(d *data.Dataset) (trainable, error) {
 		}
 		if o.cond {
 			if d.Labels == nil {
-				return nil, usagef("-conditional needs labels (-label or -labels)")
+				return nil, nil, usagef("-conditional needs labels (-label or -labels)")
 			}
 			c.Classes = max(2, d.Classes())
 		}
 		m, err := gan.New(c)
-		if err != nil {
-			return nil, usageError{err.Error()}
-		}
-		return m, nil
+		return usage(m, obj, err)
 	}
 }
 
-func storedArgs(f *modelfile.File) ([]string, error) {
-	prov, err := provenanceOf(f)
-	if err != nil {
-		return nil, err
-	}
-	if prov == nil || prov.Training == nil {
-		return nil, fmt.Errorf("%s holds no training settings to resume with", f.Kind)
-	}
-	raw, ok := prov.Training["args"].([]any)
-	if !ok {
-		return nil, fmt.Errorf("checkpoint holds no training settings")
-	}
-	var args []string
-	for _, v := range raw {
-		s, ok := v.(string)
-		if !ok {
-			return nil, fmt.Errorf("checkpoint settings are malformed")
-		}
-		args = append(args, s)
-	}
-	return args, nil
+// legacy is what a checkpoint of an older quern says in its command-line
+// strings.
+type legacy struct {
+	rec      runRecord
+	settings train.Settings
 }
 
-func checkFingerprint(f *modelfile.File, fp string) error {
-	prov, err := provenanceOf(f)
-	if err != nil {
-		return err
+// legacyRun reads the settings an older quern stored as command-line
+// strings: the data, the split and the threshold, and the epochs, batch
+// size and patience. Output and checkpoint paths in them are ignored.
+func legacyRun(e *env, f *modelfile.File) (legacy, error) {
+	var p struct {
+		Training struct {
+			Args []string `json:"args"`
+		} `json:"training"`
 	}
-	if prov != nil && prov.DataFingerprint != "" && prov.DataFingerprint != fp {
-		return fmt.Errorf("the data differs from the data the checkpoint was trained on (fingerprint %.12s..., now %.12s...)", prov.DataFingerprint, fp)
+	ok, err := f.Section("provenance", &p)
+	if err != nil {
+		return legacy{}, err
+	}
+	if !ok || p.Training.Args == nil {
+		return legacy{}, fmt.Errorf("the checkpoint holds no settings to resume with")
+	}
+	var o trainOpts
+	fs := trainFlags(e, &o)
+	if _, err := parse(e, fs, p.Training.Args, 0); err != nil {
+		return legacy{}, fmt.Errorf("the checkpoint's settings: %w", err)
+	}
+	return legacy{
+		rec:      runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Every: o.every},
+		settings: train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience},
+	}, nil
+}
+
+// distinctPaths refuses two flags that name one file: no command writes
+// over its own input.
+func distinctPaths(paths map[string]string) error {
+	names := make([]string, 0, len(paths))
+	for n, p := range paths {
+		if p != "" && p != "-" {
+			names = append(names, n)
+		}
+	}
+	for i, a := range names {
+		for _, b := range names[i+1:] {
+			if sameFile(paths[a], paths[b]) {
+				return usagef("%s and %s name the same file %s", a, b, paths[a])
+			}
+		}
 	}
 	return nil
 }
 
-func fromCheckpoint(f *modelfile.File) (trainable, *train.History, error) {
-	var h *train.History
-	var err error
-	var m trainable
-	switch f.Kind {
-	case ae.Kind:
-		var x *ae.Model
-		x, h, _, err = ae.FromFile(f)
-		m = x
-	case vae.Kind:
-		var x *vae.Model
-		x, h, _, err = vae.FromFile(f)
-		m = x
-	case gan.Kind:
-		var x *gan.Model
-		x, h, _, err = gan.FromFile(f)
-		m = x
-	default:
-		return nil, nil, fmt.Errorf("unknown model kind %q", f.Kind)
+func sameFile(a, b string) bool {
+	if filepath.Clean(a) == filepath.Clean(b) {
+		return true
 	}
+	sa, errA := os.Stat(a)
+	sb, errB := os.Stat(b)
+	if errA == nil && errB == nil {
+		return os.SameFile(sa, sb)
+	}
+	aa, errA := filepath.Abs(a)
+	bb, errB := filepath.Abs(b)
+	return errA == nil && errB == nil && aa == bb
+}
+
+// writable checks before any work that path's folder exists and takes
+// files, so that a bad -out is found before training, not after.
+func writable(path, flagName string) error {
+	dir := filepath.Dir(path)
+	st, err := os.Stat(dir)
 	if err != nil {
-		return nil, nil, err
+		return fmt.Errorf("%s %s: the folder %s does not exist", flagName, path, dir)
 	}
-	if h == nil {
-		return nil, nil, fmt.Errorf("this is a model file, not a checkpoint: it has no training state")
+	if !st.IsDir() {
+		return fmt.Errorf("%s %s: %s is not a folder", flagName, path, dir)
 	}
-	return m, h, nil
+	tmp, err := os.CreateTemp(dir, ".quern-write-check-*")
+	if err != nil {
+		return fmt.Errorf("%s %s: cannot write in %s", flagName, path, dir)
+	}
+	tmp.Close()
+	os.Remove(tmp.Name())
+	return nil
 }
 
 // writeCheckpoint saves atomically. For the crash tests only: with

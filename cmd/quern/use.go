@@ -2,33 +2,32 @@ package main
 
 import (
 	"bufio"
+	"bytes"
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"sort"
 	"strconv"
 	"strings"
 
-	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
-	"github.com/quernlab/quern/gan"
-	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/report"
+	"github.com/quernlab/quern/train"
 	"github.com/quernlab/quern/vae"
 )
 
 // loaded is a model read from a file, whichever its kind.
 type loaded struct {
-	file *modelfile.File
-	ae   *ae.Model
-	vae  *vae.Model
-	gan  *gan.Model
-	prov *modelfile.Provenance
+	path  string
+	file  *modelfile.File
+	model model.Model
 }
 
 func loadModel(path string) (*loaded, error) {
@@ -39,28 +38,22 @@ func loadModel(path string) (*loaded, error) {
 	if err != nil {
 		return nil, err
 	}
-	l := &loaded{file: f}
-	switch f.Kind {
-	case ae.Kind:
-		l.ae, _, l.prov, err = ae.FromFile(f)
-	case vae.Kind:
-		l.vae, _, l.prov, err = vae.FromFile(f)
-	case gan.Kind:
-		l.gan, _, l.prov, err = gan.FromFile(f)
-	default:
-		err = fmt.Errorf("%s holds an unknown model kind %q", path, f.Kind)
+	m, err := model.FromFile(f)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
 	}
-	return l, err
+	return &loaded{path: path, file: f, model: m}, nil
 }
 
-func provenanceOf(f *modelfile.File) (*modelfile.Provenance, error) {
-	var m struct {
-		Provenance *modelfile.Provenance `json:"provenance"`
-	}
-	if err := json.Unmarshal(f.Meta, &m); err != nil {
-		return nil, fmt.Errorf("model metadata: %w", err)
-	}
-	return m.Provenance, nil
+// cannot is the error for a model without a capability a command needs.
+func (l *loaded) cannot(command, needs string) error {
+	return fmt.Errorf("%s needs %s; %s holds a model of kind %q", command, needs, l.path, l.model.Kind())
+}
+
+// loadRows loads the data flags' rows for the model: by its column names
+// where the file has a header.
+func (l *loaded) loadRows(d *dataFlags) (*data.Dataset, error) {
+	return d.loadFor(l.model.Schema().Columns, l.model.Width())
 }
 
 // output opens path for writing ("-" or empty: standard output).
@@ -109,7 +102,7 @@ func names(prefix string, n int) []string {
 
 func cmdScore(e *env, args []string) error {
 	fs := newFlags(e, "score", "-model MODEL -data FILE.csv [-out SCORES.csv]")
-	model := fs.String("model", "", "autoencoder (reconstruction error) or VAE (negative ELBO) model file with a threshold (required)")
+	modelPath := fs.String("model", "", "model file with anomaly scores and a threshold: an autoencoder (reconstruction error) or a VAE (negative ELBO) (required)")
 	var d dataFlags
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
@@ -117,32 +110,26 @@ func cmdScore(e *env, args []string) error {
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	l, err := loadModel(*model)
+	if err := distinctPaths(map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath}); err != nil {
+		return err
+	}
+	l, err := loadModel(*modelPath)
 	if err != nil {
 		return err
 	}
-	var (
-		th      *anomaly.Threshold
-		columns []string
-		inputs  int
-		score   func(x []float32, rows, top int) ([]anomaly.Score, error)
-	)
-	switch {
-	case l.ae != nil:
-		th, columns, inputs, score = l.ae.Threshold, l.ae.Columns, l.ae.Config().Inputs, l.ae.Score
-	case l.vae != nil:
-		th, columns, inputs, score = l.vae.Threshold, l.vae.Columns, l.vae.Config().Inputs, l.vae.Score
-	default:
-		return fmt.Errorf("score needs an autoencoder or VAE model; %s holds a %s", *model, l.file.Kind)
+	sc, ok := l.model.(model.Scorer)
+	if !ok {
+		return l.cannot("score", "a model with anomaly scores (an autoencoder or a VAE)")
 	}
+	th := sc.Calibrated()
 	if th == nil {
-		return fmt.Errorf("%s has no threshold (train it with -val > 0)", *model)
+		return fmt.Errorf("%s has no threshold (train it with -val > 0)", *modelPath)
 	}
-	ds, err := d.loadFor(columns, inputs)
+	ds, err := l.loadRows(&d)
 	if err != nil {
 		return err
 	}
-	scores, err := score(ds.X, ds.Rows, *top)
+	scores, err := sc.Score(ds.X, ds.Rows, *top)
 	if err != nil {
 		return err
 	}
@@ -179,40 +166,35 @@ func cmdScore(e *env, args []string) error {
 		return err
 	}
 	fmt.Fprintf(e.stderr, "scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)\n", len(scores), flagged, th.Value, 100*th.ExpectedFalseAlarm)
-	fmt.Fprintln(e.stderr, ae.Caution)
+	fmt.Fprintln(e.stderr, anomaly.Caution)
 	return nil
 }
 
 func cmdEncode(e *env, args []string) error {
 	fs := newFlags(e, "encode", "-model MODEL -data FILE [-out CODES.csv]")
-	model := fs.String("model", "", "autoencoder or VAE model file (required)")
+	modelPath := fs.String("model", "", "model file with codes: an autoencoder or a VAE (required)")
 	var d dataFlags
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the codes (- for standard output)")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	l, err := loadModel(*model)
+	if err := distinctPaths(map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath}); err != nil {
+		return err
+	}
+	l, err := loadModel(*modelPath)
 	if err != nil {
 		return err
 	}
-	var codes []float32
-	var ds *data.Dataset
-	var width int
-	switch {
-	case l.ae != nil:
-		width = l.ae.Config().Latent
-		if ds, err = d.loadFor(l.ae.Columns, l.ae.Config().Inputs); err == nil {
-			codes, err = l.ae.Encode(ds.X, ds.Rows)
-		}
-	case l.vae != nil:
-		width = l.vae.Config().Latent
-		if ds, err = d.loadFor(l.vae.Columns, l.vae.Config().Inputs); err == nil {
-			codes, err = l.vae.Encode(ds.X, ds.Rows)
-		}
-	default:
-		return fmt.Errorf("encode needs an autoencoder or VAE model; %s holds a %s", *model, l.file.Kind)
+	enc, ok := l.model.(model.Encoder)
+	if !ok {
+		return l.cannot("encode", "a model with codes (an autoencoder or a VAE)")
 	}
+	ds, err := l.loadRows(&d)
+	if err != nil {
+		return err
+	}
+	codes, err := enc.Encode(ds.X, ds.Rows)
 	if err != nil {
 		return err
 	}
@@ -220,7 +202,7 @@ func cmdEncode(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if err := writeRows(w, names("z", width), codes, ds.Rows); err != nil {
+	if err := writeRows(w, names("z", enc.CodeWidth()), codes, ds.Rows); err != nil {
 		return err
 	}
 	return closeOut()
@@ -228,8 +210,9 @@ func cmdEncode(e *env, args []string) error {
 
 // writeImagesOrCSV writes rows as a PNG grid when the path ends in .png
 // and the model was trained on images, else as CSV.
-func writeImagesOrCSV(e *env, path string, x []float32, rows int, image []int, columns []string, width int) error {
+func writeImagesOrCSV(e *env, path string, x []float32, rows int, schema data.Schema, width int) error {
 	if strings.EqualFold(filepath.Ext(path), ".png") {
+		image := schema.Image
 		if len(image) != 3 {
 			return usagef("a PNG grid needs a model trained on images; use a .csv output")
 		}
@@ -239,7 +222,7 @@ func writeImagesOrCSV(e *env, path string, x []float32, rows int, image []int, c
 		}
 		return report.ImageGrid(path, x, image[0], image[1], image[2], cols, 3)
 	}
-	header := columns
+	header := schema.Columns
 	if len(header) != width {
 		header = names("c", width)
 	}
@@ -255,10 +238,10 @@ func writeImagesOrCSV(e *env, path string, x []float32, rows int, image []int, c
 
 func cmdSample(e *env, args []string) error {
 	fs := newFlags(e, "sample", "-model MODEL [-n N] [-seed S] [-out FILE.csv|FILE.png]")
-	model := fs.String("model", "", "VAE or GAN model file (required)")
+	modelPath := fs.String("model", "", "generative model file: a VAE or a GAN (required)")
 	n := fs.Int("n", 16, "number of samples")
 	seed := fs.Uint64("seed", 1, "random seed: same seed, same samples")
-	class := fs.Int("class", -1, "class to sample from a conditional GAN (-1: any)")
+	class := fs.Int("class", -1, "class to sample from a conditional model (-1: any)")
 	out := fs.String("out", "-", "CSV file, or PNG grid for image models")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
@@ -266,33 +249,36 @@ func cmdSample(e *env, args []string) error {
 	if *n <= 0 || *n > 1_000_000 {
 		return usagef("-n must be in 1..1000000")
 	}
-	l, err := loadModel(*model)
+	if err := distinctPaths(map[string]string{"-out": *out, "-model": *modelPath}); err != nil {
+		return err
+	}
+	l, err := loadModel(*modelPath)
 	if err != nil {
 		return err
 	}
-	switch {
-	case l.vae != nil:
-		if *class != -1 {
-			return usagef("-class applies to conditional GANs only")
-		}
-		x, err := l.vae.Sample(*n, *seed)
-		if err != nil {
-			return err
-		}
-		return writeImagesOrCSV(e, *out, x, *n, l.vae.Image, l.vae.Columns, l.vae.Config().Inputs)
-	case l.gan != nil:
-		x, err := l.gan.Generate(*n, *seed, *class)
-		if err != nil {
-			return err
-		}
-		return writeImagesOrCSV(e, *out, x, *n, l.gan.Image, l.gan.Columns, l.gan.Config().Outputs)
+	smp, ok := l.model.(model.Sampler)
+	if !ok {
+		return l.cannot("sample", "a generative model (a VAE or a GAN)")
 	}
-	return fmt.Errorf("sample needs a VAE or GAN model; %s holds a %s", *model, l.file.Kind)
+	var x []float32
+	if *class != -1 {
+		cs, ok := l.model.(model.ClassSampler)
+		if !ok || cs.Classes() == 0 {
+			return usagef("-class applies to conditional models only")
+		}
+		x, err = cs.Generate(*n, *seed, *class)
+	} else {
+		x, err = smp.Sample(*n, *seed)
+	}
+	if err != nil {
+		return err
+	}
+	return writeImagesOrCSV(e, *out, x, *n, l.model.Schema(), l.model.Width())
 }
 
 func cmdInterpolate(e *env, args []string) error {
 	fs := newFlags(e, "interpolate", "-model MODEL -data FILE -from ROW -to ROW [-steps N] [-out FILE]")
-	model := fs.String("model", "", "VAE model file (required)")
+	modelPath := fs.String("model", "", "model file with a latent space to walk: a VAE (required)")
 	var d dataFlags
 	d.register(fs, true)
 	from := fs.Int("from", 1, "first row (1-based)")
@@ -306,30 +292,33 @@ func cmdInterpolate(e *env, args []string) error {
 	if *steps < 2 || *steps > 10000 {
 		return usagef("-steps must be in 2..10000")
 	}
-	l, err := loadModel(*model)
+	if err := distinctPaths(map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath}); err != nil {
+		return err
+	}
+	l, err := loadModel(*modelPath)
 	if err != nil {
 		return err
 	}
-	if l.vae == nil {
-		return fmt.Errorf("interpolate needs a VAE model; %s holds a %s", *model, l.file.Kind)
+	ip, ok := l.model.(model.Interpolator)
+	if !ok {
+		return l.cannot("interpolate", "a model with a latent space to walk (a VAE)")
 	}
-	m := l.vae
-	ds, err := d.loadFor(m.Columns, m.Config().Inputs)
+	ds, err := l.loadRows(&d)
 	if err != nil {
 		return err
 	}
 	if *from < 1 || *from > ds.Rows || *to < 1 || *to > ds.Rows {
 		return usagef("-from and -to must be rows 1..%d", ds.Rows)
 	}
-	x, err := m.Interpolate(ds.Row(*from-1), ds.Row(*to-1), *steps, vae.Path(*path))
+	x, err := ip.Interpolate(ds.Row(*from-1), ds.Row(*to-1), *steps, vae.Path(*path))
 	if err != nil {
 		return err
 	}
-	img := m.Image
-	if img == nil {
-		img = ds.Image
+	schema := l.model.Schema()
+	if schema.Image == nil {
+		schema.Image = ds.Image
 	}
-	return writeImagesOrCSV(e, *out, x, *steps, img, m.Columns, m.Config().Inputs)
+	return writeImagesOrCSV(e, *out, x, *steps, schema, l.model.Width())
 }
 
 func cmdInspect(e *env, args []string) error {
@@ -350,69 +339,58 @@ func cmdInspect(e *env, args []string) error {
 		return err
 	}
 	w := e.stdout
+	m := l.model
 	fmt.Fprintf(w, "file        %s (%d bytes, format version %d, checksum verified)\n", path, st.Size(), modelfile.Version)
-	fmt.Fprintf(w, "kind        %s\n", l.file.Kind)
-	var nets []*layers.MLP
-	var params []*layers.Param
-	switch {
-	case l.ae != nil:
-		nets, params = []*layers.MLP{l.ae.Encoder, l.ae.Decoder, l.ae.Head}, l.ae.Params()
-		if th := l.ae.Threshold; th != nil {
+	fmt.Fprintf(w, "kind        %s\n", m.Kind())
+	if cfg, ok := sectionLine(l.file, "config"); ok {
+		fmt.Fprintf(w, "settings    %s\n", cfg)
+	}
+	if sc, ok := m.(model.Scorer); ok {
+		if th := sc.Calibrated(); th != nil {
 			fmt.Fprintf(w, "threshold   %.6g (%s, expected false-alarm rate %.2f%%, %d calibration rows)\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm, th.Rows)
 		} else {
 			fmt.Fprintln(w, "threshold   none")
 		}
-		if l.ae.Scaler != nil {
-			fmt.Fprintf(w, "scaling     %s\n", l.ae.Scaler.Kind)
-		}
-	case l.vae != nil:
-		nets, params = []*layers.MLP{l.vae.Encoder, l.vae.Decoder}, l.vae.Params()
-		fmt.Fprintf(w, "likelihood  %s, latent %d\n", l.vae.Config().Likelihood, l.vae.Config().Latent)
-		if th := l.vae.Threshold; th != nil {
-			fmt.Fprintf(w, "threshold   %.6g on the negative ELBO (%s, expected false-alarm rate %.2f%%, %d calibration rows)\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm, th.Rows)
-		}
-	case l.gan != nil:
-		nets, params = []*layers.MLP{l.gan.Generator, l.gan.Discriminator}, l.gan.Params()
-		c := l.gan.Config()
-		fmt.Fprintf(w, "objective   %s critic, %s generator loss, noise %d, classes %d, pack %d\n", c.Critic, c.Loss, c.Noise, c.Classes, c.Pack)
 	}
-	for _, n := range nets {
-		if n == nil {
-			continue
-		}
+	for _, n := range m.Networks() {
 		var parts []string
 		for _, d := range n.Layers {
 			parts = append(parts, fmt.Sprintf("%d->%d %s", d.In, d.Out, d.Act))
 		}
 		fmt.Fprintf(w, "%-11s %s\n", n.Name, strings.Join(parts, ", "))
 	}
+	params := m.Params()
 	total := 0
 	for _, p := range params {
 		total += p.Len()
 	}
 	fmt.Fprintf(w, "parameters  %d in %d tensors (%s)\n", total, len(params), params[0].Precision())
-	if p := l.prov; p != nil {
+	if sch := m.Schema(); len(sch.Image) == 3 {
+		fmt.Fprintf(w, "rows        images of %dx%d, %d channels\n", sch.Image[0], sch.Image[1], sch.Image[2])
+	} else if len(sch.Columns) > 0 {
+		fmt.Fprintf(w, "columns     %s\n", strings.Join(sch.Columns, ", "))
+	}
+	if p, err := modelfile.ProvenanceOf(l.file); err == nil && p != nil {
 		fmt.Fprintf(w, "data        %s, %d rows, fingerprint %s\n", p.DataFile, p.DataRows, p.DataFingerprint)
-		if n, ok := p.Training["epochs_run"].(float64); ok {
-			line := fmt.Sprintf("%d epochs, final training loss %.6g", int(n), p.Training["final_train_loss"])
-			if v, ok := p.Training["final_validation_loss"].(float64); ok {
-				line += fmt.Sprintf(", validation loss %.6g on %v rows", v, p.Training["validation_rows"])
-			}
-			line += fmt.Sprintf(", best epoch %v", p.Training["best_epoch"])
-			if se, _ := p.Training["stopped_early"].(bool); se {
-				line += ", stopped early"
-			}
-			fmt.Fprintf(w, "summary     %s\n", line)
+	}
+	if sum, ok, err := train.SummaryOf(l.file); err == nil && ok {
+		line := fmt.Sprintf("%d epochs, final training loss %.6g", sum.Epochs, sum.TrainLoss)
+		if !math.IsNaN(sum.ValidationLoss) {
+			line += fmt.Sprintf(", validation loss %.6g", sum.ValidationLoss)
 		}
-		if a, ok := p.Training["args"].([]any); ok {
-			var s []string
-			for _, v := range a {
-				s = append(s, fmt.Sprint(v))
-			}
-			fmt.Fprintf(w, "training    %s\n", strings.Join(s, " "))
+		line += fmt.Sprintf(", best epoch %d", sum.BestEpoch)
+		if sum.StoppedEarly {
+			line += ", stopped early"
+		}
+		if sum.Warnings > 0 {
+			line += fmt.Sprintf(", %d warnings", sum.Warnings)
+		}
+		fmt.Fprintf(w, "summary     %s\n", line)
+		if tr, ok := sectionLine(l.file, "training"); ok {
+			fmt.Fprintf(w, "training    %s\n", tr)
 		}
 	}
-	var meta map[string]any
+	var meta map[string]json.RawMessage
 	if json.Unmarshal(l.file.Meta, &meta) == nil {
 		keys := make([]string, 0, len(meta))
 		for k := range meta {
@@ -422,4 +400,28 @@ func cmdInspect(e *env, args []string) error {
 		fmt.Fprintf(w, "metadata    %s\n", strings.Join(keys, ", "))
 	}
 	return nil
+}
+
+// sectionLine is a metadata section as one line of compact JSON (the
+// training section's settings only).
+func sectionLine(f *modelfile.File, key string) (string, bool) {
+	var raw json.RawMessage
+	ok, err := f.Section(key, &raw)
+	if !ok || err != nil {
+		return "", false
+	}
+	if key == "training" {
+		var t struct {
+			Settings json.RawMessage `json:"settings"`
+		}
+		if json.Unmarshal(raw, &t) != nil || t.Settings == nil {
+			return "", false
+		}
+		raw = t.Settings
+	}
+	var b bytes.Buffer
+	if json.Compact(&b, raw) != nil {
+		return "", false
+	}
+	return b.String(), true
 }

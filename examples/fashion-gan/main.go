@@ -57,19 +57,29 @@ func main() {
 	if err != nil {
 		log.Fatal(err)
 	}
-	if _, err := enc.Train(context.Background(), tr, nil, train.Config{Epochs: aeEpochs, BatchSize: 64}); err != nil {
-		log.Fatal(err)
-	}
-	enc.Release()
-	// the GAN: 64-256-512-784 generator, 784-512-256-1 discriminator
-	m, err := gan.New(gan.Config{Outputs: 784, Noise: 64, GenHidden: gh, DiscHidden: dh, Activation: layers.LeakyReLU, LeakySlope: 0.2,
-		GenOutput: layers.Sigmoid, Scaling: data.ScaleNone, GenRate: 2e-4, DiscRate: 2e-4, Seed: 1})
+	et, err := train.New(enc, train.Settings{Epochs: aeEpochs, BatchSize: 64})
 	if err != nil {
 		log.Fatal(err)
 	}
-	if _, err := m.Train(context.Background(), tr, nil, train.Config{Epochs: *epochs, BatchSize: 64}); err != nil {
+	if _, err := et.Run(context.Background(), tr, nil); err != nil {
 		log.Fatal(err)
 	}
+	et.Release()
+	// the GAN: 64-256-512-784 generator, 784-512-256-1 discriminator
+	m, err := gan.New(gan.Config{Outputs: 784, Noise: 64, GenHidden: gh, DiscHidden: dh, Activation: layers.LeakyReLU, LeakySlope: 0.2,
+		GenOutput: layers.Sigmoid, Scaling: data.ScaleNone, Seed: 1})
+	if err != nil {
+		log.Fatal(err)
+	}
+	gt, err := train.New(m, train.Settings{Epochs: *epochs, BatchSize: 64, Optimizer: train.Optimizer{Rate: 2e-4}})
+	if err != nil {
+		log.Fatal(err)
+	}
+	h, err := gt.Run(context.Background(), tr, nil)
+	if err != nil {
+		log.Fatal(err)
+	}
+	gt.Release()
 	n := te.Rows
 	samples, err := m.Generate(n, 3, -1)
 	if err != nil {
@@ -95,7 +105,7 @@ func main() {
 	fmt.Printf("  GAN samples (%d epochs)   %10.2f\n", *epochs, fd(samples, n))
 	fmt.Printf("  real training images      %10.2f  (floor)\n", fd(tr.X[:k*784], k))
 	fmt.Printf("  uniform noise images      %10.2f  (ceiling)\n", fd(noise, n))
-	if w := m.Warnings(); len(w) > 0 {
+	if w := h.Warnings; len(w) > 0 {
 		fmt.Printf("training warnings: %d (first: %s)\n", len(w), w[0].Message)
 	}
 	fmt.Printf("wrote %s in %s\n", filepath.Join(*out, "samples.png"), time.Since(start).Round(time.Second))

@@ -86,10 +86,15 @@ func main() {
 	if err != nil {
 		log.Fatal(err)
 	}
-	h, err := m.Train(context.Background(), d, nil, train.Config{Epochs: epochs, BatchSize: 64})
+	t, err := train.New(m, train.Settings{Epochs: epochs, BatchSize: 64})
 	if err != nil {
 		log.Fatal(err)
 	}
+	h, err := t.Run(context.Background(), d, nil)
+	if err != nil {
+		log.Fatal(err)
+	}
+	t.Release()
 	tl, _ := h.Loss(len(h.Epochs))
 	k := min(d.Rows, 500)
 	elbo, err := m.ELBO(d.X[:k*d.Cols], k, 10, 1)

@@ -85,10 +85,14 @@ func main() {
 	if err != nil {
 		log.Fatal(err)
 	}
-	if _, err := m.Train(context.Background(), tr, nil, train.Config{Epochs: epochs}); err != nil {
+	t, err := train.New(m, train.Settings{Epochs: epochs})
+	if err != nil {
 		log.Fatal(err)
 	}
-	m.Release()
+	if _, err := t.Run(context.Background(), tr, nil); err != nil {
+		log.Fatal(err)
+	}
+	t.Release()
 	if _, err := m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01}); err != nil {
 		log.Fatal(err)
 	}

@@ -65,13 +65,19 @@ func main() {
 	if err != nil {
 		log.Fatal(err)
 	}
-	m, err := gan.New(gan.Config{Outputs: 6, Noise: 8, GenHidden: []int{64, 64}, DiscHidden: []int{64, 64}, GenRate: 1e-3, DiscRate: 1e-3, Pack: 2, Seed: 1})
+	m, err := gan.New(gan.Config{Outputs: 6, Noise: 8, GenHidden: []int{64, 64}, DiscHidden: []int{64, 64}, Pack: 2, Seed: 1})
 	if err != nil {
 		log.Fatal(err)
 	}
-	if _, err := m.Train(context.Background(), tr, nil, train.Config{Epochs: epochs, BatchSize: 128}); err != nil {
+	t, err := train.New(m, train.Settings{Epochs: epochs, BatchSize: 128, Optimizer: train.Optimizer{Rate: 1e-3}})
+	if err != nil {
 		log.Fatal(err)
 	}
+	h, err := t.Run(context.Background(), tr, nil)
+	if err != nil {
+		log.Fatal(err)
+	}
+	t.Release()
 	n := held.Rows
 	synth, err := m.Generate(n, 5, -1)
 	if err != nil {
@@ -94,7 +100,7 @@ func main() {
 	fmt.Printf("  GAN samples                    %10.3f\n", fd)
 	fmt.Printf("  real training records          %10.3f  (floor)\n", floor)
 	fmt.Printf("  independent column Gaussians   %10.3f  (ignores correlations)\n", indep)
-	if w := m.Warnings(); len(w) > 0 {
+	if w := h.Warnings; len(w) > 0 {
 		fmt.Printf("training warnings: %v\n", w)
 	}
 	f, err := os.Create(*out)

@@ -23,12 +23,12 @@ func BenchmarkStepVAE784(b *testing.B) {
 	dec, _ := layers.NewMLP(layers.MLPConfig{Name: "dec", Widths: []int{20, 400, 784}}, rng)
 	const batch = 128
 	ph := engine.NewPhase(layers.Float32, true, func(g *engine.Graph, n int) (*engine.Node, []*engine.Node) {
-		x := g.Input("x", n, 784)
-		eps := g.Input("eps", n, 20)
-		h := g.MLP(enc, x, true)
+		x := g.Input(handle("x"), n, 784)
+		eps := g.Input(handle("eps"), n, 20)
+		h := g.MLP(enc, x, dropouts(enc))
 		mu, lv := g.Slice(h, 0, 20), g.Slice(h, 20, 40)
 		z := g.Add(mu, g.Mul(g.Exp(g.Scale(lv, 0.5)), eps))
-		logits := g.MLP(dec, z, true)
+		logits := g.MLP(dec, z, dropouts(dec))
 		rec := g.Scale(losses.GraphBCEWithLogits(g, logits, x), 784)
 		return g.Add(rec, losses.GraphKLStdNormal(g, mu, lv)), nil
 	})
@@ -51,7 +51,7 @@ func benchStep(b *testing.B, ph *engine.Phase, batch int, params []*layers.Param
 		b.Fatal(err)
 	}
 	for _, name := range []string{"x", "eps"} {
-		v := p.Input32(name)
+		v := p.F32(handle(name))
 		for i := range v {
 			v[i] = rng.Float32()
 		}

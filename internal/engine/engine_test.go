@@ -51,7 +51,7 @@ func TestDenseGradientsAllActivations(t *testing.T) {
 			// Graph forward equals the graph-free forward.
 			res, err := gradcheck.Check(m.Params(), func(g *engine.Graph) *engine.Node {
 				xi, yi := paramOf("x", rows, 3, x), paramOf("y", rows, 2, y)
-				return losses.GraphMSE(g, g.MLP(m, g.Param(xi), false), g.Param(yi))
+				return losses.GraphMSE(g, g.MLP(m, g.Param(xi), nil), g.Param(yi))
 			}, ref, 1e-4)
 			require.NoError(t, err)
 			require.Less(t, res.MaxRelErr, 1e-6, res.String())
@@ -96,8 +96,8 @@ func TestLogSoftmaxGradient(t *testing.T) {
 
 func denseLoss(m *layers.MLP, rows int) engine.BuildFunc {
 	return func(g *engine.Graph, batch int) (*engine.Node, []*engine.Node) {
-		x := g.Input("x", batch, m.In())
-		out := g.MLP(m, x, true)
+		x := g.Input(handle("x"), batch, m.In())
+		out := g.MLP(m, x, dropouts(m))
 		return losses.GraphMSE(g, out, x), []*engine.Node{out}
 	}
 }
@@ -113,7 +113,7 @@ func TestAnyBatchSize(t *testing.T) {
 	for _, b := range []int{16, 5, 1, 16} {
 		p, err := ph.Program(b)
 		require.NoError(t, err)
-		x := p.Input32("x")
+		x := p.F32(handle("x"))
 		require.Len(t, x, b*4)
 		for i := range x {
 			x[i] = float32(rng.NormFloat64())
@@ -138,14 +138,14 @@ func TestRunResetsEachTime(t *testing.T) {
 	defer ph.Close()
 	p, err := ph.Program(3)
 	require.NoError(t, err)
-	copy(p.Input32("x"), []float32{1, 2, 3, 4, 5, 6})
+	copy(p.F32(handle("x")), []float32{1, 2, 3, 4, 5, 6})
 	a, err := p.Run(engine.RunOptions{})
 	require.NoError(t, err)
-	copy(p.Input32("x"), []float32{6, 5, 4, 3, 2, 1})
+	copy(p.F32(handle("x")), []float32{6, 5, 4, 3, 2, 1})
 	b, err := p.Run(engine.RunOptions{})
 	require.NoError(t, err)
 	require.NotEqual(t, a, b)
-	copy(p.Input32("x"), []float32{1, 2, 3, 4, 5, 6})
+	copy(p.F32(handle("x")), []float32{1, 2, 3, 4, 5, 6})
 	c, err := p.Run(engine.RunOptions{})
 	require.NoError(t, err)
 	require.Equal(t, a, c)
@@ -163,13 +163,13 @@ func TestRunResetsEachTime(t *testing.T) {
 func TestNonFiniteLossIsAnError(t *testing.T) {
 	m := mlp(t, 9, layers.Float32, []int{2, 2}, layers.Identity, layers.Identity)
 	ph := engine.NewPhase(layers.Float32, true, func(g *engine.Graph, b int) (*engine.Node, []*engine.Node) {
-		x := g.Input("x", b, 2)
-		return g.Mean(g.Log(g.MLP(m, x, false))), nil
+		x := g.Input(handle("x"), b, 2)
+		return g.Mean(g.Log(g.MLP(m, x, nil))), nil
 	})
 	defer ph.Close()
 	p, err := ph.Program(1)
 	require.NoError(t, err)
-	copy(p.Input32("x"), []float32{float32(math.NaN()), 1})
+	copy(p.F32(handle("x")), []float32{float32(math.NaN()), 1})
 	_, err = p.Run(engine.RunOptions{})
 	require.ErrorIs(t, err, engine.ErrNonFinite)
 }
@@ -178,16 +178,16 @@ func TestUnusedParamHasNoGradient(t *testing.T) {
 	m := mlp(t, 9, layers.Float64, []int{2, 2}, layers.Identity, layers.Identity)
 	stray := layers.NewParam("stray", 1, 2, layers.Float64)
 	g := engine.NewGraph(layers.Float64)
-	x := g.Input("x", 1, 2)
+	x := g.Input(handle("x"), 1, 2)
 	g.Param(stray)
-	_, err := g.Compile(g.Sum(g.MLP(m, x, false)), engine.CompileOptions{Grad: true})
+	_, err := g.Compile(g.Sum(g.MLP(m, x, nil)), engine.CompileOptions{Grad: true})
 	require.Error(t, err, "a parameter the loss does not reach must be reported")
 }
 
 func TestConstructionErrors(t *testing.T) {
 	g := engine.NewGraph(layers.Float32)
-	a := g.Input("a", 2, 3)
-	b := g.Input("b", 2, 3)
+	a := g.Input(handle("a"), 2, 3)
+	b := g.Input(handle("b"), 2, 3)
 	_ = g.MatMul(a, b)
 	_, err := g.Compile(g.Sum(a), engine.CompileOptions{})
 	require.ErrorContains(t, err, "do not chain")
@@ -241,13 +241,13 @@ func trainLosses(t testing.TB, seed uint64, steps int) ([]float64, []float64) {
 	for s := 0; s < steps; s++ {
 		p, err := ph.Program(8)
 		require.NoError(t, err)
-		x := p.Input32("x")
+		x := p.F32(handle("x"))
 		for i := range x {
 			x[i] = float32(rng.NormFloat64())
 		}
 		for i, d := range m.Layers {
 			if d.Dropout > 0 {
-				layers.DropoutMask(p.Input32(engine.DropoutName(m, i)), d.Dropout, rng)
+				layers.DropoutMask(p.F32(dropouts(m)[i]), d.Dropout, rng)
 			}
 		}
 		l, err := p.Run(engine.RunOptions{})
@@ -326,7 +326,7 @@ func TestForward32EqualsGraph(t *testing.T) {
 			p, err := ph.Program(128)
 			require.NoError(t, err)
 			rng := rand.New(rand.NewPCG(12, 12))
-			x := p.Input32("x")
+			x := p.F32(handle("x"))
 			for i := range x {
 				x[i] = float32(rng.NormFloat64())
 			}

@@ -19,15 +19,15 @@ import (
 // reparameterised sample, broadcasts, reductions, log-softmax and several
 // losses.
 func buildMixed(g *engine.Graph, enc, dec *layers.MLP, rows int) *engine.Node {
-	x := g.Input("x", rows, 6)
-	eps := g.Input("eps", rows, 2)
-	h := g.MLP(enc, x, false) // rows x 4: mean and log-variance
+	x := g.Input(handle("x"), rows, 6)
+	eps := g.Input(handle("eps"), rows, 2)
+	h := g.MLP(enc, x, nil) // rows x 4: mean and log-variance
 	mu, lv := g.Slice(h, 0, 2), g.Slice(h, 2, 4)
 	z := g.Add(g.Reparameterise(mu, lv, eps), g.Mul(g.Exp(g.Scale(lv, 0.5)), eps))
-	logits := g.MLP(dec, z, false)
+	logits := g.MLP(dec, z, nil)
 	loss := g.Add(losses.GraphBCEWithLogits(g, logits, g.Sigmoid(x)), losses.GraphKLStdNormal(g, mu, lv))
 	both := g.Concat(logits, g.Mul(g.Sub(g.Const(1), g.Tanh(z)), g.Sub(g.Tanh(z), g.Const(0.5))))
-	w := g.Input("w", 1, 8)
+	w := g.Input(handle("w"), 1, 8)
 	r := g.MulRow(g.AddRow(both, w), w)
 	loss = g.Add(loss, g.Mean(g.Square(r)))
 	loss = g.Add(loss, g.Scale(g.Sum(g.LogSoftmax(both)), -0.01))
@@ -58,12 +58,12 @@ func TestExecutorMatchesTapeMachine(t *testing.T) {
 			for run := 0; run < 3; run++ {
 				for _, name := range []string{"x", "eps", "w"} {
 					if prec == layers.Float32 {
-						for i := range p.Input32(name) {
-							p.Input32(name)[i] = float32(rng.NormFloat64())
+						for i := range p.F32(handle(name)) {
+							p.F32(handle(name))[i] = float32(rng.NormFloat64())
 						}
 					} else {
-						for i := range p.Input64(name) {
-							p.Input64(name)[i] = rng.NormFloat64()
+						for i := range p.F64(handle(name)) {
+							p.F64(handle(name))[i] = rng.NormFloat64()
 						}
 					}
 				}
@@ -297,7 +297,7 @@ func TestAffineActMatchesUnfused(t *testing.T) {
 						w.SetAt(i, rng.NormFloat64()*0.1)
 					}
 					g := engine.NewGraph(prec)
-					x := g.Input("x", rows, in)
+					x := g.Input(handle("x"), rows, in)
 					var h *engine.Node
 					if fused {
 						h = g.AffineAct(x, g.Param(w), g.Param(b), layers.LeakyReLU, slope)
@@ -305,7 +305,7 @@ func TestAffineActMatchesUnfused(t *testing.T) {
 						h = g.LeakyReLU(g.Affine(x, g.Param(w), g.Param(b)), slope)
 					}
 					// a weighted sum: the gradient reaching h is nonzero where h is 0
-					p, err := g.Compile(g.Sum(g.Mul(h, g.Input("c", rows, out))), engine.CompileOptions{Grad: true, Outputs: []*engine.Node{h}})
+					p, err := g.Compile(g.Sum(g.Mul(h, g.Input(handle("c"), rows, out))), engine.CompileOptions{Grad: true, Outputs: []*engine.Node{h}})
 					require.NoError(t, err)
 					defer p.Close()
 					vals := make([]float64, rows*in)
@@ -320,14 +320,14 @@ func TestAffineActMatchesUnfused(t *testing.T) {
 					}
 					if prec == layers.Float32 {
 						for i, v := range vals {
-							p.Input32("x")[i] = float32(v)
+							p.F32(handle("x"))[i] = float32(v)
 						}
 						for i, v := range cs {
-							p.Input32("c")[i] = float32(v)
+							p.F32(handle("c"))[i] = float32(v)
 						}
 					} else {
-						copy(p.Input64("x"), vals)
-						copy(p.Input64("c"), cs)
+						copy(p.F64(handle("x")), vals)
+						copy(p.F64(handle("c")), cs)
 					}
 					loss, err := p.Run(engine.RunOptions{})
 					require.NoError(t, err)

@@ -17,12 +17,12 @@ import (
 // graphForward runs net through a compiled graph on rows of x.
 func graphForward(t *testing.T, net *layers.MLP, x []float64, rows int) []float64 {
 	g := engine.NewGraph(layers.Float64)
-	in := g.Input("x", rows, net.In())
-	out := g.MLP(net, in, false)
+	in := g.Input(handle("x"), rows, net.In())
+	out := g.MLP(net, in, nil)
 	p, err := g.Compile(g.Sum(out), engine.CompileOptions{Outputs: []*engine.Node{out}})
 	require.NoError(t, err)
 	defer p.Close()
-	copy(p.Input64("x"), x)
+	copy(p.F64(handle("x")), x)
 	_, err = p.Run(engine.RunOptions{})
 	require.NoError(t, err)
 	return append([]float64(nil), p.Output64(0)...)

@@ -1,4 +1,4 @@
-package gan
+package train
 
 import (
 	"context"
@@ -8,11 +8,22 @@ import (
 	"testing"
 
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/gan"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/optim"
-	"github.com/quernlab/quern/train"
 	"github.com/stretchr/testify/require"
 )
+
+// fit trains m with s, failing the test on an error.
+func fit(t testing.TB, m Model, tr, va *data.Dataset, s Settings) *History {
+	t.Helper()
+	tt, err := New(m, s)
+	require.NoError(t, err)
+	h, err := tt.Run(context.Background(), tr, va)
+	require.NoError(t, err)
+	tt.Release()
+	return h
+}
 
 func normal1D(n int, mu, sd float64, seed uint64) *data.Dataset {
 	rng := rand.New(rand.NewPCG(seed, seed))
@@ -25,25 +36,37 @@ func normal1D(n int, mu, sd float64, seed uint64) *data.Dataset {
 }
 
 // fixedGenerator sets a one-layer linear generator to G(z) = a + b z (raw
-// units, no scaling), i.e. p_g = N(a, b^2).
-func fixedGenerator(t testing.TB, a, b float64, disc []int) *Model {
-	m, err := New(Config{Outputs: 1, Noise: 1, GenHidden: []int{}, DiscHidden: disc, Activation: layers.Tanh, Scaling: data.ScaleNone, DiscRate: 3e-3, Seed: 3})
+// units, no scaling), i.e. p_g = N(a, b^2), and returns the model and the
+// recipe that trains it (discriminator rate 3e-3).
+func fixedGenerator(t testing.TB, a, b float64, disc []int) (*gan.Model, *ganRecipe) {
+	m, err := gan.New(gan.Config{Outputs: 1, Noise: 1, GenHidden: []int{}, DiscHidden: disc, Activation: layers.Tanh, Scaling: data.ScaleNone, Seed: 3})
 	require.NoError(t, err)
 	m.Generator.Layers[0].W.SetAt(0, b)
 	m.Generator.Layers[0].B.SetAt(0, a)
-	return m
+	tr, err := New(m, Settings{Objective: Adversarial{DiscriminatorRate: 3e-3}})
+	require.NoError(t, err)
+	return m, tr.r.(*ganRecipe)
 }
 
-func trainD(t testing.TB, m *Model, d *data.Dataset, steps, batch int) {
-	require.NoError(t, m.prepare(d, nil))
+// runMove runs one move of a recipe once on a batch.
+func runMove(t testing.TB, mv *move, b *batch) {
+	l := &loop{}
+	mv1 := *mv
+	mv1.Times = 1
+	require.NoError(t, l.step([]*move{&mv1}, b, 0))
+}
+
+// trainD runs discriminator moves alone on batches drawn from d.
+func trainD(t testing.TB, r *ganRecipe, d *data.Dataset, steps, rows int) {
+	tr, _, err := r.prepare(d, nil)
+	require.NoError(t, err)
 	rng := rand.New(rand.NewPCG(8, 8))
-	x := make([]float32, batch)
+	b := &batch{Rows: rows, Cols: 1, X: make([]float32, rows)}
 	for s := 0; s < steps; s++ {
-		for i := range x {
-			x[i] = m.train.X[rng.IntN(d.Rows)]
+		for i := range b.X {
+			b.X[i] = tr.X[rng.IntN(d.Rows)]
 		}
-		_, _, _, err := m.discriminatorStep(x, nil, batch)
-		require.NoError(t, err)
+		runMove(t, r.dMove, b)
 	}
 }
 
@@ -57,9 +80,9 @@ func npdf(x, mu, sd float64) float64 {
 // D*(x) = p_data / (p_data + p_g) (Goodfellow et al. 2014, Proposition 1),
 // within 0.05 on a grid over the bulk of both densities.
 func TestOptimalDiscriminator(t *testing.T) {
-	m := fixedGenerator(t, 1, 1.5, []int{32, 32})
+	m, r := fixedGenerator(t, 1, 1.5, []int{32, 32})
 	gen0 := m.Generator.Params()[0].Values()
-	trainD(t, m, normal1D(20000, 0, 1, 1), 3000, 256)
+	trainD(t, r, normal1D(20000, 0, 1, 1), 3000, 256)
 	require.Equal(t, gen0, m.Generator.Params()[0].Values(), "the generator stays frozen")
 	var worst float64
 	for x := -2.0; x <= 2.51; x += 0.25 {
@@ -76,9 +99,10 @@ func TestOptimalDiscriminator(t *testing.T) {
 // BCE on real and generated batches tends to log 4 = 1.3863 (Goodfellow et
 // al. 2014, Theorem 1).
 func TestEqualDistributionsGiveLog4(t *testing.T) {
-	m := fixedGenerator(t, 0, 1, []int{16})
+	m, r := fixedGenerator(t, 0, 1, []int{16})
 	d := normal1D(20000, 0, 1, 2)
-	trainD(t, m, d, 1500, 256)
+	trainD(t, r, d, 1500, 256)
+	l := &loop{r: r, seed: 3}
 	// evaluate on fresh batches
 	rng := rand.New(rand.NewPCG(9, 9))
 	var sum float64
@@ -89,7 +113,7 @@ func TestEqualDistributionsGiveLog4(t *testing.T) {
 			x[i] = float32(rng.NormFloat64())
 		}
 		scaled, _ := m.Scaler.Apply(&data.Dataset{Rows: 512, Cols: 1, X: x})
-		ms, err := trainee{m}.Evaluate(scaled)
+		ms, err := l.evaluate(scaled)
 		require.NoError(t, err)
 		sum += ms[0].Value
 	}
@@ -100,10 +124,14 @@ func TestEqualDistributionsGiveLog4(t *testing.T) {
 // One discriminator step leaves the generator bitwise unchanged and one
 // generator step leaves the discriminator bitwise unchanged.
 func TestAlternatingStepsFreezeTheOtherNetwork(t *testing.T) {
-	m, err := New(Config{Outputs: 2, Noise: 4, GenHidden: []int{8}, DiscHidden: []int{8}, DiscSteps: 2, Seed: 1})
+	m, err := gan.New(gan.Config{Outputs: 2, Noise: 4, GenHidden: []int{8}, DiscHidden: []int{8}, Seed: 1})
 	require.NoError(t, err)
+	tr, err := New(m, Settings{Objective: Adversarial{DiscSteps: 2}})
+	require.NoError(t, err)
+	r := tr.r.(*ganRecipe)
 	d := ring(256, 1)
-	require.NoError(t, m.prepare(d, nil))
+	sd, _, err := r.prepare(d, nil)
+	require.NoError(t, err)
 	snap := func(ps []*layers.Param) [][]float64 {
 		var s [][]float64
 		for _, p := range ps {
@@ -112,13 +140,12 @@ func TestAlternatingStepsFreezeTheOtherNetwork(t *testing.T) {
 		return s
 	}
 	g0, d0 := snap(m.Generator.Params()), snap(m.Discriminator.Params())
-	_, _, _, err = m.discriminatorStep(m.train.X[:64], nil, 32)
-	require.NoError(t, err)
+	b := &batch{Rows: 32, Cols: 2, X: sd.X[:64]}
+	runMove(t, r.dMove, b)
 	require.Equal(t, g0, snap(m.Generator.Params()))
 	d1 := snap(m.Discriminator.Params())
 	require.NotEqual(t, d0, d1)
-	_, _, _, err = m.generatorStep(32)
-	require.NoError(t, err)
+	runMove(t, r.gMove, b)
 	require.Equal(t, d1, snap(m.Discriminator.Params()))
 	require.NotEqual(t, g0, snap(m.Generator.Params()))
 }
@@ -187,15 +214,13 @@ func TestRingOfGaussians(t *testing.T) {
 	}
 	for _, pack := range packs {
 		const steps = 9600 // 300 epochs of 32 batches
-		m, err := New(Config{Outputs: 2, Noise: 4, GenHidden: []int{32, 32}, DiscHidden: []int{32, 32}, Activation: layers.ReLU,
-			Pack: pack, GenRate: 2e-3, DiscRate: 2e-3, RateSchedule: optim.Cosine{Steps: steps, Min: 0.02}, Seed: 1})
+		m, err := gan.New(gan.Config{Outputs: 2, Noise: 4, GenHidden: []int{32, 32}, DiscHidden: []int{32, 32}, Activation: layers.ReLU, Pack: pack, Seed: 1})
 		require.NoError(t, err)
-		_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: steps / 32, BatchSize: 256})
-		require.NoError(t, err)
+		h := fit(t, m, d, nil, Settings{Epochs: steps / 32, BatchSize: 256, Optimizer: Optimizer{Rate: 2e-3, Schedule: optim.Cosine{Steps: steps, Min: 0.02}}})
 		s, err := m.Generate(2000, 1, -1)
 		require.NoError(t, err)
 		covered, good, _ := modeStats(s)
-		t.Logf("pack %d: modes covered %d/8, samples within 3 sd of a mode %.1f%%, warnings %d", pack, covered, 100*good, len(m.Warnings()))
+		t.Logf("pack %d: modes covered %d/8, samples within 3 sd of a mode %.1f%%, warnings %d", pack, covered, 100*good, len(h.Warnings))
 		if pack == 1 {
 			continue // reported, not asserted
 		}
@@ -221,10 +246,9 @@ func TestConditionalSamplesLandInTheirClass(t *testing.T) {
 	}
 	d, _ := data.New(x, n, 2)
 	d.Labels = lab
-	m, err := New(Config{Outputs: 2, Noise: 4, GenHidden: []int{32, 32}, DiscHidden: []int{32, 32}, Classes: 4, GenRate: 1e-3, DiscRate: 1e-3, Seed: 2})
+	m, err := gan.New(gan.Config{Outputs: 2, Noise: 4, GenHidden: []int{32, 32}, DiscHidden: []int{32, 32}, Classes: 4, Seed: 2})
 	require.NoError(t, err)
-	_, err = m.Train(context.Background(), d, nil, train.Config{Epochs: 15, BatchSize: 128})
-	require.NoError(t, err)
+	fit(t, m, d, nil, Settings{Epochs: 15, BatchSize: 128, Optimizer: Optimizer{Rate: 1e-3}})
 	for k := 0; k < 4; k++ {
 		s, err := m.Generate(500, uint64(10+k), k)
 		require.NoError(t, err)

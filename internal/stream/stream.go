@@ -1,0 +1,38 @@
+// Package stream names the math/rand/v2 PCG streams quern draws from. A
+// generator is rand.NewPCG(seed, stream): the seed comes from the user (a
+// model's Seed, a sample request's seed), the stream from this table, so
+// that no two uses of one seed share draws. The values are part of the
+// reproducibility contract: changing one changes every model trained or
+// sampled with it, and checkpoints store the training generators' states.
+package stream
+
+const (
+	// Init draws a model's initial weights (and, for a GAN, its spectral
+	// normalisation vectors).
+	Init uint64 = 0
+	// Shuffle orders the training rows into batches each epoch.
+	Shuffle uint64 = 1
+	// Noise draws everything random in a training step: input
+	// corruption, dropout masks, a VAE's reparameterisation noise, a
+	// GAN's generator noise and the rows of its extra discriminator
+	// steps.
+	Noise uint64 = 2
+	// Evaluation draws the noise of a validation pass, afresh for each
+	// pass so that repeated evaluations agree.
+	Evaluation uint64 = 3
+	// Split holds out the validation rows in the command line.
+	Split uint64 = 7
+	// PriorSample draws a VAE's latent rows from its prior.
+	PriorSample uint64 = 0x5a
+	// GeneratorInput draws a GAN generator's noise (and classes) when
+	// sampling.
+	GeneratorInput uint64 = 0x6e
+	// ELBODraws and IWAEDraws draw the reparameterised samples behind a
+	// VAE's ELBO and importance-weighted bound.
+	ELBODraws uint64 = 0xe1
+	IWAEDraws uint64 = 0x1e
+)
+
+// ScoreSeed is the seed of a VAE's density score: its draws come from
+// (ScoreSeed, ELBODraws), so a row's score never changes.
+const ScoreSeed uint64 = 0x5c07e

@@ -1,0 +1,168 @@
+package train_test
+
+import (
+	"context"
+	"errors"
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"testing"
+
+	"github.com/quernlab/quern/ae"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/optim"
+	"github.com/quernlab/quern/train"
+	"github.com/quernlab/quern/vae"
+	"github.com/stretchr/testify/require"
+)
+
+// The same seed gives bitwise the same model whatever the thread count:
+// the matrix products and element-wise loops that run in parallel compute
+// each element in one goroutine, in one order. The shapes are large enough
+// for every parallel path to split.
+func TestSameModelAtAnyThreadCount(t *testing.T) {
+	rng := rand.New(rand.NewPCG(12, 1))
+	x := make([]float32, 1000*784)
+	for i := range x {
+		x[i] = float32(0.5 + 0.5*math.Tanh(rng.NormFloat64()))
+	}
+	big, err := data.New(x, 1000, 784)
+	require.NoError(t, err)
+	for _, kind := range []string{"ae", "vae", "gan"} {
+		t.Run(kind, func(t *testing.T) {
+			run := func(procs int) [][]float64 {
+				old := runtime.GOMAXPROCS(procs)
+				defer runtime.GOMAXPROCS(old)
+				var m train.Model
+				switch kind {
+				case "ae":
+					m = mustModel(ae.New(ae.Config{Inputs: 784, Hidden: []int{256}, Latent: 16, Scaling: data.ScaleNone, Dropout: 0.1, Seed: 3}))
+				case "vae":
+					m = mustModel(vae.New(vae.Config{Inputs: 784, Hidden: []int{256}, Latent: 8, Scaling: data.ScaleNone, Seed: 3}))
+				default:
+					m = mustModel(gan.New(gan.Config{Outputs: 784, Noise: 16, GenHidden: []int{256}, DiscHidden: []int{256}, Scaling: data.ScaleNone, Seed: 3}))
+				}
+				tr, err := train.New(m, train.Settings{Epochs: 1, BatchSize: 250})
+				require.NoError(t, err)
+				_, err = tr.Run(context.Background(), big, nil)
+				require.NoError(t, err)
+				var w [][]float64
+				for _, p := range m.(interface{ Params() []*layers.Param }).Params() {
+					w = append(w, p.Values())
+				}
+				return w
+			}
+			require.Equal(t, run(1), run(2))
+		})
+	}
+}
+
+// A learning rate far too large makes the loss overflow: a typed error
+// naming the epoch and step, never a model of NaNs.
+func TestDivergenceIsATypedError(t *testing.T) {
+	bc := testenv.BreastCancer(t)
+	m, err := ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Scaling: data.ScaleNone, Seed: 1})
+	require.NoError(t, err)
+	tr, err := train.New(m, train.Settings{Epochs: 50, Optimizer: train.Optimizer{Rate: 1e6}})
+	require.NoError(t, err)
+	_, err = tr.Run(context.Background(), bc, nil)
+	var nf *train.NonFiniteError
+	require.True(t, errors.As(err, &nf), "%v", err)
+	require.GreaterOrEqual(t, nf.Epoch, 1)
+	require.GreaterOrEqual(t, nf.Step, 1)
+}
+
+// What may change when resuming: epochs (a run taken further), callbacks;
+// what may not: the batch size, the optimiser, the objective. A schedule
+// of the caller's own must be given again.
+func TestResumeSettings(t *testing.T) {
+	bc := testenv.BreastCancer(t)
+	build := func() *ae.Model {
+		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{8}, Latent: 3, Seed: 2}))
+	}
+	s := train.Settings{Epochs: 2, BatchSize: 32, Optimizer: train.Optimizer{Rate: 2e-3, Schedule: optim.Cosine{Steps: 100, Min: 0.1}},
+		Objective: train.Reconstruction{Noise: train.Corruption{Kind: train.GaussianNoise, Level: 0.1}}}
+	tr, err := train.New(build(), s)
+	require.NoError(t, err)
+	_, err = tr.Run(context.Background(), bc, nil)
+	require.NoError(t, err)
+	ck, err := tr.Checkpoint(nil)
+	require.NoError(t, err)
+
+	// the stored settings come back typed, schedule included
+	r, err := train.Resume(ck, nil)
+	require.NoError(t, err)
+	got := r.Settings()
+	require.Equal(t, 32, got.BatchSize)
+	require.Equal(t, optim.Cosine{Steps: 100, Min: 0.1}, got.Optimizer.Schedule)
+	require.Equal(t, train.Reconstruction{Noise: train.Corruption{Kind: train.GaussianNoise, Level: 0.1}, HeadWeight: 1}, got.Objective)
+
+	// taken further: 2 more epochs, the same as 4 straight
+	r, err = train.Resume(ck, &train.Settings{Epochs: 4})
+	require.NoError(t, err)
+	h, err := r.Run(context.Background(), bc, nil)
+	require.NoError(t, err)
+	require.Len(t, h.Epochs, 4)
+	s4 := s
+	s4.Epochs = 4
+	straight, err := train.New(build(), s4)
+	require.NoError(t, err)
+	h4, err := straight.Run(context.Background(), bc, nil)
+	require.NoError(t, err)
+	require.Equal(t, h4.Epochs, h.Epochs)
+
+	for _, bad := range []train.Settings{
+		{BatchSize: 64},
+		{Optimizer: train.Optimizer{Rate: 1e-3}},
+		{Objective: train.Reconstruction{}},
+		{Objective: train.Variational{}},
+	} {
+		_, err := train.Resume(ck, &bad)
+		require.ErrorIs(t, err, train.ErrConfig, "%+v", bad)
+	}
+
+	// a schedule of one's own is not stored: resuming asks for it
+	own := s
+	own.Optimizer.Schedule = halving{}
+	tr, err = train.New(build(), own)
+	require.NoError(t, err)
+	_, err = tr.Run(context.Background(), bc, nil)
+	require.NoError(t, err)
+	ck, err = tr.Checkpoint(nil)
+	require.NoError(t, err)
+	_, err = train.Resume(ck, nil)
+	require.ErrorContains(t, err, "schedule of its own")
+	r, err = train.Resume(ck, &train.Settings{Optimizer: train.Optimizer{Schedule: halving{}}})
+	require.NoError(t, err)
+	require.Equal(t, halving{}, r.Settings().Optimizer.Schedule)
+
+	// a model file is not a checkpoint
+	f, err := tr.File(nil)
+	require.NoError(t, err)
+	_, err = train.Resume(f, nil)
+	require.ErrorContains(t, err, "not a checkpoint")
+}
+
+type halving struct{}
+
+func (halving) Factor(step int) float64 { return math.Pow(0.5, float64(step/10)) }
+
+// Settings marshal as the model files store them and come back equal.
+func TestSettingsJSON(t *testing.T) {
+	for _, s := range []train.Settings{
+		{Epochs: 3, BatchSize: 7, Patience: 2, MinDelta: 0.1, KeepLast: true,
+			Optimizer: train.Optimizer{Rate: 0.1, Beta1: -1, Beta2: 0.9, WeightDecay: 0.01, ClipNorm: 5, Schedule: optim.Warmup{Steps: 5, Then: optim.StepDecay{Every: 3, Gamma: 0.5}}},
+			Objective: train.Reconstruction{Sparsity: train.Sparsity{Kind: train.KLSparsity, Weight: 1, Target: 0.1}, HeadOnly: true}},
+		{Epochs: 1, BatchSize: 1, Objective: train.Variational{Beta: 2, Schedule: train.BetaSchedule{Kind: train.BetaCyclical, Steps: 4, Ratio: 0.25}, FreeBits: 0.5}},
+		{Epochs: 1, BatchSize: 1, Objective: train.Adversarial{Loss: train.Minimax, DiscSteps: 3, LabelSmoothing: 0.1, DiscriminatorRate: 1e-3}},
+	} {
+		b, err := s.MarshalJSON()
+		require.NoError(t, err)
+		var back train.Settings
+		require.NoError(t, back.UnmarshalJSON(b))
+		require.Equal(t, s, back, "%s", b)
+	}
+}
