@@ -100,6 +100,20 @@ func (m *Model) reconstructScaled(w *work, x []float32, rows int) (in, out []flo
 	return in, w.out32, nil
 }
 
+// reconstructRows checks raw rows and reconstructs them (see
+// reconstructScaled) in a workspace the caller gives back to the pool.
+func (m *Model) reconstructRows(x []float32, rows int) (w *work, in, out []float32, err error) {
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return nil, nil, nil, err
+	}
+	w = m.pool.Get()
+	if in, out, err = m.reconstructScaled(w, x, rows); err != nil {
+		m.pool.Put(w)
+		return nil, nil, nil, err
+	}
+	return w, in, out, nil
+}
+
 // Reconstruct returns the model's reconstruction of raw rows, in raw space.
 func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
 	return m.ReconstructInto(nil, x, rows)
@@ -107,15 +121,11 @@ func (m *Model) Reconstruct(x []float32, rows int) ([]float32, error) {
 
 // ReconstructInto is Reconstruct writing into dst (grown if too short).
 func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
-		return nil, err
-	}
-	w := m.pool.Get()
-	defer m.pool.Put(w)
-	_, out, err := m.reconstructScaled(w, x, rows)
+	w, _, out, err := m.reconstructRows(x, rows)
 	if err != nil {
 		return nil, err
 	}
+	defer m.pool.Put(w)
 	dst = scratch.Grow(dst, len(out))
 	copy(dst, out)
 	if m.Scaler != nil {
@@ -135,15 +145,11 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 // ContributionsInto is Contributions writing into dst (grown if too
 // short); no allocation in steady state for float32 models.
 func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float64, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
-		return nil, err
-	}
-	w := m.pool.Get()
-	defer m.pool.Put(w)
-	in, out, err := m.reconstructScaled(w, x, rows)
+	w, in, out, err := m.reconstructRows(x, rows)
 	if err != nil {
 		return nil, err
 	}
+	defer m.pool.Put(w)
 	dst = scratch.Grow(dst, len(in))
 	for i := range in {
 		dst[i] = m.elemError(float64(in[i]), float64(out[i]))
@@ -174,15 +180,11 @@ func (m *Model) RowScores(x []float32, rows int) ([]float64, error) {
 // returning it: with a dst of rows entries it allocates nothing in steady
 // state, for hot scoring paths.
 func (m *Model) RowErrorsInto(dst []float64, x []float32, rows int) ([]float64, error) {
-	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
-		return nil, err
-	}
-	w := m.pool.Get()
-	defer m.pool.Put(w)
-	in, out, err := m.reconstructScaled(w, x, rows)
+	w, in, out, err := m.reconstructRows(x, rows)
 	if err != nil {
 		return nil, err
 	}
+	defer m.pool.Put(w)
 	dst = scratch.Grow(dst, rows)
 	cols := m.cfg.Inputs
 	for r := range dst {
@@ -244,16 +246,7 @@ func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }
 // Calibrate sets the model's threshold from held-out normal rows (not used
 // for training) and returns it.
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
-	s, err := m.RowErrors(normal, rows)
-	if err != nil {
-		return anomaly.Threshold{}, err
-	}
-	th, err := anomaly.Calibrate(s, c)
-	if err != nil {
-		return th, err
-	}
-	m.Threshold = &th
-	return th, nil
+	return anomaly.CalibrateRows(&m.Threshold, m.RowErrors, normal, rows, c)
 }
 
 // Classify returns the most likely class of each raw row and the class

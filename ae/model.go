@@ -5,7 +5,7 @@ import (
 	"math/rand/v2"
 
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -24,18 +24,14 @@ const Kind = "ae"
 // concurrent use by many goroutines, as long as no goroutine is training
 // or changing the model at the same time.
 type Model struct {
-	cfg       Config
-	Encoder   *layers.MLP
-	Decoder   *layers.MLP
-	Head      *layers.MLP
-	Scaler    *data.Scaler
+	cfg     Config
+	Encoder *layers.MLP
+	Decoder *layers.MLP
+	Head    *layers.MLP
+	// Rows holds the input scaler fitted at training time and the names
+	// of the columns (which name the features behind a score).
+	modelio.Rows
 	Threshold *anomaly.Threshold
-	// Columns names the input columns (from the training data), used to
-	// name the features behind a score.
-	Columns []string
-	// Image is the height, width and channels of image rows (nil for
-	// tabular data).
-	Image []int
 
 	pool scratch.Pool[work]
 }
@@ -97,9 +93,6 @@ func (m *Model) Width() int { return m.cfg.Inputs }
 
 // CodeWidth is the number of values in a code.
 func (m *Model) CodeWidth() int { return m.cfg.Latent }
-
-// Schema names the model's columns and, for images, their shape.
-func (m *Model) Schema() data.Schema { return data.Schema{Columns: m.Columns, Image: m.Image} }
 
 // Classes is the number of classes of the classification head (0
 // without one).

@@ -167,3 +167,19 @@ func PrecisionRecall(scores []float64, positive []bool, threshold float64) (prec
 	}
 	return precision, recall, nil
 }
+
+// CalibrateRows scores held-out normal rows with score, sets *dst to the
+// threshold Calibrate finds and returns it: the Calibrate method of the
+// models with anomaly scores.
+func CalibrateRows(dst **Threshold, score func(x []float32, rows int) ([]float64, error), normal []float32, rows int, c Config) (Threshold, error) {
+	s, err := score(normal, rows)
+	if err != nil {
+		return Threshold{}, err
+	}
+	th, err := Calibrate(s, c)
+	if err != nil {
+		return th, err
+	}
+	*dst = &th
+	return th, nil
+}

@@ -8,6 +8,9 @@ import (
 // ScaleKind names a column scaling.
 type ScaleKind string
 
+// Valid reports whether k is a known scaling.
+func (k ScaleKind) Valid() bool { return k == ScaleNone || k == ScaleStandard || k == ScaleMinMax }
+
 const (
 	// ScaleNone leaves values unchanged.
 	ScaleNone ScaleKind = "none"

@@ -136,10 +136,8 @@ func (c Config) Validate() error {
 	if !(c.LeakySlope >= 0 && c.LeakySlope < 1) {
 		return bad("leaky slope %v outside [0, 1)", c.LeakySlope)
 	}
-	switch c.Scaling {
-	case data.ScaleNone, data.ScaleStandard, data.ScaleMinMax:
-	default:
-		return bad("unknown scaling %q", c.Scaling)
+	if !c.Scaling.Valid() {
+		return bad("unknown scaling %q (want standard, minmax or none)", c.Scaling)
 	}
 	if !c.Precision.Valid() || !c.Activation.Concrete() || !c.GenOutput.Concrete() {
 		return bad("unknown precision or activation")

@@ -5,7 +5,7 @@ import (
 	"math"
 	"math/rand/v2"
 
-	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -24,9 +24,8 @@ type Model struct {
 	cfg           Config
 	Generator     *layers.MLP // Noise (+Classes) -> ... -> Outputs
 	Discriminator *layers.MLP // Pack*(Outputs+Classes) -> ... -> 1
-	Scaler        *data.Scaler
-	Columns       []string
-	Image         []int
+	// Rows holds the data scaler fitted at training time and the schema.
+	modelio.Rows
 	// SpectralU holds the power-iteration vector of each discriminator
 	// layer (nil without spectral normalisation).
 	SpectralU [][]float64
@@ -84,9 +83,6 @@ func (m *Model) Kind() string { return Kind }
 
 // Width is the number of values in a generated (or discriminated) row.
 func (m *Model) Width() int { return m.cfg.Outputs }
-
-// Schema names the model's columns and, for images, their shape.
-func (m *Model) Schema() data.Schema { return data.Schema{Columns: m.Columns, Image: m.Image} }
 
 // Params lists every parameter: generator, then discriminator.
 func (m *Model) Params() []*layers.Param {

@@ -13,6 +13,7 @@ import (
 
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/optim"
 	"github.com/quernlab/quern/vae"
@@ -153,29 +154,18 @@ func Resume(f *modelfile.File, s *Settings) (*Trainer, error) {
 	return t, nil
 }
 
-// openModel opens the model of a model file, whichever trainable kind.
+// openModel opens the model of a model file, which must be of a kind
+// this package trains.
 func openModel(f *modelfile.File) (Model, error) {
-	var m Model
-	var err error
-	switch f.Kind {
-	case ae.Kind:
-		m, err = nonNil(ae.FromFile(f))
-	case vae.Kind:
-		m, err = nonNil(vae.FromFile(f))
-	case gan.Kind:
-		m, err = nonNil(gan.FromFile(f))
-	default:
-		err = bad("cannot train a model of kind %q", f.Kind)
-	}
-	return m, err
-}
-
-// nonNil keeps a failed load's nil pointer out of the interface.
-func nonNil[M Model](m M, err error) (Model, error) {
+	m, err := model.FromFile(f)
 	if err != nil {
 		return nil, err
 	}
-	return m, nil
+	t, ok := m.(Model)
+	if !ok {
+		return nil, bad("cannot train a model of kind %q", f.Kind)
+	}
+	return t, nil
 }
 
 // resumeSettings combines the settings a checkpoint holds with the

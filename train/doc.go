@@ -1,22 +1,46 @@
-// Package train is the one training loop that ae, vae and gan share.
+// Package train trains every kind of model: autoencoders (package ae),
+// VAEs (vae) and GANs (gan). The models hold only what inference needs;
+// everything training needs beside the weights lives here, in a Trainer:
+// the compiled graphs, the optimisers, the random generators, the history
+// and any state of the kind's own.
 //
-// Run walks a dataset for a number of epochs in shuffled mini-batches drawn
-// from a seeded generator, asks the model (a Trainee) to take one step per
-// batch, evaluates a validation set after every epoch, and keeps a History.
-// It provides:
+//	m, _ := ae.New(ae.Config{Inputs: 6, Latent: 3, Seed: 1})
+//	t, _ := train.New(m, train.Settings{Epochs: 30, Patience: 5})
+//	h, err := t.Run(ctx, trainRows, validationRows)
 //
-//   - early stopping with patience (and MinDelta) on the validation loss,
-//     restoring the best epoch's weights unless KeepLast is set;
-//   - an OnStep callback with the epoch, the step, the step's metrics,
-//     samples per second and an estimate of the time left, and an OnEpoch
-//     callback that can stop training by returning an error (checkpoint
-//     writers use it);
-//   - cancellation through a context, checked between steps;
-//   - a typed *NonFiniteError naming the epoch and step at which a loss or
-//     gradient became NaN or infinite;
-//   - resumption from a saved History.
+// Settings hold what every kind shares (epochs, batch size, early
+// stopping, the Optimizer: Adam with decoupled weight decay, clipping and a
+// learning-rate schedule, the same struct for every kind) and the kind's
+// Objective: Reconstruction (input corruption, sparsity, a classification
+// head's weight), Variational (the KL weight, its schedule, free bits) or
+// Adversarial (the generator's loss, extra discriminator steps, label
+// smoothing, the warnings). Zero fields mean the documented defaults;
+// New validates them against the model's kind.
 //
-// Metrics are reported as a slice whose first entry is the loss, so that a
-// model can add its own figures (reconstruction, KL, discriminator
-// accuracy, ...) without the loop knowing them.
+// One loop runs every kind. Each epoch it shuffles the rows into batches
+// (from the model's Seed, stream.Shuffle), and for each batch runs the
+// kind's moves: a move fills one compiled graph with the batch, runs it
+// forward and backward, clips the gradients and lets its optimiser update
+// the parameters that graph differentiates. An autoencoder or a VAE has
+// one move; a GAN has a discriminator move (repeated DiscSteps times) and
+// a generator move, each of which leaves the other network's weights
+// bitwise unchanged. After each epoch the loop evaluates the validation
+// rows, keeps the History, stops early when asked (restoring the best
+// epoch's weights), and calls the callbacks. A NaN or infinite loss or
+// gradient stops training with a *NonFiniteError naming the epoch and
+// step; cancelling the context stops between steps.
+//
+// The objectives come from package losses (their graph forms); the
+// graphs are built and run by the engine, gorgonia underneath, which no
+// package outside training imports.
+//
+// Checkpoint writes a model file with the training state (optimiser
+// moments, generator states, history, typed settings); Resume continues
+// such a run bitwise as if it had never stopped, and also resumes the
+// checkpoints written before settings were stored. File writes the model
+// with a "training" section (the settings and a summary) that SummaryOf
+// reads back.
+//
+// Same seed, same data, same settings: bitwise the same model, at any
+// thread count.
 package train

@@ -113,10 +113,8 @@ func (c Config) Validate() error {
 	if !(c.OutputVariance > 0) || math.IsInf(c.OutputVariance, 0) {
 		return bad("output variance %v, want > 0", c.OutputVariance)
 	}
-	switch c.Scaling {
-	case data.ScaleNone, data.ScaleStandard, data.ScaleMinMax:
-	default:
-		return bad("unknown scaling %q", c.Scaling)
+	if !c.Scaling.Valid() {
+		return bad("unknown scaling %q (want standard, minmax or none)", c.Scaling)
 	}
 	if c.Likelihood == Bernoulli && c.Scaling == data.ScaleStandard {
 		return bad("a Bernoulli likelihood needs values in [0, 1]: use no scaling or min-max")

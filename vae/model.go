@@ -5,7 +5,7 @@ import (
 	"math/rand/v2"
 
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -32,13 +32,11 @@ type Model struct {
 	// LogVar is the learned log-variance of a Gaussian likelihood: 1 x
 	// Inputs (GaussianLearned) or 1 x 1 (GaussianShared); nil otherwise.
 	LogVar *layers.Param
-	Scaler *data.Scaler
+	// Rows holds the input scaler fitted at training time and the schema.
+	modelio.Rows
 	// Threshold, when calibrated, flags rows whose negative ELBO exceeds
 	// it (see Calibrate and Score).
 	Threshold *anomaly.Threshold
-	Columns   []string
-	// Image is the image shape of the training data, if any.
-	Image []int
 
 	pool scratch.Pool[work]
 }
@@ -85,9 +83,6 @@ func (m *Model) Width() int { return m.cfg.Inputs }
 
 // CodeWidth is the latent dimension: the width of Encode's rows.
 func (m *Model) CodeWidth() int { return m.cfg.Latent }
-
-// Schema names the model's columns and, for images, their shape.
-func (m *Model) Schema() data.Schema { return data.Schema{Columns: m.Columns, Image: m.Image} }
 
 // Params lists every parameter: encoder, decoder, then the likelihood's.
 func (m *Model) Params() []*layers.Param {

@@ -1,83 +1,57 @@
 package vae
 
 import (
-	"encoding/json"
-	"fmt"
-
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/modelfile"
 )
 
-// meta is the VAE's part of a model file's metadata.
+// meta is the VAE's part of a model file's metadata: its settings, rows,
+// density threshold and provenance.
 type meta struct {
-	Config     Config                `json:"config"`
-	Scaler     *data.Scaler          `json:"scaler,omitempty"`
+	Config Config `json:"config"`
+	modelio.Rows
 	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
-	Columns    []string              `json:"columns,omitempty"`
-	Image      []int                 `json:"image,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
+}
+
+// The loader's view of the metadata.
+func (md *meta) Settings() *Config   { return &md.Config }
+func (md *meta) Data() *modelio.Rows { return &md.Rows }
+
+// Apply gives a loaded VAE its scaler, schema and threshold.
+func (md *meta) Apply(v *Model, _ *modelfile.File) error {
+	v.Rows = md.Rows
+	v.Threshold = md.Threshold
+	return nil
+}
+
+// loader opens VAE files: the learned variance is a parameter like the
+// networks', so the shapes say everything a file must hold.
+var loader = modelio.Kind[Config, *Model]{Name: Kind, Build: New, Resolve: resolve}
+
+func resolve(c Config) (Config, modelio.Spec, error) {
+	err := c.Validate()
+	c = c.withDefaults()
+	return c, modelio.Spec{Shapes: c.paramShapes(), Precision: c.Precision, Width: c.Inputs}, err
 }
 
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	md := meta{Config: m.cfg, Scaler: m.Scaler, Threshold: m.Threshold, Columns: m.Columns, Image: m.Image, Provenance: prov}
-	b, err := json.Marshal(md)
-	if err != nil {
-		return nil, fmt.Errorf("vae: %w", err)
-	}
-	return &modelfile.File{Kind: Kind, Meta: b, Tensors: modelfile.FromParams(m.Params())}, nil
+	return modelio.File(Kind, meta{m.cfg, m.Rows, m.Threshold, prov}, m.Params())
 }
 
 // Save writes the model to path atomically.
 func (m *Model) Save(path string, prov *modelfile.Provenance) error {
-	f, err := m.File(prov)
-	if err != nil {
-		return err
-	}
-	return modelfile.Write(path, f)
+	return modelio.Save(path, m, prov)
 }
 
 // FromFile rebuilds a model from a model file (or a checkpoint, whose
 // training state it ignores). The settings are checked against the
 // tensors the file holds before anything is built.
-func FromFile(f *modelfile.File) (*Model, error) {
-	var md meta
-	if err := f.Header(Kind, &md); err != nil {
-		return nil, fmt.Errorf("vae: %w", err)
-	}
-	if err := md.Config.Validate(); err != nil {
-		return nil, err
-	}
-	cfg := md.Config.withDefaults()
-	if err := f.CheckShapes(cfg.paramShapes(), cfg.Precision); err != nil {
-		return nil, fmt.Errorf("vae: %w", err)
-	}
-	if md.Scaler != nil {
-		if err := md.Scaler.Validate(cfg.Inputs); err != nil {
-			return nil, fmt.Errorf("vae: %w", err)
-		}
-	}
-	m, err := New(cfg)
-	if err != nil {
-		return nil, err
-	}
-	if err := f.SetParams(m.Params()); err != nil {
-		return nil, fmt.Errorf("vae: %w", err)
-	}
-	if err := f.CheckNoExtra(m.Params()); err != nil {
-		return nil, fmt.Errorf("vae: %w", err)
-	}
-	m.Scaler, m.Threshold, m.Columns, m.Image = md.Scaler, md.Threshold, md.Columns, md.Image
-	return m, nil
-}
+func FromFile(f *modelfile.File) (*Model, error) { return modelio.Load(loader, f, &meta{}) }
 
-// Load reads a model file written by Save (or a checkpoint).
-func Load(path string) (*Model, error) {
-	f, err := modelfile.Read(path, 0)
-	if err != nil {
-		return nil, err
-	}
-	return FromFile(f)
-}
+// Load reads a model file written by Save (or a checkpoint, whose
+// training state is then ignored).
+func Load(path string) (*Model, error) { return modelio.Open(path, FromFile) }

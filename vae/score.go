@@ -65,16 +65,7 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 // Calibrate sets the model's threshold on the negative ELBO of held-out
 // normal rows (not used for training) and returns it.
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
-	s, err := m.NegELBO(normal, rows)
-	if err != nil {
-		return anomaly.Threshold{}, err
-	}
-	th, err := anomaly.Calibrate(s, c)
-	if err != nil {
-		return th, err
-	}
-	m.Threshold = &th
-	return th, nil
+	return anomaly.CalibrateRows(&m.Threshold, m.NegELBO, normal, rows, c)
 }
 
 // Score scores raw rows by their negative ELBO against the calibrated

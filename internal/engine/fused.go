@@ -94,13 +94,8 @@ func hashOf(s string) uint32 {
 	return h.Sum32()
 }
 
-func (bceLogitsOp) Arity() int                                        { return 2 }
-func (bceLogitsOp) Type() hm.Type                                     { return fusedType(2) }
-func (bceLogitsOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return shapeOf(in) }
-func (bceLogitsOp) DiffWRT(n int) []bool                              { return []bool{true, true} }
-
 func (op bceLogitsOp) SymDiff(inputs G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	gx, err := G.ApplyOp(bceLogitsGradOp{base("BCEWithLogitsGrad")}, inputs[0], inputs[1], grad)
+	gx, err := G.ApplyOp(bceLogitsGradOp{fused("BCEWithLogitsGrad", "tttt", shapesAgree)}, inputs[0], inputs[1], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -118,59 +113,34 @@ func (op bceLogitsOp) SymDiff(inputs G.Nodes, output, grad *G.Node) (G.Nodes, er
 func (op bceLogitsOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op bceLogitsOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, error) {
-	x, err := denseArgs(in, 2)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(prealloc, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		xs := f32(x[0])
-		ys, o := f32(x[1]), f32(out)
+	return op.elementwise(prealloc, in, 2, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		xs, ys := x[0], x[1]
 		if par.Worth(len(xs)) {
 			par.For(len(xs), func(lo, hi int) { bceLogits32(o[lo:hi], xs[lo:hi], ys[lo:hi]) })
 		} else {
 			bceLogits32(o, xs, ys)
 		}
-	case tensor.Float64:
-		xs := f64(x[0])
-		ys, o := f64(x[1]), f64(out)
+	}, func(o []float64, x [3][]float64, _ float64, _ int) {
+		xs, ys := x[0], x[1]
 		ys, o = ys[:len(xs)], o[:len(xs)]
 		for i, v := range xs {
 			o[i] = math.Max(v, 0) - v*ys[i] + math.Log1p(math.Exp(-math.Abs(v)))
 		}
-	default:
-		return nil, fmt.Errorf("engine: BCEWithLogits: unsupported type %v", x[0].Dtype())
-	}
-	return out, nil
+	})
 }
-
-func (bceLogitsGradOp) Arity() int                                        { return 3 }
-func (bceLogitsGradOp) Type() hm.Type                                     { return fusedType(3) }
-func (bceLogitsGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return shapeOf(in) }
 
 func (op bceLogitsGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Value, error) {
-	x, err := denseArgs(in, 3)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(prealloc, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		xs := f32(x[0])
-		ys, gs, o := f32(x[1]), f32(x[2]), f32(out)
+	return op.elementwise(prealloc, in, 3, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		xs, ys, gs := x[0], x[1], x[2]
 		if par.Worth(len(xs)) {
 			par.For(len(xs), func(lo, hi int) { bceLogitsGrad32(o[lo:hi], xs[lo:hi], ys[lo:hi], gs[lo:hi]) })
 		} else {
 			bceLogitsGrad32(o, xs, ys, gs)
 		}
-	case tensor.Float64:
-		xs := f64(x[0])
-		ys, gs, o := f64(x[1]), f64(x[2]), f64(out)
+	}, func(o []float64, x [3][]float64, _ float64, _ int) {
+		xs, ys, gs := x[0], x[1], x[2]
 		ys, gs, o = ys[:len(xs)], gs[:len(xs)], o[:len(xs)]
 		for i, v := range xs {
 			var s float64
@@ -182,10 +152,7 @@ func (op bceLogitsGradOp) UsePreallocDo(prealloc G.Value, in ...G.Value) (G.Valu
 			}
 			o[i] = (s - ys[i]) * gs[i]
 		}
-	default:
-		return nil, fmt.Errorf("engine: BCEWithLogitsGrad: unsupported type %v", x[0].Dtype())
-	}
-	return out, nil
+	})
 }
 
 func shapeOf(in []G.DimSizer) (tensor.Shape, error) {
@@ -232,7 +199,7 @@ func (gr *Graph) BCEWithLogits(x, y *Node) *Node {
 	if err := sameShape("bce_logits", x, y); err != nil {
 		return gr.fail("bce_logits", err)
 	}
-	n, err := G.ApplyOp(bceLogitsOp{base("BCEWithLogits")}, x.n, y.n)
+	n, err := G.ApplyOp(bceLogitsOp{fused("BCEWithLogits", "ttt", shapesAgree)}, x.n, y.n)
 	return gr.wrap("bce_logits", n, err, x.rows, x.cols)
 }
 

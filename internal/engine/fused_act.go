@@ -4,11 +4,9 @@ import (
 	"fmt"
 	"math"
 
-	"github.com/chewxy/hm"
 	"github.com/quernlab/quern/internal/kernel/par"
 	"github.com/quernlab/quern/internal/kernel/vec"
 	G "gorgonia.org/gorgonia"
-	"gorgonia.org/tensor"
 )
 
 // Fused tanh and sigmoid: one operation forward, and one backward that
@@ -39,32 +37,18 @@ type squashOp struct {
 	kind squash
 }
 
-func (squashOp) Arity() int         { return 1 }
-func (squashOp) Type() hm.Type      { return fusedType(1) }
-func (squashOp) DiffWRT(int) []bool { return []bool{true} }
-func (squashOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return shapeOf(in)
-}
-
 func (op squashOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op squashOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	t, err := tensors(in, 1)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(t[0])
-	out := op.out(p, t[0].Dtype(), r, c)
-	switch t[0].Dtype() {
-	case tensor.Float32:
-		xs, o := f32(t[0]), f32(out)
+	return op.elementwise(p, in, 1, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		xs := x[0]
 		if par.Worth(len(xs)) {
 			par.For(len(xs), func(lo, hi int) { squash32(o[lo:hi], xs[lo:hi], op.kind) })
 		} else {
 			squash32(o, xs, op.kind)
 		}
-	case tensor.Float64:
-		xs, o := f64(t[0]), f64(out)
+	}, func(o []float64, x [3][]float64, _ float64, _ int) {
+		xs := x[0]
 		o = o[:len(xs)]
 		for i, v := range xs {
 			switch op.kind {
@@ -76,10 +60,7 @@ func (op squashOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 				o[i] = math.Max(v, 0) + math.Log1p(math.Exp(-math.Abs(v)))
 			}
 		}
-	default:
-		return nil, fmt.Errorf("engine: %v of %v", op.kind, t[0].Dtype())
-	}
-	return out, nil
+	})
 }
 
 func squash32(o, xs []float32, kind squash) {
@@ -106,7 +87,7 @@ func (op squashOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
 	if op.kind == squashSoftplus {
 		from = in[0]
 	}
-	g, err := G.ApplyOp(squashGradOp{base("Grad" + op.kind.String()), op.kind}, from, grad)
+	g, err := G.ApplyOp(squashGradOp{fused("Grad"+op.kind.String(), "ttt", shapesAgree), op.kind}, from, grad)
 	if err != nil {
 		return nil, err
 	}
@@ -121,30 +102,12 @@ type squashGradOp struct {
 	kind squash
 }
 
-func (squashGradOp) Arity() int    { return 2 }
-func (squashGradOp) Type() hm.Type { return fusedType(2) }
-func (squashGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return shapeOf(in)
-}
-
 func (op squashGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op squashGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	t, err := tensors(in, 2)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(t[0])
-	out := op.out(p, t[0].Dtype(), r, c)
-	switch t[0].Dtype() {
-	case tensor.Float32:
-		squashGrad(f32(out), f32(t[0]), f32(t[1]), op.kind)
-	case tensor.Float64:
-		squashGrad(f64(out), f64(t[0]), f64(t[1]), op.kind)
-	default:
-		return nil, fmt.Errorf("engine: %v gradient of %v", op.kind, t[0].Dtype())
-	}
-	return out, nil
+	return op.elementwise(p, in, 2, false,
+		func(o []float32, x [3][]float32, _ float32, _ int) { squashGrad(o, x[0], x[1], op.kind) },
+		func(o []float64, x [3][]float64, _ float64, _ int) { squashGrad(o, x[0], x[1], op.kind) })
 }
 
 func squashGrad[T float32 | float64](o, y, g []T, kind squash) {
@@ -180,6 +143,6 @@ func (gr *Graph) squash(x *Node, kind squash) *Node {
 	if x.IsScalar() {
 		return gr.fail(kind.String(), fmt.Errorf("scalar operand"))
 	}
-	n, err := G.ApplyOp(squashOp{base(kind.String()), kind}, x.n)
+	n, err := G.ApplyOp(squashOp{fused(kind.String(), "tt", shapesAgree), kind}, x.n)
 	return gr.wrap(kind.String(), n, err, x.rows, x.cols)
 }

@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"math"
 
-	"github.com/chewxy/hm"
 	"github.com/quernlab/quern/internal/kernel/par"
 	"github.com/quernlab/quern/internal/kernel/vec"
 	G "gorgonia.org/gorgonia"
@@ -34,14 +33,6 @@ type bceSide struct {
 // the partial sums are added in order, so the loss does not depend on the
 // number of goroutines.
 const bceBlock = 4096
-
-func (bceSumOp) Arity() int { return 2 }
-
-func (bceSumOp) Type() hm.Type { return opType("tta") }
-
-func (bceSumOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return reductionShape(in) }
-
-func (bceSumOp) DiffWRT(int) []bool { return []bool{true, true} }
 
 func (op bceSumOp) Do(in ...G.Value) (G.Value, error) {
 	x, err := denseArgs(in, 2)
@@ -133,7 +124,7 @@ func bceSumBlocks32(part []float64, d, xs, ys []float32, lo, hi int) {
 }
 
 func (op bceSumOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	gx, err := G.ApplyOp(bceSumGradOp{base("BCESumGrad"), op.side}, in[0], grad, output)
+	gx, err := G.ApplyOp(bceSumGradOp{fused("BCESumGrad", "taat", firstInputShape), op.side}, in[0], grad, output)
 	if err != nil {
 		return nil, err
 	}
@@ -158,53 +149,30 @@ type bceSumGradOp struct {
 	side *bceSide
 }
 
-func (bceSumGradOp) Arity() int { return 3 }
-
-func (bceSumGradOp) Type() hm.Type { return opType("taat") }
-
-func (bceSumGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return firstShape(in) }
-
 func (op bceSumGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op bceSumGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	if len(in) != 3 {
-		return nil, fmt.Errorf("engine: BCE sum gradient wants 3 inputs, got %d", len(in))
-	}
-	x, err := denseArgs(in[:1], 1)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(p, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		k, err := upstream32(in[1], "BCE sum gradient")
-		if err != nil {
-			return nil, err
-		}
-		o, d := f32(out), op.side.d32
-		if len(d) != len(o) {
-			return nil, fmt.Errorf("engine: BCE sum gradient before its forward run")
+	var stale bool
+	out, err := op.elementwise(p, in, 1, true, func(o []float32, _ [3][]float32, k float32, _ int) {
+		d := op.side.d32
+		if stale = len(d) != len(o); stale {
+			return
 		}
 		if par.Worth(len(o)) {
 			par.For(len(o), func(lo, hi int) { scaleInto(o[lo:hi], d[lo:hi], k) })
 		} else {
 			scaleInto(o, d, k)
 		}
-	case tensor.Float64:
-		k, err := upstream64(in[1], "BCE sum gradient")
-		if err != nil {
-			return nil, err
+	}, func(o []float64, _ [3][]float64, k float64, _ int) {
+		d := op.side.d64
+		if stale = len(d) != len(o); !stale {
+			scaleInto(o, d, k)
 		}
-		o, d := f64(out), op.side.d64
-		if len(d) != len(o) {
-			return nil, fmt.Errorf("engine: BCE sum gradient before its forward run")
-		}
-		scaleInto(o, d, k)
-	default:
-		return nil, fmt.Errorf("engine: BCE sum gradient of %v", x[0].Dtype())
+	})
+	if err == nil && stale {
+		err = fmt.Errorf("engine: BCE sum gradient before its forward run")
 	}
-	return out, nil
+	return out, err
 }
 
 func scaleInto[T float32 | float64](o, d []T, k T) {
@@ -227,6 +195,6 @@ func (gr *Graph) BCEWithLogitsSum(x, y *Node) *Node {
 	if x.IsScalar() {
 		return gr.fail("bce_logits_sum", fmt.Errorf("scalar operands"))
 	}
-	n, err := G.ApplyOp(bceSumOp{base("BCEWithLogitsSum"), &bceSide{}}, x.n, y.n)
+	n, err := G.ApplyOp(bceSumOp{fused("BCEWithLogitsSum", "tta", reduction), &bceSide{}}, x.n, y.n)
 	return gr.wrap("bce_logits_sum", n, err, 0, 0)
 }

@@ -25,7 +25,24 @@ import (
 type opBase struct {
 	name  string
 	cache *outCache
+	// sig is the operation's type signature (see opType), from which
+	// Arity and Type follow, and shape its rule for InferShape; ops made
+	// with base alone answer those themselves.
+	sig   string
+	shape shapeRule
 }
+
+// shapeRule is how an operation's output shape follows from its inputs'.
+type shapeRule uint8
+
+const (
+	// shapesAgree: every matrix input has one shape, the output's.
+	shapesAgree shapeRule = iota
+	// firstInputShape: the output has the first input's shape.
+	firstInputShape
+	// reduction: matrix inputs of one shape, a scalar output.
+	reduction
+)
 
 type outCache struct {
 	t    *tensor.Dense
@@ -59,6 +76,91 @@ func (o opBase) scalar64(v float64) *G.F64 {
 }
 
 func base(name string) opBase { return opBase{name: name, cache: &outCache{}} }
+
+// fused is base with a signature and a shape rule, which give the
+// operation its Arity, Type, InferShape and DiffWRT (every input
+// differentiable: see the last trap in DEVELOPERS.md).
+func fused(name, sig string, shape shapeRule) opBase {
+	o := base(name)
+	o.sig, o.shape = sig, shape
+	return o
+}
+
+func (o opBase) Arity() int           { return len(o.sig) - 1 }
+func (o opBase) Type() hm.Type        { return opType(o.sig) }
+func (o opBase) DiffWRT(n int) []bool { return trues(n) }
+
+func (o opBase) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	switch o.shape {
+	case firstInputShape:
+		return firstShape(in)
+	case reduction:
+		return reductionShape(in)
+	}
+	var mats []G.DimSizer
+	for i, c := range o.sig[:len(o.sig)-1] {
+		if c == 't' && i < len(in) {
+			mats = append(mats, in[i])
+		}
+	}
+	return shapeOf(mats)
+}
+
+func trues(n int) []bool {
+	b := make([]bool, n)
+	for i := range b {
+		b[i] = true
+	}
+	return b
+}
+
+// elementwise is the opening every element-wise fused operation shares:
+// in holds the operation's arity of inputs, of which the first n are
+// matrices of one element type and size and, when upstream is set, the
+// next is the scalar upstream gradient g; the output takes the first
+// input's shape (rows of them) and is written by the kernel of the element
+// type.
+func (o opBase) elementwise(p G.Value, in []G.Value, n int, upstream bool,
+	k32 func(out []float32, x [3][]float32, g float32, rows int), k64 func(out []float64, x [3][]float64, g float64, rows int)) (G.Value, error) {
+	if len(in) != o.Arity() || n > 3 {
+		return nil, fmt.Errorf("engine: %s wants %d inputs, got %d", o.name, o.Arity(), len(in))
+	}
+	t, err := denseArgs(in[:n], n)
+	if err != nil {
+		return nil, err
+	}
+	r, c := dims(t[0])
+	out := o.out(p, t[0].Dtype(), r, c)
+	switch t[0].Dtype() {
+	case tensor.Float32:
+		var x [3][]float32
+		var g float32
+		for i := 0; i < n; i++ {
+			x[i] = f32(t[i])
+		}
+		if upstream {
+			if g, err = upstream32(in[n], o.name); err != nil {
+				return nil, err
+			}
+		}
+		k32(f32(out), x, g, r)
+	case tensor.Float64:
+		var x [3][]float64
+		var g float64
+		for i := 0; i < n; i++ {
+			x[i] = f64(t[i])
+		}
+		if upstream {
+			if g, err = upstream64(in[n], o.name); err != nil {
+				return nil, err
+			}
+		}
+		k64(f64(out), x, g, r)
+	default:
+		return nil, fmt.Errorf("engine: %s of %v", o.name, t[0].Dtype())
+	}
+	return out, nil
+}
 
 // out returns a rows x cols tensor of dt to write the result into: the
 // machine's preallocated register when it fits, else the node's buffer.
@@ -222,7 +324,7 @@ func (op affineOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
 		// the gradient through leaky ReLU at slope >= 0 needs only the
 		// sign bits of its input, which its output keeps (slope*x with
 		// x < 0 is negative or -0)
-		g, err := G.ApplyOp(leakyGradOp{base("Grad" + op.name), op.slope}, output, grad)
+		g, err := G.ApplyOp(leakyGradOp{fused("Grad"+op.name, "ttt", shapesAgree), op.slope}, output, grad)
 		if err != nil {
 			return nil, err
 		}
@@ -329,45 +431,24 @@ type leakyOp struct {
 }
 
 func newLeaky(slope float64) leakyOp {
-	return leakyOp{base(fmt.Sprintf("LeakyReLU(%g)", slope)), slope}
-}
-
-func (leakyOp) Arity() int         { return 1 }
-func (leakyOp) Type() hm.Type      { return fusedType(1) }
-func (leakyOp) DiffWRT(int) []bool { return []bool{true} }
-func (leakyOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return shapeOf(in)
+	return leakyOp{fused(fmt.Sprintf("LeakyReLU(%g)", slope), "tt", shapesAgree), slope}
 }
 
 func (op leakyOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op leakyOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	t, err := tensors(in, 1)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(t[0])
-	out := op.out(p, t[0].Dtype(), r, c)
-	switch t[0].Dtype() {
-	case tensor.Float32:
-		xs := f32(t[0])
-		o := f32(out)
+	return op.elementwise(p, in, 1, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		xs := x[0]
 		if par.Worth(len(xs)) {
 			par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], nil, float32(op.slope)) })
 		} else {
 			leaky(o, xs, nil, float32(op.slope))
 		}
-	case tensor.Float64:
-		xs := f64(t[0])
-		leaky(f64(out), xs, nil, op.slope)
-	default:
-		return nil, fmt.Errorf("engine: leaky ReLU of %v", t[0].Dtype())
-	}
-	return out, nil
+	}, func(o []float64, x [3][]float64, _ float64, _ int) { leaky(o, x[0], nil, op.slope) })
 }
 
 func (op leakyOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	g, err := G.ApplyOp(leakyGradOp{base("Grad" + op.name), op.slope}, in[0], grad)
+	g, err := G.ApplyOp(leakyGradOp{fused("Grad"+op.name, "ttt", shapesAgree), op.slope}, in[0], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -382,37 +463,17 @@ type leakyGradOp struct {
 	slope float64
 }
 
-func (leakyGradOp) Arity() int    { return 2 }
-func (leakyGradOp) Type() hm.Type { return fusedType(2) }
-func (leakyGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return shapeOf(in)
-}
-
 func (op leakyGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op leakyGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	t, err := tensors(in, 2)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(t[0])
-	out := op.out(p, t[0].Dtype(), r, c)
-	switch t[0].Dtype() {
-	case tensor.Float32:
-		xs := f32(t[0])
-		o, g := f32(out), f32(t[1])
+	return op.elementwise(p, in, 2, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		xs, g := x[0], x[1]
 		if par.Worth(len(xs)) {
 			par.For(len(xs), func(lo, hi int) { leaky(o[lo:hi], xs[lo:hi], g[lo:hi], float32(op.slope)) })
 		} else {
 			leaky(o, xs, g, float32(op.slope))
 		}
-	case tensor.Float64:
-		xs := f64(t[0])
-		leaky(f64(out), xs, f64(t[1]), op.slope)
-	default:
-		return nil, fmt.Errorf("engine: leaky ReLU gradient of %v", t[0].Dtype())
-	}
-	return out, nil
+	}, func(o []float64, x [3][]float64, _ float64, _ int) { leaky(o, x[0], x[1], op.slope) })
 }
 
 // addRows adds the row b to each of the rows of o (float64; float32

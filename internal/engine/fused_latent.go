@@ -63,7 +63,7 @@ func (op sliceColsOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
 }
 
 func (op sliceColsOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	g, err := G.ApplyOp(sliceColsGradOp{base(fmt.Sprintf("SliceColsGrad[%d:%d]", op.from, op.to)), op.from, op.to}, in[0], grad)
+	g, err := G.ApplyOp(sliceColsGradOp{fused(fmt.Sprintf("SliceColsGrad[%d:%d]", op.from, op.to), "ttt", firstInputShape), op.from, op.to}, in[0], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -85,10 +85,6 @@ type sliceColsGradOp struct {
 	opBase
 	from, to int
 }
-
-func (sliceColsGradOp) Arity() int                                        { return 2 }
-func (sliceColsGradOp) Type() hm.Type                                     { return fusedType(2) }
-func (sliceColsGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return firstShape(in) }
 
 func (op sliceColsGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
@@ -130,47 +126,30 @@ func placeCols[T float32 | float64](dst, src []T, r, c, from, w int) {
 // reparamOp is z = mu + exp(lv/2) * eps, element-wise.
 type reparamOp struct{ opBase }
 
-func (reparamOp) Arity() int         { return 3 }
-func (reparamOp) Type() hm.Type      { return fusedType(3) }
-func (reparamOp) DiffWRT(int) []bool { return []bool{true, true, true} }
-func (reparamOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return shapeOf(in)
-}
-
 func (op reparamOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op reparamOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	x, err := denseArgs(in, 3)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(p, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		mu, lv, eps, o := f32(x[0]), f32(x[1]), f32(x[2]), f32(out)
+	return op.elementwise(p, in, 3, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		mu, lv, eps := x[0], x[1], x[2]
 		for i, m := range mu {
 			o[i] = m + vec.Exp32(0.5*lv[i])*eps[i]
 		}
-	case tensor.Float64:
-		mu, lv, eps, o := f64(x[0]), f64(x[1]), f64(x[2]), f64(out)
+	}, func(o []float64, x [3][]float64, _ float64, _ int) {
+		mu, lv, eps := x[0], x[1], x[2]
 		for i, m := range mu {
 			o[i] = m + math.Exp(0.5*lv[i])*eps[i]
 		}
-	default:
-		return nil, fmt.Errorf("engine: reparameterised sample of %v", x[0].Dtype())
-	}
-	return out, nil
+	})
 }
 
 // SymDiff: dz/dmu is the identity, dz/dlv = eps exp(lv/2) / 2 and
 // dz/deps = exp(lv/2); the last is built but, with eps an input, never run.
 func (op reparamOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	glv, err := G.ApplyOp(reparamGradOp{base("ReparamGradLogVar"), true}, in[1], in[2], grad)
+	glv, err := G.ApplyOp(reparamGradOp{fused("ReparamGradLogVar", "tttt", shapesAgree), true}, in[1], in[2], grad)
 	if err != nil {
 		return nil, err
 	}
-	geps, err := G.ApplyOp(reparamGradOp{base("ReparamGradEps"), false}, in[1], in[2], grad)
+	geps, err := G.ApplyOp(reparamGradOp{fused("ReparamGradEps", "tttt", shapesAgree), false}, in[1], in[2], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -184,24 +163,11 @@ type reparamGradOp struct {
 	logVar bool
 }
 
-func (reparamGradOp) Arity() int    { return 3 }
-func (reparamGradOp) Type() hm.Type { return fusedType(3) }
-func (reparamGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return shapeOf(in)
-}
-
 func (op reparamGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op reparamGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	x, err := denseArgs(in, 3)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(p, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		lv, eps, g, o := f32(x[0]), f32(x[1]), f32(x[2]), f32(out)
+	return op.elementwise(p, in, 3, false, func(o []float32, x [3][]float32, _ float32, _ int) {
+		lv, eps, g := x[0], x[1], x[2]
 		for i, l := range lv {
 			s := vec.Exp32(0.5 * l)
 			if op.logVar {
@@ -210,8 +176,8 @@ func (op reparamGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error)
 				o[i] = g[i] * s
 			}
 		}
-	case tensor.Float64:
-		lv, eps, g, o := f64(x[0]), f64(x[1]), f64(x[2]), f64(out)
+	}, func(o []float64, x [3][]float64, _ float64, _ int) {
+		lv, eps, g := x[0], x[1], x[2]
 		for i, l := range lv {
 			s := math.Exp(0.5 * l)
 			if op.logVar {
@@ -220,10 +186,7 @@ func (op reparamGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error)
 				o[i] = g[i] * s
 			}
 		}
-	default:
-		return nil, fmt.Errorf("engine: reparameterised sample gradient of %v", x[0].Dtype())
-	}
-	return out, nil
+	})
 }
 
 // klOp is the KL divergence of N(mu, exp(lv)) from N(0, 1), summed over
@@ -232,14 +195,6 @@ func (op reparamGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error)
 // example's diagonal Gaussian from the standard normal. Each element
 // contributes (mu^2 + exp(lv) - 1 - lv) / 2.
 type klOp struct{ opBase }
-
-func (klOp) Arity() int { return 2 }
-
-func (klOp) Type() hm.Type { return opType("tta") }
-
-func (klOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return reductionShape(in) }
-
-func (klOp) DiffWRT(int) []bool { return []bool{true, true} }
 
 func (op klOp) Do(in ...G.Value) (G.Value, error) {
 	x, err := denseArgs(in, 2)
@@ -272,11 +227,11 @@ func (op klOp) Do(in ...G.Value) (G.Value, error) {
 }
 
 func (op klOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	gmu, err := G.ApplyOp(klGradOp{base("KLGradMean"), false}, in[0], grad)
+	gmu, err := G.ApplyOp(klGradOp{fused("KLGradMean", "tat", firstInputShape), false}, in[0], grad)
 	if err != nil {
 		return nil, err
 	}
-	glv, err := G.ApplyOp(klGradOp{base("KLGradLogVar"), true}, in[1], grad)
+	glv, err := G.ApplyOp(klGradOp{fused("KLGradLogVar", "tat", firstInputShape), true}, in[1], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -291,57 +246,28 @@ type klGradOp struct {
 	logVar bool
 }
 
-func (klGradOp) Arity() int { return 2 }
-
-func (klGradOp) Type() hm.Type { return opType("tat") }
-
-func (klGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return firstShape(in) }
-
 func (op klGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op klGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	if len(in) != 2 {
-		return nil, fmt.Errorf("engine: KL gradient wants 2 inputs, got %d", len(in))
-	}
-	x, err := denseArgs(in[:1], 1)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(p, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		g, err := upstream32(in[1], "KL gradient")
-		if err != nil {
-			return nil, err
-		}
-		k := g / float32(r)
-		v, o := f32(x[0]), f32(out)
-		for i, e := range v {
+	return op.elementwise(p, in, 1, true, func(o []float32, x [3][]float32, g float32, rows int) {
+		k := g / float32(rows)
+		for i, e := range x[0] {
 			if op.logVar {
 				o[i] = k * 0.5 * (vec.Exp32(e) - 1)
 			} else {
 				o[i] = k * e
 			}
 		}
-	case tensor.Float64:
-		g, err := upstream64(in[1], "KL gradient")
-		if err != nil {
-			return nil, err
-		}
-		k := g / float64(r)
-		v, o := f64(x[0]), f64(out)
-		for i, e := range v {
+	}, func(o []float64, x [3][]float64, g float64, rows int) {
+		k := g / float64(rows)
+		for i, e := range x[0] {
 			if op.logVar {
 				o[i] = k * 0.5 * (math.Exp(e) - 1)
 			} else {
 				o[i] = k * e
 			}
 		}
-	default:
-		return nil, fmt.Errorf("engine: KL gradient of %v", x[0].Dtype())
-	}
-	return out, nil
+	})
 }
 
 // Reparameterise is z = mu + exp(lv/2) * eps, one fused operation whose
@@ -357,7 +283,7 @@ func (gr *Graph) Reparameterise(mu, lv, eps *Node) *Node {
 	if err := sameShape("reparameterise", mu, eps); err != nil {
 		return gr.fail("reparameterise", err)
 	}
-	n, err := G.ApplyOp(reparamOp{base("Reparam")}, mu.n, lv.n, eps.n)
+	n, err := G.ApplyOp(reparamOp{fused("Reparam", "tttt", shapesAgree)}, mu.n, lv.n, eps.n)
 	return gr.wrap("reparameterise", n, err, mu.rows, mu.cols)
 }
 
@@ -375,6 +301,6 @@ func (gr *Graph) KLStdNormal(mu, lv *Node) *Node {
 	if mu.IsScalar() {
 		return gr.fail("kl", fmt.Errorf("scalar operands"))
 	}
-	n, err := G.ApplyOp(klOp{base("KLStdNormal")}, mu.n, lv.n)
+	n, err := G.ApplyOp(klOp{fused("KLStdNormal", "tta", reduction)}, mu.n, lv.n)
 	return gr.wrap("kl", n, err, 0, 0)
 }

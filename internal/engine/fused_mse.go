@@ -6,7 +6,6 @@ import (
 	"github.com/quernlab/quern/internal/kernel/par"
 	"github.com/quernlab/quern/internal/kernel/vec"
 
-	"github.com/chewxy/hm"
 	G "gorgonia.org/gorgonia"
 	"gorgonia.org/tensor"
 )
@@ -21,16 +20,8 @@ type mseOp struct{ opBase }
 // mseGradOp computes 2 (p - t) / N * g for the scalar upstream gradient g.
 type mseGradOp struct{ opBase }
 
-func (mseOp) Arity() int { return 2 }
-
-func (mseOp) Type() hm.Type { return opType("tta") }
-
-func (mseOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) { return reductionShape(in) }
-
-func (mseOp) DiffWRT(int) []bool { return []bool{true, true} }
-
 func (op mseOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	gp, err := G.ApplyOp(mseGradOp{base("MSEGrad")}, in[0], in[1], grad)
+	gp, err := G.ApplyOp(mseGradOp{fused("MSEGrad", "ttat", shapesAgree)}, in[0], in[1], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -124,10 +115,6 @@ func sqErr[T float32 | float64](p, t []T) float64 {
 	return s
 }
 
-func (mseGradOp) Arity() int { return 3 }
-
-func (mseGradOp) Type() hm.Type { return opType("ttat") }
-
 func (mseGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
 	if len(in) != 3 {
 		return nil, fmt.Errorf("engine: MSE gradient wants 3 inputs")
@@ -138,39 +125,17 @@ func (mseGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
 func (op mseGradOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op mseGradOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	if len(in) != 3 {
-		return nil, fmt.Errorf("engine: MSE gradient wants 3 inputs, got %d", len(in))
-	}
-	x, err := denseArgs(in[:2], 2)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(p, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		ps := f32(x[0])
-		g, err := upstream32(in[2], "MSE gradient")
-		if err != nil {
-			return nil, err
-		}
-		o, ts, k := f32(out), f32(x[1]), 2*g/float32(len(ps))
+	return op.elementwise(p, in, 2, true, func(o []float32, x [3][]float32, g float32, _ int) {
+		ps, ts := x[0], x[1]
+		k := 2 * g / float32(len(ps))
 		if par.Worth(len(ps)) {
 			par.For(len(ps), func(lo, hi int) { mseGrad(o[lo:hi], ps[lo:hi], ts[lo:hi], k) })
 		} else {
 			mseGrad(o, ps, ts, k)
 		}
-	case tensor.Float64:
-		ps := f64(x[0])
-		g, err := upstream64(in[2], "MSE gradient")
-		if err != nil {
-			return nil, err
-		}
-		mseGrad(f64(out), ps, f64(x[1]), 2*g/float64(len(ps)))
-	default:
-		return nil, fmt.Errorf("engine: MSE gradient of %v", x[0].Dtype())
-	}
-	return out, nil
+	}, func(o []float64, x [3][]float64, g float64, _ int) {
+		mseGrad(o, x[0], x[1], 2*g/float64(len(x[0])))
+	})
 }
 
 func mseGrad[T float32 | float64](o, p, t []T, k T) {
@@ -192,6 +157,6 @@ func (gr *Graph) MSE(p, t *Node) *Node {
 	if err := sameShape("mse", p, t); err != nil {
 		return gr.fail("mse", err)
 	}
-	n, err := G.ApplyOp(mseOp{base("MSE")}, p.n, t.n)
+	n, err := G.ApplyOp(mseOp{fused("MSE", "tta", reduction)}, p.n, t.n)
 	return gr.wrap("mse", n, err, 0, 0)
 }

@@ -18,13 +18,6 @@ import (
 // additions) in one goroutine.
 type sumAllOp struct{ opBase }
 
-func (sumAllOp) Arity() int         { return 1 }
-func (sumAllOp) Type() hm.Type      { return opType("ta") }
-func (sumAllOp) DiffWRT(int) []bool { return []bool{true} }
-func (sumAllOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return reductionShape(in)
-}
-
 func (op sumAllOp) Do(in ...G.Value) (G.Value, error) {
 	x, err := denseArgs(in, 1)
 	if err != nil {
@@ -40,7 +33,7 @@ func (op sumAllOp) Do(in ...G.Value) (G.Value, error) {
 }
 
 func (op sumAllOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
-	g, err := G.ApplyOp(fillOp{base("SumGrad")}, in[0], grad)
+	g, err := G.ApplyOp(fillOp{fused("SumGrad", "tat", firstInputShape)}, in[0], grad)
 	if err != nil {
 		return nil, err
 	}
@@ -67,47 +60,18 @@ func sum4[T float32 | float64](v []T) float64 {
 // input 1: the gradient of a sum.
 type fillOp struct{ opBase }
 
-func (fillOp) Arity() int    { return 2 }
-func (fillOp) Type() hm.Type { return opType("tat") }
-func (fillOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
-	return firstShape(in)
-}
-
 func (op fillOp) Do(in ...G.Value) (G.Value, error) { return op.UsePreallocDo(nil, in...) }
 
 func (op fillOp) UsePreallocDo(p G.Value, in ...G.Value) (G.Value, error) {
-	if len(in) != 2 {
-		return nil, fmt.Errorf("engine: fill wants 2 inputs, got %d", len(in))
-	}
-	x, err := denseArgs(in[:1], 1)
-	if err != nil {
-		return nil, err
-	}
-	r, c := dims(x[0])
-	out := op.out(p, x[0].Dtype(), r, c)
-	switch x[0].Dtype() {
-	case tensor.Float32:
-		g, err := upstream32(in[1], "sum gradient")
-		if err != nil {
-			return nil, err
-		}
-		o := f32(out)
+	return op.elementwise(p, in, 1, true, func(o []float32, _ [3][]float32, g float32, _ int) {
 		for i := range o {
 			o[i] = g
 		}
-	case tensor.Float64:
-		g, err := upstream64(in[1], "sum gradient")
-		if err != nil {
-			return nil, err
-		}
-		o := f64(out)
+	}, func(o []float64, _ [3][]float64, g float64, _ int) {
 		for i := range o {
 			o[i] = g
 		}
-	default:
-		return nil, fmt.Errorf("engine: fill of %v", x[0].Dtype())
-	}
-	return out, nil
+	})
 }
 
 // scalarOp is arithmetic on scalars: a+b, a-b, a*b, or c*a.

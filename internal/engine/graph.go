@@ -440,7 +440,7 @@ func (gr *Graph) Sum(x *Node) *Node {
 	if x.IsScalar() {
 		return x
 	}
-	n, err := G.ApplyOp(sumAllOp{base("SumAll")}, x.n)
+	n, err := G.ApplyOp(sumAllOp{fused("SumAll", "ta", reduction)}, x.n)
 	return gr.wrap("sum", n, err, 0, 0)
 }
 

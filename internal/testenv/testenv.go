@@ -1,8 +1,3 @@
-// Package testenv holds what the tests of several packages share: whether
-// the race detector is on, the committed data sets and the model files
-// under testdata/compat. (Training a model in one call, which needs
-// package train, is package trainenv: the models' own tests cannot import
-// train.)
 package testenv
 
 import (

@@ -1,0 +1,162 @@
+package modelio
+
+import (
+	"encoding/json"
+	"fmt"
+
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/modelfile"
+)
+
+// Rows is what every model keeps of the data it was trained on: the
+// scaler fitted then, the names of the columns and, for images, their
+// shape. The kinds embed it; its fields are metadata keys of their own.
+type Rows struct {
+	// Scaler maps raw rows to the scale the networks work in (nil: none).
+	Scaler *data.Scaler `json:"scaler,omitempty"`
+	// Columns names the columns (from the training data).
+	Columns []string `json:"columns,omitempty"`
+	// Image is the height, width and channels of image rows (nil for
+	// tabular data).
+	Image []int `json:"image,omitempty"`
+}
+
+// Schema names the columns and, for images, their shape.
+func (r *Rows) Schema() data.Schema { return data.Schema{Columns: r.Columns, Image: r.Image} }
+
+// File makes the model file of a kind: meta (a struct marshalling to the
+// metadata object) and the parameters, then any extra tensors.
+func File(kind string, meta any, params []*layers.Param, extra ...modelfile.Tensor) (*modelfile.File, error) {
+	b, err := json.Marshal(meta)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", kind, err)
+	}
+	return &modelfile.File{Kind: kind, Meta: b, Tensors: append(modelfile.FromParams(params), extra...)}, nil
+}
+
+// Spec is what a loader checks of a file before building its model: the
+// parameters the settings imply, their precision, and the width the
+// stored scaler must fit.
+type Spec struct {
+	Shapes    []layers.ParamShape
+	Precision layers.Precision
+	Width     int
+}
+
+// Check reports a file whose tensors or scaler do not fit the model its
+// settings describe, so that nothing is built for a file whose settings
+// promise more than it holds.
+func Check(kind string, f *modelfile.File, s Spec, rows Rows) error {
+	if err := f.CheckShapes(s.Shapes, s.Precision); err != nil {
+		return fmt.Errorf("%s: %w", kind, err)
+	}
+	if rows.Scaler != nil {
+		if err := rows.Scaler.Validate(s.Width); err != nil {
+			return fmt.Errorf("%s: %w", kind, err)
+		}
+	}
+	return nil
+}
+
+// Fill copies the file's tensors into the built model's parameters and
+// refuses a tensor that is neither a parameter, nor training state, nor
+// under one of the allowed prefixes.
+func Fill(kind string, f *modelfile.File, params []*layers.Param, allowed ...string) error {
+	if err := f.SetParams(params); err != nil {
+		return fmt.Errorf("%s: %w", kind, err)
+	}
+	if err := f.CheckNoExtra(params, allowed...); err != nil {
+		return fmt.Errorf("%s: %w", kind, err)
+	}
+	return nil
+}
+
+// Header decodes a file's metadata into meta after checking that it holds
+// a model of the kind.
+func Header(kind string, f *modelfile.File, meta any) error {
+	if err := f.Header(kind, meta); err != nil {
+		return fmt.Errorf("%s: %w", kind, err)
+	}
+	return nil
+}
+
+// Kind is a model kind as the shared loader sees it: how to validate its
+// settings (filling the defaults) and say what a file must hold for them,
+// and how to build a model from them.
+type Kind[C any, M Built] struct {
+	Name    string
+	Resolve func(C) (C, Spec, error)
+	Build   func(C) (M, error)
+	// Allowed lists tensor name prefixes of the kind's own besides its
+	// parameters.
+	Allowed []string
+}
+
+// Built is a model as the loader fills it.
+type Built interface {
+	Params() []*layers.Param
+}
+
+// Meta is a kind's metadata struct as the loader sees it (a pointer to
+// it): its settings, its rows, and what it gives the built model.
+type Meta[C, M any] interface {
+	Settings() *C
+	Data() *Rows
+	// Apply copies the rest of the metadata (and any tensors of the
+	// kind's own) into the built model.
+	Apply(m M, f *modelfile.File) error
+}
+
+// Load reads a model of the kind from f: it decodes the metadata into md,
+// validates the settings, checks the file's tensors and scaler against
+// them, then builds the model, fills its parameters and lets md apply the
+// rest.
+func Load[C any, M Built](k Kind[C, M], f *modelfile.File, md Meta[C, M]) (M, error) {
+	var zero M
+	if err := Header(k.Name, f, md); err != nil {
+		return zero, err
+	}
+	c, spec, err := k.Resolve(*md.Settings())
+	if err != nil {
+		return zero, err
+	}
+	if err := Check(k.Name, f, spec, *md.Data()); err != nil {
+		return zero, err
+	}
+	m, err := k.Build(c)
+	if err != nil {
+		return zero, err
+	}
+	if err := Fill(k.Name, f, m.Params(), k.Allowed...); err != nil {
+		return zero, err
+	}
+	if err := md.Apply(m, f); err != nil {
+		return zero, err
+	}
+	return m, nil
+}
+
+// Saver is a model that converts itself to a model file.
+type Saver interface {
+	File(prov *modelfile.Provenance) (*modelfile.File, error)
+}
+
+// Save writes m to path atomically.
+func Save(path string, m Saver, prov *modelfile.Provenance) error {
+	f, err := m.File(prov)
+	if err != nil {
+		return err
+	}
+	return modelfile.Write(path, f)
+}
+
+// Open reads the model file at path with a kind's FromFile.
+func Open[M any](path string, fromFile func(*modelfile.File) (M, error)) (M, error) {
+	f, err := modelfile.Read(path, 0)
+	if err != nil {
+		var zero M
+		return zero, err
+	}
+	return fromFile(f)
+}
