@@ -320,77 +320,86 @@ func unable(w http.ResponseWriter, m *Loaded, what, kinds string) {
 	writeError(w, http.StatusUnprocessableEntity, "%s needs %s; the served model is of kind %q", what, kinds, m.Kind())
 }
 
+// capability returns the served model as capability C, or answers 422
+// naming what the request needs.
+func capability[C any](w http.ResponseWriter, m *Loaded, what, needs string) (C, bool) {
+	c, ok := m.Model.(C)
+	if !ok {
+		unable(w, m, what, needs)
+	}
+	return c, ok
+}
+
+// answerRows decodes a rows request for the served model, runs f on its
+// rows and answers with f's result as JSON, or 400 with f's error.
+func (s *Server) answerRows(w http.ResponseWriter, r *http.Request, m *Loaded, f func(x []float32, n int, req *rowsRequest) (any, error)) {
+	req, x, ok := s.decodeRows(w, r, m.Model.Width())
+	if !ok {
+		return
+	}
+	v, err := f(x, len(req.Rows), req)
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
+	writeJSON(w, http.StatusOK, v)
+}
+
 func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	sc, ok := m.Model.(model.Scorer)
+	sc, ok := capability[model.Scorer](w, m, "scoring", "a model with anomaly scores (an autoencoder or a VAE)")
 	if !ok {
-		unable(w, m, "scoring", "a model with anomaly scores (an autoencoder or a VAE)")
 		return
 	}
 	if sc.Calibrated() == nil {
 		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold")
 		return
 	}
-	req, x, ok := s.decodeRows(w, r, m.Model.Width())
-	if !ok {
-		return
-	}
-	top := req.Top
-	if top <= 0 {
-		top = 3
-	}
-	res, err := sc.Score(x, len(req.Rows), top)
-	if err != nil {
-		writeError(w, http.StatusBadRequest, "%v", err)
-		return
-	}
-	flagged := 0
-	for _, sc := range res {
-		if sc.Anomaly {
-			flagged++
+	s.answerRows(w, r, m, func(x []float32, n int, req *rowsRequest) (any, error) {
+		top := req.Top
+		if top <= 0 {
+			top = 3
 		}
-	}
-	s.m.scored.Add(uint64(len(res)))
-	s.m.flagged.Add(uint64(flagged))
-	writeJSON(w, http.StatusOK, scoreResponse{Results: res, Caution: anomaly.Caution})
+		res, err := sc.Score(x, n, top)
+		if err != nil {
+			return nil, err
+		}
+		flagged := 0
+		for _, sc := range res {
+			if sc.Anomaly {
+				flagged++
+			}
+		}
+		s.m.scored.Add(uint64(len(res)))
+		s.m.flagged.Add(uint64(flagged))
+		return scoreResponse{Results: res, Caution: anomaly.Caution}, nil
+	})
 }
 
 func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	enc, ok := m.Model.(model.Encoder)
-	if !ok {
-		unable(w, m, "encoding", "a model with codes (an autoencoder or a VAE)")
-		return
+	if enc, ok := capability[model.Encoder](w, m, "encoding", "a model with codes (an autoencoder or a VAE)"); ok {
+		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest) (any, error) {
+			codes, err := enc.Encode(x, n)
+			if err != nil {
+				return nil, err
+			}
+			return map[string]any{"codes": chunk(codes, n, enc.CodeWidth())}, nil
+		})
 	}
-	req, x, ok := s.decodeRows(w, r, m.Model.Width())
-	if !ok {
-		return
-	}
-	codes, err := enc.Encode(x, len(req.Rows))
-	if err != nil {
-		writeError(w, http.StatusBadRequest, "%v", err)
-		return
-	}
-	writeJSON(w, http.StatusOK, map[string]any{"codes": chunk(codes, len(req.Rows), enc.CodeWidth())})
 }
 
 func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	rec, ok := m.Model.(model.Reconstructor)
-	if !ok {
-		unable(w, m, "reconstruction", "an autoencoder or a VAE")
-		return
+	if rec, ok := capability[model.Reconstructor](w, m, "reconstruction", "an autoencoder or a VAE"); ok {
+		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest) (any, error) {
+			out, err := rec.Reconstruct(x, n)
+			if err != nil {
+				return nil, err
+			}
+			return map[string]any{"rows": chunk(out, n, m.Model.Width())}, nil
+		})
 	}
-	req, x, ok := s.decodeRows(w, r, m.Model.Width())
-	if !ok {
-		return
-	}
-	out, err := rec.Reconstruct(x, len(req.Rows))
-	if err != nil {
-		writeError(w, http.StatusBadRequest, "%v", err)
-		return
-	}
-	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, len(req.Rows), m.Model.Width())})
 }
 
 type sampleRequest struct {
@@ -401,9 +410,8 @@ type sampleRequest struct {
 
 func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
-	smp, ok := m.Model.(model.Sampler)
+	smp, ok := capability[model.Sampler](w, m, "sampling", "a generative model (a VAE or a GAN)")
 	if !ok {
-		unable(w, m, "sampling", "a generative model (a VAE or a GAN)")
 		return
 	}
 	var req sampleRequest

@@ -50,6 +50,25 @@ func (l *loaded) cannot(command, needs string) error {
 	return fmt.Errorf("%s needs %s; %s holds a model of kind %q", command, needs, l.path, l.model.Kind())
 }
 
+// openAs loads the model file of a command that reads from or writes to
+// other files (paths: flag name to path, -model among them) and asks the
+// model for the capability C the command needs.
+func openAs[C any](command, needs string, paths map[string]string) (*loaded, C, error) {
+	var c C
+	if err := distinctPaths(paths); err != nil {
+		return nil, c, err
+	}
+	l, err := loadModel(paths["-model"])
+	if err != nil {
+		return nil, c, err
+	}
+	c, ok := l.model.(C)
+	if !ok {
+		return nil, c, l.cannot(command, needs)
+	}
+	return l, c, nil
+}
+
 // loadRows loads the data flags' rows for the model: by its column names
 // where the file has a header.
 func (l *loaded) loadRows(d *dataFlags) (*data.Dataset, error) {
@@ -110,16 +129,10 @@ func cmdScore(e *env, args []string) error {
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	if err := distinctPaths(map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath}); err != nil {
-		return err
-	}
-	l, err := loadModel(*modelPath)
+	l, sc, err := openAs[model.Scorer]("score", "a model with anomaly scores (an autoencoder or a VAE)",
+		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
-	}
-	sc, ok := l.model.(model.Scorer)
-	if !ok {
-		return l.cannot("score", "a model with anomaly scores (an autoencoder or a VAE)")
 	}
 	th := sc.Calibrated()
 	if th == nil {
@@ -179,16 +192,10 @@ func cmdEncode(e *env, args []string) error {
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	if err := distinctPaths(map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath}); err != nil {
-		return err
-	}
-	l, err := loadModel(*modelPath)
+	l, enc, err := openAs[model.Encoder]("encode", "a model with codes (an autoencoder or a VAE)",
+		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
-	}
-	enc, ok := l.model.(model.Encoder)
-	if !ok {
-		return l.cannot("encode", "a model with codes (an autoencoder or a VAE)")
 	}
 	ds, err := l.loadRows(&d)
 	if err != nil {
@@ -249,16 +256,9 @@ func cmdSample(e *env, args []string) error {
 	if *n <= 0 || *n > 1_000_000 {
 		return usagef("-n must be in 1..1000000")
 	}
-	if err := distinctPaths(map[string]string{"-out": *out, "-model": *modelPath}); err != nil {
-		return err
-	}
-	l, err := loadModel(*modelPath)
+	l, smp, err := openAs[model.Sampler]("sample", "a generative model (a VAE or a GAN)", map[string]string{"-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
-	}
-	smp, ok := l.model.(model.Sampler)
-	if !ok {
-		return l.cannot("sample", "a generative model (a VAE or a GAN)")
 	}
 	var x []float32
 	if *class != -1 {
@@ -292,16 +292,10 @@ func cmdInterpolate(e *env, args []string) error {
 	if *steps < 2 || *steps > 10000 {
 		return usagef("-steps must be in 2..10000")
 	}
-	if err := distinctPaths(map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath}); err != nil {
-		return err
-	}
-	l, err := loadModel(*modelPath)
+	l, ip, err := openAs[model.Interpolator]("interpolate", "a model with a latent space to walk (a VAE)",
+		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
-	}
-	ip, ok := l.model.(model.Interpolator)
-	if !ok {
-		return l.cannot("interpolate", "a model with a latent space to walk (a VAE)")
 	}
 	ds, err := l.loadRows(&d)
 	if err != nil {

@@ -213,27 +213,25 @@ func (gr *Graph) MatMul(a, b *Node) *Node {
 }
 
 // AddRow adds the 1 x cols row r to every row of x.
-func (gr *Graph) AddRow(x, r *Node) *Node {
-	if !gr.ok(x, r) {
-		return &Node{g: gr}
-	}
-	if r.rows != 1 || r.cols != x.cols {
-		return gr.fail("addrow", fmt.Errorf("row %dx%d does not fit %dx%d", r.rows, r.cols, x.rows, x.cols))
-	}
-	n, err := G.BroadcastAdd(x.n, r.n, nil, []byte{0})
-	return gr.wrap("addrow", n, err, x.rows, x.cols)
-}
+func (gr *Graph) AddRow(x, r *Node) *Node { return gr.broadcast("addrow", x, r, 0, G.BroadcastAdd) }
 
 // MulRow multiplies every row of x element-wise by the 1 x cols row r.
 func (gr *Graph) MulRow(x, r *Node) *Node {
-	if !gr.ok(x, r) {
+	return gr.broadcast("mulrow", x, r, 0, G.BroadcastHadamardProd)
+}
+
+// broadcast applies op to x and v, a 1 x cols row (axis 0) or a rows x 1
+// column (axis 1) repeated along that axis to x's shape.
+func (gr *Graph) broadcast(name string, x, v *Node, axis byte, op func(a, b *G.Node, l, r []byte) (*G.Node, error)) *Node {
+	if !gr.ok(x, v) {
 		return &Node{g: gr}
 	}
-	if r.rows != 1 || r.cols != x.cols {
-		return gr.fail("mulrow", fmt.Errorf("row %dx%d does not fit %dx%d", r.rows, r.cols, x.rows, x.cols))
+	if axis == 0 && (v.rows != 1 || v.cols != x.cols) || axis == 1 && (v.cols != 1 || v.rows != x.rows) {
+		what := map[byte]string{0: "row", 1: "column"}[axis]
+		return gr.fail(name, fmt.Errorf("%s %dx%d does not fit %dx%d", what, v.rows, v.cols, x.rows, x.cols))
 	}
-	n, err := G.BroadcastHadamardProd(x.n, r.n, nil, []byte{0})
-	return gr.wrap("mulrow", n, err, x.rows, x.cols)
+	n, err := op(x.n, v.n, nil, []byte{axis})
+	return gr.wrap(name, n, err, x.rows, x.cols)
 }
 
 func (gr *Graph) binary(op string, a, b *Node, f func(a, b *G.Node) (*G.Node, error)) *Node {
@@ -528,27 +526,11 @@ func DropoutInputs(m *layers.MLP) []*Input {
 }
 
 // SubCol subtracts the rows x 1 column c from every column of x.
-func (gr *Graph) SubCol(x, c *Node) *Node {
-	if !gr.ok(x, c) {
-		return &Node{g: gr}
-	}
-	if c.cols != 1 || c.rows != x.rows {
-		return gr.fail("subcol", fmt.Errorf("column %dx%d does not fit %dx%d", c.rows, c.cols, x.rows, x.cols))
-	}
-	n, err := G.BroadcastSub(x.n, c.n, nil, []byte{1})
-	return gr.wrap("subcol", n, err, x.rows, x.cols)
-}
+func (gr *Graph) SubCol(x, c *Node) *Node { return gr.broadcast("subcol", x, c, 1, G.BroadcastSub) }
 
 // MulCol multiplies every column of x element-wise by the rows x 1 column c.
 func (gr *Graph) MulCol(x, c *Node) *Node {
-	if !gr.ok(x, c) {
-		return &Node{g: gr}
-	}
-	if c.cols != 1 || c.rows != x.rows {
-		return gr.fail("mulcol", fmt.Errorf("column %dx%d does not fit %dx%d", c.rows, c.cols, x.rows, x.cols))
-	}
-	n, err := G.BroadcastHadamardProd(x.n, c.n, nil, []byte{1})
-	return gr.wrap("mulcol", n, err, x.rows, x.cols)
+	return gr.broadcast("mulcol", x, c, 1, G.BroadcastHadamardProd)
 }
 
 // MaxCols is the largest value of each row, as a rows x 1 column.

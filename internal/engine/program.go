@@ -427,43 +427,30 @@ func anyNonFinite(g []float32) bool {
 func copyGrad(q *layers.Param, gv G.Value, acc bool) error {
 	switch gv.Dtype() {
 	case tensor.Float32:
-		d := f32(gv)
-		dst := q.Grad32()
-		if len(d) != len(dst) {
-			return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
-		}
-		for i, v := range d {
-			if v-v != 0 {
-				return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
-			}
-		}
-		if acc {
-			for i, v := range d {
-				dst[i] += v
-			}
-		} else {
-			copy(dst, d)
-		}
+		return copyGradInto(q, q.Grad32(), f32(gv), acc)
 	case tensor.Float64:
-		d := f64(gv)
-		dst := q.Grad64()
-		if len(d) != len(dst) {
-			return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
+		return copyGradInto(q, q.Grad64(), f64(gv), acc)
+	}
+	return fmt.Errorf("engine: gradient of %q has type %v", q.Name(), gv.Dtype())
+}
+
+// copyGradInto copies (or with acc adds) the gradient d into q's buffer
+// dst, refusing a NaN or infinity.
+func copyGradInto[T float32 | float64](q *layers.Param, dst, d []T, acc bool) error {
+	if len(d) != len(dst) {
+		return fmt.Errorf("engine: gradient of %q has %d values, want %d", q.Name(), len(d), len(dst))
+	}
+	for i, v := range d {
+		if v-v != 0 {
+			return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
 		}
+	}
+	if acc {
 		for i, v := range d {
-			if v-v != 0 {
-				return fmt.Errorf("engine: gradient of %q is %v at %d: %w", q.Name(), v, i, ErrNonFinite)
-			}
+			dst[i] += v
 		}
-		if acc {
-			for i, v := range d {
-				dst[i] += v
-			}
-		} else {
-			copy(dst, d)
-		}
-	default:
-		return fmt.Errorf("engine: gradient of %q has type %v", q.Name(), gv.Dtype())
+	} else {
+		copy(dst, d)
 	}
 	return nil
 }
