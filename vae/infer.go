@@ -471,13 +471,13 @@ func repeatRows(x []float64, rows, cols, times int) []float64 {
 }
 
 // draw encodes raw rows, draws samples reparameterised latent vectors per
-// row from a generator seeded by (seed, stream) and returns the posterior
+// row from a generator seeded by (seed, streamID) and returns the posterior
 // parameters, the draws with their eps, and log p(x|z) for each draw.
 type draw struct {
 	mu, lv, z, eps, logLik []float64
 }
 
-func (m *Model) draw(x []float32, rows, samples int, seed, stream uint64) (*draw, error) {
+func (m *Model) draw(x []float32, rows, samples int, seed, streamID uint64) (*draw, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
 	}
@@ -488,7 +488,7 @@ func (m *Model) draw(x []float32, rows, samples int, seed, stream uint64) (*draw
 	if err != nil {
 		return nil, err
 	}
-	z, eps := draws(mu, lv, rows, m.cfg.Latent, samples, rand.New(rand.NewPCG(seed, stream)))
+	z, eps := draws(mu, lv, rows, m.cfg.Latent, samples, rand.New(rand.NewPCG(seed, streamID)))
 	out, err := m.forward(&w.ws2, m.Decoder, z, rows*samples)
 	if err != nil {
 		return nil, err

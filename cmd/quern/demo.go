@@ -14,6 +14,7 @@ import (
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/demo/fleet"
+	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/report"
@@ -59,7 +60,7 @@ func cmdDemo(e *env, args []string) error {
 		return err
 	}
 	// healthy history: 80% to train, 20% held out to calibrate the threshold
-	trainSet, calib, err := history.Split(0.2, rand.New(rand.NewPCG(*seed, 7)))
+	trainSet, calib, err := history.Split(0.2, rand.New(rand.NewPCG(*seed, stream.Split)))
 	if err != nil {
 		return err
 	}

@@ -86,7 +86,8 @@ func TestTrainScoreEncodeInspectCSV(t *testing.T) {
 	scores, err := data.LoadCSV(filepath.Join(dir, "scores.csv"), data.CSVConfig{Columns: []string{"row", "score", "threshold"}})
 	require.NoError(t, err)
 	require.Equal(t, 569, scores.Rows)
-	head, _ := os.ReadFile(filepath.Join(dir, "scores.csv"))
+	head, err := os.ReadFile(filepath.Join(dir, "scores.csv"))
+	require.NoError(t, err)
 	require.True(t, strings.HasPrefix(string(head), "row,score,threshold,anomaly,feature1,share1"))
 	r = ok(t, quern(t, dir, nil, "encode", "-model", "bc.qm", "-data", bc, "-no-header", "-skip", "1", "-label", "c30"))
 	require.Equal(t, 570, strings.Count(r.stdout, "\n"))
@@ -285,8 +286,10 @@ func TestResumeAfterKill(t *testing.T) {
 		t.Skip("the run ended before a checkpoint appeared")
 	}
 	ok(t, quern(t, killed, nil, "train", "-resume", "m.qm.ckpt", "-quiet"))
-	a, _ := os.ReadFile(filepath.Join(straight, "m.qm"))
-	b, _ := os.ReadFile(filepath.Join(killed, "m.qm"))
+	a, err := os.ReadFile(filepath.Join(straight, "m.qm"))
+	require.NoError(t, err)
+	b, err := os.ReadFile(filepath.Join(killed, "m.qm"))
+	require.NoError(t, err)
 	require.True(t, bytes.Equal(a, b), "resumed model differs from the uninterrupted one")
 }
 

@@ -5,6 +5,7 @@ import (
 	"math/rand/v2"
 
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/stream"
 )
 
 // Columns are the telemetry fields, in order.
@@ -57,7 +58,7 @@ func Generate(cfg Config) *Fleet {
 	if cfg.HoldoutDays == 0 {
 		cfg.HoldoutDays = 7
 	}
-	rng := rand.New(rand.NewPCG(cfg.Seed, 0xf1ee7))
+	rng := rand.New(rand.NewPCG(cfg.Seed, stream.Fleet))
 	pumps := make([]pump, cfg.Pumps)
 	for i := range pumps {
 		pumps[i] = pump{

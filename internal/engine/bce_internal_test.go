@@ -24,7 +24,9 @@ func TestBCEVectorMatchesScalar(t *testing.T) {
 		x[i] = float32(rng.NormFloat64() * 8)
 		y[i] = rng.Float32()
 	}
-	x[0], x[1], x[2], x[3] = 0, -0.0, 200, -200
+	// a Go constant -0.0 is +0: negative zero comes from Copysign
+	x[0], x[1], x[2], x[3] = 0, float32(math.Copysign(0, -1)), 200, -200
+	require.True(t, math.Signbit(float64(x[1])), "x[1] is negative zero")
 	run := func(vector bool) ([]float64, []float32) {
 		saved := vec.Enabled
 		vec.Enabled = vector

@@ -14,8 +14,11 @@ const (
 	// Evaluation draws the noise of a validation pass, afresh for each
 	// pass so that repeated evaluations agree.
 	Evaluation uint64 = 3
-	// Split holds out the validation rows in the command line.
+	// Split holds out the validation rows in the command line and the
+	// demo.
 	Split uint64 = 7
+	// Fleet invents the demo's pump fleet.
+	Fleet uint64 = 0xf1ee7
 	// PriorSample draws a VAE's latent rows from its prior.
 	PriorSample uint64 = 0x5a
 	// GeneratorInput draws a GAN generator's noise (and classes) when
