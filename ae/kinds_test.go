@@ -43,7 +43,7 @@ func TestDenoisingHalvesTheError(t *testing.T) {
 	out, err := m.Reconstruct(noisy, te.Rows)
 	require.NoError(t, err)
 	before, after := mse32(noisy, te.X), mse32(out, te.X)
-	t.Logf("ae.MSE to clean: corrupted input %.4f, denoised %.4f (ratio %.2f)", before, after, before/after)
+	t.Logf("MSE to clean: corrupted input %.4f, denoised %.4f (ratio %.2f)", before, after, before/after)
 	require.Greater(t, before/after, 2.0)
 }
 

@@ -9,6 +9,8 @@
 // hostile or future-version file returns an error (a *CorruptError or
 // ErrVersion) and never panics. A fuzz target guards the decoder.
 //
-// The ae, vae and gan packages map their models to and from File values;
-// most callers use their Save and Load functions.
+// The metadata is a set of sections, each owned by one layer (the model
+// kind, package train, the command line): File.Section and SetSection read
+// and write one. The ae, vae and gan packages map their models to and
+// from File values; package model opens any of them.
 package modelfile

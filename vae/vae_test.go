@@ -202,7 +202,7 @@ func TestFashionMNISTBeatsFactorisedBernoulli(t *testing.T) {
 	elbo, err := m.ELBO(te.X, te.Rows, 1, 1)
 	require.NoError(t, err)
 	negELBO := -mean(elbo)
-	t.Logf("test negative ELBO %.1f nats vs factorised vae.Bernoulli NLL %.1f nats", negELBO, nll)
+	t.Logf("test negative ELBO %.1f nats vs factorised Bernoulli NLL %.1f nats", negELBO, nll)
 	require.Less(t, negELBO, 0.85*nll)
 	// the importance-weighted bound on the first 200 test images
 	const k = 200
