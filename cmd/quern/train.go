@@ -9,6 +9,7 @@ import (
 	"os"
 	"os/signal"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"syscall"
@@ -127,8 +128,8 @@ func cmdTrain(e *env, args []string) error {
 	if o.out == "" {
 		return usagef("-out is required")
 	}
-	if o.kind != ae.Kind && o.kind != vae.Kind && o.kind != gan.Kind {
-		return usagef("-kind must be ae, vae or gan, not %q", o.kind)
+	if !slices.Contains(model.Kinds(), o.kind) {
+		return usagef("-kind must be one of %s, not %q", strings.Join(model.Kinds(), ", "), o.kind)
 	}
 	if err := o.checkNumbers(); err != nil {
 		return err
