@@ -90,12 +90,11 @@ type recipe interface {
 
 // loop is one call of Trainer.Run.
 type loop struct {
-	r        recipe
-	s        Settings
-	shuffle  *rand.Rand
-	seed     uint64
-	h        *History
-	stepsRun int // steps of the whole run, for warnings
+	r       recipe
+	s       Settings
+	shuffle *rand.Rand
+	seed    uint64
+	h       *History
 	// evalHook, when set (tests), replaces the evaluation pass.
 	evalHook func() []Metric
 }
@@ -158,7 +157,6 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 					}
 					return fmt.Errorf("train: epoch %d step %d: %w", epoch, i+1, err)
 				}
-				l.stepsRun++
 				ms = r.metrics()
 			}
 			for _, m := range ms {

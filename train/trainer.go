@@ -27,14 +27,13 @@ type Model interface {
 // for concurrent use; the model's inference methods may be called between
 // runs (and from the callbacks).
 type Trainer struct {
-	model    Model
-	s        Settings
-	r        recipe
-	seed     uint64
-	shuffle  *rand.PCG
-	noise    *rand.PCG
-	history  *History
-	stepsRun int
+	model   Model
+	s       Settings
+	r       recipe
+	seed    uint64
+	shuffle *rand.PCG
+	noise   *rand.PCG
+	history *History
 }
 
 // New returns a trainer for m with the settings s (zero fields: the
