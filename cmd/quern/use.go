@@ -45,6 +45,17 @@ func loadModel(path string) (*loaded, error) {
 	return &loaded{path: path, file: f, model: m}, nil
 }
 
+// isCheckpoint reports whether the file holds a run's training state.
+func (l *loaded) isCheckpoint() bool {
+	var raw json.RawMessage
+	for _, key := range []string{"checkpoint", "resume"} {
+		if ok, _ := l.file.Section(key, &raw); ok {
+			return true
+		}
+	}
+	return false
+}
+
 // cannot is the error for a model without a capability a command needs.
 func (l *loaded) cannot(command, needs string) error {
 	return fmt.Errorf("%s needs %s; %s holds a model of kind %q", command, needs, l.path, l.model.Kind())
@@ -136,6 +147,9 @@ func cmdScore(e *env, args []string) error {
 	}
 	th := sc.Calibrated()
 	if th == nil {
+		if l.isCheckpoint() {
+			return fmt.Errorf("%s is a checkpoint, written before the threshold is set at the end of training; score with the model file", *modelPath)
+		}
 		return fmt.Errorf("%s has no threshold (train it with -val > 0)", *modelPath)
 	}
 	ds, err := l.loadRows(&d)
