@@ -314,3 +314,17 @@ func sameSeries(h *train.History, a, b int) bool {
 	}
 	return true
 }
+
+// FirstTwo keeps the first two columns of rows of width w (a zero second
+// column when w is 1), for LatentScatter.
+func FirstTwo(x []float32, rows, w int) []float32 {
+	out := make([]float32, 0, 2*rows)
+	for r := 0; r < rows; r++ {
+		a, b := x[r*w], float32(0)
+		if w > 1 {
+			b = x[r*w+1]
+		}
+		out = append(out, a, b)
+	}
+	return out
+}

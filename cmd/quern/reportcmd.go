@@ -21,19 +21,6 @@ func firstRows(d *data.Dataset, n int) ([]float32, int) {
 	return d.X[:n*d.Cols], n
 }
 
-// scatter2 keeps the first two columns of rows of width w.
-func scatter2(x []float32, rows, w int) []float32 {
-	out := make([]float32, 0, 2*rows)
-	for r := 0; r < rows; r++ {
-		a, b := x[r*w], float32(0)
-		if w > 1 {
-			b = x[r*w+1]
-		}
-		out = append(out, a, b)
-	}
-	return out
-}
-
 // writeTrainReport writes the training report: the loss curves, then a
 // figure for each thing the model can do (scores of the validation rows,
 // codes, reconstructions, samples).
@@ -81,7 +68,7 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 			return err
 		}
 		if err := add("latent.png", "First two code dimensions of the training rows.",
-			report.LatentScatter(filepath.Join(dir, "latent.png"), scatter2(codes, n, enc.CodeWidth()), labels, nil)); err != nil {
+			report.LatentScatter(filepath.Join(dir, "latent.png"), report.FirstTwo(codes, n, enc.CodeWidth()), labels, nil)); err != nil {
 			return err
 		}
 	}
@@ -113,7 +100,7 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 		if err != nil {
 			return err
 		}
-		both := append(scatter2(sample, n, full.Cols), scatter2(s, n, full.Cols)...)
+		both := append(report.FirstTwo(sample, n, full.Cols), report.FirstTwo(s, n, full.Cols)...)
 		lab := make([]int, 2*n)
 		for i := n; i < 2*n; i++ {
 			lab[i] = 1
