@@ -151,6 +151,17 @@ func (c Config) Validate() error {
 			}
 		}
 	}
+	if err := layers.CheckWidths("encoder", c.encoderWidths()); err != nil {
+		return bad("%v", err)
+	}
+	if err := layers.CheckWidths("decoder", c.decoderWidths()); err != nil {
+		return bad("%v", err)
+	}
+	if c.Classes > 0 {
+		if err := layers.CheckWidths("head", c.headWidths()); err != nil {
+			return bad("%v", err)
+		}
+	}
 	return nil
 }
 

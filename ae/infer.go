@@ -6,6 +6,7 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
@@ -50,7 +51,11 @@ func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
 	}
 	w := m.pool.Get()
 	defer m.pool.Put(w)
-	return layers.Run(m.Encoder, m.scaled(w, x), rows, &w.ws, dst)
+	out, err := layers.Run(m.Encoder, m.scaled(w, x), rows, &w.ws, dst)
+	if err == nil {
+		err = modelio.Finite(Kind, "code", out, m.cfg.Latent)
+	}
+	return out, err
 }
 
 // Decode maps codes back to raw-space rows.
@@ -72,7 +77,7 @@ func (m *Model) DecodeInto(dst, z []float32, rows int) ([]float32, error) {
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(out)
 	}
-	return out, nil
+	return out, modelio.Finite(Kind, "decoded row", out, m.cfg.Inputs)
 }
 
 // finishOutput applies the output link (sigmoid for BCE models).
@@ -131,7 +136,7 @@ func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(dst)
 	}
-	return dst, nil
+	return dst, modelio.Finite(Kind, "reconstruction", dst, m.cfg.Inputs)
 }
 
 // Contributions returns, for each row and column, that column's

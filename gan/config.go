@@ -142,6 +142,12 @@ func (c Config) Validate() error {
 	if !c.Precision.Valid() || !c.Activation.Concrete() || !c.GenOutput.Concrete() {
 		return bad("unknown precision or activation")
 	}
+	if err := layers.CheckWidths("generator", c.generatorWidths()); err != nil {
+		return bad("%v", err)
+	}
+	if err := layers.CheckWidths("discriminator", c.discriminatorWidths()); err != nil {
+		return bad("%v", err)
+	}
 	return nil
 }
 

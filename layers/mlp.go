@@ -59,6 +59,19 @@ type MLP struct {
 	Layers []*Dense
 }
 
+// Bounds on the networks this package builds, checked before anything is
+// allocated: a settings file that asks for more is refused, not obeyed.
+// They are far above the small models quern is for (the reference VAE has
+// 0.65 million parameters).
+const (
+	// MaxWidth is the most units in one layer.
+	MaxWidth = 1 << 26
+	// MaxLayers is the most layers in one network.
+	MaxLayers = 256
+	// MaxParams is the most weights and biases in one network.
+	MaxParams = 1 << 28
+)
+
 // ErrConfig is wrapped by every configuration error from this package.
 var ErrConfig = errors.New("layers: invalid configuration")
 
@@ -87,9 +100,19 @@ func (c MLPConfig) Validate() error {
 	if len(c.Widths) < 2 {
 		return fmt.Errorf("%w: MLP %q needs at least 2 widths, got %v", ErrConfig, c.Name, c.Widths)
 	}
+	if len(c.Widths) > MaxLayers+1 {
+		return fmt.Errorf("%w: MLP %q has %d layers, at most %d are built", ErrConfig, c.Name, len(c.Widths)-1, MaxLayers)
+	}
+	params := 0
 	for i, w := range c.Widths {
-		if w <= 0 {
-			return fmt.Errorf("%w: MLP %q width %d is %d, want > 0", ErrConfig, c.Name, i, w)
+		if w <= 0 || w > MaxWidth {
+			return fmt.Errorf("%w: MLP %q width %d is %d, want 1..%d", ErrConfig, c.Name, i, w, MaxWidth)
+		}
+		if i > 0 {
+			params += (c.Widths[i-1] + 1) * w
+			if params > MaxParams {
+				return fmt.Errorf("%w: MLP %q has over %d parameters", ErrConfig, c.Name, MaxParams)
+			}
 		}
 	}
 	if !c.Hidden.Concrete() || !c.Output.Concrete() {

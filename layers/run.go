@@ -67,9 +67,19 @@ type ParamShape struct {
 // tensors against it before allocating anything.
 func MLPShapes(name string, widths []int) []ParamShape {
 	var s []ParamShape
+	if len(widths) > MaxLayers+2 {
+		widths = widths[:MaxLayers+2] // a longer list is refused anyway
+	}
 	for i := 0; i+1 < len(widths); i++ {
 		s = append(s, ParamShape{fmt.Sprintf("%s.%d.weight", name, i), widths[i], widths[i+1]},
 			ParamShape{fmt.Sprintf("%s.%d.bias", name, i), 1, widths[i+1]})
 	}
 	return s
+}
+
+// CheckWidths reports a network of these widths that NewMLP would refuse
+// for its size (too many layers, a layer too wide, too many parameters),
+// without building it.
+func CheckWidths(name string, widths []int) error {
+	return MLPConfig{Name: name, Widths: widths}.Validate()
 }

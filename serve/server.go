@@ -28,8 +28,15 @@ type Loaded struct {
 // Kind is the served model's kind.
 func (l *Loaded) Kind() string { return l.Model.Kind() }
 
-// LoadModel reads and checks a model file.
-func LoadModel(path string) (*Loaded, error) {
+// LoadModel reads and checks a model file. A failure of the loaders
+// themselves (a panic, which no file should cause) is returned as an
+// error too: a serving process never dies on a file.
+func LoadModel(path string) (l *Loaded, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			l, err = nil, fmt.Errorf("serve: loading %s failed inside quern (please report it): %v", path, r)
+		}
+	}()
 	m, err := model.Open(path)
 	if err != nil {
 		return nil, err
@@ -178,10 +185,17 @@ func (r *recorder) Write(b []byte) (int, error) {
 	return n, err
 }
 
+// writeJSON answers with v as JSON; a value JSON cannot hold (a NaN, for
+// one) is a 500 naming the problem, never a 200 with an empty body.
 func writeJSON(w http.ResponseWriter, code int, v any) {
+	b, err := json.Marshal(v)
+	if err != nil {
+		code = http.StatusInternalServerError
+		b, _ = json.Marshal(errorBody{Error: fmt.Sprintf("the answer cannot be written as JSON: %v", err)})
+	}
 	w.Header().Set("Content-Type", "application/json")
 	w.WriteHeader(code)
-	json.NewEncoder(w).Encode(v)
+	w.Write(append(b, '\n'))
 }
 
 type errorBody struct {

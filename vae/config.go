@@ -122,6 +122,12 @@ func (c Config) Validate() error {
 	if !c.Precision.Valid() || !c.Activation.Concrete() {
 		return bad("unknown precision or activation")
 	}
+	if err := layers.CheckWidths("encoder", c.encoderWidths()); err != nil {
+		return bad("%v", err)
+	}
+	if err := layers.CheckWidths("decoder", c.decoderWidths()); err != nil {
+		return bad("%v", err)
+	}
 	return nil
 }
 

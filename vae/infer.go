@@ -7,6 +7,7 @@ import (
 	"sort"
 
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -57,7 +58,7 @@ func (m *Model) EncodeInto(dst, x []float32, rows int) ([]float32, error) {
 	for r := 0; r < rows; r++ {
 		copy(dst[r*L:(r+1)*L], h[r*2*L:r*2*L+L])
 	}
-	return dst, nil
+	return dst, modelio.Finite(Kind, "code", dst, L)
 }
 
 // decodeInto32 decodes float32 latent rows into dst with w's buffers.
@@ -76,7 +77,7 @@ func (m *Model) decodeInto32(w *work, dst, z []float32, rows int) ([]float32, er
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(dst)
 	}
-	return dst, nil
+	return dst, modelio.Finite(Kind, "decoded row", dst, m.cfg.Inputs)
 }
 
 // DecodeInto is Decode writing into dst (grown if too short); no
@@ -177,7 +178,8 @@ func (m *Model) Encode(x []float32, rows int) ([]float32, error) {
 	if err != nil {
 		return nil, err
 	}
-	return to32(mu), nil
+	codes := to32(mu)
+	return codes, modelio.Finite(Kind, "code", codes, m.cfg.Latent)
 }
 
 func to32(v []float64) []float32 {
@@ -227,7 +229,8 @@ func (m *Model) Decode(z []float32, rows int) ([]float32, error) {
 	if err != nil {
 		return nil, err
 	}
-	return m.toRaw(out), nil
+	raw := m.toRaw(out)
+	return raw, modelio.Finite(Kind, "decoded row", raw, m.cfg.Inputs)
 }
 
 // Reconstruct decodes the posterior means of raw rows.

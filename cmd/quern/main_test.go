@@ -88,7 +88,7 @@ func TestTrainScoreEncodeInspectCSV(t *testing.T) {
 	require.Equal(t, 569, scores.Rows)
 	head, err := os.ReadFile(filepath.Join(dir, "scores.csv"))
 	require.NoError(t, err)
-	require.True(t, strings.HasPrefix(string(head), "row,score,threshold,anomaly,feature1,share1"))
+	require.True(t, strings.HasPrefix(string(head), "row,score,threshold,anomaly,feature1,share1,feature2,share2,feature3,share3,status\n"))
 	r = ok(t, quern(t, dir, nil, "encode", "-model", "bc.qm", "-data", bc, "-no-header", "-skip", "1", "-label", "c30"))
 	require.Equal(t, 570, strings.Count(r.stdout, "\n"))
 	require.True(t, strings.HasPrefix(r.stdout, "z0,z1,z2\n"))
@@ -387,6 +387,6 @@ func TestVAEScore(t *testing.T) {
 	require.Contains(t, r.stderr, "decision aid")
 	lines := strings.Split(strings.TrimSpace(r.stdout), "\n")
 	require.Len(t, lines, 570)
-	require.Equal(t, "row,score,threshold,anomaly,feature1,share1", lines[0])
+	require.Equal(t, "row,score,threshold,anomaly,feature1,share1,status", lines[0])
 	require.Contains(t, quern(t, dir, nil, "inspect", "v.qm").stdout, "threshold")
 }

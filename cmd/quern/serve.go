@@ -39,6 +39,14 @@ func cmdServe(e *env, args []string) error {
 		}
 	}
 	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+	// the signal handlers come first: a SIGHUP or SIGTERM during start-up
+	// is handled (the reload after loading, the stop before serving), never
+	// the default action that kills the process
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	hup := make(chan os.Signal, 1)
+	signal.Notify(hup, syscall.SIGHUP)
+	defer signal.Stop(hup)
 	s, err := serve.New(serve.Config{ModelPath: *model, Token: token, MaxBodyBytes: *maxBody, MaxRows: *maxRows,
 		ReadTimeout: *readTO, WriteTimeout: *writeTO, IdleTimeout: *idleTO, Logger: log})
 	if err != nil {
@@ -48,11 +56,6 @@ func cmdServe(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	defer stop()
-	hup := make(chan os.Signal, 1)
-	signal.Notify(hup, syscall.SIGHUP)
-	defer signal.Stop(hup)
 	go func() {
 		for range hup {
 			s.Reload() // logged; a bad file keeps the current model

@@ -140,7 +140,14 @@ func cmdTrain(e *env, args []string) error {
 	if err := distinctPaths(map[string]string{"-data": o.data.path, "-out": o.out, "-checkpoint": o.checkpoint}); err != nil {
 		return err
 	}
-	if err := writable(o.out, "-out"); err != nil {
+	for flagName, p := range map[string]string{"-out": o.out, "-checkpoint": o.checkpoint} {
+		if p != "" {
+			if err := writable(p, flagName); err != nil {
+				return err
+			}
+		}
+	}
+	if err := reportFolder(o.report); err != nil {
 		return err
 	}
 	full, format, err := o.data.load()
@@ -240,6 +247,9 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 		return err
 	}
 	if err := writable(o.out, "-out"); err != nil {
+		return err
+	}
+	if err := reportFolder(o.report); err != nil {
 		return err
 	}
 	full, format, err := d.load()
@@ -522,6 +532,9 @@ func sameFile(a, b string) bool {
 // writable checks before any work that path's folder exists and takes
 // files, so that a bad -out is found before training, not after.
 func writable(path, flagName string) error {
+	if st, err := os.Stat(path); err == nil && st.IsDir() {
+		return fmt.Errorf("%s %s is a folder, not a file", flagName, path)
+	}
 	dir := filepath.Dir(path)
 	st, err := os.Stat(dir)
 	if err != nil {
@@ -537,6 +550,21 @@ func writable(path, flagName string) error {
 	tmp.Close()
 	os.Remove(tmp.Name())
 	return nil
+}
+
+// reportFolder checks before any work that a -report path is a folder or
+// can become one.
+func reportFolder(dir string) error {
+	if dir == "" {
+		return nil
+	}
+	if st, err := os.Stat(dir); err == nil && !st.IsDir() {
+		return fmt.Errorf("-report %s is a file, not a folder", dir)
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return fmt.Errorf("-report %s: cannot make the folder", dir)
+	}
+	return writable(filepath.Join(dir, "index.html"), "-report")
 }
 
 // writeCheckpoint saves atomically. For the crash tests only: with

@@ -69,6 +69,11 @@ func openAs[C any](command, needs string, paths map[string]string) (*loaded, C, 
 	if err := distinctPaths(paths); err != nil {
 		return nil, c, err
 	}
+	if out := paths["-out"]; out != "" && out != "-" {
+		if err := writable(out, "-out"); err != nil {
+			return nil, c, err
+		}
+	}
 	l, err := loadModel(paths["-model"])
 	if err != nil {
 		return nil, c, err
@@ -169,21 +174,30 @@ func cmdScore(e *env, args []string) error {
 	for k := 1; k <= *top; k++ {
 		header = append(header, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k))
 	}
-	cw.Write(header)
-	flagged := 0
+	cw.Write(append(header, "status"))
+	flagged, unscorable := 0, 0
 	for i, s := range scores {
 		rec := []string{strconv.Itoa(i + 1), strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly)}
-		for _, f := range s.Top {
+		for k := 0; k < *top; k++ {
+			if k >= len(s.Top) {
+				rec = append(rec, "", "")
+				continue
+			}
+			f := s.Top[k]
 			name := f.Name
 			if name == "" {
 				name = "c" + strconv.Itoa(f.Column)
 			}
 			rec = append(rec, name, strconv.FormatFloat(f.Share, 'f', 4, 64))
 		}
-		cw.Write(rec)
-		if s.Anomaly {
+		status := "ok"
+		if s.Unscorable != "" {
+			status = "unscorable: " + s.Unscorable
+			unscorable++
+		} else if s.Anomaly {
 			flagged++
 		}
+		cw.Write(append(rec, status))
 	}
 	cw.Flush()
 	if err := cw.Error(); err != nil {
@@ -192,7 +206,11 @@ func cmdScore(e *env, args []string) error {
 	if err := closeOut(); err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stderr, "scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)\n", len(scores), flagged, th.Value, 100*th.ExpectedFalseAlarm)
+	fmt.Fprintf(e.stderr, "scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)", len(scores), flagged, th.Value, 100*th.ExpectedFalseAlarm)
+	if unscorable > 0 {
+		fmt.Fprintf(e.stderr, "; %d unscorable rows, flagged (outside the range the model can represent: see the status column)", unscorable)
+	}
+	fmt.Fprintln(e.stderr)
 	fmt.Fprintln(e.stderr, anomaly.Caution)
 	return nil
 }

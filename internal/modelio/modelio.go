@@ -160,3 +160,16 @@ func Open[M any](path string, fromFile func(*modelfile.File) (M, error)) (M, err
 	}
 	return fromFile(f)
 }
+
+// Finite reports the first row of out (rows of cols values) that holds a
+// NaN or an infinity: what a pass (a code, a reconstruction) gives for an
+// input outside the range the model can represent, which must never pass
+// for a result.
+func Finite(kind, what string, out []float32, cols int) error {
+	for i, v := range out {
+		if v-v != 0 {
+			return fmt.Errorf("%s: row %d: the %s is not finite (the row is outside the range the model can represent)", kind, i/cols+1, what)
+		}
+	}
+	return nil
+}
