@@ -47,8 +47,13 @@ type optimState struct {
 const maxSlots = 2
 
 // Checkpoint is a model file of the model with everything needed to
-// resume the run: see Resume.
+// resume the run: see Resume. After a Run stopped within an epoch
+// (cancelled, or an error at a step) it is refused: the weights, the
+// optimiser and the generators have moved past what the history records.
 func (t *Trainer) Checkpoint(prov *modelfile.Provenance) (*modelfile.File, error) {
+	if t.midEpoch {
+		return nil, bad("the run stopped within epoch %d, past what its history records, so a checkpoint would not resume it: take checkpoints in OnEpoch or after Run returns without error", len(t.history.Epochs)+1)
+	}
 	f, err := t.File(prov)
 	if err != nil {
 		return nil, err
@@ -85,12 +90,15 @@ func (t *Trainer) Checkpoint(prov *modelfile.Provenance) (*modelfile.File, error
 // Resume rebuilds a trainer from a checkpoint written by Checkpoint, or
 // by the library before settings were stored in checkpoints.
 //
-// With s nil the run continues with the settings it was started with.
-// Otherwise s supplies what may change on resuming (the number of epochs,
-// patience, the minimum improvement, KeepLast, the callbacks, and a
+// With s nil the run continues with the settings it was started with; to
+// take it further and change nothing else, call Trainer.SetEpochs after.
+// Otherwise s replaces what may change on resuming: the number of epochs
+// (0 keeps the run's), patience, the minimum improvement and KeepLast (a
+// zero here is zero: early stopping off), the callbacks, and a
 // learning-rate schedule of the caller's own, which a checkpoint cannot
-// hold); a batch size, optimiser or objective other than the run's is
-// refused, since the run would no longer be the same one. A checkpoint
+// hold. A zero batch size, optimiser or objective keeps the run's; any
+// other than the run's is refused, since the run would no longer be the
+// same one. A checkpoint
 // from before stored settings needs s for the number of epochs and the
 // batch size; its optimiser and objective come from the stored model
 // configuration.
@@ -124,12 +132,16 @@ func Resume(f *modelfile.File, s *Settings) (*Trainer, error) {
 	if len(sec.Optimizers) != len(opts) {
 		return nil, bad("the checkpoint holds %d optimiser states, a %s model trains with %d", len(sec.Optimizers), m.Kind(), len(opts))
 	}
+	lens := map[string]int{}
+	for _, p := range t.r.params() {
+		lens[p.Name()] = p.Len()
+	}
 	for prefix, o := range opts {
 		js, ok := sec.Optimizers[prefix]
 		if !ok {
 			return nil, bad("the checkpoint lacks the optimiser state %q", prefix)
 		}
-		if err := setOptimizer(o, f, prefix, js); err != nil {
+		if err := setOptimizer(o, f, prefix, js, lens); err != nil {
 			return nil, fmt.Errorf("train: %w", err)
 		}
 	}
@@ -147,10 +159,13 @@ func Resume(f *modelfile.File, s *Settings) (*Trainer, error) {
 	if sec.History == nil {
 		sec.History = &History{}
 	}
-	if n := len(sec.History.Epochs); sec.History.BestEpoch < 0 || sec.History.BestEpoch > n {
-		return nil, bad("the checkpoint's best epoch %d is outside its %d epochs", sec.History.BestEpoch, n)
+	if err := sec.History.check(); err != nil {
+		return nil, err
 	}
 	t.history = sec.History.clone()
+	if w, ok := t.r.(warnMemory); ok {
+		w.remember(t.history.Warnings)
+	}
 	return t, nil
 }
 
@@ -277,7 +292,11 @@ func optimizerTensors(o optim.Optimizer, prefix string) ([]modelfile.Tensor, opt
 // setOptimizer restores an optimiser from tensors written by
 // optimizerTensors. A legacy GAN's "adam" state restores into AdamW: the
 // two update alike without weight decay, which legacy GANs did not have.
-func setOptimizer(o optim.Optimizer, f *modelfile.File, prefix string, js optimState) error {
+//
+// lens gives the length of every parameter of the model by name: state
+// for a parameter the model lacks, or of another length, is refused here
+// rather than at the first step.
+func setOptimizer(o optim.Optimizer, f *modelfile.File, prefix string, js optimState, lens map[string]int) error {
 	if js.Slots < 0 || js.Slots > maxSlots {
 		return fmt.Errorf("optimiser state %q claims %d slots per parameter, at most %d are possible", prefix, js.Slots, maxSlots)
 	}
@@ -306,6 +325,11 @@ func setOptimizer(o optim.Optimizer, f *modelfile.File, prefix string, js optimS
 			return fmt.Errorf("malformed optimiser tensor %q", t.Name)
 		}
 		name := rest[:i]
+		if n, ok := lens[name]; !ok {
+			return fmt.Errorf("optimiser state %q names a parameter %q the model lacks", prefix, name)
+		} else if len(t.F64) != n {
+			return fmt.Errorf("optimiser state for %q holds %d values, the parameter has %d", name, len(t.F64), n)
+		}
 		if st.Slots[name] == nil {
 			st.Slots[name] = make([][]float64, js.Slots)
 		}
@@ -435,4 +459,19 @@ func legacyCheckpoint(f *modelfile.File) (checkpointSection, bool, error) {
 		return sec, true, errors.New("train: the checkpoint's training state has no optimiser")
 	}
 	return sec, true, nil
+}
+
+// check refuses a stored history that later reporting could not read:
+// an epoch without a training loss, or a best epoch outside the record.
+func (h *History) check() error {
+	n := len(h.Epochs)
+	if h.BestEpoch < 0 || h.BestEpoch > n {
+		return bad("the checkpoint's best epoch %d is outside its %d epochs", h.BestEpoch, n)
+	}
+	for i, e := range h.Epochs {
+		if len(e.Train) == 0 {
+			return bad("the checkpoint's history has no training loss for epoch %d", i+1)
+		}
+	}
+	return nil
 }

@@ -31,10 +31,13 @@ import (
 
 const compatDir = "../testdata/compat"
 
-// update rewrites the files of testdata/compat from today's code. Only
-// after a change meant to alter results: the files then no longer come
-// from commit 0295ee8, which testdata/compat/README.md must say.
-var update = flag.Bool("update", false, "rewrite testdata/compat's model files, checkpoints and outputs from today's code")
+// update rewrites the histories and outputs in testdata/compat's JSON
+// files from today's code, after a change meant to alter what is reported
+// but not the weights. The model files and checkpoints stay those of
+// commit 0295ee8 (the weights are still compared with them); a change
+// that alters weights needs new files made on purpose, and
+// testdata/compat/README.md must say from which commit each file comes.
+var update = flag.Bool("update", false, "rewrite the histories and outputs of testdata/compat's JSON files from today's code")
 
 type compatGolden struct {
 	Case     string                     `json:"case"`
@@ -185,7 +188,7 @@ func TestCompatTrainingIsBitwiseTheSame(t *testing.T) {
 			h, err := tr0.Run(context.Background(), tr, va)
 			require.NoError(t, err)
 			if *update {
-				rewriteCompat(t, c, g, m, full, tr, va, h)
+				rewriteCompat(t, c, g, m, full, va, h)
 				return
 			}
 			require.Equal(t, g.Epochs, h.Epochs)
@@ -208,7 +211,9 @@ func TestCompatCheckpointsResume(t *testing.T) {
 			require.Len(t, r.History().Epochs, 2)
 			h, err := r.Run(context.Background(), tr, va)
 			require.NoError(t, err)
-			require.Equal(t, g.Epochs, h.Epochs)
+			// the first two epochs are the checkpoint's record, written
+			// by the old code (see testdata/compat/README.md)
+			require.Equal(t, g.Epochs[2:], h.Epochs[2:])
 			f, err := r.Model().File(nil)
 			require.NoError(t, err)
 			sameTensors(t, qm, f)
@@ -375,10 +380,10 @@ func TestCheckpointResumeIsBitwise(t *testing.T) {
 	}
 }
 
-// rewriteCompat writes a case's files from today's code, as
-// make_golden.go wrote them: the calibrated straight run, its outputs and
-// history, and the checkpoint after epoch 2.
-func rewriteCompat(t *testing.T, c compatCase, g compatGolden, m train.Model, full, tr, va *data.Dataset, h *train.History) {
+// rewriteCompat writes a case's JSON file from today's code, as
+// make_golden.go wrote it: the straight run's history and the outputs of
+// its calibrated model.
+func rewriteCompat(t *testing.T, c compatCase, g compatGolden, m train.Model, full, va *data.Dataset, h *train.History) {
 	if cal, ok := m.(interface {
 		Calibrate([]float32, int, anomaly.Config) (anomaly.Threshold, error)
 	}); ok {
@@ -387,7 +392,6 @@ func rewriteCompat(t *testing.T, c compatCase, g compatGolden, m train.Model, fu
 	}
 	f, err := m.File(&modelfile.Provenance{DataFile: g.Data, DataFingerprint: full.Fingerprint(), DataRows: full.Rows})
 	require.NoError(t, err)
-	require.NoError(t, modelfile.Write(filepath.Join(compatDir, c.name+".qm"), f))
 	out := struct {
 		compatGolden
 		Outputs map[string]any `json:"outputs"`
@@ -396,20 +400,4 @@ func rewriteCompat(t *testing.T, c compatCase, g compatGolden, m train.Model, fu
 	b, err := json.MarshalIndent(out, "", " ")
 	require.NoError(t, err)
 	require.NoError(t, os.WriteFile(filepath.Join(compatDir, c.name+".json"), append(b, '\n'), 0o644))
-	s := c.settings
-	s.Epochs, s.BatchSize, s.Patience = 4, g.Batch, g.Patience
-	second, err := train.New(c.build(), s)
-	require.NoError(t, err)
-	stop := errors.New("stop")
-	second.SetCallbacks(train.Callbacks{OnEpoch: func(p train.Progress, _ *train.History) error {
-		if p.Epoch < 2 {
-			return nil
-		}
-		ck, err := second.Checkpoint(nil)
-		require.NoError(t, err)
-		require.NoError(t, modelfile.Write(filepath.Join(compatDir, c.name+".ckpt"), ck))
-		return stop
-	}})
-	_, err = second.Run(context.Background(), tr, va)
-	require.ErrorIs(t, err, stop)
 }

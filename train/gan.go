@@ -154,6 +154,9 @@ func (r *ganRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 	if trainSet == nil || trainSet.Cols != c.Outputs || trainSet.Rows == 0 {
 		return nil, nil, fmt.Errorf("gan: training data must have %d columns", c.Outputs)
 	}
+	if trainSet.Rows < c.Pack {
+		return nil, nil, fmt.Errorf("gan: %d training rows, fewer than the %d the discriminator sees at once (Pack)", trainSet.Rows, c.Pack)
+	}
 	for _, d := range []*data.Dataset{trainSet, valSet} {
 		if d == nil {
 			continue
@@ -418,6 +421,18 @@ func (r *ganRecipe) evaluation() *evaluation {
 
 func (r *ganRecipe) optimizers() map[string]optim.Optimizer {
 	return map[string]optim.Optimizer{generatorOptimizer: r.genOpt, discriminatorOptimizer: r.discOpt}
+}
+
+// warnMemory is a recipe that spaces its warnings out and must learn,
+// on resuming, when it last raised each kind.
+type warnMemory interface {
+	remember(ws []Warning)
+}
+
+func (r *ganRecipe) remember(ws []Warning) {
+	for _, w := range ws {
+		r.warned[w.Kind] = w.Step
+	}
 }
 
 func (r *ganRecipe) state() any { return ganState{Steps: r.steps, Winning: r.winning} }

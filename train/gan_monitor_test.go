@@ -73,3 +73,39 @@ func TestOtherObjectivesTrain(t *testing.T) {
 	_, err = tr.Run(context.Background(), d, nil)
 	require.ErrorContains(t, err, "label")
 }
+
+// A resumed run raises the warnings the straight run raises: the spacing
+// between warnings of one kind carries over the checkpoint.
+func TestWarningsSurviveResume(t *testing.T) {
+	d := ring(1024, 2)
+	build := func() *gan.Model {
+		m, err := gan.New(gan.Config{Outputs: 2, Noise: 2, GenHidden: []int{4}, DiscHidden: []int{32}, Seed: 1})
+		require.NoError(t, err)
+		last := m.Generator.Layers[len(m.Generator.Layers)-1]
+		for i := 0; i < last.W.Len(); i++ {
+			last.W.SetAt(i, 0)
+		}
+		return m
+	}
+	s := Settings{Epochs: 8, BatchSize: 64, Optimizer: Optimizer{Rate: 1e-12},
+		Objective: Adversarial{DiscriminatorRate: 1e-2, WinningSteps: 50}}
+	straight, err := New(build(), s)
+	require.NoError(t, err)
+	want, err := straight.Run(context.Background(), d, nil)
+	require.NoError(t, err)
+	require.NotEmpty(t, want.Warnings)
+
+	s.Epochs = 4
+	first, err := New(build(), s)
+	require.NoError(t, err)
+	_, err = first.Run(context.Background(), d, nil)
+	require.NoError(t, err)
+	ck, err := first.Checkpoint(nil)
+	require.NoError(t, err)
+	r, err := Resume(ck, nil)
+	require.NoError(t, err)
+	require.NoError(t, r.SetEpochs(8))
+	got, err := r.Run(context.Background(), d, nil)
+	require.NoError(t, err)
+	require.Equal(t, want.Warnings, got.Warnings)
+}

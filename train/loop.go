@@ -95,12 +95,18 @@ type loop struct {
 	shuffle *rand.Rand
 	seed    uint64
 	h       *History
+	// mid is set while an epoch is under way: weights, optimiser and
+	// generators have moved past what the history records.
+	mid *bool
 	// evalHook, when set (tests), replaces the evaluation pass.
 	evalHook func() []Metric
 }
 
 func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 	s, h, r := l.s, l.h, l.r
+	if l.mid == nil {
+		l.mid = new(bool)
+	}
 	if trainSet == nil || trainSet.Rows == 0 {
 		return fmt.Errorf("%w: no training rows", ErrConfig)
 	}
@@ -129,12 +135,15 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 	clip := s.Optimizer.ClipNorm
 	start := time.Now()
 	samples := 0
-	totalSteps := s.Epochs * batches.Len()
-	doneSteps := len(h.Epochs) * batches.Len()
+	// the pace, and so the time left, counts only this call's steps
+	totalSteps := (s.Epochs - len(h.Epochs)) * batches.Len()
+	doneSteps := 0
 	var ms []Metric
 	for epoch := len(h.Epochs) + 1; epoch <= s.Epochs; epoch++ {
+		*l.mid = true
 		batches.Shuffle()
 		var sums []Metric
+		used := 0 // rows the epoch's steps trained on
 		for i := 0; i < batches.Len(); i++ {
 			if err := ctx.Err(); err != nil {
 				return err
@@ -158,22 +167,23 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 					return fmt.Errorf("train: epoch %d step %d: %w", epoch, i+1, err)
 				}
 				ms = r.metrics()
-			}
-			for _, m := range ms {
-				if math.IsNaN(m.Value) || math.IsInf(m.Value, 0) {
-					return &NonFiniteError{Epoch: epoch, Step: i + 1, Err: fmt.Errorf("%s is %v: %w", m.Name, m.Value, engine.ErrNonFinite)}
+				for _, m := range ms {
+					if math.IsNaN(m.Value) || math.IsInf(m.Value, 0) {
+						return &NonFiniteError{Epoch: epoch, Step: i + 1, Err: fmt.Errorf("%s is %v: %w", m.Name, m.Value, engine.ErrNonFinite)}
+					}
 				}
-			}
-			if sums == nil {
-				sums = make([]Metric, len(ms))
+				if sums == nil {
+					sums = make([]Metric, len(ms))
+					for k, m := range ms {
+						sums[k].Name = m.Name
+					}
+				}
 				for k, m := range ms {
-					sums[k].Name = m.Name
+					if k < len(sums) {
+						sums[k].Value += m.Value * float64(use)
+					}
 				}
-			}
-			for k, m := range ms {
-				if k < len(sums) {
-					sums[k].Value += m.Value * float64(b.Rows)
-				}
+				used += use
 			}
 			samples += b.Rows
 			doneSteps++
@@ -181,8 +191,11 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 				s.OnStep(progress(epoch, s.Epochs, i+1, batches.Len(), ms, nil, samples, start, doneSteps, totalSteps, false))
 			}
 		}
+		if used == 0 || len(sums) == 0 {
+			return fmt.Errorf("train: epoch %d ran no step: %d training rows are fewer than one step uses", epoch, trainSet.Rows)
+		}
 		for k := range sums {
-			sums[k].Value /= float64(trainSet.Rows)
+			sums[k].Value /= float64(used)
 		}
 		rec := EpochRecord{Train: sums}
 		if valSet != nil {
@@ -196,6 +209,7 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 			rec.Validation = vm
 		}
 		h.Epochs = append(h.Epochs, rec)
+		*l.mid = false
 		loss := rec.Train[0].Value
 		if len(rec.Validation) > 0 {
 			loss = rec.Validation[0].Value

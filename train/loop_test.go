@@ -163,10 +163,20 @@ func TestSettingsErrors(t *testing.T) {
 		_, err := bad.resolve("ae")
 		require.ErrorIs(t, err, ErrConfig, "%+v", bad)
 	}
-	// a negative Beta1 asks for no momentum, which zero cannot
-	r, err := Settings{Optimizer: Optimizer{Beta1: -1}}.resolve("gan")
+	// a pointer to an objective is the objective; a nil one the default
+	r, err := Settings{Objective: &Reconstruction{Sparsity: Sparsity{Kind: L1Sparsity, Weight: 0.1}}}.resolve("ae")
 	require.NoError(t, err)
-	require.Equal(t, 0.0, r.Optimizer.Beta1)
+	require.Equal(t, Reconstruction{Sparsity: Sparsity{Kind: L1Sparsity, Weight: 0.1}, HeadWeight: 1}, r.Objective)
+	r, err = Settings{Objective: (*Variational)(nil)}.resolve("vae")
+	require.NoError(t, err)
+	require.IsType(t, Variational{}, r.Objective)
+	_, err = Settings{Objective: &Adversarial{}}.resolve("ae")
+	require.ErrorIs(t, err, ErrConfig)
+
+	// a negative Beta1 asks for no momentum, which zero cannot
+	r, err = Settings{Optimizer: Optimizer{Beta1: -1}}.resolve("gan")
+	require.NoError(t, err)
+	require.Equal(t, -1.0, r.Optimizer.Beta1, "resolved settings given back must still mean no momentum")
 	r, err = Settings{}.resolve("gan")
 	require.NoError(t, err)
 	require.Equal(t, 0.5, r.Optimizer.Beta1)

@@ -34,8 +34,9 @@ type Settings struct {
 	// Optimizer configures the optimiser, the same for every kind.
 	Optimizer Optimizer
 	// Objective is the kind's training objective: Reconstruction for an
-	// autoencoder, Variational for a VAE, Adversarial for a GAN. nil
-	// means the kind's default objective; another kind's is refused.
+	// autoencoder, Variational for a VAE, Adversarial for a GAN (or a
+	// pointer to one). nil means the kind's default objective; another
+	// kind's is refused.
 	Objective Objective
 	// Callbacks watch the run; they are never stored.
 	Callbacks
@@ -277,7 +278,7 @@ func (s Settings) resolve(kind string) (Settings, error) {
 	case o.Beta1 == 0:
 		o.Beta1 = beta1
 	case o.Beta1 < 0:
-		o.Beta1 = 0
+		o.Beta1 = -1 // stays negative, so resolved settings given back mean the same
 	}
 	if o.Beta2 == 0 {
 		o.Beta2 = 0.999
@@ -285,7 +286,7 @@ func (s Settings) resolve(kind string) (Settings, error) {
 	if !(o.Rate > 0) || math.IsInf(o.Rate, 0) {
 		return s, bad("learning rate %v, want > 0", o.Rate)
 	}
-	if !(o.Beta1 >= 0 && o.Beta1 < 1) || !(o.Beta2 > 0 && o.Beta2 < 1) {
+	if !(o.Beta1 < 1) || !(o.Beta2 > 0 && o.Beta2 < 1) {
 		return s, bad("Adam decays %v and %v, want beta1 in [0, 1) and beta2 in (0, 1)", o.Beta1, o.Beta2)
 	}
 	if !(o.WeightDecay >= 0) || math.IsInf(o.WeightDecay, 0) {
@@ -293,6 +294,15 @@ func (s Settings) resolve(kind string) (Settings, error) {
 	}
 	if !(o.ClipNorm >= 0) || math.IsInf(o.ClipNorm, 0) {
 		return s, bad("gradient clipping norm %v, want >= 0 (0: none)", o.ClipNorm)
+	}
+	// a pointer to an objective means the objective (nil: the default)
+	switch ob := s.Objective.(type) {
+	case *Reconstruction:
+		s.Objective = deref(ob)
+	case *Variational:
+		s.Objective = deref(ob)
+	case *Adversarial:
+		s.Objective = deref(ob)
 	}
 	if s.Objective == nil {
 		switch kind {
@@ -317,6 +327,14 @@ func (s Settings) resolve(kind string) (Settings, error) {
 		s.Objective, err = ob.resolve(o.Rate)
 	}
 	return s, err
+}
+
+// deref is the objective p points to; nil for a nil p.
+func deref[T Objective](p *T) Objective {
+	if p == nil {
+		return nil
+	}
+	return *p
 }
 
 func (r Reconstruction) resolve() (Reconstruction, error) {

@@ -34,13 +34,28 @@ type Trainer struct {
 	shuffle *rand.PCG
 	noise   *rand.PCG
 	history *History
+	// midEpoch: the last Run stopped within an epoch (see Checkpoint).
+	midEpoch bool
 }
 
 // New returns a trainer for m with the settings s (zero fields: the
 // defaults, see Settings).
 func New(m Model, s Settings) (*Trainer, error) {
-	if m == nil {
+	switch m := m.(type) {
+	case nil:
 		return nil, bad("no model")
+	case *ae.Model:
+		if m == nil {
+			return nil, bad("no model (a nil *ae.Model)")
+		}
+	case *vae.Model:
+		if m == nil {
+			return nil, bad("no model (a nil *vae.Model)")
+		}
+	case *gan.Model:
+		if m == nil {
+			return nil, bad("no model (a nil *gan.Model)")
+		}
 	}
 	s, err := s.resolve(m.Kind())
 	if err != nil {
@@ -115,7 +130,7 @@ func (t *Trainer) Run(ctx context.Context, trainSet, valSet *data.Dataset) (*His
 	if err != nil {
 		return t.history, err
 	}
-	l := &loop{r: t.r, s: t.s, shuffle: rand.New(t.shuffle), seed: t.seed, h: t.history}
+	l := &loop{r: t.r, s: t.s, shuffle: rand.New(t.shuffle), seed: t.seed, h: t.history, mid: &t.midEpoch}
 	err = l.run(ctx, tr, va)
 	return t.history, err
 }

@@ -2,10 +2,12 @@ package train_test
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"strings"
 	"testing"
 
 	"github.com/quernlab/quern/ae"
@@ -13,6 +15,7 @@ import (
 	"github.com/quernlab/quern/gan"
 	"github.com/quernlab/quern/internal/testenv"
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/optim"
 	"github.com/quernlab/quern/train"
 	"github.com/quernlab/quern/vae"
@@ -114,6 +117,42 @@ func TestResumeSettings(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, h4.Epochs, h.Epochs)
 
+	// tampered optimiser state or history is refused at Resume, not at
+	// the first step or the first report
+	for _, tamper := range []func(f *modelfile.File){
+		func(f *modelfile.File) {
+			for i, tn := range f.Tensors {
+				if strings.Contains(tn.Name, "#") {
+					f.Tensors[i].F64, f.Tensors[i].Cols = tn.F64[:1], 1
+					return
+				}
+			}
+			t.Fatal("no optimiser tensor in the checkpoint")
+		},
+		func(f *modelfile.File) {
+			for i, tn := range f.Tensors {
+				if strings.Contains(tn.Name, "#") {
+					f.Tensors[i].Name = strings.Replace(tn.Name, "#", "x#", 1)
+					return
+				}
+			}
+		},
+		func(f *modelfile.File) {
+			var sec map[string]json.RawMessage
+			_, err := f.Section("checkpoint", &sec)
+			require.NoError(t, err)
+			sec["history"] = json.RawMessage(`{"epochs":[{"train":[]}],"best_epoch":1}`)
+			require.NoError(t, f.SetSection("checkpoint", sec))
+		},
+	} {
+		c := *ck
+		c.Tensors = append([]modelfile.Tensor(nil), ck.Tensors...)
+		c.Meta = append(json.RawMessage(nil), ck.Meta...)
+		tamper(&c)
+		_, err := train.Resume(&c, nil)
+		require.Error(t, err)
+	}
+
 	for _, bad := range []train.Settings{
 		{BatchSize: 64},
 		{Optimizer: train.Optimizer{Rate: 1e-3}},
@@ -165,4 +204,57 @@ func TestSettingsJSON(t *testing.T) {
 		require.NoError(t, back.UnmarshalJSON(b))
 		require.Equal(t, s, back, "%s", b)
 	}
+}
+
+// A nil model, typed or not, is an error, not a panic.
+func TestNilModels(t *testing.T) {
+	for _, m := range []train.Model{nil, (*ae.Model)(nil), (*vae.Model)(nil), (*gan.Model)(nil)} {
+		_, err := train.New(m, train.Settings{})
+		require.ErrorIs(t, err, train.ErrConfig, "%T", m)
+	}
+}
+
+// Fewer rows than a packed discriminator sees at once cannot train: an
+// error naming Pack, not an epoch without figures.
+func TestTooFewRowsForPack(t *testing.T) {
+	m := mustModel(gan.New(gan.Config{Outputs: 2, Noise: 2, GenHidden: []int{4}, DiscHidden: []int{4}, Pack: 4}))
+	tr, err := train.New(m, train.Settings{Epochs: 1, BatchSize: 8})
+	require.NoError(t, err)
+	d := &data.Dataset{Rows: 3, Cols: 2, X: []float32{0, 1, 1, 0, 0.5, 0.5}}
+	_, err = tr.Run(context.Background(), d, nil)
+	require.ErrorContains(t, err, "Pack")
+}
+
+// A run stopped within an epoch has moved past its history: a checkpoint
+// then is refused, and one taken at the end of an epoch still works.
+func TestNoCheckpointWithinAnEpoch(t *testing.T) {
+	bc := testenv.BreastCancer(t)
+	m := mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{8}, Latent: 3, Seed: 2}))
+	tr, err := train.New(m, train.Settings{Epochs: 3, BatchSize: 32})
+	require.NoError(t, err)
+	ctx, cancel := context.WithCancel(context.Background())
+	steps := 0
+	tr.SetCallbacks(train.Callbacks{OnStep: func(p train.Progress) {
+		if steps++; p.Epoch == 2 && p.Step == 3 {
+			cancel()
+		}
+	}})
+	_, err = tr.Run(ctx, bc, nil)
+	require.ErrorIs(t, err, context.Canceled)
+	_, err = tr.Checkpoint(nil)
+	require.ErrorIs(t, err, train.ErrConfig)
+	require.ErrorContains(t, err, "within epoch 2")
+
+	tr, err = train.New(mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{8}, Latent: 3, Seed: 2})), train.Settings{Epochs: 3, BatchSize: 32})
+	require.NoError(t, err)
+	stop := errors.New("stop")
+	tr.SetCallbacks(train.Callbacks{OnEpoch: func(p train.Progress, _ *train.History) error {
+		_, err := tr.Checkpoint(nil)
+		require.NoError(t, err)
+		return stop
+	}})
+	_, err = tr.Run(context.Background(), bc, nil)
+	require.ErrorIs(t, err, stop)
+	_, err = tr.Checkpoint(nil)
+	require.NoError(t, err)
 }

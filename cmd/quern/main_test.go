@@ -209,6 +209,39 @@ func TestResumeAfterCrashDuringSave(t *testing.T) {
 	require.Contains(t, r.stdout, "summary     8 epochs")
 }
 
+// Taking a run further with -epochs keeps the rest of its settings
+// (patience among them), and -data records the file it was given.
+func TestResumeKeepsPatience(t *testing.T) {
+	dir := t.TempDir()
+	args := append(resumeArgs(), "-patience", "40")
+	require.Equal(t, "-epochs", args[12])
+	args[13] = "2"
+	ok(t, quern(t, dir, nil, args...))
+	moved := filepath.Join(dir, "moved.csv")
+	b, err := os.ReadFile(bc)
+	require.NoError(t, err)
+	require.NoError(t, os.WriteFile(moved, b, 0o644))
+	ok(t, quern(t, dir, nil, "train", "-resume", "m.qm.ckpt", "-epochs", "3", "-data", moved, "-out", "m3.qm", "-quiet"))
+	f, err := modelfile.Read(filepath.Join(dir, "m3.qm"), 0)
+	require.NoError(t, err)
+	var tr struct {
+		Settings struct {
+			Epochs   int `json:"epochs"`
+			Patience int `json:"patience"`
+		} `json:"settings"`
+	}
+	found, err := f.Section("training", &tr)
+	require.NoError(t, err)
+	require.True(t, found)
+	require.Equal(t, 3, tr.Settings.Epochs)
+	require.Equal(t, 40, tr.Settings.Patience, "-epochs on resume dropped the patience")
+	var rec runRecord
+	found, err = f.Section(commandSection, &rec)
+	require.NoError(t, err)
+	require.True(t, found)
+	require.Equal(t, moved, rec.Data.Path)
+}
+
 // A checkpoint written by the command line before the architecture change
 // (testdata/compat/cli-ae.ckpt: settings stored as command-line strings,
 // among them an output path in a temporary folder) resumes to the model of

@@ -226,22 +226,26 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 		rec = legacy.rec
 		override = &legacy.settings
 	}
-	if set["epochs"] {
-		if o.epochs <= 0 {
-			return usagef("-epochs %d: want at least 1", o.epochs)
-		}
-		if override == nil {
-			override = &train.Settings{}
-		}
+	if set["epochs"] && o.epochs <= 0 {
+		return usagef("-epochs %d: want at least 1", o.epochs)
+	}
+	if set["epochs"] && override != nil {
 		override.Epochs = o.epochs
 	}
 	t, err := train.Resume(f, override)
 	if err != nil {
 		return err
 	}
+	if set["epochs"] {
+		// only the length changes: patience and the rest stay the run's
+		if err := t.SetEpochs(o.epochs); err != nil {
+			return err
+		}
+	}
 	d := rec.Data.flags()
 	if set["data"] {
 		d.path = o.data.path
+		rec.Data.Path = o.data.path
 	}
 	if err := distinctPaths(map[string]string{"-data": d.path, "-out": o.out, "-resume": o.resume}); err != nil {
 		return err
@@ -442,7 +446,7 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 		}
 		m, err := vae.New(c)
 		return usage(m, obj, err)
-	default:
+	case gan.Kind:
 		c := gan.Config{Outputs: d.Cols, Noise: o.noiseDim, GenHidden: hidden, DiscHidden: hidden, Activation: act, Scaling: scaling, Seed: o.seed, Pack: o.pack}
 		obj := train.Adversarial{DiscSteps: o.discSteps}
 		if image {
@@ -460,6 +464,7 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 		m, err := gan.New(c)
 		return usage(m, obj, err)
 	}
+	return nil, nil, usagef("-kind %q: want ae, vae or gan", o.kind)
 }
 
 // legacy is what a checkpoint of an older quern says in its command-line
