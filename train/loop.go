@@ -127,9 +127,11 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 		// stand in until an epoch improves on the recorded best.
 		best = snapshot(params)
 	}
-	b := batch{Cols: trainSet.Cols, X: make([]float32, s.BatchSize*trainSet.Cols)}
+	// a batch holds at most the rows there are, whatever the batch size
+	rows := min(s.BatchSize, trainSet.Rows)
+	b := batch{Cols: trainSet.Cols, X: make([]float32, rows*trainSet.Cols)}
 	if trainSet.Labels != nil {
-		b.Labels = make([]int, s.BatchSize)
+		b.Labels = make([]int, rows)
 	}
 	moves := r.moves()
 	clip := s.Optimizer.ClipNorm

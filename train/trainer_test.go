@@ -258,3 +258,14 @@ func TestNoCheckpointWithinAnEpoch(t *testing.T) {
 	_, err = tr.Checkpoint(nil)
 	require.NoError(t, err)
 }
+
+// A batch size far beyond the rows costs only the rows (common practice,
+// no source: allocation bounded by what the input justifies).
+func TestHugeBatchSizeIsBoundedByTheRows(t *testing.T) {
+	bc := testenv.BreastCancer(t)
+	tr, err := train.New(mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{8}, Latent: 3, Seed: 2})), train.Settings{Epochs: 1, BatchSize: 1 << 40})
+	require.NoError(t, err)
+	h, err := tr.Run(context.Background(), bc, nil)
+	require.NoError(t, err)
+	require.Len(t, h.Epochs, 1)
+}

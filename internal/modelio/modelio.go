@@ -56,7 +56,32 @@ func Check(kind string, f *modelfile.File, s Spec, rows Rows) error {
 			return fmt.Errorf("%s: %w", kind, err)
 		}
 	}
+	if rows.Columns != nil && len(rows.Columns) != s.Width {
+		return fmt.Errorf("%s: the file names %d columns for rows of %d", kind, len(rows.Columns), s.Width)
+	}
+	if rows.Image != nil {
+		if !imageOf(rows.Image, s.Width) {
+			return fmt.Errorf("%s: the file's image shape %v does not make rows of %d values", kind, rows.Image, s.Width)
+		}
+	}
 	return nil
+}
+
+// imageOf reports whether im is a height, width and channel count whose
+// product is width (each factor checked first, so the product cannot
+// overflow).
+func imageOf(im []int, width int) bool {
+	if len(im) != 3 {
+		return false
+	}
+	n := 1
+	for _, d := range im {
+		if d <= 0 || d > width || n*d > width {
+			return false
+		}
+		n *= d
+	}
+	return n == width
 }
 
 // Fill copies the file's tensors into the built model's parameters and
