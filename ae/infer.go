@@ -250,8 +250,17 @@ func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }
 
 // Calibrate sets the model's threshold from held-out normal rows (not used
 // for training) and returns it.
+//
+// Calibrate changes the model: it must not run while other goroutines use
+// it (scoring, encoding and the rest are safe for concurrent use only
+// among themselves).
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
-	return anomaly.CalibrateRows(&m.Threshold, m.RowErrors, normal, rows, c)
+	th, err := anomaly.CalibrateRows(m.RowErrors, normal, rows, c)
+	if err != nil {
+		return th, err
+	}
+	m.Threshold = &th
+	return th, nil
 }
 
 // Classify returns the most likely class of each raw row and the class

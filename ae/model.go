@@ -2,10 +2,10 @@ package ae
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/data"
 	"math/rand/v2"
 
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -28,9 +28,9 @@ type Model struct {
 	Encoder *layers.MLP
 	Decoder *layers.MLP
 	Head    *layers.MLP
-	// Rows holds the input scaler fitted at training time and the names
+	// Fitted holds the input scaler fitted at training time and the names
 	// of the columns (which name the features behind a score).
-	modelio.Rows
+	data.Fitted
 	Threshold *anomaly.Threshold
 
 	pool scratch.Pool[work]

@@ -2,6 +2,7 @@ package ae
 
 import (
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/modelfile"
 )
@@ -9,15 +10,15 @@ import (
 // meta is the autoencoder's part of a model file's metadata.
 type meta struct {
 	Config Config `json:"config"`
-	modelio.Rows
+	data.Fitted
 	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
 }
 
-func (md *meta) Settings() *Config   { return &md.Config }
-func (md *meta) Data() *modelio.Rows { return &md.Rows }
+func (md *meta) Settings() *Config  { return &md.Config }
+func (md *meta) Data() *data.Fitted { return &md.Fitted }
 func (md *meta) Apply(m *Model, _ *modelfile.File) error {
-	m.Rows, m.Threshold = md.Rows, md.Threshold
+	m.Fitted, m.Threshold = md.Fitted, md.Threshold
 	return nil
 }
 
@@ -33,7 +34,7 @@ var loader = modelio.Kind[Config, *Model]{Name: Kind, Build: New, Resolve: func(
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	return modelio.File(Kind, meta{m.cfg, m.Rows, m.Threshold, prov}, m.Params())
+	return modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, prov}, m.Params())
 }
 
 // Save writes the model to path atomically.

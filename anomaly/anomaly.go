@@ -168,18 +168,13 @@ func PrecisionRecall(scores []float64, positive []bool, threshold float64) (prec
 	return precision, recall, nil
 }
 
-// CalibrateRows scores held-out normal rows with score, sets *dst to the
-// threshold Calibrate finds and returns it: the Calibrate method of the
-// models with anomaly scores.
-func CalibrateRows(dst **Threshold, score func(x []float32, rows int) ([]float64, error), normal []float32, rows int, c Config) (Threshold, error) {
+// CalibrateRows scores held-out normal rows with score and returns the
+// threshold Calibrate finds for the scores: the common part of the
+// Calibrate methods of the models with anomaly scores.
+func CalibrateRows(score func(x []float32, rows int) ([]float64, error), normal []float32, rows int, c Config) (Threshold, error) {
 	s, err := score(normal, rows)
 	if err != nil {
 		return Threshold{}, err
 	}
-	th, err := Calibrate(s, c)
-	if err != nil {
-		return th, err
-	}
-	*dst = &th
-	return th, nil
+	return Calibrate(s, c)
 }

@@ -2,10 +2,10 @@ package gan
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/data"
 	"math"
 	"math/rand/v2"
 
-	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -24,8 +24,8 @@ type Model struct {
 	cfg           Config
 	Generator     *layers.MLP // Noise (+Classes) -> ... -> Outputs
 	Discriminator *layers.MLP // Pack*(Outputs+Classes) -> ... -> 1
-	// Rows holds the data scaler fitted at training time and the schema.
-	modelio.Rows
+	// Fitted holds the data scaler fitted at training time and the schema.
+	data.Fitted
 	// SpectralU holds the power-iteration vector of each discriminator
 	// layer (nil without spectral normalisation).
 	SpectralU [][]float64
@@ -95,7 +95,9 @@ func (m *Model) Networks() []*layers.MLP { return []*layers.MLP{m.Generator, m.D
 // PowerIteration advances each discriminator layer's singular-vector
 // estimate by one step and refreshes SpectralScale (Miyato et al. 2018,
 // Algorithm 1); training calls it before every discriminator update.
-// sigma is treated as a constant in the gradient.
+// sigma is treated as a constant in the gradient. It is a training
+// operation: it changes the model, so it must not run while other
+// goroutines sample or score with it.
 func (m *Model) PowerIteration() {
 	for l, d := range m.Discriminator.Layers {
 		u := m.SpectralU[l]

@@ -2,6 +2,7 @@ package gan
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/data"
 
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/modelfile"
@@ -10,7 +11,7 @@ import (
 // meta is the GAN's part of a model file's metadata.
 type meta struct {
 	Config Config `json:"config"`
-	modelio.Rows
+	data.Fitted
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
 }
 
@@ -31,12 +32,12 @@ func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
 	if m.SpectralU != nil {
 		extra = append(extra, modelfile.Tensor{Name: SpectralScaleName, Rows: 1, Cols: len(m.SpectralScale), F64: append([]float64(nil), m.SpectralScale...)})
 	}
-	return modelio.File(Kind, meta{m.cfg, m.Rows, prov}, m.Params(), extra...)
+	return modelio.File(Kind, meta{m.cfg, m.Fitted, prov}, m.Params(), extra...)
 }
 
 // The loader's view of the metadata.
-func (md *meta) Settings() *Config   { return &md.Config }
-func (md *meta) Data() *modelio.Rows { return &md.Rows }
+func (md *meta) Settings() *Config  { return &md.Config }
+func (md *meta) Data() *data.Fitted { return &md.Fitted }
 
 // Apply gives a loaded GAN its rows and the spectral normalisation state
 // the file holds.
@@ -55,7 +56,7 @@ func (md *meta) Apply(m *Model, f *modelfile.File) error {
 		}
 		copy(m.SpectralScale, t.F64)
 	}
-	m.Rows = md.Rows
+	m.Fitted = md.Fitted
 	return nil
 }
 

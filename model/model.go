@@ -42,7 +42,9 @@ type Scorer interface {
 	Calibrated() *anomaly.Threshold
 }
 
-// Calibrator sets a Scorer's threshold from held-out normal rows.
+// Calibrator sets a Scorer's threshold from held-out normal rows. It
+// changes the model: unlike the other capabilities, it must not run while
+// other goroutines use the model.
 type Calibrator interface {
 	Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error)
 }
@@ -70,7 +72,8 @@ type Sampler interface {
 }
 
 // ClassSampler draws n new rows of one class (0..Classes()-1, or -1 for
-// classes drawn at random).
+// classes drawn at random). Every GAN has the method; only one trained
+// with classes (Classes() > 0) can be asked for a class.
 type ClassSampler interface {
 	Classes() int
 	Generate(n int, seed uint64, class int) ([]float32, error)

@@ -109,3 +109,28 @@ func TestWarningsSurviveResume(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, want.Warnings, got.Warnings)
 }
+
+// A negative CollapseRatio turns the collapse warning off, and only it.
+func TestCollapseWarningOff(t *testing.T) {
+	m, err := gan.New(gan.Config{Outputs: 2, Noise: 2, GenHidden: []int{4}, DiscHidden: []int{32}, Seed: 1})
+	require.NoError(t, err)
+	last := m.Generator.Layers[len(m.Generator.Layers)-1]
+	for i := 0; i < last.W.Len(); i++ {
+		last.W.SetAt(i, 0)
+	}
+	h := fit(t, m, ring(1024, 2), nil, Settings{Epochs: 8, BatchSize: 64, Optimizer: Optimizer{Rate: 1e-12},
+		Objective: Adversarial{DiscriminatorRate: 1e-2, WinningSteps: 50, CollapseRatio: -0.5}})
+	kinds := map[string]bool{}
+	for _, w := range h.Warnings {
+		kinds[w.Kind] = true
+	}
+	require.Equal(t, map[string]bool{"discriminator_wins": true}, kinds)
+}
+
+// A beta schedule without steps is constant rather than a division by
+// zero (Settings refuse it; Factor is public).
+func TestBetaFactorWithoutSteps(t *testing.T) {
+	for _, k := range []BetaKind{BetaLinear, BetaCyclical} {
+		require.Equal(t, 1.0, BetaSchedule{Kind: k}.Factor(3))
+	}
+}

@@ -170,7 +170,11 @@ type BetaSchedule struct {
 }
 
 // Factor returns the multiplier of Beta at update number step (from 0).
+// A schedule without steps (not valid in Settings) is constant.
 func (s BetaSchedule) Factor(step int) float64 {
+	if s.Steps <= 0 {
+		return 1
+	}
 	switch s.Kind {
 	case BetaLinear:
 		return math.Min(1, float64(step)/float64(s.Steps))
@@ -239,7 +243,7 @@ type Adversarial struct {
 	WinningSteps    int     `json:"winning_steps,omitempty"`
 	// CollapseRatio: warn when the generated batch's spread (mean column
 	// standard deviation) falls below this fraction of the data's.
-	// Default 0.1.
+	// Default 0.1; negative: no collapse warnings.
 	CollapseRatio float64 `json:"collapse_ratio,omitempty"`
 }
 
@@ -439,7 +443,10 @@ func (a Adversarial) resolve(rate float64) (Adversarial, error) {
 	if !(a.DiscriminatorRate > 0) || math.IsInf(a.DiscriminatorRate, 0) {
 		return a, bad("discriminator learning rate %v, want > 0", a.DiscriminatorRate)
 	}
-	if a.WinningSteps < 0 || !(a.WinningAccuracy > 0 && a.WinningAccuracy <= 1) || !(a.CollapseRatio >= 0) {
+	if a.CollapseRatio < 0 {
+		a.CollapseRatio = -1
+	}
+	if a.WinningSteps < 0 || !(a.WinningAccuracy > 0 && a.WinningAccuracy <= 1) || math.IsNaN(a.CollapseRatio) || math.IsInf(a.CollapseRatio, 0) {
 		return a, bad("warning thresholds: accuracy %v for %d steps, collapse ratio %v", a.WinningAccuracy, a.WinningSteps, a.CollapseRatio)
 	}
 	return a, nil

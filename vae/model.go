@@ -2,10 +2,10 @@ package vae
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/data"
 	"math/rand/v2"
 
 	"github.com/quernlab/quern/anomaly"
-	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/layers"
@@ -32,8 +32,8 @@ type Model struct {
 	// LogVar is the learned log-variance of a Gaussian likelihood: 1 x
 	// Inputs (GaussianLearned) or 1 x 1 (GaussianShared); nil otherwise.
 	LogVar *layers.Param
-	// Rows holds the input scaler fitted at training time and the schema.
-	modelio.Rows
+	// Fitted holds the input scaler fitted at training time and the schema.
+	data.Fitted
 	// Threshold, when calibrated, flags rows whose negative ELBO exceeds
 	// it (see Calibrate and Score).
 	Threshold *anomaly.Threshold

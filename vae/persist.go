@@ -2,6 +2,7 @@ package vae
 
 import (
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/modelfile"
 )
@@ -10,18 +11,18 @@ import (
 // density threshold and provenance.
 type meta struct {
 	Config Config `json:"config"`
-	modelio.Rows
+	data.Fitted
 	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
 }
 
 // The loader's view of the metadata.
-func (md *meta) Settings() *Config   { return &md.Config }
-func (md *meta) Data() *modelio.Rows { return &md.Rows }
+func (md *meta) Settings() *Config  { return &md.Config }
+func (md *meta) Data() *data.Fitted { return &md.Fitted }
 
 // Apply gives a loaded VAE its scaler, schema and threshold.
 func (md *meta) Apply(v *Model, _ *modelfile.File) error {
-	v.Rows = md.Rows
+	v.Fitted = md.Fitted
 	v.Threshold = md.Threshold
 	return nil
 }
@@ -39,7 +40,7 @@ func resolve(c Config) (Config, modelio.Spec, error) {
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	return modelio.File(Kind, meta{m.cfg, m.Rows, m.Threshold, prov}, m.Params())
+	return modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, prov}, m.Params())
 }
 
 // Save writes the model to path atomically.

@@ -64,8 +64,17 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 
 // Calibrate sets the model's threshold on the negative ELBO of held-out
 // normal rows (not used for training) and returns it.
+//
+// Calibrate changes the model: it must not run while other goroutines use
+// it (scoring, encoding and the rest are safe for concurrent use only
+// among themselves).
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
-	return anomaly.CalibrateRows(&m.Threshold, m.NegELBO, normal, rows, c)
+	th, err := anomaly.CalibrateRows(m.NegELBO, normal, rows, c)
+	if err != nil {
+		return th, err
+	}
+	m.Threshold = &th
+	return th, nil
 }
 
 // Score scores raw rows by their negative ELBO against the calibrated

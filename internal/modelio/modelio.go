@@ -9,22 +9,6 @@ import (
 	"github.com/quernlab/quern/modelfile"
 )
 
-// Rows is what every model keeps of the data it was trained on: the
-// scaler fitted then, the names of the columns and, for images, their
-// shape. The kinds embed it; its fields are metadata keys of their own.
-type Rows struct {
-	// Scaler maps raw rows to the scale the networks work in (nil: none).
-	Scaler *data.Scaler `json:"scaler,omitempty"`
-	// Columns names the columns (from the training data).
-	Columns []string `json:"columns,omitempty"`
-	// Image is the height, width and channels of image rows (nil for
-	// tabular data).
-	Image []int `json:"image,omitempty"`
-}
-
-// Schema names the columns and, for images, their shape.
-func (r *Rows) Schema() data.Schema { return data.Schema{Columns: r.Columns, Image: r.Image} }
-
 // File makes the model file of a kind: meta (a struct marshalling to the
 // metadata object) and the parameters, then any extra tensors.
 func File(kind string, meta any, params []*layers.Param, extra ...modelfile.Tensor) (*modelfile.File, error) {
@@ -47,7 +31,7 @@ type Spec struct {
 // Check reports a file whose tensors or scaler do not fit the model its
 // settings describe, so that nothing is built for a file whose settings
 // promise more than it holds.
-func Check(kind string, f *modelfile.File, s Spec, rows Rows) error {
+func Check(kind string, f *modelfile.File, s Spec, rows data.Fitted) error {
 	if err := f.CheckShapes(s.Shapes, s.Precision); err != nil {
 		return fmt.Errorf("%s: %w", kind, err)
 	}
@@ -127,7 +111,7 @@ type Built interface {
 // it): its settings, its rows, and what it gives the built model.
 type Meta[C, M any] interface {
 	Settings() *C
-	Data() *Rows
+	Data() *data.Fitted
 	// Apply copies the rest of the metadata (and any tensors of the
 	// kind's own) into the built model.
 	Apply(m M, f *modelfile.File) error
