@@ -58,6 +58,8 @@ type CSVConfig struct {
 	Label string
 	// Comma is the field separator; default ','.
 	Comma rune
+	// Limits caps the file's size, line length, rows and columns.
+	Limits Limits
 }
 
 // LoadCSV reads a CSV file (plain or gzip-compressed, told apart by
@@ -94,7 +96,11 @@ func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
 	if cfg.SkipLines < 0 {
 		return nil, fmt.Errorf("%w: SkipLines %d", ErrConfig, cfg.SkipLines)
 	}
-	br := bufio.NewReader(r)
+	lim, err := cfg.Limits.resolve()
+	if err != nil {
+		return nil, err
+	}
+	br := bufio.NewReader(&limitReader{r: r, name: name, max: lim.Bytes, maxLine: lim.Line})
 	line := 0
 	for i := 0; i < cfg.SkipLines; i++ {
 		if _, err := br.ReadString('\n'); err != nil {
@@ -118,6 +124,13 @@ func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
 		return nil, csvErr(name, line, err)
 	}
 	width := len(rec)
+	if width > lim.Columns {
+		return nil, &LimitError{File: name, Line: pos(), Key: "columns", Limit: int64(lim.Columns), What: fmt.Sprintf("%d columns", width)}
+	}
+	if len(rec) > 0 && line == 0 {
+		// a byte-order mark is no part of the first column's name
+		rec[0] = strings.TrimPrefix(rec[0], "\ufeff")
+	}
 	if cfg.NoHeader {
 		header = make([]string, width)
 		for i := range header {
@@ -176,6 +189,12 @@ func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
 	}
 	parseRow := func(rec []string) error {
 		l := pos()
+		if d.Rows >= lim.Rows {
+			return &LimitError{File: name, Line: l, Key: "rows", Limit: int64(lim.Rows), What: fmt.Sprintf("more than %d rows", lim.Rows)}
+		}
+		if int64(d.Rows+1)*int64(d.Cols) > lim.Values {
+			return &LimitError{File: name, Line: l, Key: "values", Limit: lim.Values, What: fmt.Sprintf("more than %d values (%d rows of %d)", lim.Values, d.Rows+1, d.Cols)}
+		}
 		if len(rec) != width {
 			return &ParseError{File: name, Line: l, Msg: fmt.Sprintf("row has %d fields, want %d", len(rec), width)}
 		}
@@ -238,6 +257,10 @@ func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
 }
 
 func csvErr(name string, skipped int, err error) error {
+	var le *LimitError
+	if errors.As(err, &le) {
+		return le
+	}
 	var pe *csv.ParseError
 	if errors.As(err, &pe) {
 		return &ParseError{File: name, Line: pe.Line + skipped, Column: pe.Column, Msg: pe.Err.Error()}

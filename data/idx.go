@@ -15,10 +15,6 @@ import (
 // big-endian uint32 per dimension, then the values big-endian, row-major.
 var idxSizes = map[byte]int{0x08: 1, 0x09: 1, 0x0B: 2, 0x0C: 4, 0x0D: 4, 0x0E: 8}
 
-// maxIdxValues caps the values one idx file may declare (2^31), so that a
-// hostile header cannot make the reader allocate without bound.
-const maxIdxValues = 1 << 31
-
 // IDX is a decoded idx array.
 type IDX struct {
 	Dims   []int
@@ -28,10 +24,16 @@ type IDX struct {
 
 // ReadIDX decodes an idx stream, plain or gzip-compressed (told apart by
 // content). size is the stream's byte length when known (a plain file), or
-// -1: then the declared size is checked against the file before anything
-// is allocated; for compressed input, memory grows only with data actually
+// -1. The declared shape is checked against lim (zero fields: the
+// defaults; the first dimension counts rows, the others make a row's
+// columns) and, for a plain file, against its size before anything is
+// allocated; for compressed input, memory grows only with data actually
 // read.
-func ReadIDX(r io.Reader, name string, size int64) (*IDX, error) {
+func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
+	lim, err := lim.resolve()
+	if err != nil {
+		return nil, err
+	}
 	br := bufio.NewReader(r)
 	head, _ := br.Peek(2)
 	var src io.Reader = br
@@ -63,18 +65,32 @@ func ReadIDX(r io.Reader, name string, size int64) (*IDX, error) {
 		return nil, &ParseError{File: name, Msg: "idx header truncated"}
 	}
 	dims := make([]int, nd)
-	total := int64(1)
+	total, cols := int64(1), int64(1)
 	for i := range dims {
 		dims[i] = int(binary.BigEndian.Uint32(dimb[4*i:]))
 		if dims[i] == 0 {
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx dimension %d is 0", i)}
 		}
-		total *= int64(dims[i])
-		if total > maxIdxValues {
-			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx declares more than %d values", int64(maxIdxValues))}
+		if i > 0 {
+			// each factor is below 2^32 and cols stays below the limit,
+			// so the products cannot overflow
+			cols *= int64(dims[i])
+			if cols > int64(lim.Columns) {
+				return nil, &LimitError{File: name, Key: "columns", Limit: int64(lim.Columns), What: fmt.Sprintf("idx shape %v makes rows of more than %d values", dims[:i+1], lim.Columns)}
+			}
 		}
 	}
+	if dims[0] > lim.Rows {
+		return nil, &LimitError{File: name, Key: "rows", Limit: int64(lim.Rows), What: fmt.Sprintf("idx shape %v declares %d rows", dims, dims[0])}
+	}
+	total = int64(dims[0]) * cols
+	if total > lim.Values {
+		return nil, &LimitError{File: name, Key: "values", Limit: lim.Values, What: fmt.Sprintf("idx shape %v declares %d values", dims, total)}
+	}
 	want := total * int64(es)
+	if want+4+4*int64(nd) > lim.Bytes {
+		return nil, &LimitError{File: name, Key: "bytes", Limit: lim.Bytes, What: fmt.Sprintf("idx shape %v declares %d bytes of values", dims, want)}
+	}
 	if size >= 0 {
 		if got := size - 4 - 4*int64(nd); got != want {
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, file holds %d", dims, want, got)}
@@ -123,8 +139,8 @@ func ReadIDX(r io.Reader, name string, size int64) (*IDX, error) {
 	return out, nil
 }
 
-// LoadIDXFile reads one idx file (plain or gzip-compressed).
-func LoadIDXFile(path string) (*IDX, error) {
+// LoadIDXFile reads one idx file (plain or gzip-compressed) within lim.
+func LoadIDXFile(path string, lim Limits) (*IDX, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("data: %w", err)
@@ -134,7 +150,7 @@ func LoadIDXFile(path string) (*IDX, error) {
 	if err != nil {
 		return nil, fmt.Errorf("data: %w", err)
 	}
-	return ReadIDX(f, path, st.Size())
+	return ReadIDX(f, path, st.Size(), lim)
 }
 
 // IDXConfig configures LoadIDX. Zero fields mean: no labels; unsigned-byte
@@ -144,13 +160,15 @@ type IDXConfig struct {
 	Labels string
 	// Raw keeps unsigned-byte values in 0..255.
 	Raw bool
+	// Limits caps the files' size, rows and columns.
+	Limits Limits
 }
 
 // LoadIDX reads an idx file of rows (the first dimension) into a Dataset;
 // the other dimensions are flattened. A three-dimensional file is taken as
 // grey images (rows x height x width).
 func LoadIDX(path string, cfg IDXConfig) (*Dataset, error) {
-	a, err := LoadIDXFile(path)
+	a, err := LoadIDXFile(path, cfg.Limits)
 	if err != nil {
 		return nil, err
 	}
@@ -169,7 +187,7 @@ func LoadIDX(path string, cfg IDXConfig) (*Dataset, error) {
 		d.Image = []int{a.Dims[1], a.Dims[2], a.Dims[3]}
 	}
 	if cfg.Labels != "" {
-		l, err := LoadIDXFile(cfg.Labels)
+		l, err := LoadIDXFile(cfg.Labels, cfg.Limits)
 		if err != nil {
 			return nil, err
 		}

@@ -16,6 +16,9 @@ import (
 type ImageConfig struct {
 	// Grey converts every image to one grey channel.
 	Grey bool
+	// Limits caps the number of images, each one's pixels, and the
+	// values of all of them.
+	Limits Limits
 }
 
 // LoadImages reads every .png file in dir (sorted by name) as one row of
@@ -25,6 +28,10 @@ type ImageConfig struct {
 // images get the subfolder's index in name order as their label, and
 // Columns is left nil while the class names are returned in ClassNames.
 func LoadImages(dir string, cfg ImageConfig) (*Dataset, []string, error) {
+	lim, err := cfg.Limits.resolve()
+	if err != nil {
+		return nil, nil, err
+	}
 	entries, err := os.ReadDir(dir)
 	if err != nil {
 		return nil, nil, fmt.Errorf("data: %w", err)
@@ -71,10 +78,18 @@ func LoadImages(dir string, cfg ImageConfig) (*Dataset, []string, error) {
 	if len(files) == 0 {
 		return nil, nil, &ParseError{File: dir, Msg: "no .png images"}
 	}
+	if len(files) > lim.Images || len(files) > lim.Rows {
+		n := min(lim.Images, lim.Rows)
+		key := "images"
+		if lim.Rows < lim.Images {
+			key = "rows"
+		}
+		return nil, nil, &LimitError{File: dir, Key: key, Limit: int64(n), What: fmt.Sprintf("%d images", len(files))}
+	}
 	d := &Dataset{}
 	var w, h, ch int
 	for k, f := range files {
-		img, err := readPNG(f)
+		img, err := readPNG(f, lim.Pixels)
 		if err != nil {
 			return nil, nil, err
 		}
@@ -87,6 +102,9 @@ func LoadImages(dir string, cfg ImageConfig) (*Dataset, []string, error) {
 			w, h, ch = b.Dx(), b.Dy(), c
 			d.Cols = w * h * ch
 			d.Image = []int{h, w, ch}
+			if all := int64(len(files)) * int64(d.Cols); all > lim.Values {
+				return nil, nil, &LimitError{File: dir, Key: "values", Limit: lim.Values, What: fmt.Sprintf("%d images of %dx%dx%d (height, width, channels) make %d values", len(files), h, w, ch, all)}
+			}
 			d.X = make([]float32, 0, len(files)*d.Cols)
 		} else if b.Dx() != w || b.Dy() != h {
 			return nil, nil, &ParseError{File: f, Msg: fmt.Sprintf("image is %dx%d, the others are %dx%d (width x height)", b.Dx(), b.Dy(), w, h)}
@@ -118,7 +136,7 @@ func isGrey(img image.Image) bool {
 	return false
 }
 
-func readPNG(path string) (image.Image, error) {
+func readPNG(path string, maxPixels int) (image.Image, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("data: %w", err)
@@ -130,8 +148,11 @@ func readPNG(path string) (image.Image, error) {
 	if err != nil {
 		return nil, &ParseError{File: path, Msg: "not a readable PNG: " + err.Error()}
 	}
-	if cfg.Width <= 0 || cfg.Height <= 0 || int64(cfg.Width)*int64(cfg.Height) > 1<<24 {
+	if cfg.Width <= 0 || cfg.Height <= 0 {
 		return nil, &ParseError{File: path, Msg: fmt.Sprintf("image size %dx%d is out of range", cfg.Width, cfg.Height)}
+	}
+	if int64(cfg.Width)*int64(cfg.Height) > int64(maxPixels) {
+		return nil, &LimitError{File: path, Key: "pixels", Limit: int64(maxPixels), What: fmt.Sprintf("an image of %dx%d pixels", cfg.Width, cfg.Height)}
 	}
 	if _, err := f.Seek(0, 0); err != nil {
 		return nil, fmt.Errorf("data: %w", err)

@@ -61,6 +61,9 @@ type LoadConfig struct {
 	CSV    CSVConfig
 	IDX    IDXConfig
 	Images ImageConfig
+	// Limits, when not zero, replaces the Limits of every format's
+	// settings: one set of caps whatever the file turns out to be.
+	Limits Limits
 }
 
 // Load reads path in whichever format Detect finds.
@@ -68,6 +71,9 @@ func Load(path string, cfg LoadConfig) (*Dataset, Format, error) {
 	f, err := Detect(path)
 	if err != nil {
 		return nil, "", err
+	}
+	if cfg.Limits != (Limits{}) {
+		cfg.CSV.Limits, cfg.IDX.Limits, cfg.Images.Limits = cfg.Limits, cfg.Limits, cfg.Limits
 	}
 	var d *Dataset
 	if f == FormatCSV && looksLikeIDX(path) && binaryStart(path) {

@@ -1,7 +1,9 @@
 package main
 
 import (
+	"errors"
 	"flag"
+	"math"
 	"fmt"
 	"os"
 	"strconv"
@@ -19,6 +21,7 @@ type dataFlags struct {
 	noHeader bool
 	skip     int
 	grey     bool
+	limits   limitFlag
 }
 
 func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
@@ -33,6 +36,77 @@ func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
 	fs.BoolVar(&d.noHeader, "no-header", false, "the CSV file has no header line (columns are then named c0, c1, ...)")
 	fs.IntVar(&d.skip, "skip", 0, "CSV lines to skip before the header")
 	fs.BoolVar(&d.grey, "grey", false, "read PNG images as one grey channel")
+	fs.Var(&d.limits, "limit", fmt.Sprintf("raise (or lower) a cap on the input, `KEY=N` with N a count or bytes (suffixes K, M, G, T: powers of 1024); repeatable. Keys and defaults: bytes=%s (after decompression), line=%s (one CSV line), rows=%d, columns=%d (per row), values=%d (rows x columns), pixels=%d (per image), images=%d",
+		sizeString(data.DefaultBytes), sizeString(data.DefaultLine), data.DefaultRows, data.DefaultColumns, data.DefaultValues, data.DefaultPixels, data.DefaultImages))
+}
+
+// limitFlag is the repeatable -limit KEY=N flag.
+type limitFlag struct {
+	l    data.Limits
+	text []string
+}
+
+func (f *limitFlag) String() string { return strings.Join(f.text, ",") }
+
+func (f *limitFlag) Set(s string) error {
+	for _, kv := range splitList(s) {
+		key, val, ok := strings.Cut(kv, "=")
+		if !ok {
+			return fmt.Errorf("%q: want KEY=N (keys: %s)", kv, strings.Join(data.LimitKeys, ", "))
+		}
+		n, err := parseSize(val)
+		if err != nil {
+			return fmt.Errorf("%s: %v", kv, err)
+		}
+		if err := f.l.Set(strings.TrimSpace(key), n); err != nil {
+			return errors.New(strings.TrimPrefix(err.Error(), "data: invalid configuration: "))
+		}
+		f.text = append(f.text, strings.TrimSpace(key)+"="+strings.TrimSpace(val))
+	}
+	return nil
+}
+
+// parseSize reads a positive count with an optional binary suffix.
+func parseSize(s string) (int64, error) {
+	s = strings.TrimSpace(s)
+	mult := int64(1)
+	if n := len(s); n > 0 {
+		switch s[n-1] {
+		case 'K', 'k':
+			mult = 1 << 10
+		case 'M', 'm':
+			mult = 1 << 20
+		case 'G', 'g':
+			mult = 1 << 30
+		case 'T', 't':
+			mult = 1 << 40
+		}
+		if mult > 1 {
+			s = s[:n-1]
+		}
+	}
+	v, err := strconv.ParseInt(s, 10, 64)
+	if err != nil || v <= 0 {
+		return 0, fmt.Errorf("%q is not a positive whole number", s)
+	}
+	if v > math.MaxInt64/mult {
+		return 0, fmt.Errorf("%q is too large", s)
+	}
+	return v * mult, nil
+}
+
+// sizeString writes a byte count with the largest binary suffix that
+// divides it.
+func sizeString(n int64) string {
+	for _, u := range []struct {
+		s string
+		m int64
+	}{{"T", 1 << 40}, {"G", 1 << 30}, {"M", 1 << 20}, {"K", 1 << 10}} {
+		if n >= u.m && n%u.m == 0 {
+			return strconv.FormatInt(n/u.m, 10) + u.s
+		}
+	}
+	return strconv.FormatInt(n, 10)
 }
 
 // dataSpec is how the data were read, as recorded in model files.
@@ -44,14 +118,23 @@ type dataSpec struct {
 	NoHeader bool   `json:"no_header,omitempty"`
 	Skip     int    `json:"skip,omitempty"`
 	Grey     bool   `json:"grey,omitempty"`
+	Limits   string `json:"limits,omitempty"`
 }
 
 func (d *dataFlags) spec() dataSpec {
-	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey}
+	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey, Limits: d.limits.String()}
 }
 
-func (s dataSpec) flags() dataFlags {
-	return dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey}
+// flags turns a recorded spec back into flags; limits that no longer
+// parse (a file edited by hand) are an error naming them.
+func (s dataSpec) flags() (dataFlags, error) {
+	d := dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey}
+	if s.Limits != "" {
+		if err := d.limits.Set(s.Limits); err != nil {
+			return d, fmt.Errorf("the recorded -limit %q: %v", s.Limits, err)
+		}
+	}
+	return d, nil
 }
 
 func splitList(s string) []string {
@@ -76,8 +159,14 @@ func (d *dataFlags) load() (*data.Dataset, data.Format, error) {
 		CSV:    data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label},
 		IDX:    data.IDXConfig{Labels: d.labels},
 		Images: data.ImageConfig{Grey: d.grey},
+		Limits: d.limits.l,
 	}
-	return data.Load(d.path, cfg)
+	ds, f, err := data.Load(d.path, cfg)
+	var le *data.LimitError
+	if errors.As(err, &le) {
+		return nil, "", fmt.Errorf("%w (raise it with -limit %s=N)", err, le.Key)
+	}
+	return ds, f, err
 }
 
 // loadFor loads data for a trained model whose columns are known: a CSV

@@ -159,6 +159,9 @@ func TestBadInput(t *testing.T) {
 		{"bad kind", []string{"train", "-data", bc, "-out", "m.qm", "-kind", "rbm"}, 2, "-kind"},
 		{"corrupt model", []string{"inspect", write("bad.qm", "QUERNMDL garbage that is long enough to be checked properly..........")}, 1, "corrupt"},
 		{"missing model", []string{"score", "-data", bc}, 2, "-model is required"},
+		{"row limit", []string{"train", "-data", write("l.csv", "a,b\n1,2\n3,4\n5,6\n"), "-out", "m.qm", "-limit", "rows=2"}, 1, "l.csv line 4: more than 2 rows, beyond the rows limit of 2 (raise it with -limit rows=N)"},
+		{"unknown limit", []string{"train", "-data", bc, "-out", "m.qm", "-limit", "cells=2"}, 2, `unknown limit "cells"`},
+		{"bom", []string{"train", "-data", write("bom.csv", "\ufeffa,b\n1,2\n"), "-columns", "a", "-val", "0", "-out", filepath.Join(dir, "bom.qm"), "-epochs", "1", "-quiet"}, 0, ""},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

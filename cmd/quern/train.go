@@ -62,7 +62,7 @@ type trainOpts struct {
 }
 
 func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
-	fs := newFlags(e, "train", "-kind ae|vae|gan -data FILE -out MODEL [flags]\n       quern train -resume CHECKPOINT [-out MODEL] [-data FILE] [-epochs N]")
+	fs := newFlags(e, "train", "-kind ae|vae|gan -data FILE -out MODEL [flags]\n       quern train -resume CHECKPOINT [-out MODEL] [-data FILE] [-limit KEY=N] [-epochs N]")
 	fs.StringVar(&o.kind, "kind", "ae", "model kind: ae (autoencoder), vae (variational autoencoder) or gan")
 	o.data.register(fs, true)
 	fs.StringVar(&o.out, "out", "", "model file to write (required, except when resuming CHECKPOINT.ckpt)")
@@ -188,7 +188,7 @@ func (o *trainOpts) checkNumbers() error {
 
 // resumeTrain continues a run from its checkpoint.
 func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
-	allowed := map[string]bool{"resume": true, "quiet": true, "report": true, "out": true, "data": true, "epochs": true}
+	allowed := map[string]bool{"resume": true, "quiet": true, "report": true, "out": true, "data": true, "epochs": true, "limit": true}
 	var bad []string
 	for name := range set {
 		if !allowed[name] {
@@ -196,7 +196,7 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 		}
 	}
 	if len(bad) > 0 {
-		return usagef("%s cannot be changed when resuming (the checkpoint keeps the run's settings; -out, -data, -epochs, -report and -quiet may be given)", strings.Join(bad, ", "))
+		return usagef("%s cannot be changed when resuming (the checkpoint keeps the run's settings; -out, -data, -limit, -epochs, -report and -quiet may be given)", strings.Join(bad, ", "))
 	}
 	if !set["out"] {
 		base, ok := strings.CutSuffix(o.resume, ".ckpt")
@@ -242,10 +242,17 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 			return err
 		}
 	}
-	d := rec.Data.flags()
+	d, err := rec.Data.flags()
+	if err != nil {
+		return err
+	}
 	if set["data"] {
 		d.path = o.data.path
 		rec.Data.Path = o.data.path
+	}
+	if set["limit"] {
+		d.limits = o.data.limits
+		rec.Data.Limits = d.limits.String()
 	}
 	if err := distinctPaths(map[string]string{"-data": d.path, "-out": o.out, "-resume": o.resume}); err != nil {
 		return err
