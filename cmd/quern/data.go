@@ -3,8 +3,8 @@ package main
 import (
 	"errors"
 	"flag"
-	"math"
 	"fmt"
+	"math"
 	"os"
 	"strconv"
 	"strings"
