@@ -12,6 +12,8 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
+	"time"
 )
 
 // Magic opens every quern model file.
@@ -279,13 +281,28 @@ func Read(path string, limit int64) (*File, error) {
 // Write stores f at path atomically: it writes a temporary file in the same
 // folder, syncs it, renames it over path and syncs the folder, so a crash
 // at any point leaves either the old file or the new one, never a mix.
+//
+// A file written over keeps its permissions; a new one is readable by all
+// (0644). Temporary files of the same path left by a write that crashed
+// (a process killed while saving) are removed once they are older than
+// StaleAfter.
 func Write(path string, f *File) error {
 	dir := filepath.Dir(path)
+	removeStale(dir, filepath.Base(path))
+	mode := os.FileMode(0o644)
+	if st, err := os.Stat(path); err == nil && st.Mode().IsRegular() {
+		mode = st.Mode().Perm()
+	}
 	tmp, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp-*")
 	if err != nil {
 		return fmt.Errorf("modelfile: %w", err)
 	}
 	name := tmp.Name()
+	if err := tmp.Chmod(mode); err != nil {
+		tmp.Close()
+		os.Remove(name)
+		return fmt.Errorf("modelfile: %w", err)
+	}
 	ok := false
 	defer func() {
 		if !ok {
@@ -314,6 +331,36 @@ func Write(path string, f *File) error {
 		d.Close()
 	}
 	return nil
+}
+
+// StaleAfter is the age past which Write takes a temporary file of the
+// path it writes for the leftover of a crashed write. A write under way
+// keeps its temporary file younger than this (it writes, then syncs and
+// renames at once), so two processes writing one path do not remove each
+// other's files.
+const StaleAfter = 10 * time.Minute
+
+// removeStale removes the temporary files of base in dir older than
+// StaleAfter; failures are ignored (the files are only clutter).
+func removeStale(dir, base string) {
+	old, _ := filepath.Glob(filepath.Join(dir, "."+globEscape(base)+".tmp-*"))
+	for _, p := range old {
+		if st, err := os.Lstat(p); err == nil && st.Mode().IsRegular() && time.Since(st.ModTime()) > StaleAfter {
+			os.Remove(p)
+		}
+	}
+}
+
+// globEscape quotes the pattern characters of a file name.
+func globEscape(s string) string {
+	var b strings.Builder
+	for _, r := range s {
+		if strings.ContainsRune(`*?[\`, r) {
+			b.WriteByte('\\')
+		}
+		b.WriteRune(r)
+	}
+	return b.String()
 }
 
 // beforeRename is a test hook that simulates a crash between writing the

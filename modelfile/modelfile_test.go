@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"testing"
+	"time"
 
 	"github.com/stretchr/testify/require"
 )
@@ -104,6 +105,40 @@ func TestAtomicWriteKeepsOldFileOnCrash(t *testing.T) {
 	require.Equal(t, "ae", got.Kind)
 	_, err = Read(p, 10)
 	require.ErrorContains(t, err, "limit")
+}
+
+// Saving over a file keeps its permissions and a new file is 0644; a
+// temporary file left by a crashed save goes at the next save once it is
+// stale, and a fresh one (another writer's, under way) stays.
+func TestWriteModesAndLeftovers(t *testing.T) {
+	dir := t.TempDir()
+	p := filepath.Join(dir, "m[1].qm")
+	require.NoError(t, Write(p, sample()))
+	st, err := os.Stat(p)
+	require.NoError(t, err)
+	require.Equal(t, os.FileMode(0o644), st.Mode().Perm())
+	require.NoError(t, os.Chmod(p, 0o640))
+	require.NoError(t, Write(p, sample()))
+	st, err = os.Stat(p)
+	require.NoError(t, err)
+	require.Equal(t, os.FileMode(0o640), st.Mode().Perm())
+
+	stale := filepath.Join(dir, ".m[1].qm.tmp-123")
+	fresh := filepath.Join(dir, ".m[1].qm.tmp-456")
+	other := filepath.Join(dir, ".n.qm.tmp-789")
+	for _, f := range []string{stale, fresh, other} {
+		require.NoError(t, os.WriteFile(f, []byte("partial"), 0o600))
+	}
+	long := time.Now().Add(-2 * StaleAfter)
+	require.NoError(t, os.Chtimes(stale, long, long))
+	require.NoError(t, os.Chtimes(other, long, long))
+	require.NoError(t, Write(p, sample()))
+	_, err = os.Stat(stale)
+	require.True(t, os.IsNotExist(err), "the stale leftover is removed")
+	for _, f := range []string{fresh, other} {
+		_, err = os.Stat(f)
+		require.NoError(t, err, "%s is kept", f)
+	}
 }
 
 // FuzzDecode feeds arbitrary bytes to the decoder: it must return a file or

@@ -62,6 +62,11 @@ type Config struct {
 	// ShutdownTimeout bounds the wait for requests in flight when the
 	// context ends. Default 30 s.
 	ShutdownTimeout time.Duration
+	// DrainDelay is how long the server keeps answering after the context
+	// ends, with /readyz saying 503 and every response closing its
+	// connection, so that load balancers and keep-alive clients move away
+	// before it stops accepting. Default 2 s; negative: none.
+	DrainDelay time.Duration
 	// Logger receives structured request logs. Default: discard.
 	Logger *slog.Logger
 }
@@ -69,8 +74,9 @@ type Config struct {
 // Server answers JSON requests with one model, swapped atomically on
 // reload. It is safe for concurrent use.
 type Server struct {
-	cfg   Config
-	model atomic.Pointer[Loaded]
+	cfg      Config
+	model    atomic.Pointer[Loaded]
+	draining atomic.Bool
 	m     *metrics
 	log   *slog.Logger
 	mux   *http.ServeMux
@@ -98,6 +104,9 @@ func New(cfg Config) (*Server, error) {
 	}
 	if cfg.ShutdownTimeout == 0 {
 		cfg.ShutdownTimeout = 30 * time.Second
+	}
+	if cfg.DrainDelay == 0 {
+		cfg.DrainDelay = 2 * time.Second
 	}
 	if cfg.MaxBodyBytes < 0 || cfg.MaxRows < 0 {
 		return nil, errors.New("serve: negative limits")
@@ -147,6 +156,11 @@ func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	s.m.inflight.Add(1)
 	defer s.m.inflight.Add(-1)
 	rec := &recorder{ResponseWriter: w, code: http.StatusOK}
+	if s.draining.Load() {
+		// the connection ends with this answer: the client opens a new
+		// one, to a server that is not stopping
+		w.Header().Set("Connection", "close")
+	}
 	route := "unknown"
 	if _, pattern := s.mux.Handler(r); pattern != "" && pattern != "/" {
 		route = pattern
@@ -164,8 +178,9 @@ func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 
 func (s *Server) authorised(r *http.Request) bool {
 	h := r.Header.Get("Authorization")
-	tok, ok := strings.CutPrefix(h, "Bearer ")
-	return ok && subtle.ConstantTimeCompare([]byte(tok), []byte(s.cfg.Token)) == 1
+	// the scheme is case-insensitive (RFC 7235, section 2.1)
+	scheme, tok, ok := strings.Cut(h, " ")
+	return ok && strings.EqualFold(scheme, "Bearer") && subtle.ConstantTimeCompare([]byte(strings.TrimLeft(tok, " ")), []byte(s.cfg.Token)) == 1
 }
 
 type recorder struct {
@@ -223,6 +238,10 @@ func (s *Server) routes() {
 		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
 	}))
 	s.mux.HandleFunc("/readyz", only("GET", func(w http.ResponseWriter, r *http.Request) {
+		if s.draining.Load() {
+			writeError(w, http.StatusServiceUnavailable, "draining: the server is stopping")
+			return
+		}
 		m := s.Model()
 		if m == nil {
 			writeError(w, http.StatusServiceUnavailable, "no model loaded")
@@ -477,7 +496,16 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 		return err
 	case <-ctx.Done():
 	}
-	s.log.Info("shutting down; draining requests in flight")
+	s.draining.Store(true)
+	if d := s.cfg.DrainDelay; d > 0 {
+		s.log.Info("draining: /readyz answers 503 and connections close after their answer", "for", d.String())
+		select {
+		case <-time.After(d):
+		case err := <-errc:
+			return err
+		}
+	}
+	s.log.Info("shutting down; waiting for requests in flight")
 	sctx, cancel := context.WithTimeout(context.Background(), s.cfg.ShutdownTimeout)
 	defer cancel()
 	if err := srv.Shutdown(sctx); err != nil {

@@ -55,6 +55,9 @@ type live struct {
 }
 
 func start(t testing.TB, cfg Config) *live {
+	if cfg.DrainDelay == 0 {
+		cfg.DrainDelay = -1 // the tests stop at once; TestDrainingClosesConnections drains
+	}
 	s, err := New(cfg)
 	require.NoError(t, err)
 	ln, err := net.Listen("tcp", "127.0.0.1:0")
@@ -243,13 +246,18 @@ func TestBearerToken(t *testing.T) {
 	c := &http.Client{Timeout: 5 * time.Second}
 	code, _ := post(t, c, l.url+"/v1/score", rowsBody(breastCancer(t), 0, 1))
 	require.Equal(t, 401, code)
-	req, _ := http.NewRequest("POST", l.url+"/v1/score", bytes.NewReader(rowsBody(breastCancer(t), 0, 1)))
-	req.Header.Set("Authorization", "Bearer s3cret")
-	resp, err := c.Do(req)
-	require.NoError(t, err)
-	resp.Body.Close()
-	require.Equal(t, 200, resp.StatusCode)
-	resp, err = c.Get(l.url + "/healthz")
+	// the scheme is case-insensitive (RFC 7235, section 2.1); the token
+	// is not
+	for h, want := range map[string]int{"Bearer s3cret": 200, "bearer s3cret": 200, "BEARER s3cret": 200,
+		"Bearer S3cret": 401, "Basic s3cret": 401, "Bearers3cret": 401, "s3cret": 401} {
+		req, _ := http.NewRequest("POST", l.url+"/v1/score", bytes.NewReader(rowsBody(breastCancer(t), 0, 1)))
+		req.Header.Set("Authorization", h)
+		resp, err := c.Do(req)
+		require.NoError(t, err)
+		resp.Body.Close()
+		require.Equal(t, want, resp.StatusCode, h)
+	}
+	resp, err := c.Get(l.url + "/healthz")
 	require.NoError(t, err)
 	resp.Body.Close()
 	require.Equal(t, 200, resp.StatusCode)
@@ -293,6 +301,39 @@ func TestShutdownDrains(t *testing.T) {
 	pw.Write(body[10:])
 	pw.Close()
 	require.Equal(t, 200, <-status)
+	require.NoError(t, <-done)
+}
+
+// While draining, the server still answers, says so on /readyz (503), and
+// closes every connection after its answer, so that keep-alive clients
+// do not send on a connection the server is about to close.
+func TestDrainingClosesConnections(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.qm")
+	writeAE(t, path, 1)
+	s, err := New(Config{ModelPath: path, DrainDelay: 400 * time.Millisecond})
+	require.NoError(t, err)
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	require.NoError(t, err)
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- s.Serve(ctx, ln) }()
+	url := "http://" + ln.Addr().String()
+	c := &http.Client{Timeout: 5 * time.Second}
+	resp, err := c.Get(url + "/readyz")
+	require.NoError(t, err)
+	resp.Body.Close()
+	require.Equal(t, 200, resp.StatusCode)
+	require.False(t, resp.Close, "keep-alive before draining")
+	cancel()
+	time.Sleep(50 * time.Millisecond)
+	resp, err = c.Get(url + "/readyz")
+	require.NoError(t, err)
+	resp.Body.Close()
+	require.Equal(t, 503, resp.StatusCode)
+	require.True(t, resp.Close, "Connection: close while draining")
+	code, _ := post(t, c, url+"/v1/score", rowsBody(breastCancer(t), 0, 1))
+	require.Equal(t, 200, code, "requests are still answered while draining")
 	require.NoError(t, <-done)
 }
 

@@ -25,6 +25,7 @@ func cmdServe(e *env, args []string) error {
 	readTO := fs.Duration("read-timeout", 10*time.Second, "read timeout")
 	writeTO := fs.Duration("write-timeout", 30*time.Second, "write timeout")
 	idleTO := fs.Duration("idle-timeout", 60*time.Second, "idle connection timeout")
+	drain := fs.Duration("drain", 2*time.Second, "on SIGTERM or interrupt, keep answering this long with /readyz at 503 and connections closed after each answer, then stop (0: stop at once)")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
@@ -48,7 +49,7 @@ func cmdServe(e *env, args []string) error {
 	signal.Notify(hup, syscall.SIGHUP)
 	defer signal.Stop(hup)
 	s, err := serve.New(serve.Config{ModelPath: *model, Token: token, MaxBodyBytes: *maxBody, MaxRows: *maxRows,
-		ReadTimeout: *readTO, WriteTimeout: *writeTO, IdleTimeout: *idleTO, Logger: log})
+		ReadTimeout: *readTO, WriteTimeout: *writeTO, IdleTimeout: *idleTO, DrainDelay: drainDelay(*drain), Logger: log})
 	if err != nil {
 		return err
 	}
@@ -66,4 +67,13 @@ func cmdServe(e *env, args []string) error {
 		fmt.Fprintln(e.stderr, anomaly.Caution)
 	}
 	return s.Serve(ctx, ln)
+}
+
+// drainDelay maps the -drain flag (0: none) to serve.Config's DrainDelay
+// (0: the default, negative: none).
+func drainDelay(d time.Duration) time.Duration {
+	if d <= 0 {
+		return -1
+	}
+	return d
 }
