@@ -77,9 +77,9 @@ type Server struct {
 	cfg      Config
 	model    atomic.Pointer[Loaded]
 	draining atomic.Bool
-	m     *metrics
-	log   *slog.Logger
-	mux   *http.ServeMux
+	m        *metrics
+	log      *slog.Logger
+	mux      *http.ServeMux
 }
 
 // New loads the model and prepares the routes.
