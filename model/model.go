@@ -106,7 +106,11 @@ func Open(path string) (Model, error) {
 	if err != nil {
 		return nil, err
 	}
-	return FromFile(f)
+	m, err := FromFile(f)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return m, nil
 }
 
 // FromFile returns the model a model file holds.

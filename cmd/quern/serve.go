@@ -15,6 +15,16 @@ import (
 	"github.com/quernlab/quern/serve"
 )
 
+// quern serve reloads on SIGHUP. Until its handler is installed a SIGHUP
+// would end the process (Go's default), so for the serve command it is
+// ignored from the first moment main's package starts; cmdServe then
+// takes it over.
+func init() {
+	if len(os.Args) > 1 && os.Args[1] == "serve" {
+		signal.Ignore(syscall.SIGHUP)
+	}
+}
+
 func cmdServe(e *env, args []string) error {
 	fs := newFlags(e, "serve", "-model MODEL [-addr 127.0.0.1:8417] [flags]")
 	model := fs.String("model", "", "model file to serve (required); reloaded on SIGHUP or POST /admin/reload")

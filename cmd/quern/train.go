@@ -80,7 +80,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.StringVar(&o.sparsity, "sparsity", "", "ae: sparsity penalty l1:WEIGHT or kl:WEIGHT[:TARGET]")
 	fs.StringVar(&o.loss, "loss", "", "ae: reconstruction loss mse or bce (default: bce for images, else mse)")
 	fs.BoolVar(&o.supervised, "supervised", false, "ae: add a classification head trained on the labels")
-	fs.StringVar(&o.likelihood, "likelihood", "", "vae: bernoulli, gaussian, gaussian_learned or gaussian_shared")
+	fs.StringVar(&o.likelihood, "likelihood", "", "vae: bernoulli, gaussian, gaussian_learned or gaussian_shared (default: bernoulli for images, else gaussian)")
 	fs.Float64Var(&o.beta, "beta", 0, "vae: weight of the KL term (default 1)")
 	fs.IntVar(&o.warmup, "warmup", 0, "vae: raise beta linearly over this many steps (KL annealing)")
 	fs.Float64Var(&o.freeBits, "free-bits", 0, "vae: minimum KL per latent dimension, in nats")
@@ -447,6 +447,9 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 	case vae.Kind:
 		c := vae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Scaling: scaling, Seed: o.seed,
 			Likelihood: vae.Likelihood(o.likelihood)}
+		if c.Likelihood == "" && !image {
+			c.Likelihood = vae.Gaussian // table columns are not probabilities
+		}
 		obj := train.Variational{Beta: o.beta, FreeBits: o.freeBits}
 		if o.warmup > 0 {
 			obj.Schedule = train.BetaSchedule{Kind: train.BetaLinear, Steps: o.warmup}
