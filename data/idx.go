@@ -72,25 +72,25 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx dimension %d is 0", i)}
 		}
 		if i > 0 {
-			// each factor is below 2^32 and cols stays below the limit,
-			// so the products cannot overflow
-			cols *= int64(dims[i])
-			if cols > int64(lim.Columns) {
+			// compared by division, so that no product overflows
+			// whatever the limits
+			if int64(dims[i]) > int64(lim.Columns)/cols {
 				return nil, &LimitError{File: name, Key: "columns", Limit: int64(lim.Columns), What: fmt.Sprintf("idx shape %v makes rows of more than %d values", dims[:i+1], lim.Columns)}
 			}
+			cols *= int64(dims[i])
 		}
 	}
 	if dims[0] > lim.Rows {
 		return nil, &LimitError{File: name, Key: "rows", Limit: int64(lim.Rows), What: fmt.Sprintf("idx shape %v declares %d rows", dims, dims[0])}
 	}
+	if int64(dims[0]) > lim.Values/cols {
+		return nil, &LimitError{File: name, Key: "values", Limit: lim.Values, What: fmt.Sprintf("idx shape %v declares more than %d values", dims, lim.Values)}
+	}
 	total = int64(dims[0]) * cols
-	if total > lim.Values {
-		return nil, &LimitError{File: name, Key: "values", Limit: lim.Values, What: fmt.Sprintf("idx shape %v declares %d values", dims, total)}
+	if total > (lim.Bytes-4-4*int64(nd))/int64(es) {
+		return nil, &LimitError{File: name, Key: "bytes", Limit: lim.Bytes, What: fmt.Sprintf("idx shape %v declares more than %d bytes", dims, lim.Bytes)}
 	}
 	want := total * int64(es)
-	if want+4+4*int64(nd) > lim.Bytes {
-		return nil, &LimitError{File: name, Key: "bytes", Limit: lim.Bytes, What: fmt.Sprintf("idx shape %v declares %d bytes of values", dims, want)}
-	}
 	if size >= 0 {
 		if got := size - 4 - 4*int64(nd); got != want {
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, file holds %d", dims, want, got)}

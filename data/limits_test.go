@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"image"
 	"image/png"
+	"math"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -92,6 +93,12 @@ func TestLimits(t *testing.T) {
 		require.True(t, errors.As(err, &le), "%s: %v", key, err)
 		require.Equal(t, key, le.Key)
 	}
+
+	// limits raised as far as they go: a shape whose product overflows
+	// int64 is still refused (by the limits, compared without products)
+	huge := Limits{Bytes: math.MaxInt64, Rows: math.MaxInt, Columns: math.MaxInt, Values: math.MaxInt64}
+	_, err = ReadIDX(bytes.NewReader(gzipped(t, idxBytes(0x0E, []uint32{1 << 31, 1 << 31, 1 << 31}, nil))), "overflow.gz", -1, huge)
+	require.True(t, errors.As(err, &le), "%v", err)
 
 	// images: count, pixels, and all of them together
 	imgs := filepath.Join(dir, "imgs")
