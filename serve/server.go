@@ -348,17 +348,12 @@ type scoreResponse struct {
 	Caution string          `json:"caution"`
 }
 
-// unable answers 422 naming what the served model cannot do.
-func unable(w http.ResponseWriter, m *Loaded, what, kinds string) {
-	writeError(w, http.StatusUnprocessableEntity, "%s needs %s; the served model is of kind %q", what, kinds, m.Kind())
-}
-
 // capability returns the served model as capability C, or answers 422
 // naming what the request needs.
 func capability[C any](w http.ResponseWriter, m *Loaded, what, needs string) (C, bool) {
 	c, ok := m.Model.(C)
 	if !ok {
-		unable(w, m, what, needs)
+		writeError(w, http.StatusUnprocessableEntity, "%s needs %s; the served model is of kind %q", what, needs, m.Kind())
 	}
 	return c, ok
 }
