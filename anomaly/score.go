@@ -33,7 +33,7 @@ const NotFinite = "the row is outside the range the model can represent (its sco
 // (JSON has no NaN or infinity).
 func (s Score) MarshalJSON() ([]byte, error) {
 	type plain Score
-	if !math.IsNaN(s.Value) && !math.IsInf(s.Value, 0) {
+	if finite(s.Value) {
 		return json.Marshal(plain(s))
 	}
 	return json.Marshal(struct {
