@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"github.com/quernlab/quern/layers"
 	"reflect"
 	"sort"
 	"strconv"
@@ -69,6 +70,11 @@ func (t *Trainer) Checkpoint(prov *modelfile.Provenance) (*modelfile.File, error
 		ts, js := optimizerTensors(opts[p], p)
 		f.Tensors = append(f.Tensors, ts...)
 		sec.Optimizers[p] = js
+	}
+	for i, p := range t.r.params() {
+		if t.best != nil {
+			f.Tensors = append(f.Tensors, modelfile.Tensor{Name: bestPrefix + p.Name(), Rows: 1, Cols: len(t.best[i]), F64: append([]float64(nil), t.best[i]...)})
+		}
 	}
 	if sec.Shuffle, err = generatorState(t.shuffle); err != nil {
 		return nil, err
@@ -163,10 +169,48 @@ func Resume(f *modelfile.File, s *Settings) (*Trainer, error) {
 		return nil, err
 	}
 	t.history = sec.History.clone()
+	if t.best, err = bestWeights(f, t.r.params()); err != nil {
+		return nil, err
+	}
 	if w, ok := t.r.(warnMemory); ok {
 		w.remember(t.history.Warnings)
 	}
 	return t, nil
+}
+
+// bestPrefix starts the names of the tensors that hold the best epoch's
+// weights in a checkpoint (early stopping restores them at the end).
+const bestPrefix = modelfile.TrainingPrefix + "best/"
+
+// bestWeights reads the best epoch's weights from a checkpoint: nil when
+// it holds none (no early stopping, or a checkpoint written before they
+// were kept), else one per parameter, of its length.
+func bestWeights(f *modelfile.File, params []*layers.Param) ([][]float64, error) {
+	byName := map[string][]float64{}
+	for _, t := range f.Tensors {
+		if name, ok := strings.CutPrefix(t.Name, bestPrefix); ok {
+			if t.F64 == nil {
+				return nil, bad("the checkpoint's best weights for %q are not float64", name)
+			}
+			byName[name] = t.F64
+		}
+	}
+	if len(byName) == 0 {
+		return nil, nil
+	}
+	best := make([][]float64, len(params))
+	for i, p := range params {
+		v, ok := byName[p.Name()]
+		if !ok || len(v) != p.Len() {
+			return nil, bad("the checkpoint's best weights do not fit the parameter %q", p.Name())
+		}
+		best[i] = append([]float64(nil), v...) // the file stays as it was read
+		delete(byName, p.Name())
+	}
+	for name := range byName {
+		return nil, bad("the checkpoint holds best weights for %q, which the model lacks", name)
+	}
+	return best, nil
 }
 
 // openModel opens the model of a model file, which must be of a kind

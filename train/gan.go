@@ -3,6 +3,7 @@ package train
 import (
 	"encoding/json"
 	"fmt"
+	"github.com/quernlab/quern/modelfile"
 	"math"
 	"math/rand/v2"
 
@@ -16,8 +17,8 @@ import (
 
 // Checkpoint prefixes of a GAN's two optimisers.
 const (
-	generatorOptimizer     = "optimizer/generator/"
-	discriminatorOptimizer = "optimizer/discriminator/"
+	generatorOptimizer     = modelfile.TrainingPrefix + "generator/"
+	discriminatorOptimizer = modelfile.TrainingPrefix + "discriminator/"
 )
 
 // ganRecipe trains a GAN on its Adversarial objective: each step is

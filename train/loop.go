@@ -98,6 +98,9 @@ type loop struct {
 	// mid is set while an epoch is under way: weights, optimiser and
 	// generators have moved past what the history records.
 	mid *bool
+	// best holds the best epoch's weights (with early stopping), kept by
+	// the trainer across runs and checkpoints.
+	best *[][]float64
 	// evalHook, when set (tests), replaces the evaluation pass.
 	evalHook func() []Metric
 }
@@ -106,6 +109,9 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 	s, h, r := l.s, l.h, l.r
 	if l.mid == nil {
 		l.mid = new(bool)
+	}
+	if l.best == nil {
+		l.best = new([][]float64)
 	}
 	if trainSet == nil || trainSet.Rows == 0 {
 		return fmt.Errorf("%w: no training rows", ErrConfig)
@@ -121,11 +127,13 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 		return err
 	}
 	params := r.params()
-	var best [][]float64
-	if h.BestEpoch > 0 && s.Patience > 0 && !s.KeepLast {
-		// after a resume the best weights are not known; the current ones
-		// stand in until an epoch improves on the recorded best.
+	best := *l.best
+	if best == nil && h.BestEpoch > 0 && s.Patience > 0 && !s.KeepLast {
+		// resumed from a checkpoint that did not keep the best weights
+		// (written before they were kept): the current ones stand in
+		// until an epoch improves on the recorded best
 		best = snapshot(params)
+		*l.best = best
 	}
 	// a batch holds at most the rows there are, whatever the batch size
 	rows := min(s.BatchSize, trainSet.Rows)
@@ -220,6 +228,7 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 			h.BestEpoch, h.BestLoss, h.sinceBest = epoch, loss, 0
 			if s.Patience > 0 && !s.KeepLast {
 				best = snapshotInto(best, params)
+				*l.best = best // a checkpoint from OnEpoch holds it
 			}
 		} else {
 			h.sinceBest++

@@ -2,6 +2,7 @@ package train
 
 import (
 	"fmt"
+	"github.com/quernlab/quern/modelfile"
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/engine"
@@ -113,4 +114,4 @@ func newOptimizer(o Optimizer, rate float64, sched optim.Schedule) (optim.Optimi
 
 // singleOptimizer is the checkpoint prefix of the one optimiser of the
 // autoencoder and the VAE.
-const singleOptimizer = "optimizer/"
+const singleOptimizer = modelfile.TrainingPrefix

@@ -36,6 +36,9 @@ type Trainer struct {
 	history *History
 	// midEpoch: the last Run stopped within an epoch (see Checkpoint).
 	midEpoch bool
+	// best is the best epoch's weights, in the order of the recipe's
+	// params (nil without early stopping, or before the first epoch).
+	best [][]float64
 }
 
 // New returns a trainer for m with the settings s (zero fields: the
@@ -130,7 +133,7 @@ func (t *Trainer) Run(ctx context.Context, trainSet, valSet *data.Dataset) (*His
 	if err != nil {
 		return t.history, err
 	}
-	l := &loop{r: t.r, s: t.s, shuffle: rand.New(t.shuffle), seed: t.seed, h: t.history, mid: &t.midEpoch}
+	l := &loop{r: t.r, s: t.s, shuffle: rand.New(t.shuffle), seed: t.seed, h: t.history, mid: &t.midEpoch, best: &t.best}
 	err = l.run(ctx, tr, va)
 	return t.history, err
 }

@@ -269,3 +269,54 @@ func TestHugeBatchSizeIsBoundedByTheRows(t *testing.T) {
 	require.NoError(t, err)
 	require.Len(t, h.Epochs, 1)
 }
+
+// Early stopping restores the best epoch's weights at the end; a run
+// checkpointed after its best epoch and resumed restores the same
+// weights as the straight run, bitwise (common practice, no source: the
+// reproducibility contract of Resume).
+func TestResumeKeepsTheBestWeights(t *testing.T) {
+	bc := testenv.BreastCancer(t)
+	tr, va, err := bc.Split(0.3, rand.New(rand.NewPCG(1, 2)))
+	require.NoError(t, err)
+	build := func() *ae.Model {
+		return mustModel(ae.New(ae.Config{Inputs: 30, Hidden: []int{8}, Latent: 3, Seed: 4}))
+	}
+	// no epoch after the first counts as better: the run stops after
+	// epoch 4 and goes back to epoch 1
+	s := train.Settings{Epochs: 10, BatchSize: 32, Patience: 3, MinDelta: 1e9}
+	straight := build()
+	st, err := train.New(straight, s)
+	require.NoError(t, err)
+	want, err := st.Run(context.Background(), tr, va)
+	require.NoError(t, err)
+	require.True(t, want.Restored)
+	require.Equal(t, 1, want.BestEpoch)
+	require.Len(t, want.Epochs, 4)
+
+	first, err := train.New(build(), s)
+	require.NoError(t, err)
+	stop := errors.New("stop")
+	var ck *modelfile.File
+	first.SetCallbacks(train.Callbacks{OnEpoch: func(p train.Progress, _ *train.History) error {
+		if p.Epoch < 2 {
+			return nil
+		}
+		ck, err = first.Checkpoint(nil)
+		require.NoError(t, err)
+		return stop
+	}})
+	_, err = first.Run(context.Background(), tr, va)
+	require.ErrorIs(t, err, stop)
+	r, err := train.Resume(ck, nil)
+	require.NoError(t, err)
+	got, err := r.Run(context.Background(), tr, va)
+	require.NoError(t, err)
+	require.Equal(t, want.Epochs, got.Epochs)
+	require.True(t, got.Restored)
+	for i, p := range r.Model().(*ae.Model).Params() {
+		q := straight.Params()[i]
+		for j := 0; j < p.Len(); j++ {
+			require.Equal(t, q.At(j), p.At(j), "%s[%d]", p.Name(), j)
+		}
+	}
+}
