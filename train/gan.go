@@ -54,6 +54,7 @@ type ganRecipe struct {
 	steps        int
 	winning      int
 	warned       map[string]int
+	evalOut      [2][]float64 // the evaluation's discriminator outputs
 }
 
 // ganState is a GAN recipe's own training state in checkpoints.
@@ -339,17 +340,14 @@ func (r *ganRecipe) metrics() []Metric {
 		} else {
 			r.winning = 0
 		}
-		if r.winning >= obj.WinningSteps {
+		if r.winning >= obj.WinningSteps && r.due("discriminator_wins") {
 			r.raise("discriminator_wins", fmt.Sprintf("discriminator accuracy above %.2f for %d steps: the generator's gradient is vanishing", obj.WinningAccuracy, r.winning))
 		}
 	}
-	if sp < obj.CollapseRatio {
+	if sp < obj.CollapseRatio && r.due("collapse") {
 		r.raise("collapse", fmt.Sprintf("generated spread is %.3f of the data's: samples are collapsing", sp))
 	}
-	dReal, dFake := sigmoidMean(r.lr), sigmoidMean(r.lf)
-	if c.Critic == gan.Wasserstein {
-		dReal, dFake = mean(r.lr), mean(r.lf)
-	}
+	dReal, dFake := r.outputMean(r.lr), r.outputMean(r.lf)
 	r.metric = append(r.metric[:0],
 		Metric{Name: "d_loss", Value: r.dLoss},
 		Metric{Name: "g_loss", Value: r.gLoss},
@@ -360,11 +358,24 @@ func (r *ganRecipe) metrics() []Metric {
 	return r.metric
 }
 
-// raise passes a warning on, at most once per kind in 500 steps.
-func (r *ganRecipe) raise(kind, msg string) {
-	if last, ok := r.warned[kind]; ok && r.steps-last < 500 {
-		return
+// outputMean is the discriminator's mean output as the figures report
+// it: a probability for the BCE critic, the raw score for Wasserstein.
+func (r *ganRecipe) outputMean(v []float64) float64 {
+	if r.c.Critic == gan.Wasserstein {
+		return mean(v)
 	}
+	return sigmoidMean(v)
+}
+
+// due reports whether a warning of the kind may be raised: at most once
+// per kind in 500 steps (checked before its message is written).
+func (r *ganRecipe) due(kind string) bool {
+	last, ok := r.warned[kind]
+	return !ok || r.steps-last >= 500
+}
+
+// raise passes a warning on; the caller has checked due.
+func (r *ganRecipe) raise(kind, msg string) {
 	r.warned[kind] = r.steps
 	if r.warn != nil {
 		r.warn(Warning{Step: r.steps, Kind: kind, Message: msg})
@@ -415,8 +426,7 @@ func (r *ganRecipe) evaluation() *evaluation {
 			r.fillCommon(p, rows, rng)
 		},
 		Read: func(p *engine.Program, loss float64, dst []float64) []float64 {
-			var b0, b1 []float64
-			return append(dst, loss, sigmoidMean(output(p, 0, &b0)), sigmoidMean(output(p, 1, &b1)))
+			return append(dst, loss, r.outputMean(output(p, 0, &r.evalOut[0])), r.outputMean(output(p, 1, &r.evalOut[1])))
 		}}
 }
 

@@ -2,6 +2,7 @@ package train
 
 import (
 	"context"
+	"math"
 	"testing"
 
 	"github.com/quernlab/quern/gan"
@@ -61,6 +62,20 @@ func TestOtherObjectivesTrain(t *testing.T) {
 		h := fit(t, m, d, d, Settings{Epochs: 2, Objective: c.obj})
 		require.Equal(t, "d_loss", h.Epochs[0].Train[0].Name)
 		require.Equal(t, "d_loss", h.Epochs[0].Validation[0].Name)
+		// validation's d_real is the discriminator's mean output on the
+		// validation rows, as the graph-free pass gives it: a probability
+		// for BCE, the raw score for the Wasserstein critic (tolerance
+		// for float32 sums in another order)
+		out, err := m.Discriminate(d.X, d.Rows, nil)
+		require.NoError(t, err)
+		var want float64
+		for _, v := range out {
+			want += v
+		}
+		want /= float64(len(out))
+		last := h.Epochs[len(h.Epochs)-1].Validation
+		require.Equal(t, "d_real", last[1].Name)
+		require.InDelta(t, want, last[1].Value, 1e-4*max(1, math.Abs(want)), "%v", c.cfg.Critic)
 	}
 	m, _ := gan.New(gan.Config{Outputs: 2, Pack: 4})
 	_, err := New(m, Settings{Objective: Adversarial{LabelSmoothing: 0.7}})
