@@ -34,7 +34,8 @@ type Model struct {
 	// normalisation): the layer computes x (W SpectralScale) + b.
 	SpectralScale []float64
 
-	pool scratch.Pool[work]
+	pool   scratch.Pool[work]
+	powerV []float64 // PowerIteration's scratch vector
 }
 
 // New builds an untrained model with weights drawn from cfg.Seed.
@@ -102,7 +103,8 @@ func (m *Model) PowerIteration() {
 	for l, d := range m.Discriminator.Layers {
 		u := m.SpectralU[l]
 		w := d.W // In x Out; the layer computes x W
-		v := make([]float64, d.In)
+		m.powerV = scratch.Grow(m.powerV, d.In)
+		v := m.powerV
 		for i := 0; i < d.In; i++ {
 			var s float64
 			for j := 0; j < d.Out; j++ {

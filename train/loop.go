@@ -141,6 +141,7 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 	if trainSet.Labels != nil {
 		b.Labels = make([]int, rows)
 	}
+	var bb batch // the step's rows (declared once: a step allocates nothing)
 	moves := r.moves()
 	clip := s.Optimizer.ClipNorm
 	start := time.Now()
@@ -166,7 +167,7 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 			batches.Gather(i, b.X[:b.Rows*b.Cols], lab)
 			use := r.usable(b.Rows)
 			if use > 0 {
-				bb := batch{Rows: use, Cols: b.Cols, X: b.X[:use*b.Cols], Labels: lab}
+				bb = batch{Rows: use, Cols: b.Cols, X: b.X[:use*b.Cols], Labels: lab}
 				if err := l.step(moves, &bb, clip); err != nil {
 					if errors.Is(err, engine.ErrNonFinite) {
 						return &NonFiniteError{Epoch: epoch, Step: i + 1, Err: err}

@@ -68,6 +68,10 @@ func TestTrainStepAllocatesNothing(t *testing.T) {
 		{"vae", mustNew(vae.New(vae.Config{Inputs: 40, Hidden: []int{24}, Latent: 4, Scaling: data.ScaleNone, Seed: 1})), 40},
 		{"gan", mustNew(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Activation: layers.LeakyReLU,
 			LeakySlope: 0.2, GenOutput: layers.Tanh, Scaling: data.ScaleNone, Seed: 1})), 30},
+		// spectral normalisation (a power iteration per discriminator
+		// update) and several discriminator steps per generator step
+		{"wgan", mustNew(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Critic: gan.Wasserstein,
+			Scaling: data.ScaleNone, Seed: 1})), 30},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			step := stepRig(t, c.m, c.width, 32)

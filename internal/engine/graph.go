@@ -305,7 +305,15 @@ func (gr *Graph) unary(op string, x *Node, f func(*G.Node) (*G.Node, error)) *No
 }
 
 // Neg is -x.
-func (gr *Graph) Neg(x *Node) *Node { return gr.unary("neg", x, G.Neg) }
+//
+// On a scalar (a loss) it is a scale by -1, bitwise the same, which runs
+// without allocating where gorgonia's negation of a scalar allocates.
+func (gr *Graph) Neg(x *Node) *Node {
+	if x != nil && x.IsScalar() && x.n != nil && !isConst(x) {
+		return gr.scalarArith("scale", 's', -1, x)
+	}
+	return gr.unary("neg", x, G.Neg)
+}
 
 // Exp is exp(x).
 func (gr *Graph) Exp(x *Node) *Node { return gr.unary("exp", x, G.Exp) }
