@@ -18,14 +18,20 @@ func TestGenerateIntoAllocatesNothing(t *testing.T) {
 	if !testenv.RaceBuild { // the race detector's instrumentation allocates
 		require.Zero(t, testing.AllocsPerRun(50, func() { _, _ = m.GenerateInto(dst, 10, 1, 1) }))
 	}
-	a, _ := m.Generate(10, 5, 1)
-	b, _ := m.GenerateInto(nil, 10, 5, 1)
-	require.Equal(t, a, b)
+	// the rows land in dst; the same seed and class give the same rows,
+	// another seed or class other rows
+	out, err := m.GenerateInto(dst, 10, 5, 1)
+	require.NoError(t, err)
+	require.Same(t, &dst[0], &out[0])
+	a := append([]float32(nil), out...)
+	again, err := m.GenerateInto(make([]float32, 30), 10, 5, 1)
+	require.NoError(t, err)
+	require.Equal(t, a, again)
+	for _, other := range [][2]int{{6, 1}, {5, 0}} {
+		o, err := m.GenerateInto(nil, 10, uint64(other[0]), other[1])
+		require.NoError(t, err)
+		require.NotEqual(t, a, o, "seed %d class %d", other[0], other[1])
+	}
 	_, err = m.Generate(1, 1, 2)
 	require.Error(t, err)
-	s, err := m.Sample(4, 7)
-	require.NoError(t, err)
-	g, err := m.Generate(4, 7, -1)
-	require.NoError(t, err)
-	require.Equal(t, g, s)
 }

@@ -171,6 +171,14 @@ func TestReportedKLMatchesLosses(t *testing.T) {
 	require.InDelta(t, want, ms[2].Value, 1e-4*(1+want))
 	got, err := m.KLPerDim(d.X, d.Rows)
 	require.NoError(t, err)
+	// against the closed form written out here (Kingma & Welling 2014,
+	// Appendix B): per dimension, the row average of
+	// -0.5 (1 + logvar - mu^2 - exp(logvar))
+	closed := make([]float64, 3)
+	for i, mv := range mu {
+		closed[i%3] += -0.5 * (1 + lv[i] - mv*mv - math.Exp(lv[i])) / float64(d.Rows)
+	}
+	require.InDeltaSlice(t, closed, got, 1e-12)
 	require.InDeltaSlice(t, per, got, 1e-12)
 }
 
