@@ -7,6 +7,7 @@ import (
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/vae"
@@ -102,15 +103,7 @@ type Density interface {
 // Open reads a model file (a checkpoint also opens, as the model it
 // holds) and returns its model.
 func Open(path string) (Model, error) {
-	f, err := modelfile.Read(path, 0)
-	if err != nil {
-		return nil, err
-	}
-	m, err := FromFile(f)
-	if err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
-	}
-	return m, nil
+	return modelio.Open(path, FromFile)
 }
 
 // FromFile returns the model a model file holds.

@@ -1,6 +1,7 @@
 package train
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 
@@ -87,6 +88,9 @@ func (r *aeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data
 	if err := checkWidth("ae", r.c.Inputs, trainSet, valSet); err != nil {
 		return nil, nil, err
 	}
+	if err := r.checkLabels(trainSet, valSet); err != nil {
+		return nil, nil, err
+	}
 	tr, va, err := scale("ae", &r.m.Scaler, r.c.Scaling, trainSet, valSet)
 	if err != nil {
 		return nil, nil, err
@@ -101,6 +105,33 @@ func (r *aeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data
 		r.step.Phase = r.trainPhase
 	}
 	return tr, va, nil
+}
+
+// checkLabels refuses, for a model with a classification head, a label
+// outside its classes (it would pass for unlabelled), and head-only
+// training without a labelled row (nothing would train).
+func (r *aeRecipe) checkLabels(trainSet, valSet *data.Dataset) error {
+	if r.m.Head == nil {
+		return nil
+	}
+	labelled := 0
+	for _, d := range []*data.Dataset{trainSet, valSet} {
+		if d == nil {
+			continue
+		}
+		for i, l := range d.Labels {
+			if l != data.Unlabelled && (l < 0 || l >= r.c.Classes) {
+				return fmt.Errorf("ae: row %d has label %d, want 0..%d (or none)", i+1, l, r.c.Classes-1)
+			}
+			if l != data.Unlabelled && d == trainSet {
+				labelled++
+			}
+		}
+	}
+	if r.obj.HeadOnly && labelled == 0 {
+		return fmt.Errorf("%w: head-only training needs labelled training rows", ErrConfig)
+	}
+	return nil
 }
 
 // build is the training (trainMode) or evaluation graph for n rows.

@@ -2,6 +2,7 @@ package train
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"math/rand/v2"
 
@@ -129,6 +130,13 @@ func (t *Trainer) SetEpochs(n int) error {
 // *NonFiniteError naming the epoch and step. The history is returned
 // even when training stops with an error.
 func (t *Trainer) Run(ctx context.Context, trainSet, valSet *data.Dataset) (*History, error) {
+	// refused before prepare fits the scaler and names the columns
+	if trainSet == nil || trainSet.Rows == 0 {
+		return t.history, fmt.Errorf("%w: no training rows", ErrConfig)
+	}
+	if t.s.Patience > 0 && valSet == nil {
+		return t.history, fmt.Errorf("%w: early stopping (patience %d) needs validation rows", ErrConfig, t.s.Patience)
+	}
 	tr, va, err := t.r.prepare(trainSet, valSet)
 	if err != nil {
 		return t.history, err

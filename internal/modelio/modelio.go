@@ -160,14 +160,19 @@ func Save(path string, m Saver, prov *modelfile.Provenance) error {
 	return modelfile.Write(path, f)
 }
 
-// Open reads the model file at path with a kind's FromFile.
+// Open reads the model file at path with a FromFile; the file's errors
+// name the path.
 func Open[M any](path string, fromFile func(*modelfile.File) (M, error)) (M, error) {
+	var zero M
 	f, err := modelfile.Read(path, 0)
 	if err != nil {
-		var zero M
 		return zero, err
 	}
-	return fromFile(f)
+	m, err := fromFile(f)
+	if err != nil {
+		return zero, fmt.Errorf("%s: %w", path, err)
+	}
+	return m, nil
 }
 
 // Finite reports the first row of out (rows of cols values) that holds a
