@@ -185,11 +185,7 @@ func (r *ganRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		r.m.Columns, r.m.Image = trainSet.Columns, trainSet.Image
 	}
 	r.train = tr
-	x := make([]float64, len(tr.X))
-	for i, v := range tr.X {
-		x[i] = float64(v)
-	}
-	r.dataSpread = math.Max(spread(x, tr.Rows, tr.Cols), 1e-12)
+	r.dataSpread = math.Max(spread(tr.X, tr.Rows, tr.Cols), 1e-12)
 	if r.dPhase == nil {
 		r.dPhase = engine.NewPhase(c.Precision, true, r.buildD).Only(r.m.Discriminator.Params())
 		r.gPhase = engine.NewPhase(c.Precision, true, r.buildG).Only(r.m.Generator.Params())
@@ -399,16 +395,16 @@ func mean(v []float64) float64 {
 }
 
 // spread is the mean over columns of the standard deviation of rows.
-func spread(x []float64, rows, cols int) float64 {
+func spread[T float32 | float64](x []T, rows, cols int) float64 {
 	var total float64
 	for j := 0; j < cols; j++ {
 		var m, s float64
 		for r := 0; r < rows; r++ {
-			m += x[r*cols+j]
+			m += float64(x[r*cols+j])
 		}
 		m /= float64(rows)
 		for r := 0; r < rows; r++ {
-			d := x[r*cols+j] - m
+			d := float64(x[r*cols+j]) - m
 			s += d * d
 		}
 		total += math.Sqrt(s / float64(max(rows-1, 1)))
