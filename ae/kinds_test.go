@@ -48,7 +48,10 @@ func TestDenoisingHalvesTheError(t *testing.T) {
 }
 
 // Sparse coding with a KL penalty toward rho = 0.05: the mean code
-// activation on the training data ends within 0.02 of rho.
+// activation on the training data ends within 0.02 of rho. The penalty
+// is the sum over code units of KL(rho || mean activation), from memory
+// (the usual sparse-autoencoder formulation); the 0.02 is our own
+// tolerance, no source.
 func TestKLSparsityReachesTarget(t *testing.T) {
 	d := testenv.Digits(t)
 	m, err := ae.New(ae.Config{Inputs: 64, Hidden: []int{64}, Latent: 32, CodeActivation: layers.Sigmoid, Seed: 3})
@@ -122,6 +125,8 @@ func TestPretrainedEncoderHelpsWithFewLabels(t *testing.T) {
 
 // Partly labelled rows train jointly: unlabelled rows add only the
 // reconstruction term, and the head still learns from the labelled ones.
+// The 0.8 floor on the digits (10 classes, chance 0.1) is our own, no
+// source: far above chance, below what a fully labelled head reaches.
 func TestPartialLabelsTrainJointly(t *testing.T) {
 	d := testenv.Digits(t)
 	part := d.Subset(func() []int {
