@@ -9,6 +9,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"math"
 	"os"
 	"path/filepath"
@@ -261,12 +262,15 @@ func Read(path string, limit int64) (*File, error) {
 	}
 	fh, err := os.Open(path)
 	if err != nil {
-		return nil, fmt.Errorf("modelfile: %w", err)
+		return nil, fmt.Errorf("modelfile: %s: %w", path, pathCause(err))
 	}
 	defer fh.Close()
 	st, err := fh.Stat()
 	if err != nil {
-		return nil, fmt.Errorf("modelfile: %w", err)
+		return nil, fmt.Errorf("modelfile: %s: %w", path, pathCause(err))
+	}
+	if st.IsDir() {
+		return nil, fmt.Errorf("modelfile: %s is a folder, not a model file", path)
 	}
 	if st.Size() > limit {
 		return nil, &CorruptError{Path: path, Msg: fmt.Sprintf("file is %d bytes, over the %d-byte limit", st.Size(), limit)}
@@ -370,4 +374,14 @@ var beforeRename = func(string) error { return nil }
 func sha256Sum(b []byte) []byte {
 	s := sha256.Sum256(b)
 	return s[:]
+}
+
+// pathCause is the cause inside an *fs.PathError (which would repeat the
+// operation and the path), still matching errors.Is(err, fs.ErrNotExist).
+func pathCause(err error) error {
+	var pe *fs.PathError
+	if errors.As(err, &pe) {
+		return pe.Err
+	}
+	return err
 }

@@ -14,6 +14,7 @@ import (
 	"os"
 	"sort"
 	"strings"
+	"time"
 )
 
 type env struct {
@@ -37,6 +38,7 @@ func init() {
 		"inspect":     {"describe a model file and check it", cmdInspect},
 		"demo":        {"run the whole job on an invented pump fleet", cmdDemo},
 		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
+		"version":     {"print the version, the Go toolchain, the build settings and the matrix kernel", cmdVersion},
 	}
 }
 
@@ -59,8 +61,7 @@ func run(args []string, e *env) int {
 	}
 	c, ok := commands[args[0]]
 	if !ok {
-		fmt.Fprintf(e.stderr, "quern: unknown command %q\n", args[0])
-		usage(e.stderr)
+		fmt.Fprintf(e.stderr, "quern: unknown command %q (quern help lists the commands)\n", args[0])
 		return 2
 	}
 	err := c.run(e, args[1:])
@@ -95,32 +96,92 @@ func usage(w io.Writer) {
 	fmt.Fprintln(w, "\nRun \"quern COMMAND -h\" for a command's flags.")
 }
 
-// newFlags returns a flag set that reports errors instead of exiting.
+// newFlags returns a flag set that reports errors instead of exiting. Its
+// usage text is printed once, by parse, when -h is given.
 func newFlags(e *env, name, synopsis string) *flag.FlagSet {
 	fs := flag.NewFlagSet("quern "+name, flag.ContinueOnError)
 	fs.SetOutput(e.stderr)
 	fs.Usage = func() {
-		fmt.Fprintf(e.stderr, "usage: quern %s %s\n\nflags:\n", name, synopsis)
-		fs.PrintDefaults()
+		fmt.Fprintf(fs.Output(), "usage: quern %s\n", strings.TrimSpace(name+" "+synopsis))
+		any := false
+		fs.VisitAll(func(*flag.Flag) { any = true })
+		if any {
+			fmt.Fprintf(fs.Output(), "\nflags:\n")
+			fs.PrintDefaults()
+		}
 	}
 	return fs
 }
 
-// parse parses flags, turning flag errors into usage errors and refusing
-// more than positional stray arguments.
+// parse parses flags, turning flag errors into one-line usage errors and
+// refusing more than positional stray arguments. With -h it prints the
+// usage once and returns flag.ErrHelp.
 func parse(e *env, fs *flag.FlagSet, args []string, positional int) ([]string, error) {
+	usage := fs.Usage
+	fs.Usage = func() {} // the flag package would print it before returning
 	fs.SetOutput(io.Discard)
 	err := fs.Parse(args)
 	fs.SetOutput(e.stderr)
+	fs.Usage = usage
 	if errors.Is(err, flag.ErrHelp) {
 		fs.Usage()
 		return nil, flag.ErrHelp
 	}
 	if err != nil {
-		return nil, usageError{err.Error()}
+		return nil, usageError{flagMessage(fs, err)}
 	}
 	if fs.NArg() > positional {
-		return nil, usagef("unexpected argument %q", fs.Arg(positional))
+		return nil, usagef("unexpected argument %q (flags go before it? %s -h lists them)", fs.Arg(positional), fs.Name())
 	}
 	return fs.Args(), nil
+}
+
+// flagMessage rewrites the flag package's errors in the tool's words.
+func flagMessage(fs *flag.FlagSet, err error) string {
+	msg := err.Error()
+	if name, ok := strings.CutPrefix(msg, "flag provided but not defined: "); ok {
+		return fmt.Sprintf("unknown flag %s (%s -h lists the flags)", name, fs.Name())
+	}
+	if name, ok := strings.CutPrefix(msg, "flag needs an argument: "); ok {
+		return fmt.Sprintf("%s needs a value", name)
+	}
+	// invalid value "x" for flag -epochs: parse error
+	if rest, ok := strings.CutPrefix(msg, "invalid value "); ok {
+		if val, tail, ok := strings.Cut(rest, " for flag "); ok {
+			name, why, _ := strings.Cut(tail, ": ")
+			want := "a valid value"
+			if f := fs.Lookup(strings.TrimLeft(name, "-")); f != nil {
+				want = flagKind(f)
+			}
+			if strings.Contains(why, "out of range") {
+				return fmt.Sprintf("%s %s: out of range", name, val)
+			}
+			if !strings.Contains(why, "parse error") && !strings.Contains(why, "invalid syntax") && why != "" {
+				return fmt.Sprintf("%s %s: %s", name, val, why)
+			}
+			return fmt.Sprintf("%s %s: want %s", name, val, want)
+		}
+	}
+	return msg
+}
+
+// flagKind names what a flag takes, from its default's type.
+func flagKind(f *flag.Flag) string {
+	g, ok := f.Value.(flag.Getter)
+	if !ok {
+		return "a valid value"
+	}
+	switch g.Get().(type) {
+	case int, int64:
+		return "a whole number"
+	case uint, uint64:
+		return "a whole number, 0 or more"
+	case float64:
+		return "a number"
+	case bool:
+		return "true or false"
+	case time.Duration:
+		return "a duration such as 500ms, 10s or 2m"
+	}
+	return "a valid value"
 }

@@ -153,7 +153,16 @@ func TestBadInput(t *testing.T) {
 		{"idx magic", []string{"train", "-data", write("images-idx3-ubyte", "\x08\x03\x00\x00\x00\x00\x00\x01\x00\x00\x00\x01\x00\x00\x00\x01a"), "-out", "m.qm"}, 1, "not an idx file (magic"},
 		{"mixed images", []string{"train", "-data", mixed, "-out", "m.qm"}, 1, "b.png"},
 		{"missing file", []string{"train", "-data", filepath.Join(dir, "nope.csv"), "-out", "m.qm"}, 1, "nope.csv"},
-		{"unknown flag", []string{"train", "-bogus"}, 2, "bogus"},
+		{"unknown flag", []string{"train", "-bogus"}, 2, "quern train: unknown flag -bogus (quern train -h lists the flags)"},
+		{"bad number", []string{"train", "-epochs", "x"}, 2, `-epochs "x": want a whole number`},
+		{"bad duration", []string{"serve", "-drain", "5"}, 2, "-drain \"5\": want a duration"},
+		{"negative latent", []string{"train", "-data", bc, "-out", "m.qm", "-latent", "-3"}, 2, "-latent -3: want at least 1"},
+		{"negative rate", []string{"train", "-data", bc, "-out", "m.qm", "-rate", "-1"}, 2, "-rate -1: want a positive learning rate"},
+		{"val range", []string{"train", "-data", bc, "-out", "m.qm", "-val", "1.5"}, 2, "-val 1.5: want a fraction in [0, 1)"},
+		{"false alarm range", []string{"train", "-data", bc, "-out", "m.qm", "-false-alarm", "2"}, 2, "-false-alarm 2: want a rate between 0 and 1"},
+		{"out folder missing", []string{"train", "-data", bc, "-out", "/nonexistent/dir/x.qm"}, 1, "-out /nonexistent/dir/x.qm: the folder /nonexistent/dir does not exist"},
+		{"inspect missing", []string{"inspect", "nothere.qm"}, 1, "nothere.qm: no such file or directory"},
+		{"open server without token", []string{"serve", "-model", "m.qm", "-addr", "0.0.0.0:0"}, 2, "-addr 0.0.0.0:0 is reachable from other machines and no -token-env is set"},
 		{"unknown command", []string{"frobnicate"}, 2, "unknown command"},
 		{"missing out", []string{"train", "-data", bc}, 2, "-out is required"},
 		{"bad kind", []string{"train", "-data", bc, "-out", "m.qm", "-kind", "rbm"}, 2, "-kind"},
@@ -175,9 +184,26 @@ func TestBadInput(t *testing.T) {
 			}
 		})
 	}
-	r := quern(t, dir, nil, "train", "-h")
-	require.Equal(t, 0, r.code)
-	require.Contains(t, r.stderr, "-kind")
+	for _, c := range []string{"train", "score", "encode", "sample", "interpolate", "inspect", "demo", "serve", "version"} {
+		r := quern(t, dir, nil, c, "-h")
+		require.Equal(t, 0, r.code)
+		require.Equal(t, 1, strings.Count(r.stderr, "usage: quern "+c), "%s -h prints its usage once:\n%s", c, r.stderr)
+		if c != "version" && c != "inspect" {
+			require.Contains(t, r.stderr, "\n  -", "%s -h lists the flags", c)
+		}
+	}
+	for _, r := range []result{quern(t, dir, nil, "train", "-bogus"), quern(t, dir, nil, "frobnicate")} {
+		require.Equal(t, 1, strings.Count(strings.TrimSpace(r.stderr), "\n")+1, "one line: %q", r.stderr)
+	}
+}
+
+func TestVersion(t *testing.T) {
+	r := ok(t, quern(t, t.TempDir(), nil, "version"))
+	r.stdout = "\n" + r.stdout
+	for _, label := range []string{"quern ", "go ", "platform ", "kernel ", "threads "} {
+		require.Contains(t, r.stdout, "\n"+label, "version names %q:\n%s", label, r.stdout)
+	}
+	require.Contains(t, r.stdout, runtime.Version())
 }
 
 func resumeArgs() []string {

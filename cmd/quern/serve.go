@@ -35,6 +35,7 @@ func cmdServe(e *env, args []string) error {
 	readTO := fs.Duration("read-timeout", 10*time.Second, "read timeout")
 	writeTO := fs.Duration("write-timeout", 30*time.Second, "write timeout")
 	idleTO := fs.Duration("idle-timeout", 60*time.Second, "idle connection timeout")
+	public := fs.Bool("public-without-token", false, "allow a non-loopback -addr without -token-env (anyone who can reach the port can use the model)")
 	drain := fs.Duration("drain", 2*time.Second, "on SIGTERM or interrupt, keep answering this long with /readyz at 503 and connections closed after each answer, then stop (0: stop at once)")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
@@ -48,6 +49,9 @@ func cmdServe(e *env, args []string) error {
 		if token == "" {
 			return usagef("-token-env %s: the variable is empty", *tokenEnv)
 		}
+	}
+	if token == "" && !*public && !loopback(*addr) {
+		return usagef("-addr %s is reachable from other machines and no -token-env is set: give a token, or -public-without-token to serve it open", *addr)
 	}
 	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
 	// the signal handlers come first: a SIGHUP or SIGTERM during start-up
@@ -73,6 +77,9 @@ func cmdServe(e *env, args []string) error {
 		}
 	}()
 	log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind())
+	if token == "" && !loopback(*addr) {
+		log.Warn("no bearer token: anyone who can reach this address can use the model", "addr", ln.Addr().String())
+	}
 	if _, ok := s.Model().Model.(qmodel.Scorer); ok {
 		fmt.Fprintln(e.stderr, anomaly.Caution)
 	}
@@ -86,4 +93,19 @@ func drainDelay(d time.Duration) time.Duration {
 		return -1
 	}
 	return d
+}
+
+// loopback reports whether a listen address accepts connections from this
+// machine only: a loopback IP or "localhost". An empty host (":8417") or
+// an unspecified one (0.0.0.0, ::) listens on every interface.
+func loopback(addr string) bool {
+	host, _, err := net.SplitHostPort(addr)
+	if err != nil {
+		return false
+	}
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
 }

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"flag"
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"os"
 	"os/signal"
@@ -182,6 +183,24 @@ func (o *trainOpts) checkNumbers() error {
 		return usagef("-every %d: want 0 (no checkpoints) or more", o.every)
 	case o.patience < 0:
 		return usagef("-patience %d: want 0 (no early stopping) or more", o.patience)
+	case o.latent < 0:
+		return usagef("-latent %d: want at least 1 (or 0 for the model's default)", o.latent)
+	case o.rate < 0 || math.IsNaN(o.rate) || math.IsInf(o.rate, 0):
+		return usagef("-rate %v: want a positive learning rate (or 0 for the kind's default)", o.rate)
+	case o.beta < 0 || math.IsNaN(o.beta) || math.IsInf(o.beta, 0):
+		return usagef("-beta %v: want a finite weight, 0 or more (0: the default 1)", o.beta)
+	case o.warmup < 0:
+		return usagef("-warmup %d: want 0 (no annealing) or more steps", o.warmup)
+	case o.freeBits < 0 || math.IsNaN(o.freeBits) || math.IsInf(o.freeBits, 0):
+		return usagef("-free-bits %v: want a finite number of nats, 0 or more", o.freeBits)
+	case o.noiseDim < 0:
+		return usagef("-noise-dim %d: want at least 1 (or 0 for the default)", o.noiseDim)
+	case o.discSteps < 0:
+		return usagef("-disc-steps %d: want at least 1 (or 0 for the default)", o.discSteps)
+	case o.pack < 0:
+		return usagef("-pack %d: want at least 1 (or 0 for the default)", o.pack)
+	case !(o.falseAlarm > 0 && o.falseAlarm < 1):
+		return usagef("-false-alarm %v: want a rate between 0 and 1, such as 0.01", o.falseAlarm)
 	}
 	return nil
 }

@@ -356,11 +356,11 @@ func cmdInspect(e *env, args []string) error {
 		return usagef("inspect takes one model file")
 	}
 	path := fs.Arg(0)
-	st, err := os.Stat(path)
+	l, err := loadModel(path)
 	if err != nil {
 		return err
 	}
-	l, err := loadModel(path)
+	st, err := os.Stat(path)
 	if err != nil {
 		return err
 	}
