@@ -60,6 +60,8 @@ type CSVConfig struct {
 	Comma rune
 	// Limits caps the file's size, line length, rows and columns.
 	Limits Limits
+	// Progress, when not nil, is told how much of the file has been read.
+	Progress Progress
 }
 
 // LoadCSV reads a CSV file (plain or gzip-compressed, told apart by
@@ -73,7 +75,7 @@ func LoadCSV(path string, cfg CSVConfig) (*Dataset, error) {
 		return nil, fmt.Errorf("data: %w", err)
 	}
 	defer f.Close()
-	r, err := maybeGzip(f)
+	r, err := maybeGzip(withProgress(f, cfg.Progress))
 	if err != nil {
 		return nil, &ParseError{File: path, Msg: err.Error()}
 	}

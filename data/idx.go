@@ -141,6 +141,10 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 
 // LoadIDXFile reads one idx file (plain or gzip-compressed) within lim.
 func LoadIDXFile(path string, lim Limits) (*IDX, error) {
+	return loadIDXFile(path, lim, nil)
+}
+
+func loadIDXFile(path string, lim Limits, report Progress) (*IDX, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("data: %w", err)
@@ -150,7 +154,7 @@ func LoadIDXFile(path string, lim Limits) (*IDX, error) {
 	if err != nil {
 		return nil, fmt.Errorf("data: %w", err)
 	}
-	return ReadIDX(f, path, st.Size(), lim)
+	return ReadIDX(withProgress(f, report), path, st.Size(), lim)
 }
 
 // IDXConfig configures LoadIDX. Zero fields mean: no labels; unsigned-byte
@@ -162,13 +166,16 @@ type IDXConfig struct {
 	Raw bool
 	// Limits caps the files' size, rows and columns.
 	Limits Limits
+	// Progress, when not nil, is told how much of the data file (not
+	// the label file) has been read.
+	Progress Progress
 }
 
 // LoadIDX reads an idx file of rows (the first dimension) into a Dataset;
 // the other dimensions are flattened. A three-dimensional file is taken as
 // grey images (rows x height x width).
 func LoadIDX(path string, cfg IDXConfig) (*Dataset, error) {
-	a, err := LoadIDXFile(path, cfg.Limits)
+	a, err := loadIDXFile(path, cfg.Limits, cfg.Progress)
 	if err != nil {
 		return nil, err
 	}

@@ -19,6 +19,9 @@ type ImageConfig struct {
 	// Limits caps the number of images, each one's pixels, and the
 	// values of all of them.
 	Limits Limits
+	// Progress, when not nil, is told how many of the images have been
+	// read.
+	Progress Progress
 }
 
 // LoadImages reads every .png file in dir (sorted by name) as one row of
@@ -92,6 +95,9 @@ func LoadImages(dir string, cfg ImageConfig) (*Dataset, []string, error) {
 		img, err := readPNG(f, lim.Pixels)
 		if err != nil {
 			return nil, nil, err
+		}
+		if cfg.Progress != nil && (k%256 == 255 || k == len(files)-1) {
+			cfg.Progress(int64(k+1), int64(len(files)))
 		}
 		b := img.Bounds()
 		c := 3

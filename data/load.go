@@ -64,6 +64,9 @@ type LoadConfig struct {
 	// Limits, when not zero, replaces the Limits of every format's
 	// settings: one set of caps whatever the file turns out to be.
 	Limits Limits
+	// Progress, when not nil, replaces the Progress of every format's
+	// settings.
+	Progress Progress
 }
 
 // Load reads path in whichever format Detect finds.
@@ -74,6 +77,9 @@ func Load(path string, cfg LoadConfig) (*Dataset, Format, error) {
 	}
 	if cfg.Limits != (Limits{}) {
 		cfg.CSV.Limits, cfg.IDX.Limits, cfg.Images.Limits = cfg.Limits, cfg.Limits, cfg.Limits
+	}
+	if cfg.Progress != nil {
+		cfg.CSV.Progress, cfg.IDX.Progress, cfg.Images.Progress = cfg.Progress, cfg.Progress, cfg.Progress
 	}
 	var d *Dataset
 	if f == FormatCSV && looksLikeIDX(path) && binaryStart(path) {

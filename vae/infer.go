@@ -447,10 +447,19 @@ func (m *Model) jacobian() float64 {
 
 // draws samples z = mu + sigma*eps for every row, samples per row, and
 // returns z with the matching eps.
-func draws(mu, lv []float64, rows, latent, samples int, rng *rand.Rand) (z, eps []float64) {
+func draws(x []float32, mu, lv []float64, rows, latent, samples int, seed, streamID uint64) (z, eps []float64) {
+	// each row's draws come from a generator seeded by the seed and the
+	// row's own values: a row's estimate never depends on the rows scored
+	// with it (a file scored in chunks, a request to the server and a
+	// whole file agree row for row), while different rows still get
+	// independent draws, so averages over rows keep their precision
+	cols := len(x) / max(rows, 1)
 	z = make([]float64, rows*samples*latent)
 	eps = make([]float64, len(z))
+	var pcg rand.PCG
+	rng := rand.New(&pcg)
 	for r := 0; r < rows; r++ {
+		pcg.Seed(seed, streamID^rowHash(x[r*cols:(r+1)*cols]))
 		for s := 0; s < samples; s++ {
 			for j := 0; j < latent; j++ {
 				k := (r*samples+s)*latent + j
@@ -461,6 +470,22 @@ func draws(mu, lv []float64, rows, latent, samples int, rng *rand.Rand) (z, eps 
 		}
 	}
 	return z, eps
+}
+
+// rowHash is the 64-bit FNV-1a hash of a row's float32 bit patterns
+// (Fowler, Noll and Vo; the offset basis and prime of the published
+// algorithm).
+func rowHash(row []float32) uint64 {
+	h := uint64(14695981039346656037)
+	for _, v := range row {
+		b := math.Float32bits(v)
+		for i := 0; i < 4; i++ {
+			h ^= uint64(b & 0xff)
+			h *= 1099511628211
+			b >>= 8
+		}
+	}
+	return h
 }
 
 func repeatRows(x []float64, rows, cols, times int) []float64 {
@@ -474,7 +499,7 @@ func repeatRows(x []float64, rows, cols, times int) []float64 {
 }
 
 // draw encodes raw rows, draws samples reparameterised latent vectors per
-// row from a generator seeded by (seed, streamID) and returns the posterior
+// row from a generator seeded by (seed, streamID) and the row's values, and returns the posterior
 // parameters, the draws with their eps, and log p(x|z) for each draw.
 type draw struct {
 	mu, lv, z, eps, logLik []float64
@@ -491,7 +516,7 @@ func (m *Model) draw(x []float32, rows, samples int, seed, streamID uint64) (*dr
 	if err != nil {
 		return nil, err
 	}
-	z, eps := draws(mu, lv, rows, m.cfg.Latent, samples, rand.New(rand.NewPCG(seed, streamID)))
+	z, eps := draws(x, mu, lv, rows, m.cfg.Latent, samples, seed, streamID)
 	out, err := m.forward(&w.ws2, m.Decoder, z, rows*samples)
 	if err != nil {
 		return nil, err

@@ -219,3 +219,29 @@ func TestFashionMNISTBeatsFactorisedBernoulli(t *testing.T) {
 	t.Logf("first %d test images: negative ELBO %.1f, negative IWAE(k=50) %.1f nats", k, -mean(elbo[:k]), -mean(iw))
 	require.Less(t, -mean(iw), -mean(elbo[:k]))
 }
+
+// A row's density score depends on the row and the seed alone: scored
+// alone, in a batch, in another order or beside other rows, it is the same
+// number, bit for bit (the server scores one request's rows, the command
+// line a whole file). Common practice, no source.
+func TestRowScoreIndependentOfBatch(t *testing.T) {
+	tr := ppcaData(400, 8, 2, 0.5, 4, 1)
+	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{16}, Latent: 2, Likelihood: vae.GaussianLearned, Seed: 1})
+	require.NoError(t, err)
+	trainenv.Fit(t, m, tr, nil, train.Settings{Epochs: 2, BatchSize: 50})
+	all, err := m.NegELBO(tr.X[:20*8], 20)
+	require.NoError(t, err)
+	rev := make([]float32, 0, 20*8)
+	for r := 19; r >= 0; r-- {
+		rev = append(rev, tr.X[r*8:(r+1)*8]...)
+	}
+	back, err := m.NegELBO(rev, 20)
+	require.NoError(t, err)
+	for r := 0; r < 20; r++ {
+		one, err := m.NegELBO(tr.X[r*8:(r+1)*8], 1)
+		require.NoError(t, err)
+		require.Equal(t, all[r], one[0], "row %d alone", r)
+		require.Equal(t, all[r], back[19-r], "row %d reordered", r)
+	}
+	require.NotEqual(t, all[0], all[1], "different rows get different scores")
+}
