@@ -35,6 +35,10 @@ type Config struct {
 	Say func(string)
 	// Callbacks watch the training.
 	Callbacks train.Callbacks
+	// Phase, when not nil, is told the name of each phase as it starts
+	// (generate, train, calibrate, score, write, report) and "" when the
+	// last one ends.
+	Phase func(name string)
 }
 
 // Run runs the whole job on an invented pump fleet: it writes the fleet's
@@ -61,6 +65,13 @@ func Run(ctx context.Context, cfg Config) error {
 			cfg.Say(fmt.Sprintf(format, a...))
 		}
 	}
+	phase := func(name string) {
+		if cfg.Phase != nil {
+			cfg.Phase(name)
+		}
+	}
+	defer phase("")
+	phase("generate")
 	fl := fleet.Generate(fc)
 	history, holdout := fleet.Dataset(fl.History), fleet.Dataset(fl.Holdout)
 	faulty := 0
@@ -81,6 +92,7 @@ func Run(ctx context.Context, cfg Config) error {
 		return err
 	}
 	trainSet.Labels, calib.Labels = nil, nil
+	phase("train")
 	m, err := ae.New(ae.Config{Inputs: 6, Hidden: []int{32, 16}, Latent: 3, Activation: layers.Tanh, Seed: cfg.Seed})
 	if err != nil {
 		return err
@@ -93,6 +105,7 @@ func Run(ctx context.Context, cfg Config) error {
 	if err != nil {
 		return err
 	}
+	phase("calibrate")
 	th, err := m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01})
 	if err != nil {
 		return err
@@ -101,6 +114,7 @@ func Run(ctx context.Context, cfg Config) error {
 		trainSet.Rows, th.Value, calib.Rows, 100*th.ExpectedFalseAlarm)
 	prov := &modelfile.Provenance{DataFile: filepath.Join(cfg.Out, "history.csv"), DataFormat: string(data.FormatCSV), DataFingerprint: history.Fingerprint(), DataRows: history.Rows}
 	modelPath := filepath.Join(cfg.Out, "pumps.qm")
+	phase("write")
 	f, err := t.File(prov)
 	if err != nil {
 		return err
@@ -108,6 +122,7 @@ func Run(ctx context.Context, cfg Config) error {
 	if err := modelfile.Write(modelPath, f); err != nil {
 		return err
 	}
+	phase("score")
 	scores, err := m.Score(holdout.X, holdout.Rows, 2)
 	if err != nil {
 		return err
@@ -146,7 +161,7 @@ func Run(ctx context.Context, cfg Config) error {
 		}
 	}
 	say("%s", anomaly.Caution)
-	// report
+	phase("report")
 	rdir := filepath.Join(cfg.Out, "report")
 	if err := os.MkdirAll(rdir, 0o755); err != nil {
 		return err
@@ -177,7 +192,7 @@ func Run(ctx context.Context, cfg Config) error {
 	if err := pg.Write(rdir); err != nil {
 		return err
 	}
-	say("Wrote %s (model), %s, and the report %s in %s.", modelPath, filepath.Join(cfg.Out, "holdout-scores.csv"), filepath.Join(rdir, "index.html"), time.Since(start).Round(time.Second))
+	say("Wrote %s (model), %s, and the report %s in %s.", modelPath, filepath.Join(cfg.Out, "holdout-scores.csv"), filepath.Join(rdir, "index.html"), roundDuration(time.Since(start)))
 	return nil
 }
 
@@ -228,4 +243,17 @@ func writeScores(path string, rs []fleet.Reading, scores []ae.Score) error {
 		return err
 	}
 	return f.Close()
+}
+
+// roundDuration keeps about two significant digits: 0.38s, 4.2s, 37s.
+func roundDuration(d time.Duration) time.Duration {
+	switch {
+	case d < 10*time.Millisecond:
+		return d.Round(time.Millisecond)
+	case d < time.Second:
+		return d.Round(10 * time.Millisecond)
+	case d < 10*time.Second:
+		return d.Round(100 * time.Millisecond)
+	}
+	return d.Round(time.Second)
 }

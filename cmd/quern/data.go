@@ -8,6 +8,7 @@ import (
 	"os"
 	"strconv"
 	"strings"
+	"sync"
 
 	"github.com/quernlab/quern/data"
 )
@@ -148,7 +149,9 @@ func splitList(s string) []string {
 	return parts
 }
 
-func (d *dataFlags) load() (*data.Dataset, data.Format, error) {
+// load reads the data the flags name, shown as the "load" phase of st
+// (which may be nil).
+func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 	if d.path == "" {
 		return nil, "", usagef("-data is required")
 	}
@@ -161,6 +164,17 @@ func (d *dataFlags) load() (*data.Dataset, data.Format, error) {
 		Images: data.ImageConfig{Grey: d.grey},
 		Limits: d.limits.l,
 	}
+	if st != nil {
+		var mu sync.Mutex
+		var done, total int64
+		cfg.Progress = func(dn, tt int64) {
+			mu.Lock()
+			done, total = dn, tt
+			mu.Unlock()
+		}
+		st.begin("load", loadDetail(d.path, &done, &total, &mu))
+		defer st.end()
+	}
 	ds, f, err := data.Load(d.path, cfg)
 	var le *data.LimitError
 	if errors.As(err, &le) {
@@ -172,19 +186,19 @@ func (d *dataFlags) load() (*data.Dataset, data.Format, error) {
 // loadFor loads data for a trained model whose columns are known: a CSV
 // file with a header is read by those column names when no columns are
 // given, so extra columns (an id, a timestamp) are ignored.
-func (d *dataFlags) loadFor(columns []string, cols int) (*data.Dataset, error) {
+func (d *dataFlags) loadFor(columns []string, cols int, st *status) (*data.Dataset, error) {
 	if d.columns == "" && !d.noHeader && len(columns) == cols && columns[0] != "" && columns[0] != "c0" {
 		if f, err := data.Detect(d.path); err == nil && f == data.FormatCSV {
 			saved := d.columns
 			d.columns = strings.Join(columns, ",")
-			ds, _, err := d.load()
+			ds, _, err := d.load(st)
 			d.columns = saved
 			if err == nil {
 				return ds, nil
 			}
 		}
 	}
-	ds, _, err := d.load()
+	ds, _, err := d.load(st)
 	if err != nil {
 		return nil, err
 	}

@@ -17,14 +17,27 @@ func cmdDemo(e *env, args []string) error {
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	pr := newProgress(e.stderr, *quiet)
+	st := newStatus(e.stderr, *quiet)
 	cfg := demo.Config{Out: *out, Short: *short, Seed: *seed,
-		Callbacks: train.Callbacks{OnStep: pr.step, OnEpoch: func(p train.Progress, _ *train.History) error {
-			pr.epoch(p)
+		Callbacks: train.Callbacks{OnStep: st.step, OnEpoch: func(p train.Progress, h *train.History) error {
+			st.epoch(p, h)
 			return nil
-		}}}
-	if !*quiet {
-		cfg.Say = func(s string) { fmt.Fprintln(e.stdout, s) }
+		}},
+		// the demo's findings are its output: printed with -quiet too
+		Say: func(s string) {
+			st.clear()
+			fmt.Fprintln(e.stdout, s)
+		},
+		Phase: func(name string) {
+			if name == "" {
+				st.end()
+				return
+			}
+			st.begin(name, nil)
+		}}
+	if err := demo.Run(context.Background(), cfg); err != nil {
+		return err
 	}
-	return demo.Run(context.Background(), cfg)
+	st.done()
+	return nil
 }

@@ -361,11 +361,16 @@ func TestResumeAfterKill(t *testing.T) {
 func TestDemoShort(t *testing.T) {
 	dir := t.TempDir()
 	r := ok(t, quern(t, dir, nil, "demo", "-short", "-out", "d", "-quiet"))
-	require.Empty(t, r.stdout)
+	require.Empty(t, r.stderr, "-quiet: no progress")
+	for _, s := range []string{"precision", "recall", "decision aid"} {
+		require.Contains(t, r.stdout, s, "-quiet still prints the findings")
+	}
 	r = ok(t, quern(t, dir, nil, "demo", "-short", "-out", "d2"))
 	for _, s := range []string{"precision", "recall", "decision aid"} {
 		require.Contains(t, r.stdout, s)
 	}
+	require.Regexp(t, `\ntime: generate [^;]+, train [^;]+, calibrate [^;]+, write [^;]+, score [^;]+, report [^;]+; \S+ in all\n$`, r.stderr)
+	require.NotContains(t, r.stdout, " in 0s")
 	for _, f := range []string{"pumps.qm", "holdout-scores.csv", "report/index.html", "report/scores.png"} {
 		_, err := os.Stat(filepath.Join(dir, "d2", f))
 		require.NoError(t, err, f)

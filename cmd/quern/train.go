@@ -151,7 +151,8 @@ func cmdTrain(e *env, args []string) error {
 	if err := reportFolder(o.report); err != nil {
 		return err
 	}
-	full, format, err := o.data.load()
+	st := newStatus(e.stderr, o.quiet)
+	full, format, err := o.data.load(st)
 	if err != nil {
 		return err
 	}
@@ -168,7 +169,7 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return usageError{err.Error()}
 	}
-	return runTraining(e, t, full, format, rec, o.out, o.checkpoint, o.report, o.quiet)
+	return runTraining(e, st, t, full, format, rec, o.out, o.checkpoint, o.report)
 }
 
 func (o *trainOpts) checkNumbers() error {
@@ -282,7 +283,8 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 	if err := reportFolder(o.report); err != nil {
 		return err
 	}
-	full, format, err := d.load()
+	st := newStatus(e.stderr, o.quiet)
+	full, format, err := d.load(st)
 	if err != nil {
 		return err
 	}
@@ -293,31 +295,30 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 	if rec.Every > 0 {
 		checkpoint = o.resume
 	}
-	return runTraining(e, t, full, format, rec, o.out, checkpoint, o.report, o.quiet)
+	return runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report)
 }
 
 // runTraining splits the data, trains (writing checkpoints), calibrates
 // the threshold of a model that has one, and writes the model file and
-// the report.
-func runTraining(e *env, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report string, quiet bool) error {
+// the report, each a phase of st.
+func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report string) error {
 	prov := &modelfile.Provenance{DataFile: rec.Data.Path, DataFormat: string(format), DataFingerprint: full.Fingerprint(), DataRows: full.Rows}
 	trainSet, valSet := full, (*data.Dataset)(nil)
 	if rec.Validation > 0 {
 		var err error
 		trainSet, valSet, err = full.Split(rec.Validation, rand.New(rand.NewPCG(rec.SplitSeed, stream.Split)))
 		if err != nil {
-			return err
+			return fmt.Errorf("-val %v: %w", rec.Validation, err)
 		}
 	}
 	if t.Settings().Patience > 0 && valSet == nil {
 		return usagef("-patience needs a validation split (-val > 0)")
 	}
-	pr := newProgress(e.stderr, quiet)
 	var s train.Callbacks
 	saves := 0
-	s.OnStep = pr.step
+	s.OnStep = st.step
 	s.OnEpoch = func(p train.Progress, h *train.History) error {
-		pr.epoch(p)
+		st.epoch(p, h)
 		if rec.Every > 0 && checkpoint != "" && p.Epoch%rec.Every == 0 {
 			f, err := t.Checkpoint(prov)
 			if err == nil {
@@ -334,15 +335,14 @@ func runTraining(e *env, t *train.Trainer, full *data.Dataset, format data.Forma
 		return nil
 	}
 	s.OnWarning = func(w train.Warning) {
-		if !quiet {
-			pr.note(fmt.Sprintf("warning at step %d: %s", w.Step, w.Message))
-		}
+		st.say("warning at step %d: %s", w.Step, w.Message)
 	}
 	t.SetCallbacks(s)
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
+	st.begin("train", nil)
 	h, err := t.Run(ctx, trainSet, valSet)
-	pr.done()
+	st.end()
 	if err != nil {
 		if errors.Is(err, context.Canceled) {
 			return fmt.Errorf("interrupted; the last checkpoint (if any) can be resumed with -resume")
@@ -350,20 +350,22 @@ func runTraining(e *env, t *train.Trainer, full *data.Dataset, format data.Forma
 		return err
 	}
 	m := t.Model().(model.Model)
+	var th *anomaly.Threshold
 	if c, ok := m.(model.Calibrator); ok && valSet != nil {
-		th, err := c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(rec.Threshold), FalseAlarm: rec.FalseAlarm})
+		st.begin("calibrate", func() string { return fmt.Sprintf("%d validation rows", valSet.Rows) })
+		got, err := c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(rec.Threshold), FalseAlarm: rec.FalseAlarm})
 		if err != nil && rec.Threshold == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
-			if !quiet {
-				fmt.Fprintf(e.stderr, "%v; using the largest validation score instead\n", err)
-			}
-			th, err = c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
+			st.say("%v; using the largest validation score instead", err)
+			got, err = c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
 		}
+		st.end()
 		if err != nil {
 			fmt.Fprintf(e.stderr, "no threshold set: %v\n", err)
-		} else if !quiet {
-			fmt.Fprintf(e.stderr, "threshold %.6g (%s), expected false-alarm rate %.2f%% on data like the validation rows\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm)
+		} else {
+			th = &got
 		}
 	}
+	st.begin("write", nil)
 	f, err := t.File(prov)
 	if err == nil {
 		err = f.SetSection(commandSection, rec)
@@ -374,23 +376,44 @@ func runTraining(e *env, t *train.Trainer, full *data.Dataset, format data.Forma
 	if err := modelfile.Write(out, f); err != nil {
 		return err
 	}
-	if !quiet {
-		tl, vl := h.Loss(len(h.Epochs))
-		fmt.Fprintf(e.stderr, "wrote %s: %s model, %d epochs, final training loss %.6g", out, m.Kind(), len(h.Epochs), tl)
-		if valSet != nil {
-			fmt.Fprintf(e.stderr, ", validation loss %.6g (best epoch %d)", vl, h.BestEpoch)
-		}
-		fmt.Fprintln(e.stderr)
-	}
+	st.end()
 	if report != "" {
+		st.begin("report", nil)
 		if err := writeTrainReport(report, m, t.Settings(), rec, h, full, valSet); err != nil {
 			return err
 		}
-		if !quiet {
-			fmt.Fprintf(e.stderr, "report: %s\n", filepath.Join(report, "index.html"))
-		}
+		st.end()
 	}
+	tl, vl := h.Loss(len(h.Epochs))
+	line := fmt.Sprintf("wrote %s: %s, %d epochs, final training loss %.6g", out, kindPhrase(m.Kind()), len(h.Epochs), tl)
+	if valSet != nil {
+		line += fmt.Sprintf(", validation loss %.6g (best epoch %d)", vl, h.BestEpoch)
+	}
+	if h.StoppedEarly {
+		line += ", stopped early"
+	}
+	st.say("%s", line)
+	if th != nil {
+		st.say("threshold %.6g (%s), expected false-alarm rate %.2f%% on data like the validation rows", th.Value, th.Method, 100*th.ExpectedFalseAlarm)
+	}
+	if report != "" {
+		st.say("report: %s", filepath.Join(report, "index.html"))
+	}
+	st.done()
 	return nil
+}
+
+// kindPhrase names a model kind with its article: "an autoencoder".
+func kindPhrase(kind string) string {
+	switch kind {
+	case ae.Kind:
+		return "an autoencoder (ae)"
+	case vae.Kind:
+		return "a variational autoencoder (vae)"
+	case gan.Kind:
+		return "a GAN"
+	}
+	return "a model of kind " + kind
 }
 
 // build makes the model the flags describe and its objective.

@@ -13,6 +13,7 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"sync"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
@@ -87,8 +88,8 @@ func openAs[C any](command, needs string, paths map[string]string) (*loaded, C, 
 
 // loadRows loads the data flags' rows for the model: by its column names
 // where the file has a header.
-func (l *loaded) loadRows(d *dataFlags) (*data.Dataset, error) {
-	return d.loadFor(l.model.Schema().Columns, l.model.Width())
+func (l *loaded) loadRows(d *dataFlags, st *status) (*data.Dataset, error) {
+	return d.loadFor(l.model.Schema().Columns, l.model.Width(), st)
 }
 
 // output opens path for writing ("-" or empty: standard output).
@@ -135,6 +136,33 @@ func names(prefix string, n int) []string {
 	return s
 }
 
+// chunkRows is how many rows score and encode handle at a time: memory
+// for intermediate results stays bounded whatever the file's length.
+const chunkRows = 4096
+
+// inChunks calls fn on consecutive row ranges of at most chunkRows rows,
+// as the phase name of st, showing how many rows are done.
+func inChunks(st *status, name string, rows int, fn func(lo, hi int) error) error {
+	var mu sync.Mutex
+	done := 0
+	st.begin(name, func() string {
+		mu.Lock()
+		defer mu.Unlock()
+		return fmt.Sprintf("%d/%d rows  %d%%", done, rows, 100*done/max(rows, 1))
+	})
+	defer st.end()
+	for lo := 0; lo < rows; lo += chunkRows {
+		hi := min(rows, lo+chunkRows)
+		if err := fn(lo, hi); err != nil {
+			return err
+		}
+		mu.Lock()
+		done = hi
+		mu.Unlock()
+	}
+	return nil
+}
+
 func cmdScore(e *env, args []string) error {
 	fs := newFlags(e, "score", "-model MODEL -data FILE.csv [-out SCORES.csv]")
 	modelPath := fs.String("model", "", "model file with anomaly scores and a threshold: an autoencoder (reconstruction error) or a VAE (negative ELBO) (required)")
@@ -142,14 +170,21 @@ func cmdScore(e *env, args []string) error {
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
 	top := fs.Int("top", 3, "contributing features to list per row")
+	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
+	if *top < 0 {
+		return usagef("-top %d: want 0 or more", *top)
+	}
+	st := newStatus(e.stderr, *quiet)
+	st.begin("open", nil)
 	l, sc, err := openAs[model.Scorer]("score", "a model with anomaly scores (an autoencoder or a VAE)",
 		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
 	}
+	st.end()
 	th := sc.Calibrated()
 	if th == nil {
 		if l.isCheckpoint() {
@@ -157,13 +192,12 @@ func cmdScore(e *env, args []string) error {
 		}
 		return fmt.Errorf("%s has no threshold (train it with -val > 0)", *modelPath)
 	}
-	ds, err := l.loadRows(&d)
+	ds, err := l.loadRows(&d, st)
 	if err != nil {
 		return err
 	}
-	scores, err := sc.Score(ds.X, ds.Rows, *top)
-	if err != nil {
-		return err
+	if *top > ds.Cols {
+		*top = ds.Cols // the file stays rectangular: one pair per feature at most
 	}
 	w, closeOut, err := output(e, *out)
 	if err != nil {
@@ -176,42 +210,53 @@ func cmdScore(e *env, args []string) error {
 	}
 	cw.Write(append(header, "status"))
 	flagged, unscorable := 0, 0
-	for i, s := range scores {
-		rec := []string{strconv.Itoa(i + 1), strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly)}
-		for k := 0; k < *top; k++ {
-			if k >= len(s.Top) {
-				rec = append(rec, "", "")
-				continue
-			}
-			f := s.Top[k]
-			name := f.Name
-			if name == "" {
-				name = "c" + strconv.Itoa(f.Column)
-			}
-			rec = append(rec, name, strconv.FormatFloat(f.Share, 'f', 4, 64))
+	rec := make([]string, 0, len(header)+1)
+	err = inChunks(st, "score", ds.Rows, func(lo, hi int) error {
+		scores, err := sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
+		if err != nil {
+			return err
 		}
-		status := "ok"
-		if s.Unscorable != "" {
-			status = "unscorable: " + s.Unscorable
-			unscorable++
-		} else if s.Anomaly {
-			flagged++
+		for i, s := range scores {
+			rec = append(rec[:0], strconv.Itoa(lo+i+1), strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
+			for k := 0; k < *top; k++ {
+				if k >= len(s.Top) {
+					rec = append(rec, "", "")
+					continue
+				}
+				f := s.Top[k]
+				name := f.Name
+				if name == "" {
+					name = "c" + strconv.Itoa(f.Column)
+				}
+				rec = append(rec, name, strconv.FormatFloat(f.Share, 'f', 4, 64))
+			}
+			status := "ok"
+			if s.Unscorable != "" {
+				status = "unscorable: " + s.Unscorable
+				unscorable++
+			} else if s.Anomaly {
+				flagged++
+			}
+			cw.Write(append(rec, status))
 		}
-		cw.Write(append(rec, status))
-	}
-	cw.Flush()
-	if err := cw.Error(); err != nil {
+		cw.Flush()
+		return cw.Error()
+	})
+	if err != nil {
 		return err
 	}
+	st.begin("write", nil)
 	if err := closeOut(); err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stderr, "scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)", len(scores), flagged, th.Value, 100*th.ExpectedFalseAlarm)
+	st.end()
+	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)", ds.Rows, flagged, th.Value, 100*th.ExpectedFalseAlarm)
 	if unscorable > 0 {
-		fmt.Fprintf(e.stderr, "; %d unscorable rows, flagged (outside the range the model can represent: see the status column)", unscorable)
+		line += fmt.Sprintf("; %d unscorable rows, flagged (outside the range the model can represent: see the status column)", unscorable)
 	}
-	fmt.Fprintln(e.stderr)
+	fmt.Fprintln(e.stderr, line)
 	fmt.Fprintln(e.stderr, anomaly.Caution)
+	st.done()
 	return nil
 }
 
@@ -221,19 +266,19 @@ func cmdEncode(e *env, args []string) error {
 	var d dataFlags
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the codes (- for standard output)")
+	quiet := fs.Bool("quiet", false, "no progress output")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
+	st := newStatus(e.stderr, *quiet)
+	st.begin("open", nil)
 	l, enc, err := openAs[model.Encoder]("encode", "a model with codes (an autoencoder or a VAE)",
 		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
 	}
-	ds, err := l.loadRows(&d)
-	if err != nil {
-		return err
-	}
-	codes, err := enc.Encode(ds.X, ds.Rows)
+	st.end()
+	ds, err := l.loadRows(&d, st)
 	if err != nil {
 		return err
 	}
@@ -241,11 +286,39 @@ func cmdEncode(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if err := writeRows(w, names("z", enc.CodeWidth()), codes, ds.Rows); err != nil {
+	cw := csv.NewWriter(w)
+	width := enc.CodeWidth()
+	cw.Write(names("z", width))
+	rec := make([]string, width)
+	err = inChunks(st, "encode", ds.Rows, func(lo, hi int) error {
+		codes, err := enc.Encode(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo)
+		if err != nil {
+			return err
+		}
+		for r := 0; r < hi-lo; r++ {
+			for j := range rec {
+				rec[j] = f32s(codes[r*width+j])
+			}
+			cw.Write(rec)
+		}
+		cw.Flush()
+		return cw.Error()
+	})
+	if err != nil {
 		return err
 	}
-	return closeOut()
+	st.begin("write", nil)
+	if err := closeOut(); err != nil {
+		return err
+	}
+	if !isStdout(*out) {
+		st.say("wrote %s: codes of %d rows, %d values each", *out, ds.Rows, width)
+	}
+	st.done()
+	return nil
 }
+
+func isStdout(path string) bool { return path == "" || path == "-" }
 
 // writeImagesOrCSV writes rows as a PNG grid when the path ends in .png
 // and the model was trained on images, else as CSV.
@@ -329,7 +402,7 @@ func cmdInterpolate(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	ds, err := l.loadRows(&d)
+	ds, err := l.loadRows(&d, nil)
 	if err != nil {
 		return err
 	}

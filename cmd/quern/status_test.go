@@ -1,0 +1,49 @@
+package main
+
+import (
+	"bytes"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/quernlab/quern/train"
+	"github.com/stretchr/testify/require"
+)
+
+func TestStatusLines(t *testing.T) {
+	var b bytes.Buffer
+	st := newStatus(&b, false)
+	st.every = time.Nanosecond // every step prints a plain line (not a terminal)
+	st.begin("load", func() string { return "x.csv  50%" })
+	st.end()
+	st.begin("train", nil)
+	st.step(train.Progress{Epoch: 2, Epochs: 5, Step: 3, Steps: 10, SamplesPerSec: 1.5e6, Remaining: 90 * time.Second,
+		Metrics: []train.Metric{{Name: "loss", Value: 0.25}, {Name: "reconstruction", Value: 0.25}, {Name: "kl", Value: 3}}})
+	st.epoch(train.Progress{Epoch: 2, Epochs: 5, SamplesPerSec: 900, Metrics: []train.Metric{{Name: "loss", Value: 0.25}},
+		Validation: []train.Metric{{Name: "loss", Value: 0.3}}}, &train.History{BestEpoch: 2})
+	st.done()
+	lines := strings.Split(strings.TrimSpace(b.String()), "\n")
+	require.Len(t, lines, 3, b.String())
+	require.Equal(t, "train  epoch 2/5  step 3/10  loss=0.25  kl=3  1.5M rows/s  1m30s to go", lines[0], "a term equal to the loss is left out")
+	require.Equal(t, "epoch 2/5  loss=0.25  validation loss=0.3 (best)  900 rows/s", lines[1])
+	require.Regexp(t, `^time: load \S+, train \S+; \S+ in all$`, lines[2])
+	require.NotContains(t, b.String(), "\r", "no in-place drawing off a terminal")
+
+	b.Reset()
+	q := newStatus(&b, true)
+	q.begin("train", nil)
+	q.step(train.Progress{Epoch: 1, Epochs: 1, Step: 1, Steps: 1})
+	q.say("a warning")
+	q.done()
+	require.Empty(t, b.String(), "-quiet prints nothing")
+}
+
+func TestShortDuration(t *testing.T) {
+	for _, c := range []struct {
+		d    time.Duration
+		want string
+	}{{0, "<1ms"}, {3 * time.Millisecond, "3ms"}, {420 * time.Millisecond, "0.42s"}, {4200 * time.Millisecond, "4.2s"},
+		{37 * time.Second, "37s"}, {125 * time.Second, "2m05s"}, {80 * time.Minute, "1h20m"}} {
+		require.Equal(t, c.want, shortDuration(c.d))
+	}
+}
