@@ -35,6 +35,8 @@ type Config struct {
 	Say func(string)
 	// Callbacks watch the training.
 	Callbacks train.Callbacks
+	// Version names the program for the report page (may be empty).
+	Version string
 	// Phase, when not nil, is told the name of each phase as it starts
 	// (generate, train, calibrate, score, write, report) and "" when the
 	// last one ends.
@@ -155,29 +157,53 @@ func Run(ctx context.Context, cfg Config) error {
 		}
 	}
 	say("Hold-out week: precision %.3f, recall %.3f at the threshold; ROC AUC %.3f.", prec, rec, auc)
+	faults := report.Table{Caption: "Faulty readings flagged in the hold-out week, by fault", Header: []string{"fault", "flagged", "faulty readings", "share flagged"}}
 	for _, k := range []string{fleet.BearingWear, fleet.Cavitation, fleet.StuckSensor} {
 		if c, ok := byKind[k]; ok {
 			say("  %-13s %d of %d faulty readings flagged", k, c[0], c[1])
+			faults.Rows = append(faults.Rows, []string{k, strconv.Itoa(c[0]), strconv.Itoa(c[1]), fmt.Sprintf("%.1f%%", 100*float64(c[0])/float64(max(c[1], 1)))})
 		}
 	}
+	falseAlarms, healthy := 0, 0
+	for i, r := range fl.Holdout {
+		if r.Fault == fleet.Healthy {
+			healthy++
+			if scores[i].Anomaly {
+				falseAlarms++
+			}
+		}
+	}
+	faults.Rows = append(faults.Rows, []string{"healthy (false alarms)", strconv.Itoa(falseAlarms), strconv.Itoa(healthy), fmt.Sprintf("%.2f%%", 100*float64(falseAlarms)/float64(max(healthy, 1)))})
 	say("%s", anomaly.Caution)
 	phase("report")
 	rdir := filepath.Join(cfg.Out, "report")
 	if err := os.MkdirAll(rdir, 0o755); err != nil {
 		return err
 	}
+	tl, vl := h.Loss(len(h.Epochs))
 	pg := report.Page{Title: "quern demo: pump fleet anomaly detection", Caution: anomaly.Caution,
+		Generated: time.Now().UTC().Format("2006-01-02 15:04 UTC"), Version: cfg.Version,
+		Tables: []report.Table{faults},
+		Summary: []report.Setting{
+			{Name: "training rows (healthy)", Value: strconv.Itoa(trainSet.Rows)},
+			{Name: "calibration rows (healthy)", Value: strconv.Itoa(calib.Rows)},
+			{Name: "final training loss", Value: fmt.Sprintf("%.5g", tl)},
+			{Name: "final validation loss", Value: fmt.Sprintf("%.5g", vl)},
+			{Name: "threshold", Value: fmt.Sprintf("%.4g (quantile for a 1%% false-alarm rate; expected %.2f%%)", th.Value, 100*th.ExpectedFalseAlarm)},
+			{Name: "hold-out precision / recall", Value: fmt.Sprintf("%.3f / %.3f", prec, rec)},
+			{Name: "hold-out ROC AUC", Value: fmt.Sprintf("%.3f", auc)},
+		},
 		Paragraphs: []string{
 			fmt.Sprintf("An autoencoder learned how %d invented pumps behave when healthy, from %d hourly readings of vibration, bearing temperature, flow, motor current and suction and discharge pressure.", fc.Pumps+24*btoi(fc.Pumps == 0), trainSet.Rows),
 			fmt.Sprintf("On the hold-out week it flagged readings with precision %.3f and recall %.3f against the injected faults (ROC AUC %.3f).", prec, rec, auc),
 		},
 		Settings: []report.Setting{{Name: "seed", Value: strconv.FormatUint(cfg.Seed, 10)}, {Name: "epochs", Value: strconv.Itoa(epochs)}, {Name: "architecture", Value: "6-32-16-3-16-32-6, tanh"},
 			{Name: "threshold", Value: fmt.Sprintf("%.4g (quantile, target 1%%, expected %.2f%%)", th.Value, 100*th.ExpectedFalseAlarm)}, {Name: "model file", Value: modelPath}}}
-	if err := report.LossCurves(filepath.Join(rdir, "loss.png"), h, nil); err != nil {
+	if err := report.LossCurves(filepath.Join(rdir, "curves.png"), h, report.CurveOptions{}); err != nil {
 		return err
 	}
-	pg.Figures = append(pg.Figures, report.Figure{File: "loss.png", Caption: "Reconstruction error per epoch, training and held-out healthy readings."})
-	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive); err != nil {
+	pg.Figures = append(pg.Figures, report.Figure{File: "curves.png", Caption: "Reconstruction error per epoch: training readings, solid; held-out healthy readings, dashed; the dotted line marks the best epoch."})
+	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, "reconstruction error"); err != nil {
 		return err
 	}
 	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out week scores, healthy and faulty readings, with the threshold."})
@@ -185,10 +211,11 @@ func Run(ctx context.Context, cfg Config) error {
 	if err != nil {
 		return err
 	}
-	if err := report.LatentScatter(filepath.Join(rdir, "latent.png"), report.FirstTwo(codes, holdout.Rows, 3), holdout.Labels, []string{"healthy", "faulty"}); err != nil {
+	if err := report.LatentMap(filepath.Join(rdir, "latent.png"), codes, holdout.Rows, 3, holdout.Labels, []string{"healthy", "faulty"}); err != nil {
 		return err
 	}
-	pg.Figures = append(pg.Figures, report.Figure{File: "latent.png", Caption: "First two code dimensions of the hold-out week."})
+	pg.Figures = append(pg.Figures, report.Figure{File: "latent.png", Caption: "Codes of the hold-out week: on top, their projection on the first two principal components of the three code dimensions; below, each pair of dimensions; healthy and faulty readings told apart by colour and marker."})
+	pg.RunTime = roundDuration(time.Since(start)).String()
 	if err := pg.Write(rdir); err != nil {
 		return err
 	}

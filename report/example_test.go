@@ -16,7 +16,7 @@ func Example() {
 	for e, v := range []float64{0.9, 0.4, 0.2, 0.25} {
 		h.Epochs = append(h.Epochs, train.EpochRecord{Train: []train.Metric{{Name: "loss", Value: v + 0.05*float64(e)}}, Validation: []train.Metric{{Name: "loss", Value: v}}})
 	}
-	if err := report.LossCurves(filepath.Join(dir, "loss.png"), h, nil); err != nil {
+	if err := report.LossCurves(filepath.Join(dir, "loss.png"), h, report.CurveOptions{}); err != nil {
 		fmt.Println(err)
 		return
 	}

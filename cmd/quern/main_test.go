@@ -104,7 +104,7 @@ func TestImageModels(t *testing.T) {
 	ok(t, quern(t, dir, nil, "sample", "-model", "fm.qm", "-n", "8", "-out", "s.png"))
 	ok(t, quern(t, dir, nil, "sample", "-model", "fm.qm", "-n", "3", "-out", "s.csv"))
 	ok(t, quern(t, dir, nil, "interpolate", "-model", "fm.qm", "-data", fmImages, "-from", "1", "-to", "2", "-steps", "5", "-out", "i.png"))
-	for _, f := range []string{"s.png", "i.png", "rep/index.html", "rep/loss.png", "rep/samples.png", "rep/latent.png"} {
+	for _, f := range []string{"s.png", "i.png", "rep/index.html", "rep/curves.png", "rep/samples.png", "rep/latent.png"} {
 		st, err := os.Stat(filepath.Join(dir, f))
 		require.NoError(t, err, f)
 		require.Greater(t, st.Size(), int64(100), f)

@@ -316,9 +316,14 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	}
 	var s train.Callbacks
 	saves := 0
+	info := runInfo{started: st.begun}
+	if report != "" {
+		info.fid = newFIDWatch(t.Model().(model.Model), full, rec.SplitSeed)
+	}
 	s.OnStep = st.step
 	s.OnEpoch = func(p train.Progress, h *train.History) error {
 		st.epoch(p, h)
+		info.fid.after(t.Model().(model.Model))
 		if rec.Every > 0 && checkpoint != "" && p.Epoch%rec.Every == 0 {
 			f, err := t.Checkpoint(prov)
 			if err == nil {
@@ -379,7 +384,8 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	st.end()
 	if report != "" {
 		st.begin("report", nil)
-		if err := writeTrainReport(report, m, t.Settings(), rec, h, full, valSet); err != nil {
+		info.th = th
+		if err := writeTrainReport(report, m, t.Settings(), rec, h, full, valSet, info); err != nil {
 			return err
 		}
 		st.end()
