@@ -59,6 +59,7 @@ type trainOpts struct {
 	every      int
 	resume     string
 	report     string
+	watch      string
 	quiet      bool
 }
 
@@ -95,6 +96,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.IntVar(&o.every, "every", 0, "write a checkpoint every N epochs")
 	fs.StringVar(&o.resume, "resume", "", "resume from a checkpoint, with the settings it was started with")
 	fs.StringVar(&o.report, "report", "", "folder for the PNG figures and HTML report")
+	fs.StringVar(&o.watch, "watch", "", "serve a live page of the run at `ADDR` (host:port, or a port on loopback; 0 picks a free port)")
 	fs.BoolVar(&o.quiet, "quiet", false, "no progress output")
 	return fs
 }
@@ -169,7 +171,7 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return usageError{err.Error()}
 	}
-	return runTraining(e, st, t, full, format, rec, o.out, o.checkpoint, o.report)
+	return runTraining(e, st, t, full, format, rec, o.out, o.checkpoint, o.report, o.watch)
 }
 
 func (o *trainOpts) checkNumbers() error {
@@ -208,7 +210,7 @@ func (o *trainOpts) checkNumbers() error {
 
 // resumeTrain continues a run from its checkpoint.
 func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
-	allowed := map[string]bool{"resume": true, "quiet": true, "report": true, "out": true, "data": true, "epochs": true, "limit": true}
+	allowed := map[string]bool{"resume": true, "quiet": true, "report": true, "watch": true, "out": true, "data": true, "epochs": true, "limit": true}
 	var bad []string
 	for name := range set {
 		if !allowed[name] {
@@ -295,13 +297,13 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 	if rec.Every > 0 {
 		checkpoint = o.resume
 	}
-	return runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report)
+	return runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report, o.watch)
 }
 
 // runTraining splits the data, trains (writing checkpoints), calibrates
 // the threshold of a model that has one, and writes the model file and
 // the report, each a phase of st.
-func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report string) error {
+func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report, watchAt string) (err error) {
 	prov := &modelfile.Provenance{DataFile: rec.Data.Path, DataFormat: string(format), DataFingerprint: full.Fingerprint(), DataRows: full.Rows}
 	trainSet, valSet := full, (*data.Dataset)(nil)
 	if rec.Validation > 0 {
@@ -320,9 +322,27 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	if report != "" {
 		info.fid = newFIDWatch(t.Model().(model.Model), full, rec.SplitSeed)
 	}
-	s.OnStep = st.step
+	var lv *live
+	if watchAt != "" {
+		if lv, err = startLive(st, watchAt, fmt.Sprintf("%s on %s", kindPhrase(t.Model().(model.Model).Kind()), filepath.Base(rec.Data.Path))); err != nil {
+			return err
+		}
+		lv.val, lv.image, lv.seed, lv.fa = valSet, full.Image, rec.SplitSeed, rec.FalseAlarm
+		defer func() {
+			if err != nil {
+				lv.finish("the run failed: " + oneLine(err.Error()))
+			} else {
+				lv.finish(fmt.Sprintf("the run has finished: %s written", out))
+			}
+		}()
+	}
+	s.OnStep = func(p train.Progress) {
+		st.step(p)
+		lv.step(p)
+	}
 	s.OnEpoch = func(p train.Progress, h *train.History) error {
 		st.epoch(p, h)
+		lv.epoch(p, h, t.Model().(model.Model))
 		info.fid.after(t.Model().(model.Model))
 		if rec.Every > 0 && checkpoint != "" && p.Epoch%rec.Every == 0 {
 			f, err := t.Checkpoint(prov)
