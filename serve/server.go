@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"log/slog"
 	"net"
 	"net/http"
@@ -271,6 +272,41 @@ func only(method string, h http.HandlerFunc) http.HandlerFunc {
 	}
 }
 
+// jsonProblem says what is wrong with a request body in the API's terms:
+// the field and what it takes, or where the JSON breaks, never Go's type
+// names.
+func jsonProblem(err error) string {
+	var te *json.UnmarshalTypeError
+	var se *json.SyntaxError
+	switch {
+	case errors.As(err, &te):
+		want := map[string]string{
+			"rows": "an array of rows, each an array of numbers",
+			"top":  "a whole number",
+			"n":    "a whole number",
+			"seed": "a whole number, 0 or more",
+		}[te.Field]
+		if want == "" {
+			want = "a value of another type"
+		}
+		if te.Field == "" {
+			return fmt.Sprintf("the request body must be a JSON object, not a JSON %s", te.Value)
+		}
+		return fmt.Sprintf("field %q takes %s; got a JSON %s at byte %d", te.Field, want, te.Value, te.Offset)
+	case errors.As(err, &se):
+		return fmt.Sprintf("malformed JSON at byte %d: %s", se.Offset, strings.TrimPrefix(se.Error(), "json: "))
+	case errors.Is(err, io.EOF):
+		return "the request body is empty: send a JSON object"
+	case errors.Is(err, io.ErrUnexpectedEOF):
+		return "malformed JSON: the body ends in the middle of a value"
+	}
+	msg := strings.TrimPrefix(err.Error(), "json: ")
+	if name, ok := strings.CutPrefix(msg, "unknown field "); ok {
+		return fmt.Sprintf("unknown field %s in the request", name)
+	}
+	return "malformed JSON: " + msg
+}
+
 // decodeJSON reads one JSON object into v, refusing unknown fields and
 // trailing data, and answers 413 or 400 itself when it cannot.
 func decodeJSON(w http.ResponseWriter, r *http.Request, v any) bool {
@@ -281,7 +317,7 @@ func decodeJSON(w http.ResponseWriter, r *http.Request, v any) bool {
 		if errors.As(err, &mb) {
 			writeError(w, http.StatusRequestEntityTooLarge, "request body over %d bytes", mb.Limit)
 		} else {
-			writeError(w, http.StatusBadRequest, "malformed JSON: %v", err)
+			writeError(w, http.StatusBadRequest, "%s", jsonProblem(err))
 		}
 		return false
 	}

@@ -190,6 +190,12 @@ func TestBadRequestsGet4xxAndServerKeepsServing(t *testing.T) {
 		{"unknown route", "GET", "/v2/nothing", nil, 404, "no route"},
 		{"wrong method", "GET", "/v1/score", nil, 405, "use POST"},
 		{"wrong kind", "POST", "/v1/sample", []byte(`{"count": 2, "seed": 1}`), 422, "a VAE or a GAN"},
+		{"text cell", "POST", "/v1/score", []byte(`{"rows": [["a"]]}`), 400, `field "rows" takes an array of rows, each an array of numbers; got a JSON string at byte 13`},
+		{"rows not an array", "POST", "/v1/score", []byte(`{"rows": "x"}`), 400, `field "rows" takes an array of rows`},
+		{"top not a number", "POST", "/v1/score", []byte(`{"rows": [], "top": "x"}`), 400, `field "top" takes a whole number`},
+		{"empty body", "POST", "/v1/score", nil, 400, "the request body is empty"},
+		{"array body", "POST", "/v1/score", []byte(`[1]`), 400, "the request body must be a JSON object, not a JSON array"},
+		{"syntax", "POST", "/v1/score", []byte(`nope`), 400, "malformed JSON at byte 2"},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -202,6 +208,9 @@ func TestBadRequestsGet4xxAndServerKeepsServing(t *testing.T) {
 			var e errorBody
 			require.NoError(t, json.NewDecoder(resp.Body).Decode(&e))
 			require.Contains(t, e.Error, tc.want)
+			for _, goWord := range []string{"Go struct", "Go value", "rowsRequest", "[]*float64", "json: "} {
+				require.NotContains(t, e.Error, goWord, "no Go identifiers in the API's messages")
+			}
 		})
 	}
 	code, v := post(t, c, l.url+"/v1/score", rowsBody(d, 0, 2))
@@ -217,7 +226,7 @@ func TestBadRequestsGet4xxAndServerKeepsServing(t *testing.T) {
 	require.NoError(t, err)
 	body, _ := io.ReadAll(resp.Body)
 	resp.Body.Close()
-	for _, s := range []string{`quern_requests_total{route="/v1/score",code="400"}`, "quern_request_duration_seconds_bucket", "quern_anomaly_rate", "quern_request_errors_total 11", `route="unknown",code="404"`} {
+	for _, s := range []string{`quern_requests_total{route="/v1/score",code="400"}`, "quern_request_duration_seconds_bucket", "quern_anomaly_rate", "quern_request_errors_total 17", `route="unknown",code="404"`} {
 		require.Contains(t, string(body), s)
 	}
 }
