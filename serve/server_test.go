@@ -190,7 +190,7 @@ func TestBadRequestsGet4xxAndServerKeepsServing(t *testing.T) {
 		{"unknown route", "GET", "/v2/nothing", nil, 404, "no route"},
 		{"wrong method", "GET", "/v1/score", nil, 405, "use POST"},
 		{"wrong kind", "POST", "/v1/sample", []byte(`{"count": 2, "seed": 1}`), 422, "a VAE or a GAN"},
-		{"text cell", "POST", "/v1/score", []byte(`{"rows": [["a"]]}`), 400, `field "rows" takes an array of rows, each an array of numbers; got a JSON string at byte 13`},
+		{"text cell", "POST", "/v1/score", []byte(`{"rows": [["a"]]}`), 400, `field "rows" takes an array of rows, each an array of numbers; got a JSON string at byte 14`},
 		{"rows not an array", "POST", "/v1/score", []byte(`{"rows": "x"}`), 400, `field "rows" takes an array of rows`},
 		{"top not a number", "POST", "/v1/score", []byte(`{"rows": [], "top": "x"}`), 400, `field "top" takes a whole number`},
 		{"empty body", "POST", "/v1/score", nil, 400, "the request body is empty"},
