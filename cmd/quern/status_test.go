@@ -47,3 +47,12 @@ func TestShortDuration(t *testing.T) {
 		require.Equal(t, c.want, shortDuration(c.d))
 	}
 }
+
+func TestReadableSettings(t *testing.T) {
+	for in, want := range map[string]string{"Inputs": "inputs", "CodeActivation": "code_activation", "HeadHidden": "head_hidden", "DiscHidden": "disc_hidden", "FID": "fid", "LeakySlope": "leaky_slope"} {
+		require.Equal(t, want, snake(in))
+	}
+	require.Equal(t, `inputs=6 hidden=[16] activation=relu label="a b"`,
+		readableSettings(`{"Inputs":6,"Hidden":[16],"Activation":"relu","Dropout":0,"Linear":false,"HeadHidden":null,"Label":"a b"}`))
+	require.Equal(t, "not json", readableSettings("not json"))
+}

@@ -442,7 +442,7 @@ func cmdInspect(e *env, args []string) error {
 	fmt.Fprintf(w, "file        %s (%d bytes, format version %d, checksum verified)\n", path, st.Size(), modelfile.Version)
 	fmt.Fprintf(w, "kind        %s\n", m.Kind())
 	if cfg, ok := sectionLine(l.file, "config"); ok {
-		fmt.Fprintf(w, "settings    %s\n", cfg)
+		fmt.Fprintf(w, "settings    %s\n", readableSettings(cfg))
 	}
 	if sc, ok := m.(model.Scorer); ok {
 		if th := sc.Calibrated(); th != nil {
@@ -523,4 +523,58 @@ func sectionLine(f *modelfile.File, key string) (string, bool) {
 		return "", false
 	}
 	return b.String(), true
+}
+
+// readableSettings writes a model's settings (a JSON object whose keys
+// are the configuration's field names) as key=value pairs in snake case,
+// in the file's order, leaving out fields at their zero value:
+// {"Inputs":6,"CodeActivation":"identity","Dropout":0} becomes
+// "inputs=6 code_activation=identity".
+func readableSettings(js string) string {
+	dec := json.NewDecoder(strings.NewReader(js))
+	if t, err := dec.Token(); err != nil || t != json.Delim('{') {
+		return js
+	}
+	var parts []string
+	for dec.More() {
+		k, err := dec.Token()
+		if err != nil {
+			return js
+		}
+		var v json.RawMessage
+		if err := dec.Decode(&v); err != nil {
+			return js
+		}
+		val := string(v)
+		switch val {
+		case "null", "false", "0", `""`, "[]", "{}":
+			continue
+		}
+		if len(val) > 1 && val[0] == '"' {
+			var s string
+			if json.Unmarshal(v, &s) == nil && !strings.ContainsAny(s, " =") {
+				val = s
+			}
+		}
+		parts = append(parts, snake(fmt.Sprint(k))+"="+val)
+	}
+	return strings.Join(parts, " ")
+}
+
+// snake turns a Go field name into snake case: CodeActivation ->
+// code_activation, HeadHidden -> head_hidden, GenHidden -> gen_hidden.
+func snake(name string) string {
+	var b strings.Builder
+	rs := []rune(name)
+	for i, r := range rs {
+		upper := r >= 'A' && r <= 'Z'
+		if upper && i > 0 && (rs[i-1] < 'A' || rs[i-1] > 'Z' || (i+1 < len(rs) && rs[i+1] >= 'a' && rs[i+1] <= 'z')) {
+			b.WriteByte('_')
+		}
+		if upper {
+			r += 'a' - 'A'
+		}
+		b.WriteRune(r)
+	}
+	return b.String()
 }
