@@ -19,6 +19,7 @@ type work struct {
 	ws1, ws2 layers.Workspace
 	in       []float32
 	z        []float32
+	grad     []float32
 	pcg      *rand.PCG
 	rng      *rand.Rand
 }
@@ -534,6 +535,15 @@ func (m *Model) ELBO(x []float32, rows, samples int, seed uint64) ([]float64, er
 	if samples < 1 {
 		return nil, fmt.Errorf("vae: ELBO needs at least 1 sample")
 	}
+	if m.fastBounds() {
+		return m.bound32(x, rows, samples, seed, stream.ELBODraws, false)
+	}
+	return m.elboRef(x, rows, samples, seed)
+}
+
+// elboRef is ELBO on the reference path: float64 draws and likelihoods,
+// all rows at once.
+func (m *Model) elboRef(x []float32, rows, samples int, seed uint64) ([]float64, error) {
 	d, err := m.draw(x, rows, samples, seed, stream.ELBODraws)
 	if err != nil {
 		return nil, err
@@ -562,6 +572,14 @@ func (m *Model) IWAE(x []float32, rows, k int, seed uint64) ([]float64, error) {
 	if k < 1 {
 		return nil, fmt.Errorf("vae: IWAE needs k >= 1")
 	}
+	if m.fastBounds() {
+		return m.bound32(x, rows, k, seed, stream.IWAEDraws, true)
+	}
+	return m.iwaeRef(x, rows, k, seed)
+}
+
+// iwaeRef is IWAE on the reference path.
+func (m *Model) iwaeRef(x []float32, rows, k int, seed uint64) ([]float64, error) {
 	d, err := m.draw(x, rows, k, seed, stream.IWAEDraws)
 	if err != nil {
 		return nil, err
