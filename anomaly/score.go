@@ -3,7 +3,6 @@ package anomaly
 import (
 	"encoding/json"
 	"math"
-	"sort"
 )
 
 // Feature is one column's part in a row's score.
@@ -49,22 +48,46 @@ func (s Score) MarshalJSON() ([]byte, error) {
 // reason and no columns.
 func Assess(value float64, contrib []float64, names []string, top int, t Threshold) Score {
 	s := Score{Value: value, Threshold: t.Value, Anomaly: t.Flag(value)}
-	if !finite(value) || !allFinite(contrib) {
+	if !finite(value) {
 		s.Anomaly, s.Unscorable = true, NotFinite
 		return s
 	}
-	top = min(top, len(contrib))
-	if top <= 0 {
-		return s
+	top = max(0, min(top, len(contrib)))
+	// one pass: the total, the finite check and the top columns by partial
+	// selection (a sorted list of at most top entries; a column displaces
+	// one only when strictly larger, so ties keep column order)
+	var best [8]int
+	idx := best[:0]
+	if top > len(best) {
+		idx = make([]int, 0, top)
 	}
 	var total float64
-	idx := make([]int, len(contrib))
 	for j, v := range contrib {
-		idx[j] = j
+		if !finite(v) {
+			s.Anomaly, s.Unscorable = true, NotFinite
+			return s
+		}
 		total += v
+		if top == 0 || (len(idx) == top && v <= contrib[idx[top-1]]) {
+			continue
+		}
+		k := len(idx)
+		if k < top {
+			idx = append(idx, j)
+		} else {
+			k = top - 1
+		}
+		for k > 0 && v > contrib[idx[k-1]] {
+			idx[k] = idx[k-1]
+			k--
+		}
+		idx[k] = j
 	}
-	sort.SliceStable(idx, func(a, b int) bool { return contrib[idx[a]] > contrib[idx[b]] })
-	for _, j := range idx[:top] {
+	if top == 0 {
+		return s
+	}
+	s.Top = make([]Feature, len(idx))
+	for i, j := range idx {
 		f := Feature{Column: j}
 		if total > 0 {
 			f.Share = contrib[j] / total
@@ -72,7 +95,7 @@ func Assess(value float64, contrib []float64, names []string, top int, t Thresho
 		if j < len(names) {
 			f.Name = names[j]
 		}
-		s.Top = append(s.Top, f)
+		s.Top[i] = f
 	}
 	return s
 }

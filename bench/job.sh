@@ -19,6 +19,7 @@
 # of quern's processes).
 #   bash bench/job.sh                 # everything (about half an hour)
 #   JOBS="vae1 table5" TABLE_ROWS=200000 bash bench/job.sh
+#   FASHION_MNIST=DIR bash bench/job.sh   # the data set in DIR
 # Needs Debian's python3-torch and python3-numpy; fetches Fashion-MNIST
 # (dataset-fashion-mnist) and libopenblas0-pthread into a temporary
 # folder when they are not installed (apt-get download, nothing
@@ -30,7 +31,7 @@ trap 'rm -rf "$tmp"' EXIT
 JOBS="${JOBS:-vae1 vae10 ae1 ae10 table5}"
 THREADS="${THREADS:-1 2}"
 TABLE_ROWS="${TABLE_ROWS:-1000000}"
-fm=/usr/share/datasets/fashion-mnist
+fm="${FASHION_MNIST:-/usr/share/datasets/fashion-mnist}"
 if ! [ -e "$fm/train-images-idx3-ubyte.gz" ]; then
 	(cd "$tmp" && apt-get download dataset-fashion-mnist >/dev/null 2>&1 && dpkg -x dataset-fashion-mnist*.deb fm)
 	fm="$tmp/fm/usr/share/datasets/fashion-mnist"

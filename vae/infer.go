@@ -175,6 +175,9 @@ func (m *Model) EncodeFull(x []float32, rows int) (mu, logvar []float64, err err
 
 // Encode returns the posterior means of raw rows: their embeddings.
 func (m *Model) Encode(x []float32, rows int) ([]float32, error) {
+	if m.cfg.Precision == layers.Float32 {
+		return m.EncodeInto(nil, x, rows)
+	}
 	mu, _, err := m.EncodeFull(x, rows)
 	if err != nil {
 		return nil, err
