@@ -2,7 +2,6 @@ package data
 
 import (
 	"bufio"
-	"bytes"
 	"compress/gzip"
 	"encoding/binary"
 	"fmt"
@@ -96,28 +95,63 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, file holds %d", dims, want, got)}
 		}
 	}
-	var raw []byte
+	// values are converted as they are read, a block at a time, straight
+	// into the float32 slice: for a plain file the size was checked above,
+	// so the slice is made at once; for a compressed stream it grows with
+	// the data that actually arrive (doubling, capped at the declared
+	// count), so a small file that declares a large shape costs little
+	out := &IDX{Dims: dims, Type: magic[2]}
 	if size >= 0 {
-		raw = make([]byte, want)
-		if _, err := io.ReadFull(src, raw); err != nil {
-			return nil, &ParseError{File: name, Msg: "idx values truncated: " + err.Error()}
-		}
+		out.Values = make([]float32, 0, total)
 	} else {
-		var buf bytes.Buffer
-		n, err := io.Copy(&buf, io.LimitReader(src, want+1))
-		if err != nil {
-			return nil, &ParseError{File: name, Msg: "reading idx values: " + err.Error()}
-		}
-		if n != want {
-			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, stream holds %d", dims, want, n)}
-		}
-		raw = buf.Bytes()
+		out.Values = make([]float32, 0, min(total, 1<<20))
 	}
-	out := &IDX{Dims: dims, Type: magic[2], Values: make([]float32, total)}
-	for i := range out.Values {
+	block := make([]byte, (64<<10)/es*es)
+	for int64(len(out.Values)) < total {
+		n := min(int64(len(block)/es), total-int64(len(out.Values)))
+		got, err := io.ReadFull(src, block[:n*int64(es)])
+		if err != nil {
+			held := int64(len(out.Values))*int64(es) + int64(got)
+			if size >= 0 {
+				return nil, &ParseError{File: name, Msg: "idx values truncated: " + err.Error()}
+			}
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, stream holds %d", dims, want, held)}
+		}
+		if len(out.Values)+int(n) > cap(out.Values) {
+			grown := make([]float32, len(out.Values), min(total, max(2*int64(cap(out.Values)), int64(len(out.Values))+n)))
+			copy(grown, out.Values)
+			out.Values = grown
+		}
+		base := len(out.Values)
+		out.Values = out.Values[:base+int(n)]
+		if err := convertIDX(out.Values[base:], block[:n*int64(es)], magic[2], name, base); err != nil {
+			return nil, err
+		}
+	}
+	if size < 0 {
+		var one [1]byte
+		if k, _ := io.ReadFull(src, one[:]); k > 0 {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, the stream holds more", dims, want)}
+		}
+	}
+	return out, nil
+}
+
+// convertIDX converts the big-endian values of one block (of value type
+// typ) into dst; first is the index of dst's first value in the file,
+// for errors.
+func convertIDX(dst []float32, raw []byte, typ byte, name string, first int) error {
+	if typ == 0x08 {
+		for i, b := range raw {
+			dst[i] = float32(b)
+		}
+		return nil
+	}
+	es := idxSizes[typ]
+	for i := range dst {
 		b := raw[i*es:]
 		var v float64
-		switch magic[2] {
+		switch typ {
 		case 0x08:
 			v = float64(b[0])
 		case 0x09:
@@ -132,11 +166,11 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 			v = math.Float64frombits(binary.BigEndian.Uint64(b))
 		}
 		if math.IsNaN(v) || math.IsInf(v, 0) || math.Abs(v) > math.MaxFloat32 {
-			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx value %d is %v", i, v)}
+			return &ParseError{File: name, Msg: fmt.Sprintf("idx value %d is %v", first+i, v)}
 		}
-		out.Values[i] = float32(v)
+		dst[i] = float32(v)
 	}
-	return out, nil
+	return nil
 }
 
 // LoadIDXFile reads one idx file (plain or gzip-compressed) within lim.
