@@ -102,6 +102,75 @@ func (d *Dataset) Split(valFrac float64, rng *rand.Rand) (train, val *Dataset, e
 	return d.Subset(perm[nv:]), d.Subset(perm[:nv]), nil
 }
 
+// SplitInPlace is Split without the copies: it reorders d's rows (and
+// labels) so that the training part comes first and the validation part
+// last, each in the order Split gives them, and returns two views of d's
+// memory. The parts equal Split's for the same rng, row for row; d itself
+// is left shuffled. It needs one row of extra memory and a bit per row.
+func (d *Dataset) SplitInPlace(valFrac float64, rng *rand.Rand) (train, val *Dataset, err error) {
+	if !(valFrac >= 0 && valFrac < 1) {
+		return nil, nil, fmt.Errorf("%w: validation fraction %v outside [0, 1)", ErrConfig, valFrac)
+	}
+	if valFrac == 0 {
+		return d, nil, nil
+	}
+	if d.Rows < 2 {
+		return nil, nil, fmt.Errorf("data: cannot split %d rows", d.Rows)
+	}
+	nv := int(math.Round(valFrac * float64(d.Rows)))
+	nv = min(max(nv, 1), d.Rows-1)
+	perm := rng.Perm(d.Rows)
+	// position i takes old row order[i]: Split's training rows, then its
+	// validation rows
+	order := append(perm[nv:len(perm):len(perm)], perm[:nv]...)
+	d.gather(order)
+	nt := d.Rows - nv
+	view := func(lo, hi int) *Dataset {
+		v := &Dataset{Rows: hi - lo, Cols: d.Cols, X: d.X[lo*d.Cols : hi*d.Cols : hi*d.Cols], Columns: d.Columns, Image: d.Image}
+		if d.Labels != nil {
+			v.Labels = d.Labels[lo:hi:hi]
+		}
+		return v
+	}
+	return view(0, nt), view(nt, d.Rows), nil
+}
+
+// gather reorders rows in place so that row i becomes old row order[i]
+// (order a permutation), following each cycle once with one row held
+// aside.
+func (d *Dataset) gather(order []int) {
+	done := make([]bool, len(order))
+	tmp := make([]float32, d.Cols)
+	for start := range order {
+		if done[start] || order[start] == start {
+			done[start] = true
+			continue
+		}
+		copy(tmp, d.Row(start))
+		var lab int
+		if d.Labels != nil {
+			lab = d.Labels[start]
+		}
+		j := start
+		for {
+			done[j] = true
+			k := order[j]
+			if k == start {
+				copy(d.X[j*d.Cols:(j+1)*d.Cols], tmp)
+				if d.Labels != nil {
+					d.Labels[j] = lab
+				}
+				break
+			}
+			copy(d.X[j*d.Cols:(j+1)*d.Cols], d.Row(k))
+			if d.Labels != nil {
+				d.Labels[j] = d.Labels[k]
+			}
+			j = k
+		}
+	}
+}
+
 // Fingerprint is a SHA-256 over the shape, values and labels, in hex: the
 // same data always gives the same fingerprint.
 func (d *Dataset) Fingerprint() string {

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"compress/gzip"
 	"fmt"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"testing"
@@ -47,5 +48,36 @@ func TestLoadProgress(t *testing.T) {
 		require.Equal(t, want.X, got.X)
 		require.Equal(t, c.size, last, "%s: the last call is at the end of the file", c.path)
 		require.Greater(t, calls, int64(1), c.path)
+	}
+}
+
+// SplitInPlace gives, row for row and label for label, the parts Split
+// gives for the same generator, in d's own memory.
+func TestSplitInPlaceEqualsSplit(t *testing.T) {
+	for _, rows := range []int{2, 3, 10, 1001} {
+		x := make([]float32, rows*3)
+		labels := make([]int, rows)
+		for i := range x {
+			x[i] = float32(i)
+		}
+		for i := range labels {
+			labels[i] = i % 7
+		}
+		d, err := data.New(x, rows, 3)
+		require.NoError(t, err)
+		d.Labels = labels
+		tr, va, err := d.Split(0.3, rand.New(rand.NewPCG(9, 9)))
+		require.NoError(t, err)
+		c, err := data.New(append([]float32(nil), x...), rows, 3)
+		require.NoError(t, err)
+		c.Labels = append([]int(nil), labels...)
+		tr2, va2, err := c.SplitInPlace(0.3, rand.New(rand.NewPCG(9, 9)))
+		require.NoError(t, err)
+		require.Equal(t, tr.X, tr2.X)
+		require.Equal(t, va.X, va2.X)
+		require.Equal(t, tr.Labels, tr2.Labels)
+		require.Equal(t, va.Labels, va2.Labels)
+		require.Same(t, &c.X[0], &tr2.X[0], "a view, not a copy")
+		require.Equal(t, rows*3, cap(tr2.X)+cap(va2.X), "views do not overlap")
 	}
 }

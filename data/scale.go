@@ -107,6 +107,16 @@ func (s *Scaler) Validate(cols int) error {
 	return nil
 }
 
+// identity reports whether the map leaves every value as it is.
+func (s *Scaler) identity() bool {
+	for j := range s.Offset {
+		if s.Offset[j] != 0 || s.Factor[j] != 1 {
+			return false
+		}
+	}
+	return true
+}
+
 // ApplyRows scales x (rows of len(Offset) values) in place.
 func (s *Scaler) ApplyRows(x []float32) {
 	c := len(s.Offset)
@@ -125,10 +135,14 @@ func (s *Scaler) InvertRows(x []float32) {
 	}
 }
 
-// Apply returns a scaled copy of d.
+// Apply returns a scaled copy of d, or d itself when the map changes
+// nothing (an identity scaler: no copy is made).
 func (s *Scaler) Apply(d *Dataset) (*Dataset, error) {
 	if err := s.Validate(d.Cols); err != nil {
 		return nil, err
+	}
+	if s.identity() {
+		return d, nil // nothing to change: no copy
 	}
 	out := *d
 	out.X = append([]float32(nil), d.X...)

@@ -308,7 +308,9 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	trainSet, valSet := full, (*data.Dataset)(nil)
 	if rec.Validation > 0 {
 		var err error
-		trainSet, valSet, err = full.Split(rec.Validation, rand.New(rand.NewPCG(rec.SplitSeed, stream.Split)))
+		// in place: the parts are views of the loaded rows, not copies
+		// (full is left shuffled; its fingerprint is already taken)
+		trainSet, valSet, err = full.SplitInPlace(rec.Validation, rand.New(rand.NewPCG(rec.SplitSeed, stream.Split)))
 		if err != nil {
 			return fmt.Errorf("-val %v: %w", rec.Validation, err)
 		}

@@ -10,6 +10,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime"
 	"sort"
 	"strconv"
 	"strings"
@@ -140,9 +141,11 @@ func names(prefix string, n int) []string {
 // for intermediate results stays bounded whatever the file's length.
 const chunkRows = 4096
 
-// inChunks calls fn on consecutive row ranges of at most chunkRows rows,
-// as the phase name of st, showing how many rows are done.
-func inChunks(st *status, name string, rows int, fn func(lo, hi int) error) error {
+// inChunks runs compute on consecutive row ranges of at most chunkRows
+// rows, several at once (one goroutine per core), and hands the results
+// to write in row order, as the phase name of st, showing how many rows
+// are done. At most two chunks per core are in flight.
+func inChunks[T any](st *status, name string, rows int, compute func(lo, hi int) (T, error), write func(lo, hi int, r T) error) error {
 	var mu sync.Mutex
 	done := 0
 	st.begin(name, func() string {
@@ -151,11 +154,48 @@ func inChunks(st *status, name string, rows int, fn func(lo, hi int) error) erro
 		return fmt.Sprintf("%d/%d rows  %d%%", done, rows, 100*done/max(rows, 1))
 	})
 	defer st.end()
-	for lo := 0; lo < rows; lo += chunkRows {
+	type result struct {
+		v   T
+		err error
+	}
+	workers := max(1, runtime.GOMAXPROCS(0))
+	pending := make(chan chan result, 2*workers)
+	stop := make(chan struct{})
+	defer close(stop)
+	go func() {
+		defer close(pending)
+		sem := make(chan struct{}, workers)
+		for lo := 0; lo < rows; lo += chunkRows {
+			hi := min(rows, lo+chunkRows)
+			ch := make(chan result, 1)
+			select {
+			case pending <- ch:
+			case <-stop:
+				return
+			}
+			select {
+			case sem <- struct{}{}:
+			case <-stop:
+				return
+			}
+			go func(lo, hi int) {
+				defer func() { <-sem }()
+				v, err := compute(lo, hi)
+				ch <- result{v, err}
+			}(lo, hi)
+		}
+	}()
+	lo := 0
+	for ch := range pending {
+		r := <-ch
+		if r.err != nil {
+			return r.err
+		}
 		hi := min(rows, lo+chunkRows)
-		if err := fn(lo, hi); err != nil {
+		if err := write(lo, hi, r.v); err != nil {
 			return err
 		}
+		lo = hi
 		mu.Lock()
 		done = hi
 		mu.Unlock()
@@ -211,11 +251,9 @@ func cmdScore(e *env, args []string) error {
 	cw.Write(append(header, "status"))
 	flagged, unscorable := 0, 0
 	rec := make([]string, 0, len(header)+1)
-	err = inChunks(st, "score", ds.Rows, func(lo, hi int) error {
-		scores, err := sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
-		if err != nil {
-			return err
-		}
+	err = inChunks(st, "score", ds.Rows, func(lo, hi int) ([]anomaly.Score, error) {
+		return sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
+	}, func(lo, hi int, scores []anomaly.Score) error {
 		for i, s := range scores {
 			rec = append(rec[:0], strconv.Itoa(lo+i+1), strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			for k := 0; k < *top; k++ {
@@ -290,11 +328,9 @@ func cmdEncode(e *env, args []string) error {
 	width := enc.CodeWidth()
 	cw.Write(names("z", width))
 	rec := make([]string, width)
-	err = inChunks(st, "encode", ds.Rows, func(lo, hi int) error {
-		codes, err := enc.Encode(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo)
-		if err != nil {
-			return err
-		}
+	err = inChunks(st, "encode", ds.Rows, func(lo, hi int) ([]float32, error) {
+		return enc.Encode(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo)
+	}, func(lo, hi int, codes []float32) error {
 		for r := 0; r < hi-lo; r++ {
 			for j := range rec {
 				rec[j] = f32s(codes[r*width+j])
