@@ -60,8 +60,7 @@ ours() { # job threads epochs: the job through the command line
 		timed "$pf" "$q" train -kind vae -data "$fm/train-images-idx3-ubyte.gz" -hidden 400 -latent 20 -epochs "$ep" -batch 128 -rate 0.001 -val 0.1 -out "$tmp/m.qm"
 		timed "$pf" "$q" score -model "$tmp/m.qm" -data "$fm/t10k-images-idx3-ubyte.gz" -out "$tmp/scores.csv"
 		timed "$pf" "$q" encode -model "$tmp/m.qm" -data "$fm/train-images-idx3-ubyte.gz" -out "$tmp/codes.csv"
-		/usr/bin/time -f "process %e %M" -o "$tmp/time.txt" "$q" sample -model "$tmp/m.qm" -n 10000 -out "$tmp/samples.csv"
-		cat "$tmp/time.txt" >> "$pf"; awk '{print "sample", $2}' "$tmp/time.txt" >> "$pf" ;;
+		timed "$pf" "$q" sample -model "$tmp/m.qm" -n 10000 -out "$tmp/samples.csv" ;;
 	ae)
 		timed "$pf" "$q" train -kind ae -data "$fm/train-images-idx3-ubyte.gz" -hidden 128 -latent 32 -epochs "$ep" -batch 128 -rate 0.001 -val 0.1 -out "$tmp/m.qm"
 		timed "$pf" "$q" score -model "$tmp/m.qm" -data "$fm/t10k-images-idx3-ubyte.gz" -out "$tmp/scores.csv"

@@ -117,16 +117,32 @@ func f32s(v float32) string { return strconv.FormatFloat(float64(v), 'g', -1, 32
 func writeRows(w io.Writer, header []string, x []float32, rows int) error {
 	cw := csv.NewWriter(w)
 	cw.Write(header)
-	cols := len(header)
-	rec := make([]string, cols)
-	for r := 0; r < rows; r++ {
-		for j := 0; j < cols; j++ {
-			rec[j] = f32s(x[r*cols+j])
-		}
-		cw.Write(rec)
-	}
 	cw.Flush()
-	return cw.Error()
+	if err := cw.Error(); err != nil {
+		return err
+	}
+	return writeNumbers(w, x, rows, len(header))
+}
+
+// writeNumbers writes rows of cols float32 values as CSV lines, each in
+// its shortest exact form (numbers need no quoting, so no field goes
+// through the CSV writer).
+func writeNumbers(w io.Writer, x []float32, rows, cols int) error {
+	line := make([]byte, 0, 16*cols)
+	for r := 0; r < rows; r++ {
+		line = line[:0]
+		for j, v := range x[r*cols : (r+1)*cols] {
+			if j > 0 {
+				line = append(line, ',')
+			}
+			line = strconv.AppendFloat(line, float64(v), 'g', -1, 32)
+		}
+		line = append(line, '\n')
+		if _, err := w.Write(line); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 func names(prefix string, n int) []string {
@@ -324,21 +340,14 @@ func cmdEncode(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	cw := csv.NewWriter(w)
 	width := enc.CodeWidth()
-	cw.Write(names("z", width))
-	rec := make([]string, width)
+	if err := writeRows(w, names("z", width), nil, 0); err != nil {
+		return err
+	}
 	err = inChunks(st, "encode", ds.Rows, func(lo, hi int) ([]float32, error) {
 		return enc.Encode(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo)
 	}, func(lo, hi int, codes []float32) error {
-		for r := 0; r < hi-lo; r++ {
-			for j := range rec {
-				rec[j] = f32s(codes[r*width+j])
-			}
-			cw.Write(rec)
-		}
-		cw.Flush()
-		return cw.Error()
+		return writeNumbers(w, codes, hi-lo, width)
 	})
 	if err != nil {
 		return err
@@ -391,16 +400,20 @@ func cmdSample(e *env, args []string) error {
 	seed := fs.Uint64("seed", 1, "random seed: same seed, same samples")
 	class := fs.Int("class", -1, "class to sample from a conditional model (-1: any)")
 	out := fs.String("out", "-", "CSV file, or PNG grid for image models")
+	quiet := fs.Bool("quiet", false, "no progress output")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
 	if *n <= 0 || *n > 1_000_000 {
 		return usagef("-n must be in 1..1000000")
 	}
+	st := newStatus(e.stderr, *quiet)
+	st.begin("open", nil)
 	l, smp, err := openAs[model.Sampler]("sample", "a generative model (a VAE or a GAN)", map[string]string{"-out": *out, "-model": *modelPath})
 	if err != nil {
 		return err
 	}
+	st.begin("sample", func() string { return fmt.Sprintf("%d rows", *n) })
 	var x []float32
 	if *class != -1 {
 		cs, ok := l.model.(model.ClassSampler)
@@ -414,7 +427,15 @@ func cmdSample(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	return writeImagesOrCSV(e, *out, x, *n, l.model.Schema(), l.model.Width())
+	st.begin("write", nil)
+	if err := writeImagesOrCSV(e, *out, x, *n, l.model.Schema(), l.model.Width()); err != nil {
+		return err
+	}
+	if !isStdout(*out) {
+		st.say("wrote %s: %d samples", *out, *n)
+	}
+	st.done()
+	return nil
 }
 
 func cmdInterpolate(e *env, args []string) error {
