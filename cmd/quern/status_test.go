@@ -90,3 +90,25 @@ func TestChunkedOutputsSameAtAnyThreadCount(t *testing.T) {
 		require.Equal(t, 3*chunkRows+17+1, bytes.Count(outs[0][0], []byte("\n")))
 	}
 }
+
+// Two runs that differ only in where they write give the same bytes
+// (no output path is stored), and the files get the usual mode: 0644
+// under the process's umask, readable by a server running as another
+// user.
+func TestOutputsIndependentOfOutAndReadable(t *testing.T) {
+	dir := t.TempDir()
+	require.NoError(t, os.Mkdir(filepath.Join(dir, "sub"), 0o755))
+	for _, out := range []string{"a.qm", "sub/b.qm"} {
+		ok(t, quern(t, dir, nil, "train", "-kind", "ae", "-data", bc, "-no-header", "-skip", "1", "-label", "c30", "-out", out, "-epochs", "2", "-every", "1", "-quiet"))
+	}
+	for _, suffix := range []string{"", ".ckpt"} {
+		a, err := os.ReadFile(filepath.Join(dir, "a.qm"+suffix))
+		require.NoError(t, err)
+		b, err := os.ReadFile(filepath.Join(dir, "sub/b.qm"+suffix))
+		require.NoError(t, err)
+		require.True(t, bytes.Equal(a, b), "a.qm%s and sub/b.qm%s differ", suffix, suffix)
+		st, err := os.Stat(filepath.Join(dir, "a.qm"+suffix))
+		require.NoError(t, err)
+		require.Equal(t, os.FileMode(0o644)&^currentUmask(), st.Mode().Perm())
+	}
+}

@@ -1,0 +1,367 @@
+package data
+
+import (
+	"bufio"
+	"bytes"
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"runtime"
+	"strconv"
+	"strings"
+	"unicode/utf8"
+	"unsafe"
+)
+
+// lineReader reads physical lines and joins them into CSV records.
+type lineReader struct {
+	br    *bufio.Reader
+	name  string
+	comma rune
+	line  int    // physical lines read
+	long  []byte // a line longer than the buffer
+	rec   []byte // a record of several lines
+}
+
+// next returns the next physical line without its line end (\n or
+// \r\n), valid until the next call, or io.EOF.
+func (lr *lineReader) next() ([]byte, error) {
+	b, err := lr.br.ReadSlice('\n')
+	if err == bufio.ErrBufferFull {
+		lr.long = append(lr.long[:0], b...)
+		for err == bufio.ErrBufferFull {
+			b, err = lr.br.ReadSlice('\n')
+			lr.long = append(lr.long, b...)
+		}
+		b = lr.long
+	}
+	if err != nil && err != io.EOF {
+		return nil, err
+	}
+	if len(b) == 0 && err == io.EOF {
+		return nil, io.EOF
+	}
+	lr.line++
+	b = bytes.TrimSuffix(b, []byte{'\n'})
+	b = bytes.TrimSuffix(b, []byte{'\r'})
+	return b, nil
+}
+
+// record returns the next non-empty record (its lines joined while a
+// quoted field is open) and the line it starts on, valid until the next
+// call; io.EOF at the end.
+func (lr *lineReader) record() ([]byte, int, error) {
+	for {
+		b, err := lr.next()
+		if err != nil {
+			if err == io.EOF {
+				return nil, 0, io.EOF
+			}
+			return nil, 0, csvErr(lr.name, 0, err)
+		}
+		if len(b) == 0 {
+			continue // encoding/csv skips empty lines too
+		}
+		start := lr.line
+		if bytes.Count(b, []byte{'"'})%2 == 0 {
+			return b, start, nil
+		}
+		// an open quote: the record goes on to the next lines
+		lr.rec = append(lr.rec[:0], b...)
+		for bytes.Count(lr.rec, []byte{'"'})%2 != 0 {
+			more, err := lr.next()
+			if err == io.EOF {
+				break // encoding/csv reports the open quote
+			}
+			if err != nil {
+				return nil, 0, csvErr(lr.name, 0, err)
+			}
+			lr.rec = append(append(lr.rec, '\n'), more...)
+		}
+		return lr.rec, start, nil
+	}
+}
+
+// fields splits one record for the header.
+func (lr *lineReader) fields(rec []byte, line int) ([]string, error) {
+	return splitRecord(nil, rec, lr.comma, lr.name, line)
+}
+
+// unsafeString views b as a string without copying; b must not change
+// while the string is in use.
+func unsafeString(b []byte) string {
+	if len(b) == 0 {
+		return ""
+	}
+	return unsafe.String(&b[0], len(b))
+}
+
+// splitRecord splits a record into fields: at the separator directly when
+// it has no quote (the fields view rec), through encoding/csv otherwise.
+func splitRecord(dst []string, rec []byte, comma rune, name string, line int) ([]string, error) {
+	dst = dst[:0]
+	if comma < utf8.RuneSelf && bytes.IndexByte(rec, '"') < 0 {
+		c := byte(comma)
+		for {
+			i := bytes.IndexByte(rec, c)
+			if i < 0 {
+				return append(dst, unsafeString(rec)), nil
+			}
+			dst = append(dst, unsafeString(rec[:i]))
+			rec = rec[i+1:]
+		}
+	}
+	cr := csv.NewReader(bytes.NewReader(rec))
+	cr.Comma = comma
+	cr.FieldsPerRecord = -1
+	f, err := cr.Read()
+	if err != nil {
+		var pe *csv.ParseError
+		if errors.As(err, &pe) {
+			return nil, &ParseError{File: name, Line: line + pe.Line - 1, Column: pe.Column, Msg: pe.Err.Error()}
+		}
+		return nil, &ParseError{File: name, Line: line, Msg: err.Error()}
+	}
+	return append(dst, f...), nil
+}
+
+// csvBatch is a run of records read together and parsed by one worker.
+type csvBatch struct {
+	text   []byte
+	ends   []int // each record's end in text
+	starts []int // each record's first line
+	// results
+	x        []float32
+	labels   []int
+	rowLines []int // the line of each parsed row
+	err      error
+}
+
+// batchBytes and batchRecords cut batches: a few mebibytes of text, so
+// memory in flight stays small whatever the file.
+const (
+	batchBytes   = 2 << 20
+	batchRecords = 16384
+)
+
+func (b *csvBatch) add(rec []byte, line int) {
+	b.text = append(b.text, rec...)
+	b.ends = append(b.ends, len(b.text))
+	b.starts = append(b.starts, line)
+}
+
+func (b *csvBatch) full() bool { return len(b.text) >= batchBytes || len(b.ends) >= batchRecords }
+
+// rowParser turns records into rows of the selected columns.
+type rowParser struct {
+	name   string
+	header []string
+	sel    []int
+	label  int
+	width  int
+	lr     *lineReader
+}
+
+// parse parses a batch's records into its rows, stopping at the first
+// bad record.
+func (p *rowParser) parse(b *csvBatch) {
+	var fields []string
+	prev := 0
+	b.x = make([]float32, 0, len(b.ends)*len(p.sel))
+	for k, end := range b.ends {
+		rec := b.text[prev:end]
+		prev = end
+		line := b.starts[k]
+		var err error
+		if fields, err = splitRecord(fields, rec, p.lr.comma, p.name, line); err != nil {
+			b.err = err
+			return
+		}
+		if len(fields) == 1 && strings.TrimSpace(fields[0]) == "" && p.width > 1 {
+			continue // a blank line
+		}
+		if len(fields) != p.width {
+			b.err = &ParseError{File: p.name, Line: line, Msg: fmt.Sprintf("row has %d fields, want %d", len(fields), p.width)}
+			return
+		}
+		for _, i := range p.sel {
+			s := strings.TrimSpace(fields[i])
+			v, err := parseFloat32(s)
+			if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+				msg := fmt.Sprintf("%q is not a finite number", s)
+				if errors.Is(err, strconv.ErrRange) {
+					msg = fmt.Sprintf("%q is outside the float32 range", s)
+				}
+				b.err = &ParseError{File: p.name, Line: line, Column: i + 1, Name: p.header[i], Msg: msg}
+				return
+			}
+			b.x = append(b.x, float32(v))
+		}
+		if p.label >= 0 {
+			s := strings.TrimSpace(fields[p.label])
+			if s == "" {
+				b.labels = append(b.labels, Unlabelled)
+			} else {
+				v, err := strconv.Atoi(s)
+				if err != nil || v < 0 {
+					// accept integral floats such as "3.0"
+					fv, ferr := strconv.ParseFloat(s, 64)
+					if ferr != nil || fv != math.Trunc(fv) || fv < 0 || fv > 1<<30 {
+						b.err = &ParseError{File: p.name, Line: line, Column: p.label + 1, Name: p.header[p.label], Msg: fmt.Sprintf("label %q is not a class index >= 0", s)}
+						return
+					}
+					v = int(fv)
+				}
+				b.labels = append(b.labels, v)
+			}
+		}
+		b.rowLines = append(b.rowLines, line)
+	}
+}
+
+// readAll reads the rest of the records in batches, parses them on every
+// core and appends their rows to d in file order; first, when not nil,
+// is a batch already begun. The first problem in file order is returned:
+// a bad record, or the row past a limit.
+func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
+	workers := max(1, runtime.GOMAXPROCS(0))
+	type job struct {
+		b    *csvBatch
+		done chan struct{}
+	}
+	var queue []job
+	sem := make(chan struct{}, workers)
+	// the caller returns only after every worker has finished (a worker
+	// may view memory of a batch)
+	defer func() {
+		for _, j := range queue {
+			<-j.done
+		}
+	}()
+	assemble := func(j job) error {
+		<-j.done
+		b := j.b
+		n := len(b.rowLines)
+		if d.Rows+n > lim.Rows {
+			k := lim.Rows - d.Rows
+			return &LimitError{File: p.name, Line: b.rowLines[k], Key: "rows", Limit: int64(lim.Rows), What: fmt.Sprintf("more than %d rows", lim.Rows)}
+		}
+		if int64(d.Rows+n)*int64(d.Cols) > lim.Values {
+			k := int(lim.Values/int64(d.Cols)) - d.Rows
+			return &LimitError{File: p.name, Line: b.rowLines[k], Key: "values", Limit: lim.Values, What: fmt.Sprintf("more than %d values (%d rows of %d)", lim.Values, d.Rows+k+1, d.Cols)}
+		}
+		d.X = append(d.X, b.x...)
+		if d.Labels != nil {
+			d.Labels = append(d.Labels, b.labels...)
+		}
+		d.Rows += n
+		return b.err
+	}
+	launch := func(b *csvBatch) {
+		j := job{b: b, done: make(chan struct{})}
+		queue = append(queue, j)
+		sem <- struct{}{}
+		go func() {
+			defer func() { <-sem; close(j.done) }()
+			p.parse(b)
+		}()
+	}
+	b := first
+	if b == nil {
+		b = &csvBatch{}
+	}
+	for {
+		rec, line, err := p.lr.record()
+		if err != nil && err != io.EOF {
+			// a read error (a limit) comes after every record before it
+			for len(queue) > 0 {
+				j := queue[0]
+				queue = queue[1:]
+				if err := assemble(j); err != nil {
+					return err
+				}
+			}
+			if len(b.ends) > 0 {
+				launch(b)
+				j := queue[0]
+				queue = queue[1:]
+				if err := assemble(j); err != nil {
+					return err
+				}
+			}
+			return err
+		}
+		if err == nil {
+			b.add(rec, line)
+		}
+		if len(b.ends) > 0 && (err == io.EOF || b.full()) {
+			launch(b)
+			b = &csvBatch{}
+		}
+		for len(queue) > workers || (err == io.EOF && len(queue) > 0) {
+			j := queue[0]
+			queue = queue[1:]
+			if err := assemble(j); err != nil {
+				return err
+			}
+		}
+		if err == io.EOF {
+			return nil
+		}
+	}
+}
+
+// pow10f32 holds the powers of ten that float32 represents exactly.
+var pow10f32 = [...]float32{1, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10}
+
+// parseFloat32 is strconv.ParseFloat(s, 32) for finite values, with a
+// fast path for the common plain decimals ("-12.3456"): when the digits
+// make an integer below 2^24 and at most ten of them follow the point,
+// the integer and the power of ten are both exact in float32, so one
+// IEEE division rounds correctly (the fast path of Clinger, "How to read
+// floating point numbers accurately", 1990) and the result is the one
+// strconv gives, bit for bit (tested against it).
+func parseFloat32(s string) (float64, error) {
+	if v, ok := fastFloat32(s); ok {
+		return float64(v), nil
+	}
+	return strconv.ParseFloat(s, 32)
+}
+
+func fastFloat32(s string) (float32, bool) {
+	i, neg := 0, false
+	if i < len(s) && (s[i] == '-' || s[i] == '+') {
+		neg = s[i] == '-'
+		i++
+	}
+	var m uint32
+	digits, frac, seenDot := 0, 0, false
+	for ; i < len(s); i++ {
+		c := s[i]
+		switch {
+		case c >= '0' && c <= '9':
+			m = m*10 + uint32(c-'0')
+			digits++
+			if seenDot {
+				frac++
+			}
+			if m >= 1<<24 || digits > 9 {
+				return 0, false
+			}
+		case c == '.' && !seenDot:
+			seenDot = true
+		default:
+			return 0, false // an exponent, a letter, a second point
+		}
+	}
+	if digits == 0 || frac >= len(pow10f32) {
+		return 0, false
+	}
+	v := float32(m) / pow10f32[frac]
+	if neg {
+		v = -v
+	}
+	return v, true
+}
