@@ -5,6 +5,7 @@ go 1.26
 require (
 	github.com/chewxy/hm v1.0.0
 	github.com/chewxy/math32 v1.10.1
+	github.com/klauspost/compress v1.20.4
 	github.com/stretchr/testify v1.11.1
 	golang.org/x/sys v0.30.0
 	gonum.org/v1/gonum v0.16.0

@@ -2,9 +2,9 @@ package data
 
 import (
 	"bufio"
-	"compress/gzip"
 	"encoding/binary"
 	"fmt"
+	"github.com/klauspost/compress/gzip"
 	"io"
 	"math"
 	"os"
