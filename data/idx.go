@@ -34,6 +34,7 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 		return nil, err
 	}
 	br := bufio.NewReader(r)
+	packed := int64(-1) // the compressed size, for a gzip stream of known size
 	head, _ := br.Peek(2)
 	var src io.Reader = br
 	if len(head) == 2 && head[0] == 0x1f && head[1] == 0x8b {
@@ -42,6 +43,7 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 			return nil, &ParseError{File: name, Msg: "bad gzip stream: " + err.Error()}
 		}
 		defer zr.Close()
+		packed = size
 		src, size = zr, -1
 	}
 	var magic [4]byte
@@ -104,7 +106,16 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 	if size >= 0 {
 		out.Values = make([]float32, 0, total)
 	} else {
-		out.Values = make([]float32, 0, min(total, 1<<20))
+		// deflate expands at most 1032 to 1 (a 258-byte match per 2-bit
+		// code; zlib's technical notes, from memory), so a stream of
+		// known compressed size can
+		// justify at most that much: set it aside at once, and a small
+		// file that declares a large shape still costs little
+		guess := int64(1 << 20)
+		if packed > 0 {
+			guess = max(guess, packed*maxInflate/int64(es))
+		}
+		out.Values = make([]float32, 0, min(total, guess))
 	}
 	block := make([]byte, (64<<10)/es*es)
 	for int64(len(out.Values)) < total {
@@ -172,6 +183,10 @@ func convertIDX(dst []float32, raw []byte, typ byte, name string, first int) err
 	}
 	return nil
 }
+
+// maxInflate is deflate's largest expansion of compressed bytes (from
+// memory: zlib's technical notes give 1032:1).
+const maxInflate = 1032
 
 // LoadIDXFile reads one idx file (plain or gzip-compressed) within lim.
 func LoadIDXFile(path string, lim Limits) (*IDX, error) {

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math/rand/v2"
 	"os"
+	"runtime"
 	"path/filepath"
 	"testing"
 
@@ -80,4 +81,36 @@ func TestSplitInPlaceEqualsSplit(t *testing.T) {
 		require.Same(t, &c.X[0], &tr2.X[0], "a view, not a copy")
 		require.Equal(t, rows*3, cap(tr2.X)+cap(va2.X), "views do not overlap")
 	}
+}
+
+// A gzip idx file of known size gets its values in one allocation of
+// exactly the declared count (no doubling, no copies), and a tiny file
+// that declares a large shape is refused without its declared memory
+// being set aside. Common practice, no source.
+func TestIDXGzipAllocation(t *testing.T) {
+	var raw bytes.Buffer
+	raw.Write([]byte{0, 0, 0x08, 2, 0, 0, 0x27, 0x10, 0, 0, 0, 100}) // 10000 x 100 bytes
+	raw.Write(bytes.Repeat([]byte{7}, 10000*100))
+	var z bytes.Buffer
+	zw := gzip.NewWriter(&z)
+	zw.Write(raw.Bytes())
+	require.NoError(t, zw.Close())
+	a, err := data.ReadIDX(bytes.NewReader(z.Bytes()), "x.gz", int64(z.Len()), data.Limits{})
+	require.NoError(t, err)
+	require.Len(t, a.Values, 10000*100)
+	require.Equal(t, len(a.Values), cap(a.Values), "one allocation of the declared count")
+
+	var bomb bytes.Buffer
+	bomb.Write([]byte{0, 0, 0x08, 2, 0, 0x40, 0, 0, 0, 0, 0x10, 0}) // 4194304 x 4096 bytes declared
+	bomb.Write(make([]byte, 100))
+	z.Reset()
+	zw = gzip.NewWriter(&z)
+	zw.Write(bomb.Bytes())
+	require.NoError(t, zw.Close())
+	var before, after runtime.MemStats
+	runtime.ReadMemStats(&before)
+	_, err = data.ReadIDX(bytes.NewReader(z.Bytes()), "bomb.gz", int64(z.Len()), data.Limits{Values: 1 << 40, Bytes: 1 << 40, Rows: 1 << 30})
+	runtime.ReadMemStats(&after)
+	require.Error(t, err)
+	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(64<<20), "a %d-byte file sets aside no more than its expansion could fill", z.Len())
 }
