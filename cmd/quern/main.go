@@ -13,6 +13,7 @@ import (
 	"io"
 	"os"
 	"runtime/debug"
+	"runtime/pprof"
 	"sort"
 	"strings"
 	"time"
@@ -57,6 +58,18 @@ func main() {
 	// grow to twice the live data); GOGC, when set, decides instead
 	if os.Getenv("GOGC") == "" {
 		debug.SetGCPercent(gcPercent)
+	}
+	// QUERN_CPUPROFILE=FILE writes a CPU profile of the whole command,
+	// for `go tool pprof` (where a job's time goes beyond the step)
+	if path := os.Getenv("QUERN_CPUPROFILE"); path != "" {
+		if f, err := os.Create(path); err == nil && pprof.StartCPUProfile(f) == nil {
+			code := run(os.Args[1:], &env{stdout: os.Stdout, stderr: os.Stderr})
+			pprof.StopCPUProfile()
+			f.Close()
+			os.Exit(code)
+		}
+		fmt.Fprintf(os.Stderr, "quern: QUERN_CPUPROFILE %s: cannot write the profile\n", path)
+		os.Exit(1)
 	}
 	os.Exit(run(os.Args[1:], &env{stdout: os.Stdout, stderr: os.Stderr}))
 }
