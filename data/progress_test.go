@@ -6,8 +6,8 @@ import (
 	"fmt"
 	"math/rand/v2"
 	"os"
-	"runtime"
 	"path/filepath"
+	"runtime"
 	"testing"
 
 	"github.com/quernlab/quern/data"

@@ -107,8 +107,8 @@ func (s *Scaler) Validate(cols int) error {
 	return nil
 }
 
-// identity reports whether the map leaves every value as it is.
-func (s *Scaler) identity() bool {
+// Identity reports whether the map leaves every value as it is.
+func (s *Scaler) Identity() bool {
 	for j := range s.Offset {
 		if s.Offset[j] != 0 || s.Factor[j] != 1 {
 			return false
@@ -141,7 +141,7 @@ func (s *Scaler) Apply(d *Dataset) (*Dataset, error) {
 	if err := s.Validate(d.Cols); err != nil {
 		return nil, err
 	}
-	if s.identity() {
+	if s.Identity() {
 		return d, nil // nothing to change: no copy
 	}
 	out := *d

@@ -98,7 +98,7 @@ func (r *aeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data
 	if r.m.Columns == nil {
 		r.m.Columns, r.m.Image = trainSet.Columns, trainSet.Image
 	}
-	r.lo, r.hi = colRange(tr)
+	r.lo, r.hi = colRange(tr, r.rowScaler())
 	if r.trainPhase == nil {
 		r.trainPhase = engine.NewPhase(r.c.Precision, true, r.build(true)).Only(r.trainable())
 		r.evalPhase = engine.NewPhase(r.c.Precision, false, r.build(false))
@@ -327,15 +327,19 @@ func (r *aeRecipe) release() {
 	}
 }
 
-func colRange(d *data.Dataset) (lo, hi []float32) {
+func colRange(d *data.Dataset, s *data.Scaler) (lo, hi []float32) {
 	lo, hi = make([]float32, d.Cols), make([]float32, d.Cols)
 	for j := range lo {
 		lo[j], hi[j] = float32(math.Inf(1)), float32(math.Inf(-1))
 	}
-	for i := 0; i < d.Rows; i++ {
-		for j, v := range d.Row(i) {
-			lo[j], hi[j] = min(lo[j], v), max(hi[j], v)
+	scaledRowsDo(d, s, func(x []float32, n int) {
+		for i := 0; i < n; i++ {
+			for j, v := range x[i*d.Cols : (i+1)*d.Cols] {
+				lo[j], hi[j] = min(lo[j], v), max(hi[j], v)
+			}
 		}
-	}
+	})
 	return lo, hi
 }
+
+func (r *aeRecipe) rowScaler() *data.Scaler { return rowScaler(r.m.Scaler) }

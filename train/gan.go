@@ -140,6 +140,9 @@ func (r *ganRecipe) extraRows(rows int) ([]float32, []int) {
 	for row := 0; row < rows; row++ {
 		i := r.noise.IntN(r.train.Rows)
 		copy(x[row*w:], r.train.Row(i))
+		if s := r.rowScaler(); s != nil {
+			s.ApplyRows(x[row*w : (row+1)*w])
+		}
 		if y != nil {
 			y[row] = r.train.Labels[i]
 		}
@@ -148,6 +151,35 @@ func (r *ganRecipe) extraRows(rows int) ([]float32, []int) {
 }
 
 func (r *ganRecipe) params() []*layers.Param { return r.m.Params() }
+
+func (r *ganRecipe) rowScaler() *data.Scaler { return rowScaler(r.m.Scaler) }
+
+// spreadScaled is spread over d's rows scaled by s, without a scaled copy:
+// each column's mean and deviation are summed in the same order as
+// spread's.
+func spreadScaled(d *data.Dataset, s *data.Scaler) float64 {
+	if s == nil {
+		return spread(d.X, d.Rows, d.Cols)
+	}
+	cols := d.Cols
+	val := func(r, j int) float64 {
+		return float64(float32((float64(d.X[r*cols+j]) - s.Offset[j]) * s.Factor[j]))
+	}
+	var total float64
+	for j := 0; j < cols; j++ {
+		var m, sq float64
+		for r := 0; r < d.Rows; r++ {
+			m += val(r, j)
+		}
+		m /= float64(d.Rows)
+		for r := 0; r < d.Rows; r++ {
+			dv := val(r, j) - m
+			sq += dv * dv
+		}
+		total += math.Sqrt(sq / float64(max(d.Rows-1, 1)))
+	}
+	return total / float64(cols)
+}
 
 func (r *ganRecipe) usable(rows int) int { return rows - rows%r.c.Pack }
 
@@ -185,7 +217,7 @@ func (r *ganRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		r.m.Columns, r.m.Image = trainSet.Columns, trainSet.Image
 	}
 	r.train = tr
-	r.dataSpread = math.Max(spread(tr.X, tr.Rows, tr.Cols), 1e-12)
+	r.dataSpread = math.Max(spreadScaled(tr, r.rowScaler()), 1e-12)
 	if r.dPhase == nil {
 		r.dPhase = engine.NewPhase(c.Precision, true, r.buildD).Only(r.m.Discriminator.Params())
 		r.gPhase = engine.NewPhase(c.Precision, true, r.buildG).Only(r.m.Generator.Params())

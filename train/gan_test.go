@@ -61,6 +61,7 @@ func runMove(t testing.TB, mv *move, b *batch) {
 func trainD(t testing.TB, r *ganRecipe, d *data.Dataset, steps, rows int) {
 	tr, _, err := r.prepare(d, nil)
 	require.NoError(t, err)
+	tr = scaledCopy(r, tr)
 	rng := rand.New(rand.NewPCG(8, 8))
 	b := &batch{Rows: rows, Cols: 1, X: make([]float32, rows)}
 	for s := 0; s < steps; s++ {
@@ -133,6 +134,7 @@ func TestAlternatingStepsFreezeTheOtherNetwork(t *testing.T) {
 	d := ring(256, 1)
 	sd, _, err := r.prepare(d, nil)
 	require.NoError(t, err)
+	sd = scaledCopy(r, sd)
 	snap := func(ps []*layers.Param) [][]float64 {
 		var s [][]float64
 		for _, p := range ps {

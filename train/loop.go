@@ -103,6 +103,10 @@ type loop struct {
 	best *[][]float64
 	// evalHook, when set (tests), replaces the evaluation pass.
 	evalHook func() []Metric
+	// scaler scales rows on their way into the graphs (nil: none);
+	// evalBuf holds an evaluation batch's scaled rows.
+	scaler  *data.Scaler
+	evalBuf []float32
 }
 
 func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
@@ -136,6 +140,12 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 		*l.best = best
 	}
 	// a batch holds at most the rows there are, whatever the batch size
+	// rows are scaled a batch at a time, as they are copied into it
+	var sc *data.Scaler
+	if sr, ok := r.(scalesRows); ok {
+		sc = sr.rowScaler()
+	}
+	l.scaler = sc
 	rows := min(s.BatchSize, trainSet.Rows)
 	b := batch{Cols: trainSet.Cols, X: make([]float32, rows*trainSet.Cols)}
 	if trainSet.Labels != nil {
@@ -165,6 +175,9 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 				lab = b.Labels[:b.Rows]
 			}
 			batches.Gather(i, b.X[:b.Rows*b.Cols], lab)
+			if sc != nil {
+				sc.ApplyRows(b.X[:b.Rows*b.Cols])
+			}
 			use := r.usable(b.Rows)
 			if use > 0 {
 				bb = batch{Rows: use, Cols: b.Cols, X: b.X[:use*b.Cols], Labels: lab}
@@ -313,7 +326,13 @@ func (l *loop) evaluate(d *data.Dataset) ([]Metric, error) {
 		if d.Labels != nil {
 			lab = d.Labels[start : start+n]
 		}
-		ev.Fill(p, d.X[start*d.Cols:(start+n)*d.Cols], lab, n, rng)
+		x := d.X[start*d.Cols : (start+n)*d.Cols]
+		if l.scaler != nil {
+			l.evalBuf = append(l.evalBuf[:0], x...)
+			l.scaler.ApplyRows(l.evalBuf)
+			x = l.evalBuf
+		}
+		ev.Fill(p, x, lab, n, rng)
 		loss, err := p.Run(engine.RunOptions{})
 		if err != nil {
 			return nil, err

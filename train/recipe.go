@@ -74,17 +74,63 @@ func scale(pkg string, scaler **data.Scaler, kind data.ScaleKind, trainSet, valS
 		}
 		*scaler = s
 	}
-	tr, err := (*scaler).Apply(trainSet)
-	if err != nil {
-		return nil, nil, fmt.Errorf("%s: %w", pkg, err)
-	}
-	var va *data.Dataset
-	if valSet != nil {
-		if va, err = (*scaler).Apply(valSet); err != nil {
-			return nil, nil, fmt.Errorf("%s: %w", pkg, err)
+	for _, d := range []*data.Dataset{trainSet, valSet} {
+		if d != nil {
+			if err := (*scaler).Validate(d.Cols); err != nil {
+				return nil, nil, fmt.Errorf("%s: %w", pkg, err)
+			}
 		}
 	}
-	return tr, va, nil
+	// the rows stay raw: the loop scales each batch as it copies it
+	// (rowScaler), so no scaled copy of the data is ever held
+	return trainSet, valSet, nil
+}
+
+// rowScaler is the scaler rows go through on their way into a graph, nil
+// when it changes nothing.
+func rowScaler(s *data.Scaler) *data.Scaler {
+	if s == nil || s.Identity() {
+		return nil
+	}
+	return s
+}
+
+// scalesRows is implemented by recipes whose rows are scaled on their way
+// into the graphs.
+type scalesRows interface {
+	rowScaler() *data.Scaler
+}
+
+// scaledRowsDo calls fn on d's rows, scaled by s (nil: as they are), a
+// block of rows at a time through one buffer, so that figures over scaled
+// rows need no scaled copy of the data.
+func scaledRowsDo(d *data.Dataset, s *data.Scaler, fn func(rows []float32, n int)) {
+	if s == nil {
+		fn(d.X, d.Rows)
+		return
+	}
+	const block = 1024
+	buf := make([]float32, min(block, d.Rows)*d.Cols)
+	for lo := 0; lo < d.Rows; lo += block {
+		hi := min(d.Rows, lo+block)
+		b := buf[:(hi-lo)*d.Cols]
+		copy(b, d.X[lo*d.Cols:hi*d.Cols])
+		s.ApplyRows(b)
+		fn(b, hi-lo)
+	}
+}
+
+// scaledCopy returns d's rows scaled by the recipe's scaler (d itself
+// when there is none), for tests that fill graphs by hand.
+func scaledCopy(r recipe, d *data.Dataset) *data.Dataset {
+	sr, ok := r.(scalesRows)
+	if !ok || sr.rowScaler() == nil {
+		return d
+	}
+	out := *d
+	out.X = append([]float32(nil), d.X...)
+	sr.rowScaler().ApplyRows(out.X)
+	return &out
 }
 
 // checkWidth reports training or validation rows of the wrong width.

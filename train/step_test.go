@@ -29,6 +29,7 @@ func stepRig(t testing.TB, m Model, width, rows int) func() error {
 	require.NoError(t, err)
 	sd, _, err := tr.r.prepare(d, nil)
 	require.NoError(t, err)
+	sd = scaledCopy(tr.r, sd)
 	l := &loop{r: tr.r, s: tr.s}
 	moves := tr.r.moves()
 	b := &batch{Rows: rows, Cols: width, X: sd.X}

@@ -52,6 +52,8 @@ func newVAERecipe(m *vae.Model, s Settings, noise *rand.Rand) (*vaeRecipe, error
 
 func (r *vaeRecipe) params() []*layers.Param { return r.m.Params() }
 
+func (r *vaeRecipe) rowScaler() *data.Scaler { return rowScaler(r.m.Scaler) }
+
 func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data.Dataset, error) {
 	if err := checkWidth("vae", r.c.Inputs, trainSet, valSet); err != nil {
 		return nil, nil, err
@@ -68,10 +70,18 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 			if d == nil {
 				continue
 			}
-			for i, v := range d.X {
-				if v < 0 || v > 1 {
-					return nil, nil, fmt.Errorf("vae: row %d column %d is %v after scaling; a Bernoulli likelihood needs values in [0, 1]", i/d.Cols+1, i%d.Cols+1, v)
+			var bad error
+			row := 0
+			scaledRowsDo(d, r.rowScaler(), func(x []float32, n int) {
+				for i, v := range x {
+					if bad == nil && (v < 0 || v > 1) {
+						bad = fmt.Errorf("vae: row %d column %d is %v after scaling; a Bernoulli likelihood needs values in [0, 1]", row+i/d.Cols+1, i%d.Cols+1, v)
+					}
 				}
+				row += n
+			})
+			if bad != nil {
+				return nil, nil, bad
 			}
 		}
 	}
