@@ -75,22 +75,27 @@ func LoadCSV(path string, cfg CSVConfig) (*Dataset, error) {
 		return nil, fmt.Errorf("data: %w", err)
 	}
 	defer f.Close()
-	r, err := maybeGzip(withProgress(f, cfg.Progress))
+	r, gz, err := maybeGzip(withProgress(f, cfg.Progress))
 	if err != nil {
 		return nil, &ParseError{File: path, Msg: err.Error()}
 	}
-	return ReadCSV(r, path, cfg)
+	size := int64(-1)
+	if st, err := f.Stat(); err == nil && st.Mode().IsRegular() && !gz {
+		size = st.Size()
+	}
+	return readCSV(r, path, cfg, size)
 }
 
-// maybeGzip returns a reader that decompresses r when it starts with the
-// gzip magic bytes.
-func maybeGzip(r io.Reader) (io.Reader, error) {
+// maybeGzip returns a reader that decompresses r when it starts with
+// the gzip magic bytes, and says whether it does.
+func maybeGzip(r io.Reader) (io.Reader, bool, error) {
 	br := bufio.NewReader(r)
 	head, _ := br.Peek(2)
 	if len(head) == 2 && head[0] == 0x1f && head[1] == 0x8b {
-		return gzip.NewReader(br)
+		zr, err := gzip.NewReader(br)
+		return zr, true, err
 	}
-	return br, nil
+	return br, false, nil
 }
 
 // ReadCSV is LoadCSV on a reader; name is used in errors.
@@ -100,6 +105,13 @@ func maybeGzip(r io.Reader) (io.Reader, error) {
 // a quote is split at its separators directly, one with quotes (which may
 // span lines) goes through encoding/csv.
 func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
+	return readCSV(r, name, cfg, -1)
+}
+
+// readCSV is ReadCSV knowing the text's size in bytes (-1: unknown), so
+// that the rows can be set aside at once from the first batch's density
+// rather than grown by copies.
+func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, error) {
 	if cfg.SkipLines < 0 {
 		return nil, fmt.Errorf("%w: SkipLines %d", ErrConfig, cfg.SkipLines)
 	}
@@ -196,7 +208,7 @@ func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
 	if label >= 0 {
 		d.Labels = []int{}
 	}
-	p := &rowParser{name: name, header: header, sel: sel, label: label, width: width, lr: lr}
+	p := &rowParser{name: name, header: header, sel: sel, label: label, width: width, lr: lr, size: size}
 	var pending *csvBatch
 	if cfg.NoHeader {
 		// the first record is a row

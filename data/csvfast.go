@@ -162,6 +162,7 @@ type rowParser struct {
 	label  int
 	width  int
 	lr     *lineReader
+	size   int64 // the text's bytes, -1 when unknown
 }
 
 // parse parses a batch's records into its rows, stopping at the first
@@ -251,6 +252,15 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 		if int64(d.Rows+n)*int64(d.Cols) > lim.Values {
 			k := int(lim.Values/int64(d.Cols)) - d.Rows
 			return &LimitError{File: p.name, Line: b.rowLines[k], Key: "values", Limit: lim.Values, What: fmt.Sprintf("more than %d values (%d rows of %d)", lim.Values, d.Rows+k+1, d.Cols)}
+		}
+		if d.Rows == 0 && p.size > 0 && n > 0 {
+			// set the rows aside at once, from this batch's bytes per
+			// row and the file's size (5% over, within the limits); a
+			// wrong guess only costs the growth it was to avoid
+			perRow := float64(len(b.text)+len(b.ends)) / float64(n)
+			est := int64(float64(p.size)/perRow*1.05) + int64(n)
+			est = min(est, int64(lim.Rows), lim.Values/int64(d.Cols))
+			d.X = make([]float32, 0, est*int64(d.Cols))
 		}
 		d.X = append(d.X, b.x...)
 		if d.Labels != nil {
