@@ -60,6 +60,10 @@ func startLive(st *status, addr, title string) (*live, error) {
 	l := &live{page: watch.New(title), served: make(chan struct{}), tmp: tmp}
 	l.srv = &http.Server{Handler: l.page.Handler(), ReadHeaderTimeout: 10 * time.Second}
 	l.url = "http://" + ln.Addr().String() + "/"
+	if ta, ok := ln.Addr().(*net.TCPAddr); ok && ta.IP.IsUnspecified() {
+		// every interface: name the one a browser here can open
+		l.url = fmt.Sprintf("http://localhost:%d/", ta.Port)
+	}
 	go func() {
 		defer close(l.served)
 		l.srv.Serve(ln)
