@@ -184,8 +184,10 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 }
 
 // loadFor loads data for a trained model whose columns are known: a CSV
-// file with a header is read by those column names when no columns are
-// given, so extra columns (an id, a timestamp) are ignored.
+// file with a header is read by those column names (in any order) when no
+// -columns are given, so extra columns (an id, a timestamp) are ignored.
+// A column the header lacks is an error naming it: never a silent read by
+// position of columns that may mean something else.
 func (d *dataFlags) loadFor(columns []string, cols int, st *status) (*data.Dataset, error) {
 	if d.columns == "" && !d.noHeader && len(columns) == cols && columns[0] != "" && columns[0] != "c0" {
 		if f, err := data.Detect(d.path); err == nil && f == data.FormatCSV {
@@ -193,9 +195,12 @@ func (d *dataFlags) loadFor(columns []string, cols int, st *status) (*data.Datas
 			d.columns = strings.Join(columns, ",")
 			ds, _, err := d.load(st)
 			d.columns = saved
-			if err == nil {
-				return ds, nil
+			var pe *data.ParseError
+			if errors.As(err, &pe) && strings.HasPrefix(pe.Msg, "no column ") {
+				return nil, fmt.Errorf("%s: the model's column %s is not in the header (the model reads %s by name, in any order); give -columns with the file's names for them in that order, or -no-header to read by position",
+					d.path, strings.TrimPrefix(pe.Msg, "no column "), strings.Join(columns, ", "))
 			}
+			return ds, err
 		}
 	}
 	ds, _, err := d.load(st)

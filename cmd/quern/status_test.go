@@ -112,3 +112,48 @@ func TestOutputsIndependentOfOutAndReadable(t *testing.T) {
 		require.Equal(t, os.FileMode(0o644)&^currentUmask(), st.Mode().Perm())
 	}
 }
+
+// Rows are read by the model's column names: reordered columns and extra
+// ones give the same scores; a renamed column is an error naming it, not
+// a silent read by position; -no-header reads by position on request.
+func TestColumnsByName(t *testing.T) {
+	dir := t.TempDir()
+	write := func(name string, header string, order []int, extra bool) string {
+		var b strings.Builder
+		b.WriteString(header + "\n")
+		for i := 0; i < 300; i++ {
+			v := []float64{math.Sin(float64(i)), math.Cos(float64(i)), float64(i % 7)}
+			for k, j := range order {
+				if k > 0 {
+					b.WriteByte(',')
+				}
+				fmt.Fprintf(&b, "%g", v[j])
+			}
+			if extra {
+				fmt.Fprintf(&b, ",id%d", i)
+			}
+			b.WriteByte('\n')
+		}
+		p := filepath.Join(dir, name)
+		require.NoError(t, os.WriteFile(p, []byte(b.String()), 0o644))
+		return p
+	}
+	trainPath := write("train.csv", "a,b,c", []int{0, 1, 2}, false)
+	ok(t, quern(t, dir, nil, "train", "-data", trainPath, "-out", "m.qm", "-epochs", "2", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", trainPath, "-out", "s1.csv", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", write("re.csv", "c,a,b,id", []int{2, 0, 1}, true), "-out", "s2.csv", "-quiet"))
+	s1, err := os.ReadFile(filepath.Join(dir, "s1.csv"))
+	require.NoError(t, err)
+	s2, err := os.ReadFile(filepath.Join(dir, "s2.csv"))
+	require.NoError(t, err)
+	require.Equal(t, string(s1), string(s2), "reordered columns and an extra one: the same scores")
+	r := quern(t, dir, nil, "score", "-model", "m.qm", "-data", write("renamed.csv", "a,b,temp", []int{0, 1, 2}, false), "-out", "s3.csv")
+	require.Equal(t, 1, r.code)
+	require.Contains(t, r.stderr, `the model's column "c" is not in the header (the model reads a, b, c by name, in any order)`)
+	_, err = os.Stat(filepath.Join(dir, "s3.csv"))
+	require.True(t, os.IsNotExist(err), "no score file on a refused read")
+	ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", filepath.Join(dir, "renamed.csv"), "-columns", "a,b,temp", "-out", "s4.csv", "-quiet"))
+	s4, err := os.ReadFile(filepath.Join(dir, "s4.csv"))
+	require.NoError(t, err)
+	require.Equal(t, string(s1), string(s4), "-columns maps the file's names to the model's")
+}
