@@ -123,7 +123,7 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	if comma == 0 {
 		comma = ','
 	}
-	lr := &lineReader{br: bufio.NewReaderSize(&limitReader{r: r, name: name, max: lim.Bytes, maxLine: lim.Line}, 1<<16), name: name, comma: comma}
+	lr := &lineReader{br: bufio.NewReaderSize(&limitReader{r: r, name: name, max: lim.Bytes, maxLine: lim.Line}, 1<<16), name: name, comma: comma, maxRecord: lim.Line}
 	for i := 0; i < cfg.SkipLines; i++ {
 		if _, err := lr.next(); err != nil {
 			if err == io.EOF {

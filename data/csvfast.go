@@ -23,6 +23,8 @@ type lineReader struct {
 	line  int    // physical lines read
 	long  []byte // a line longer than the buffer
 	rec   []byte // a record of several lines
+	// maxRecord bounds a record of several lines (0: no bound)
+	maxRecord int
 }
 
 // next returns the next physical line without its line end (\n or
@@ -65,12 +67,16 @@ func (lr *lineReader) record() ([]byte, int, error) {
 			continue // encoding/csv skips empty lines too
 		}
 		start := lr.line
-		if bytes.Count(b, []byte{'"'})%2 == 0 {
+		if bytes.Count(b, []byte{'"'})%2 == 0 || !opensQuotedField(b, lr.comma) {
+			// balanced quotes, or a stray one that encoding/csv reports
+			// on this line (a bare quote): the record is this line
 			return b, start, nil
 		}
-		// an open quote: the record goes on to the next lines
+		// a quoted field left open: the record goes on to the next lines,
+		// the quote count kept as it grows, up to the line limit
 		lr.rec = append(lr.rec[:0], b...)
-		for bytes.Count(lr.rec, []byte{'"'})%2 != 0 {
+		odd := true
+		for odd {
 			more, err := lr.next()
 			if err == io.EOF {
 				break // encoding/csv reports the open quote
@@ -79,9 +85,26 @@ func (lr *lineReader) record() ([]byte, int, error) {
 				return nil, 0, csvErr(lr.name, 0, err)
 			}
 			lr.rec = append(append(lr.rec, '\n'), more...)
+			if lr.maxRecord > 0 && len(lr.rec) > lr.maxRecord {
+				return nil, 0, &LimitError{File: lr.name, Line: start, Key: "line", Limit: int64(lr.maxRecord), What: fmt.Sprintf("a quoted field running past %d bytes from line %d", lr.maxRecord, start)}
+			}
+			odd = odd != (bytes.Count(more, []byte{'"'})%2 == 1)
 		}
 		return lr.rec, start, nil
 	}
+}
+
+// opensQuotedField reports whether a line with an odd number of quotes
+// ends inside a quoted field (one whose quote starts the field), as
+// encoding/csv reads it; otherwise its quotes are bare and the line is a
+// record of its own, which encoding/csv refuses.
+func opensQuotedField(line []byte, comma rune) bool {
+	cr := csv.NewReader(bytes.NewReader(line))
+	cr.Comma = comma
+	cr.FieldsPerRecord = -1
+	_, err := cr.Read()
+	var pe *csv.ParseError
+	return errors.As(err, &pe) && errors.Is(pe.Err, csv.ErrQuote)
 }
 
 // fields splits one record for the header.
@@ -120,6 +143,10 @@ func splitRecord(dst []string, rec []byte, comma rune, name string, line int) ([
 	if err != nil {
 		var pe *csv.ParseError
 		if errors.As(err, &pe) {
+			if pe.StartLine != pe.Line {
+				// a quoted field that runs on: name the line it opens on
+				return nil, &ParseError{File: name, Line: line + pe.StartLine - 1, Msg: fmt.Sprintf("%v (a quoted field opened on this line runs to line %d)", pe.Err, line+pe.Line-1)}
+			}
 			return nil, &ParseError{File: name, Line: line + pe.Line - 1, Column: pe.Column, Msg: pe.Err.Error()}
 		}
 		return nil, &ParseError{File: name, Line: line, Msg: err.Error()}

@@ -80,6 +80,9 @@ func TestBatchedCSVMatchesReference(t *testing.T) {
 			// skipped ones even when blank lines came between; the
 			// batched reader names the header's own line
 			header := strings.HasPrefix(werr.Error(), "data: f.csv:") && (strings.Contains(werr.Error(), ": no ") || strings.Contains(werr.Error(), "duplicate"))
+			// a quoted field that runs on is named at the line it opens
+			// on, where the reference named the line it failed on
+			header = header || strings.Contains(gerr.Error(), "runs to line")
 			if errors.As(werr, &wp) && errors.As(gerr, &gp) && !header {
 				require.Equal(t, wp.Line, gp.Line, "trial %d: %q\nreference: %v\nbatched:   %v", trial, text, werr, gerr)
 				if wp.Column > 0 && !strings.Contains(wp.Msg, "quote") {

@@ -108,9 +108,9 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 	} else {
 		// deflate expands at most 1032 to 1 (a 258-byte match per 2-bit
 		// code; zlib's technical notes, from memory), so a stream of
-		// known compressed size can
-		// justify at most that much: set it aside at once, and a small
-		// file that declares a large shape still costs little
+		// known compressed size can justify at most that much: set it
+		// aside at once, and a small file that declares a large shape
+		// still costs little
 		guess := int64(1 << 20)
 		if packed > 0 {
 			guess = max(guess, packed*maxInflate/int64(es))
@@ -126,6 +126,9 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 			if size >= 0 {
 				return nil, &ParseError{File: name, Msg: "idx values truncated: " + err.Error()}
 			}
+			if err != io.EOF && err != io.ErrUnexpectedEOF {
+				return nil, &ParseError{File: name, Msg: "reading idx values: " + err.Error()}
+			}
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, stream holds %d", dims, want, held)}
 		}
 		if len(out.Values)+int(n) > cap(out.Values) {
@@ -140,9 +143,16 @@ func ReadIDX(r io.Reader, name string, size int64, lim Limits) (*IDX, error) {
 		}
 	}
 	if size < 0 {
+		// the end of the stream: no more values, and for gzip its
+		// checksum and length verified (an error that may come only
+		// now, with the last values already read)
 		var one [1]byte
-		if k, _ := io.ReadFull(src, one[:]); k > 0 {
+		k, err := io.ReadFull(src, one[:])
+		if k > 0 {
 			return nil, &ParseError{File: name, Msg: fmt.Sprintf("idx header %v declares %d bytes of values, the stream holds more", dims, want)}
+		}
+		if err != io.EOF {
+			return nil, &ParseError{File: name, Msg: "reading idx values: " + err.Error()}
 		}
 	}
 	return out, nil

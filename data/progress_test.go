@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"strings"
 	"testing"
 
 	"github.com/quernlab/quern/data"
@@ -113,4 +114,52 @@ func TestIDXGzipAllocation(t *testing.T) {
 	runtime.ReadMemStats(&after)
 	require.Error(t, err)
 	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(64<<20), "a %d-byte file sets aside no more than its expansion could fill", z.Len())
+}
+
+// A gzip idx file whose checksum is wrong, or whose trailer is cut off,
+// is refused even though every declared value arrived.
+func TestIDXGzipTrailerChecked(t *testing.T) {
+	var raw bytes.Buffer
+	raw.Write([]byte{0, 0, 0x08, 1, 0, 0, 0, 100})
+	raw.Write(bytes.Repeat([]byte{3}, 100))
+	var z bytes.Buffer
+	zw := gzip.NewWriter(&z)
+	zw.Write(raw.Bytes())
+	require.NoError(t, zw.Close())
+	good := z.Bytes()
+	_, err := data.ReadIDX(bytes.NewReader(good), "ok.gz", int64(len(good)), data.Limits{})
+	require.NoError(t, err)
+	badCRC := append([]byte(nil), good...)
+	badCRC[len(badCRC)-8] ^= 0xff // the CRC-32 of the trailer (RFC 1952, 2.3.1)
+	_, err = data.ReadIDX(bytes.NewReader(badCRC), "crc.gz", int64(len(badCRC)), data.Limits{})
+	require.ErrorContains(t, err, "crc.gz")
+	cut := good[:len(good)-4]
+	_, err = data.ReadIDX(bytes.NewReader(cut), "cut.gz", int64(len(cut)), data.Limits{})
+	require.ErrorContains(t, err, "cut.gz")
+}
+
+// A stray quote (a bare one, as in 12" for inches) is reported at its own
+// line, however long the file goes on after it; an unterminated quoted
+// field is reported at the line it opens.
+func TestCSVStrayQuotes(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("a,b\n1,2\n3,12\"\n")
+	for i := 0; i < 50000; i++ {
+		b.WriteString("5,6\n")
+	}
+	_, err := data.ReadCSV(strings.NewReader(b.String()), "q.csv", data.CSVConfig{})
+	var pe *data.ParseError
+	require.ErrorAs(t, err, &pe)
+	require.Equal(t, 3, pe.Line, err.Error())
+	_, err = data.ReadCSV(strings.NewReader("a,b\n1,2\n3,\"open\n5,6\n7,8\n"), "o.csv", data.CSVConfig{})
+	require.ErrorAs(t, err, &pe)
+	require.Equal(t, 3, pe.Line, err.Error())
+	var long strings.Builder
+	long.WriteString("a,b\n1,\"open\n")
+	for i := 0; i < 3000; i++ {
+		long.WriteString("5,6\n")
+	}
+	_, err = data.ReadCSV(strings.NewReader(long.String()), "l.csv", data.CSVConfig{Limits: data.Limits{Line: 1024}})
+	var le *data.LimitError
+	require.ErrorAs(t, err, &le, "an open quoted field is bounded by the line limit")
 }

@@ -33,13 +33,14 @@ func (m *Model) bound32(x []float32, rows, samples int, seed, streamID uint64, i
 	jac := m.jacobian()
 	// per-column inverse variances and the constant part of the Gaussian
 	// log-density, log(2 pi) + log var, summed over columns
-	var inv []float32
+	// (in float64: a tiny variance's inverse overflows float32)
+	var inv []float64
 	var gaussConst float64
 	if m.cfg.Likelihood != Bernoulli {
-		inv = make([]float32, D)
+		inv = make([]float64, D)
 		for j := range inv {
 			lv := m.logVarAt(j)
-			inv[j] = float32(math.Exp(-lv))
+			inv[j] = math.Exp(-lv)
 			gaussConst += losses.Log2Pi + lv
 		}
 	}
@@ -126,11 +127,11 @@ func bceSum(w *work, o, y []float32) float64 {
 }
 
 // weightedSq is sum_j (x_j - o_j)^2 inv_j in float64.
-func weightedSq(o, x, inv []float32) float64 {
+func weightedSq(o, x []float32, inv []float64) float64 {
 	var s float64
 	for j := range o {
-		d := x[j] - o[j]
-		s += float64(d * d * inv[j])
+		d := float64(x[j]) - float64(o[j])
+		s += d * d * inv[j]
 	}
 	return s
 }

@@ -18,6 +18,7 @@ func cmdDemo(e *env, args []string) error {
 		return err
 	}
 	st := newStatus(e.stderr, *quiet)
+	defer st.end() // an error return leaves no phase drawn or ticking
 	cfg := demo.Config{Out: *out, Short: *short, Seed: *seed, Version: version(),
 		Callbacks: train.Callbacks{OnStep: st.step, OnEpoch: func(p train.Progress, h *train.History) error {
 			st.epoch(p, h)

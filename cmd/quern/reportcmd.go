@@ -134,7 +134,7 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 			return err
 		}
 		w := enc.CodeWidth()
-		caption := fmt.Sprintf("Codes of the first %d rows", n)
+		caption := fmt.Sprintf("Codes of %d rows of the data (a shuffled sample of the training rows when a validation split was made)", n)
 		if w > 2 {
 			caption += fmt.Sprintf(": on top, their projection on the first two principal components of all %d dimensions; below, each pair of the first %d dimensions", w, min(w, 4))
 		}

@@ -76,7 +76,7 @@ func (s *status) begin(name string, detail func() string) {
 func (s *status) tick(stop chan struct{}) {
 	period := 200 * time.Millisecond
 	if !s.tty {
-		period = s.every
+		period = max(s.every, period)
 	}
 	t := time.NewTicker(period)
 	defer t.Stop()

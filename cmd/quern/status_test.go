@@ -18,7 +18,7 @@ func TestStatusLines(t *testing.T) {
 	var b bytes.Buffer
 	st := newStatus(&b, false)
 	st.every = time.Nanosecond // every step prints a plain line (not a terminal)
-	st.begin("load", func() string { return "x.csv  50%" })
+	st.begin("load", nil)
 	st.end()
 	st.begin("train", nil)
 	st.step(train.Progress{Epoch: 2, Epochs: 5, Step: 3, Steps: 10, SamplesPerSec: 1.5e6, Remaining: 90 * time.Second,

@@ -154,6 +154,7 @@ func cmdTrain(e *env, args []string) error {
 		return err
 	}
 	st := newStatus(e.stderr, o.quiet)
+	defer st.end() // an error return leaves no phase drawn or ticking
 	full, format, err := o.data.load(st)
 	if err != nil {
 		return err
@@ -286,6 +287,7 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 		return err
 	}
 	st := newStatus(e.stderr, o.quiet)
+	defer st.end() // an error return leaves no phase drawn or ticking
 	full, format, err := d.load(st)
 	if err != nil {
 		return err

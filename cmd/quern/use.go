@@ -177,8 +177,12 @@ func inChunks[T any](st *status, name string, rows int, compute func(lo, hi int)
 	workers := max(1, runtime.GOMAXPROCS(0))
 	pending := make(chan chan result, 2*workers)
 	stop := make(chan struct{})
+	var running sync.WaitGroup
+	defer running.Wait() // no chunk outlives the call, even on an error
 	defer close(stop)
+	running.Add(1)
 	go func() {
+		defer running.Done()
 		defer close(pending)
 		sem := make(chan struct{}, workers)
 		for lo := 0; lo < rows; lo += chunkRows {
@@ -194,7 +198,9 @@ func inChunks[T any](st *status, name string, rows int, compute func(lo, hi int)
 			case <-stop:
 				return
 			}
+			running.Add(1)
 			go func(lo, hi int) {
+				defer running.Done()
 				defer func() { <-sem }()
 				v, err := compute(lo, hi)
 				ch <- result{v, err}
@@ -234,6 +240,7 @@ func cmdScore(e *env, args []string) error {
 		return usagef("-top %d: want 0 or more", *top)
 	}
 	st := newStatus(e.stderr, *quiet)
+	defer st.end() // an error return leaves no phase drawn or ticking
 	st.begin("open", nil)
 	l, sc, err := openAs[model.Scorer]("score", "a model with anomaly scores (an autoencoder or a VAE)",
 		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
@@ -325,6 +332,7 @@ func cmdEncode(e *env, args []string) error {
 		return err
 	}
 	st := newStatus(e.stderr, *quiet)
+	defer st.end() // an error return leaves no phase drawn or ticking
 	st.begin("open", nil)
 	l, enc, err := openAs[model.Encoder]("encode", "a model with codes (an autoencoder or a VAE)",
 		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
@@ -408,6 +416,7 @@ func cmdSample(e *env, args []string) error {
 		return usagef("-n must be in 1..1000000")
 	}
 	st := newStatus(e.stderr, *quiet)
+	defer st.end() // an error return leaves no phase drawn or ticking
 	st.begin("open", nil)
 	l, smp, err := openAs[model.Sampler]("sample", "a generative model (a VAE or a GAN)", map[string]string{"-out": *out, "-model": *modelPath})
 	if err != nil {

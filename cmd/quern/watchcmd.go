@@ -8,6 +8,7 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"time"
 
@@ -35,19 +36,25 @@ type live struct {
 }
 
 // watchAddr resolves -watch: a bare port or ":PORT" listens on loopback.
-func watchAddr(s string) string {
+func watchAddr(s string) (string, error) {
 	if !strings.Contains(s, ":") {
-		return "127.0.0.1:" + s
+		if _, err := strconv.ParseUint(s, 10, 16); err != nil {
+			return "", usagef("-watch %s: want HOST:PORT or a port number (a port alone listens on loopback)", s)
+		}
+		return "127.0.0.1:" + s, nil
 	}
 	if strings.HasPrefix(s, ":") {
-		return "127.0.0.1" + s
+		return "127.0.0.1" + s, nil
 	}
-	return s
+	return s, nil
 }
 
 // startLive starts the live page's server on addr and says where it is.
 func startLive(st *status, addr, title string) (*live, error) {
-	addr = watchAddr(addr)
+	addr, err := watchAddr(addr)
+	if err != nil {
+		return nil, err
+	}
 	ln, err := net.Listen("tcp", addr)
 	if err != nil {
 		return nil, fmt.Errorf("-watch %s: %v", addr, errors.Unwrap(err))
