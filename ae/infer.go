@@ -6,10 +6,12 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/layers"
-	"github.com/quernlab/quern/losses"
+
+	"github.com/chewxy/math32"
 )
 
 // work is one goroutine's scratch space for graph-free inference.
@@ -92,6 +94,17 @@ func (m *Model) finishOutput(out []float32) {
 // reconstructScaled returns the scaled input and the scaled-space
 // reconstruction (probabilities for BCE models), in w's buffers.
 func (m *Model) reconstructScaled(w *work, x []float32, rows int) (in, out []float32, err error) {
+	in, out, err = m.reconstructLogits(w, x, rows)
+	if err != nil {
+		return nil, nil, err
+	}
+	m.finishOutput(out)
+	return in, out, nil
+}
+
+// reconstructLogits is reconstructScaled without the output link: the
+// decoder's logits for BCE models (what the training loss reads).
+func (m *Model) reconstructLogits(w *work, x []float32, rows int) (in, out []float32, err error) {
 	in = m.scaled(w, x)
 	w.code32, err = layers.Run(m.Encoder, in, rows, &w.ws, w.code32)
 	if err != nil {
@@ -101,18 +114,27 @@ func (m *Model) reconstructScaled(w *work, x []float32, rows int) (in, out []flo
 	if err != nil {
 		return nil, nil, err
 	}
-	m.finishOutput(w.out32)
 	return in, w.out32, nil
 }
 
 // reconstructRows checks raw rows and reconstructs them (see
 // reconstructScaled) in a workspace the caller gives back to the pool.
 func (m *Model) reconstructRows(x []float32, rows int) (w *work, in, out []float32, err error) {
+	return m.reconstructRowsAs(x, rows, false)
+}
+
+// reconstructRowsAs is reconstructRows returning the logits of a BCE
+// model when logits is set.
+func (m *Model) reconstructRowsAs(x []float32, rows int, logits bool) (w *work, in, out []float32, err error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, nil, nil, err
 	}
 	w = m.pool.Get()
-	if in, out, err = m.reconstructScaled(w, x, rows); err != nil {
+	reconstruct := m.reconstructScaled
+	if logits {
+		reconstruct = m.reconstructLogits
+	}
+	if in, out, err = reconstruct(w, x, rows); err != nil {
 		m.pool.Put(w)
 		return nil, nil, nil, err
 	}
@@ -141,8 +163,9 @@ func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
 
 // Contributions returns, for each row and column, that column's
 // reconstruction error in scaled space: the squared error for MSE models,
-// the binary cross-entropy for BCE models. A row's score is the mean of
-// its row here.
+// the binary cross-entropy for BCE models (from the decoder's logits, as
+// the training loss has it, in float32: max(z,0) - z y + log(1+e^-|z|)).
+// A row's score is the mean of its row here.
 func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	return m.ContributionsInto(nil, x, rows)
 }
@@ -150,24 +173,32 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 // ContributionsInto is Contributions writing into dst (grown if too
 // short); no allocation in steady state for float32 models.
 func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float64, error) {
-	w, in, out, err := m.reconstructRows(x, rows)
+	w, in, out, err := m.reconstructRowsAs(x, rows, m.cfg.Loss == BCE)
 	if err != nil {
 		return nil, err
 	}
 	defer m.pool.Put(w)
 	dst = scratch.Grow(dst, len(in))
 	for i := range in {
-		dst[i] = m.elemError(float64(in[i]), float64(out[i]))
+		dst[i] = m.elemError(in[i], out[i])
 	}
 	return dst, nil
 }
 
-func (m *Model) elemError(target, out float64) float64 {
+// elemError is one value's reconstruction error: the squared error, or
+// for BCE models the binary cross-entropy of the target under the logit.
+func (m *Model) elemError(target, out float32) float64 {
 	if m.cfg.Loss == BCE {
-		return losses.BCEProbabilityElem(out, target)
+		return bceLogit(out, target)
 	}
-	d := target - out
+	d := float64(target) - float64(out)
 	return d * d
+}
+
+// bceLogit is the binary cross-entropy of target y under logit z, in
+// float32: max(z,0) - z y + log(1 + e^-|z|), finite for every finite z.
+func bceLogit(z, y float32) float64 {
+	return float64(max(z, 0) - z*y + vec.Log1pExpNeg32(math32.Abs(z)))
 }
 
 // RowErrors returns each row's reconstruction error (the mean of its
@@ -185,7 +216,7 @@ func (m *Model) RowScores(x []float32, rows int) ([]float64, error) {
 // returning it: with a dst of rows entries it allocates nothing in steady
 // state, for hot scoring paths.
 func (m *Model) RowErrorsInto(dst []float64, x []float32, rows int) ([]float64, error) {
-	w, in, out, err := m.reconstructRows(x, rows)
+	w, in, out, err := m.reconstructRowsAs(x, rows, m.cfg.Loss == BCE)
 	if err != nil {
 		return nil, err
 	}
@@ -196,7 +227,7 @@ func (m *Model) RowErrorsInto(dst []float64, x []float32, rows int) ([]float64, 
 		var t float64
 		if m.cfg.Loss == BCE {
 			for j := r * cols; j < (r+1)*cols; j++ {
-				t += m.elemError(float64(in[j]), float64(out[j]))
+				t += bceLogit(out[j], in[j])
 			}
 		} else {
 			a, o := in[r*cols:(r+1)*cols], out[r*cols:(r+1)*cols]
