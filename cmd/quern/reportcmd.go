@@ -244,6 +244,9 @@ func reportSettings(s train.Settings, rec runRecord) []report.Setting {
 	if s.Patience > 0 {
 		st = append(st, report.Setting{Name: "patience", Value: strconv.Itoa(s.Patience)})
 	}
+	if o := s.Optimizer; o.WeightDecay > 0 || o.ClipNorm > 0 {
+		st = append(st, report.Setting{Name: "optimiser", Value: fmt.Sprintf("Adam, beta1 %g, beta2 %g, weight decay %g, gradient clip %g", o.Beta1, o.Beta2, o.WeightDecay, o.ClipNorm)})
+	}
 	if b, err := json.Marshal(s.Objective); err == nil && string(b) != "{}" {
 		st = append(st, report.Setting{Name: "objective", Value: string(b)})
 	}

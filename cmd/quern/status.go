@@ -178,6 +178,15 @@ func (s *status) say(format string, a ...any) {
 	fmt.Fprintf(s.w, format+"\n", a...)
 }
 
+// warn prints a warning on a line of its own, with -quiet too: it says
+// something about the result, not about progress.
+func (s *status) warn(format string, a ...any) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	s.clearLocked()
+	fmt.Fprintf(s.w, format+"\n", a...)
+}
+
 // closing returns the phases' wall times as one line:
 //
 //	time: load 0.21s, train 3.1s, calibrate 0.05s, write 0.01s; 3.4s in all

@@ -157,3 +157,35 @@ func TestColumnsByName(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, string(s1), string(s4), "-columns maps the file's names to the model's")
 }
+
+// Training warns, with -quiet too, of too few rows, of columns that never
+// change and of a code as wide as the inputs; a sound run warns of none.
+func TestTrainWarnings(t *testing.T) {
+	dir := t.TempDir()
+	write := func(name string, rows int, constant bool) string {
+		var b strings.Builder
+		b.WriteString("a,b,c,d\n")
+		for i := 0; i < rows; i++ {
+			c := float64(i % 5)
+			if constant {
+				c = 3
+			}
+			fmt.Fprintf(&b, "%g,%g,%g,%g\n", math.Sin(float64(i)), math.Cos(float64(i)), c, float64(i%11))
+		}
+		p := filepath.Join(dir, name)
+		require.NoError(t, os.WriteFile(p, []byte(b.String()), 0o644))
+		return p
+	}
+	r := ok(t, quern(t, dir, nil, "train", "-data", write("small.csv", 20, true), "-out", "s.qm", "-epochs", "1", "-quiet"))
+	require.Contains(t, r.stderr, "warning: 18 training rows: too few to learn from")
+	require.Contains(t, r.stderr, "warning: c never changes")
+	require.Contains(t, r.stderr, "warning: the code is 8 wide for 4 input columns")
+	r = ok(t, quern(t, dir, nil, "train", "-data", write("ok.csv", 2000, false), "-out", "o.qm", "-epochs", "1", "-latent", "2", "-hidden", "3", "-quiet",
+		"-weight-decay", "1e-4", "-clip", "5", "-adam-beta1", "0.8"))
+	require.NotContains(t, r.stderr, "warning")
+	r = ok(t, quern(t, dir, nil, "inspect", "o.qm"))
+	require.Contains(t, r.stdout, `"beta1":0.8,"beta2":0.999,"weight_decay":0.0001,"clip_norm":5`, "the optimiser flags reach the run")
+	r = quern(t, dir, nil, "train", "-data", "ok.csv", "-out", "x.qm", "-adam-beta2", "1")
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, "-adam-beta2 1: want a decay in [0, 1)")
+}

@@ -36,6 +36,10 @@ type trainOpts struct {
 	epochs     int
 	batch      int
 	rate       float64
+	decay      float64
+	beta1      float64
+	beta2      float64
+	clip       float64
 	seed       uint64
 	val        float64
 	patience   int
@@ -73,6 +77,10 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.IntVar(&o.epochs, "epochs", 20, "training epochs (when resuming: the run's new total)")
 	fs.IntVar(&o.batch, "batch", 64, "mini-batch size")
 	fs.Float64Var(&o.rate, "rate", 0, "learning rate (default: the model kind's)")
+	fs.Float64Var(&o.decay, "weight-decay", 0, "decoupled weight decay of the Adam updates (AdamW; 0: none)")
+	fs.Float64Var(&o.beta1, "adam-beta1", 0, "Adam's first-moment decay in [0, 1) (default 0.9)")
+	fs.Float64Var(&o.beta2, "adam-beta2", 0, "Adam's second-moment decay in [0, 1) (default 0.999)")
+	fs.Float64Var(&o.clip, "clip", 0, "clip the gradients to this global norm (0: no clipping)")
 	fs.Uint64Var(&o.seed, "seed", 1, "random seed: same seed, same data, same model")
 	fs.Float64Var(&o.val, "val", 0.1, "fraction of rows held out for validation (and, for ae and vae, threshold calibration)")
 	fs.IntVar(&o.patience, "patience", 0, "stop after this many epochs without validation improvement (0: never)")
@@ -164,7 +172,11 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	s := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Optimizer: train.Optimizer{Rate: o.rate}, Objective: obj}
+	for _, w := range trainWarnings(m, full, o.val) {
+		st.warn("%s", w)
+	}
+	s := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Objective: obj,
+		Optimizer: train.Optimizer{Rate: o.rate, WeightDecay: o.decay, Beta1: o.beta1, Beta2: o.beta2, ClipNorm: o.clip}}
 	if s.Patience > 0 && o.val == 0 {
 		return usagef("-patience needs a validation split (-val > 0)")
 	}
@@ -203,6 +215,14 @@ func (o *trainOpts) checkNumbers() error {
 		return usagef("-disc-steps %d: want at least 1 (or 0 for the default)", o.discSteps)
 	case o.pack < 0:
 		return usagef("-pack %d: want at least 1 (or 0 for the default)", o.pack)
+	case o.decay < 0 || math.IsNaN(o.decay) || math.IsInf(o.decay, 0):
+		return usagef("-weight-decay %v: want 0 (none) or a small positive number such as 1e-4", o.decay)
+	case !(o.beta1 >= 0 && o.beta1 < 1):
+		return usagef("-adam-beta1 %v: want a decay in [0, 1) (0: the default 0.9)", o.beta1)
+	case !(o.beta2 >= 0 && o.beta2 < 1):
+		return usagef("-adam-beta2 %v: want a decay in [0, 1) (0: the default 0.999)", o.beta2)
+	case o.clip < 0 || math.IsNaN(o.clip) || math.IsInf(o.clip, 0):
+		return usagef("-clip %v: want 0 (no clipping) or a positive gradient norm", o.clip)
 	case !(o.falseAlarm > 0 && o.falseAlarm < 1):
 		return usagef("-false-alarm %v: want a rate between 0 and 1, such as 0.01", o.falseAlarm)
 	}
@@ -364,7 +384,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		return nil
 	}
 	s.OnWarning = func(w train.Warning) {
-		st.say("warning at step %d: %s", w.Step, w.Message)
+		st.warn("warning at step %d: %s", w.Step, w.Message)
 	}
 	t.SetCallbacks(s)
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
@@ -384,7 +404,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		st.begin("calibrate", func() string { return fmt.Sprintf("%d validation rows", valSet.Rows) })
 		got, err := c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(rec.Threshold), FalseAlarm: rec.FalseAlarm})
 		if err != nil && rec.Threshold == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
-			st.say("%v; using the largest validation score instead", err)
+			st.warn("warning: %v; using the largest validation score instead", err)
 			got, err = c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
 		}
 		st.end()
@@ -667,4 +687,53 @@ func writeCheckpoint(path string, f *modelfile.File, n int) error {
 		os.Exit(3)
 	}
 	return modelfile.Write(path, f)
+}
+
+// minRows is the fewest training rows quern trains on without a warning
+// (common practice, no source: below a few dozen rows neither the
+// scaler's statistics nor the threshold's quantile mean much).
+const minRows = 50
+
+// trainWarnings names what about the data and the model's shape makes a
+// poor model likely: too few rows (fewer than minRows, or than the
+// model's parameters), columns that never change, and a code as wide as
+// the inputs (an autoencoder that can copy its input).
+func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
+	var out []string
+	rows := d.Rows - int(math.Round(val*float64(d.Rows)))
+	params := 0
+	if p, ok := m.(interface{ Params() []*layers.Param }); ok {
+		for _, x := range p.Params() {
+			params += x.Len()
+		}
+	}
+	switch {
+	case rows < minRows:
+		out = append(out, fmt.Sprintf("warning: %d training rows: too few to learn from (fewer than %d); expect scores that mean little", rows, minRows))
+	case params > 0 && rows < params && d.Image == nil:
+		out = append(out, fmt.Sprintf("warning: %d training rows for %d parameters: the model can memorise the rows; consider narrower -hidden and -latent", rows, params))
+	}
+	if d.Image == nil && d.Rows > 1 {
+		var constant []string
+		for j := 0; j < d.Cols; j++ {
+			first, same := d.X[j], true
+			for r := 1; r < d.Rows && same; r++ {
+				same = d.X[r*d.Cols+j] == first
+			}
+			if same {
+				name := fmt.Sprintf("column %d", j+1)
+				if j < len(d.Columns) && d.Columns[j] != "" {
+					name = d.Columns[j]
+				}
+				constant = append(constant, name)
+			}
+		}
+		if len(constant) > 0 {
+			out = append(out, fmt.Sprintf("warning: %s never change%s: no information to learn (leave them out with -columns)", strings.Join(constant, ", "), map[bool]string{true: "s", false: ""}[len(constant) == 1]))
+		}
+	}
+	if e, ok := m.(model.Encoder); ok && e.CodeWidth() >= d.Cols {
+		out = append(out, fmt.Sprintf("warning: the code is %d wide for %d input columns: it can pass the input through unchanged, so reconstruction errors say little; give -latent below %d", e.CodeWidth(), d.Cols, d.Cols))
+	}
+	return out
 }
