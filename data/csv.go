@@ -56,6 +56,10 @@ type CSVConfig struct {
 	// Label names the column holding integer class labels; an empty cell
 	// there marks the row unlabelled. Empty means no labels.
 	Label string
+	// Keep names columns whose text is kept, as it is, in
+	// Dataset.Kept (for passing through to an output); they may also be
+	// features. Nil keeps none.
+	Keep []string
 	// Comma is the field separator; default ','.
 	Comma rune
 	// Limits caps the file's size, line length, rows and columns.
@@ -205,10 +209,19 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	for _, i := range sel {
 		d.Columns = append(d.Columns, header[i])
 	}
+	var keep []int
+	for _, c := range cfg.Keep {
+		i, ok := index[c]
+		if !ok {
+			return nil, &ParseError{File: name, Line: firstLine, Msg: fmt.Sprintf("the column %q to keep is not in the header (columns: %s)", c, strings.Join(header, ", "))}
+		}
+		keep = append(keep, i)
+		d.KeptColumns = append(d.KeptColumns, header[i])
+	}
 	if label >= 0 {
 		d.Labels = []int{}
 	}
-	p := &rowParser{name: name, header: header, sel: sel, label: label, width: width, lr: lr, size: size}
+	p := &rowParser{name: name, header: header, sel: sel, keep: keep, label: label, width: width, lr: lr, size: size}
 	var pending *csvBatch
 	if cfg.NoHeader {
 		// the first record is a row

@@ -162,6 +162,7 @@ type csvBatch struct {
 	// results
 	x        []float32
 	labels   []int
+	kept     []string
 	rowLines []int // the line of each parsed row
 	err      error
 }
@@ -186,6 +187,7 @@ type rowParser struct {
 	name   string
 	header []string
 	sel    []int
+	keep   []int
 	label  int
 	width  int
 	lr     *lineReader
@@ -245,6 +247,9 @@ func (p *rowParser) parse(b *csvBatch) {
 				b.labels = append(b.labels, v)
 			}
 		}
+		for _, i := range p.keep {
+			b.kept = append(b.kept, strings.Clone(fields[i])) // fields view the batch
+		}
 		b.rowLines = append(b.rowLines, line)
 	}
 }
@@ -293,6 +298,7 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 		if d.Labels != nil {
 			d.Labels = append(d.Labels, b.labels...)
 		}
+		d.Kept = append(d.Kept, b.kept...)
 		d.Rows += n
 		return b.err
 	}

@@ -29,6 +29,12 @@ type Dataset struct {
 	// Image is the height, width and channels of image rows (nil for
 	// tabular data); Cols = H*W*C with channels interleaved.
 	Image []int
+	// Kept holds, for a CSV file read with CSVConfig.Keep, the text of
+	// those columns, row by row (Rows x len(KeptColumns) cells), to be
+	// passed through to an output beside each row (an identifier, a
+	// timestamp). Split, SplitInPlace and Subset leave it behind.
+	Kept        []string
+	KeptColumns []string
 }
 
 // New wraps x (rows x cols, row-major) in a Dataset, checking the length and

@@ -23,6 +23,7 @@ type dataFlags struct {
 	skip     int
 	grey     bool
 	limits   limitFlag
+	keep     string // CSV columns kept as text (score's -keep)
 }
 
 func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
@@ -159,7 +160,7 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 		return nil, "", fmt.Errorf("cannot read data: %w", err)
 	}
 	cfg := data.LoadConfig{
-		CSV:    data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label},
+		CSV:    data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep)},
 		IDX:    data.IDXConfig{Labels: d.labels},
 		Images: data.ImageConfig{Grey: d.grey},
 		Limits: d.limits.l,
@@ -179,6 +180,9 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 	var le *data.LimitError
 	if errors.As(err, &le) {
 		return nil, "", fmt.Errorf("%w (raise it with -limit %s=N)", err, le.Key)
+	}
+	if err == nil && d.keep != "" && f != data.FormatCSV {
+		return nil, "", usagef("-keep applies to CSV files; %s is %s", d.path, f)
 	}
 	return ds, f, err
 }

@@ -189,3 +189,30 @@ func TestTrainWarnings(t *testing.T) {
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, "-adam-beta2 1: want a decay in [0, 1)")
 }
+
+// score -keep copies columns, as they are, beside each row's score; a
+// column the file lacks, or -keep on an idx file, is an error naming it.
+func TestScoreKeepsColumns(t *testing.T) {
+	dir := t.TempDir()
+	var b strings.Builder
+	b.WriteString("id,a,b,c,when\n")
+	for i := 0; i < 300; i++ {
+		fmt.Fprintf(&b, "dev-%03d,%g,%g,%d,\"2026-12-02 10:%02d\"\n", i, math.Sin(float64(i)), math.Cos(float64(i)), i%7, i%60)
+	}
+	p := filepath.Join(dir, "rows.csv")
+	require.NoError(t, os.WriteFile(p, []byte(b.String()), 0o644))
+	ok(t, quern(t, dir, nil, "train", "-data", p, "-columns", "a,b,c", "-out", "m.qm", "-epochs", "1", "-latent", "2", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", p, "-keep", "id,when", "-out", "s.csv", "-quiet"))
+	out, err := os.ReadFile(filepath.Join(dir, "s.csv"))
+	require.NoError(t, err)
+	lines := strings.Split(strings.TrimSpace(string(out)), "\n")
+	require.Len(t, lines, 301)
+	require.True(t, strings.HasPrefix(lines[0], "row,id,when,score,threshold,anomaly,"), lines[0])
+	require.True(t, strings.HasPrefix(lines[1], "1,dev-000,2026-12-02 10:00,"), lines[1])
+	require.True(t, strings.HasPrefix(lines[300], "300,dev-299,2026-12-02 10:59,"), lines[300])
+	r := quern(t, dir, nil, "score", "-model", "m.qm", "-data", p, "-keep", "site", "-out", "s2.csv")
+	require.Equal(t, 1, r.code)
+	require.Contains(t, r.stderr, `the column "site" to keep is not in the header`)
+	r = quern(t, dir, nil, "score", "-model", "m.qm", "-data", fmImages, "-keep", "id", "-out", "s3.csv")
+	require.NotEqual(t, 0, r.code)
+}

@@ -232,6 +232,7 @@ func cmdScore(e *env, args []string) error {
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
 	top := fs.Int("top", 3, "contributing features to list per row")
+	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
@@ -267,7 +268,8 @@ func cmdScore(e *env, args []string) error {
 		return err
 	}
 	cw := csv.NewWriter(w)
-	header := []string{"row", "score", "threshold", "anomaly"}
+	header := append(append([]string{"row"}, ds.KeptColumns...), "score", "threshold", "anomaly")
+	nk := len(ds.KeptColumns)
 	for k := 1; k <= *top; k++ {
 		header = append(header, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k))
 	}
@@ -278,7 +280,9 @@ func cmdScore(e *env, args []string) error {
 		return sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
 	}, func(lo, hi int, scores []anomaly.Score) error {
 		for i, s := range scores {
-			rec = append(rec[:0], strconv.Itoa(lo+i+1), strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
+			rec = append(rec[:0], strconv.Itoa(lo+i+1))
+			rec = append(rec, ds.Kept[(lo+i)*nk:(lo+i+1)*nk]...)
+			rec = append(rec, strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			for k := 0; k < *top; k++ {
 				if k >= len(s.Top) {
 					rec = append(rec, "", "")
