@@ -281,10 +281,11 @@ func jsonProblem(err error) string {
 	switch {
 	case errors.As(err, &te):
 		want := map[string]string{
-			"rows": "an array of rows, each an array of numbers",
-			"top":  "a whole number",
-			"n":    "a whole number",
-			"seed": "a whole number, 0 or more",
+			"rows":    "an array of rows, each an array of numbers",
+			"records": "an array of objects keyed by the model's column names",
+			"top":     "a whole number",
+			"n":       "a whole number",
+			"seed":    "a whole number, 0 or more",
 		}[te.Field]
 		if want == "" {
 			want = "a value of another type"
@@ -331,15 +332,55 @@ func decodeJSON(w http.ResponseWriter, r *http.Request, v any) bool {
 // rowsRequest is the body of score, encode and reconstruct.
 type rowsRequest struct {
 	Rows [][]*float64 `json:"rows"`
-	Top  int          `json:"top,omitempty"`
+	// Records are rows as objects keyed by the model's column names, in
+	// any order; other keys are ignored. A request sends rows or records.
+	Records []map[string]json.RawMessage `json:"records"`
+	Top     int                          `json:"top,omitempty"`
 }
 
 // decodeRows reads and checks a rows request: every row cols numbers,
 // none null, at most MaxRows rows.
-func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int) (*rowsRequest, []float32, bool) {
+func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, names []string) (*rowsRequest, []float32, bool) {
 	var req rowsRequest
 	if !decodeJSON(w, r, &req) {
 		return nil, nil, false
+	}
+	if req.Records != nil {
+		if req.Rows != nil {
+			writeError(w, http.StatusBadRequest, "send \"rows\" or \"records\", not both")
+			return nil, nil, false
+		}
+		if len(names) != cols {
+			writeError(w, http.StatusBadRequest, "the served model's columns have no names: send \"rows\" (arrays of %d numbers)", cols)
+			return nil, nil, false
+		}
+		if len(req.Records) > s.cfg.MaxRows {
+			writeError(w, http.StatusRequestEntityTooLarge, "%d records, the limit is %d", len(req.Records), s.cfg.MaxRows)
+			return nil, nil, false
+		}
+		// records become rows in the model's column order
+		req.Rows = make([][]*float64, len(req.Records))
+		for i, rec := range req.Records {
+			row := make([]*float64, cols)
+			for j, name := range names {
+				raw, ok := rec[name]
+				if !ok {
+					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s)", i+1, name, strings.Join(names, ", "))
+					return nil, nil, false
+				}
+				var v *float64
+				if err := json.Unmarshal(raw, &v); err != nil {
+					writeError(w, http.StatusBadRequest, "record %d: %q is %s, not a number", i+1, name, raw)
+					return nil, nil, false
+				}
+				if v == nil {
+					writeError(w, http.StatusBadRequest, "record %d: %q is null", i+1, name)
+					return nil, nil, false
+				}
+				row[j] = v
+			}
+			req.Rows[i] = row
+		}
 	}
 	if len(req.Rows) == 0 {
 		writeError(w, http.StatusBadRequest, "\"rows\" is empty")
@@ -394,10 +435,20 @@ func capability[C any](w http.ResponseWriter, m *Loaded, what, needs string) (C,
 	return c, ok
 }
 
+// namedColumns returns a model's column names when they are names a
+// client could send (a model trained on a file without a header has only
+// c0, c1, ...), else nil.
+func namedColumns(cols []string) []string {
+	if len(cols) == 0 || cols[0] == "" || cols[0] == "c0" {
+		return nil
+	}
+	return cols
+}
+
 // answerRows decodes a rows request for the served model, runs f on its
 // rows and answers with f's result as JSON, or 400 with f's error.
 func (s *Server) answerRows(w http.ResponseWriter, r *http.Request, m *Loaded, f func(x []float32, n int, req *rowsRequest) (any, error)) {
-	req, x, ok := s.decodeRows(w, r, m.Model.Width())
+	req, x, ok := s.decodeRows(w, r, m.Model.Width(), namedColumns(m.Model.Schema().Columns))
 	if !ok {
 		return
 	}

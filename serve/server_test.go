@@ -392,3 +392,59 @@ func TestServerLinksNoGraphLibrary(t *testing.T) {
 		require.NotContains(t, p, "quern/optim")
 	}
 }
+
+// Rows may come as records keyed by the model's column names, in any
+// order and with extra keys: the same scores as the arrays; a missing
+// name, a null, both forms at once, and records for a model whose columns
+// have no names are 400s naming the problem.
+func TestRecordsByColumnName(t *testing.T) {
+	dir := t.TempDir()
+	shared := *breastCancer(t) // a copy: the loaded set is shared between tests
+	d := &shared
+	names := make([]string, 30)
+	for j := range names {
+		names[j] = fmt.Sprintf("f%02d", j)
+	}
+	d.Columns = names
+	m, err := ae.New(ae.Config{Inputs: 30, Hidden: []int{16}, Latent: 4, Seed: 3})
+	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 2})
+	_, err = m.Calibrate(d.X, d.Rows, anomaly.Config{FalseAlarm: 0.05})
+	require.NoError(t, err)
+	path := filepath.Join(dir, "named.qm")
+	require.NoError(t, m.Save(path, nil))
+	l := start(t, Config{ModelPath: path})
+	c := &http.Client{Timeout: 5 * time.Second}
+	code, arrays := post(t, c, l.url+"/v1/score", rowsBody(d, 0, 2))
+	require.Equal(t, 200, code)
+	var recs []map[string]any
+	for r := 0; r < 2; r++ {
+		rec := map[string]any{"device": "pump-7"}
+		for j := 29; j >= 0; j-- { // reverse order: keys are names, not places
+			rec[names[j]] = d.X[r*30+j]
+		}
+		recs = append(recs, rec)
+	}
+	body, _ := json.Marshal(map[string]any{"records": recs})
+	code, byName := post(t, c, l.url+"/v1/score", body)
+	require.Equal(t, 200, code, "%v", byName)
+	require.Equal(t, arrays["results"], byName["results"])
+	delete(recs[1], "f07")
+	body, _ = json.Marshal(map[string]any{"records": recs})
+	code, v := post(t, c, l.url+"/v1/score", body)
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], `record 2 has no "f07"`)
+	code, v = post(t, c, l.url+"/v1/score", []byte(`{"rows": [], "records": []}`))
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], "not both")
+	code, v = post(t, c, l.url+"/v1/score", []byte(`{"records": [{"f00": null}]}`))
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], "record 1")
+
+	plain := filepath.Join(dir, "plain.qm")
+	writeAE(t, plain, 1)
+	l2 := start(t, Config{ModelPath: plain})
+	code, v = post(t, c, l2.url+"/v1/score", []byte(`{"records": [{"c0": 1}]}`))
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], "columns have no names")
+}
