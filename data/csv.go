@@ -60,7 +60,10 @@ type CSVConfig struct {
 	// Dataset.Kept (for passing through to an output); they may also be
 	// features. Nil keeps none.
 	Keep []string
-	// Comma is the field separator; default ','.
+	// Comma is the field separator; 0 finds it from the first line read
+	// (the header, or the first row without one): whichever of comma,
+	// semicolon, tab and vertical bar occurs most often outside quotes,
+	// comma when none does.
 	Comma rune
 	// Limits caps the file's size, line length, rows and columns.
 	Limits Limits
@@ -100,6 +103,39 @@ func maybeGzip(r io.Reader) (io.Reader, bool, error) {
 		return zr, true, err
 	}
 	return br, false, nil
+}
+
+// ReadCSVStream is ReadCSV on a stream that may be gzip-compressed (told
+// apart by content), such as standard input.
+func ReadCSVStream(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
+	zr, _, err := maybeGzip(r)
+	if err != nil {
+		return nil, &ParseError{File: name, Msg: err.Error()}
+	}
+	return readCSV(zr, name, cfg, -1)
+}
+
+// sniffSeparator picks a line's field separator: the most frequent of
+// comma, semicolon, tab and vertical bar outside double quotes, comma on
+// a tie or when none occurs.
+func sniffSeparator(line []byte) rune {
+	counts := map[byte]int{}
+	quoted := false
+	for _, c := range line {
+		switch {
+		case c == '"':
+			quoted = !quoted
+		case !quoted && (c == ',' || c == ';' || c == '\t' || c == '|'):
+			counts[c]++
+		}
+	}
+	best := byte(',')
+	for _, c := range []byte{';', '\t', '|'} {
+		if counts[c] > counts[best] {
+			best = c
+		}
+	}
+	return rune(best)
 }
 
 // ReadCSV is LoadCSV on a reader; name is used in errors.
@@ -142,6 +178,9 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	}
 	if err != nil {
 		return nil, err
+	}
+	if cfg.Comma == 0 {
+		lr.comma = sniffSeparator(first)
 	}
 	if cfg.SkipLines == 0 {
 		// a byte-order mark is no part of the first field

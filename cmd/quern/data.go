@@ -24,10 +24,11 @@ type dataFlags struct {
 	grey     bool
 	limits   limitFlag
 	keep     string // CSV columns kept as text (score's -keep)
+	delim    string
 }
 
 func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
-	what := "input data: a CSV file (plain or gzip), an idx file (raw or gzip) or a folder of PNG images, told apart by content"
+	what := "input data: a CSV file (plain or gzip; - reads standard input), an idx file (raw or gzip) or a folder of PNG images, told apart by content"
 	if required {
 		what += " (required)"
 	}
@@ -37,6 +38,7 @@ func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
 	fs.StringVar(&d.columns, "columns", "", "comma-separated CSV feature columns (default: all but the label)")
 	fs.BoolVar(&d.noHeader, "no-header", false, "the CSV file has no header line (columns are then named c0, c1, ...)")
 	fs.IntVar(&d.skip, "skip", 0, "CSV lines to skip before the header")
+	fs.StringVar(&d.delim, "delimiter", "", "CSV field separator: a character, or tab (default: found from the first line among , ; tab and |)")
 	fs.BoolVar(&d.grey, "grey", false, "read PNG images as one grey channel")
 	fs.Var(&d.limits, "limit", fmt.Sprintf("raise (or lower) a cap on the input, `KEY=N` with N a count or bytes (suffixes K, M, G, T: powers of 1024); repeatable. Keys and defaults: bytes=%s (after decompression), line=%s (one CSV line), rows=%d, columns=%d (per row), values=%d (rows x columns), pixels=%d (per image), images=%d",
 		sizeString(data.DefaultBytes), sizeString(data.DefaultLine), data.DefaultRows, data.DefaultColumns, data.DefaultValues, data.DefaultPixels, data.DefaultImages))
@@ -121,22 +123,39 @@ type dataSpec struct {
 	Skip     int    `json:"skip,omitempty"`
 	Grey     bool   `json:"grey,omitempty"`
 	Limits   string `json:"limits,omitempty"`
+	Delim    string `json:"delimiter,omitempty"`
 }
 
 func (d *dataFlags) spec() dataSpec {
-	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey, Limits: d.limits.String()}
+	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey, Limits: d.limits.String(), Delim: d.delim}
 }
 
 // flags turns a recorded spec back into flags; limits that no longer
 // parse (a file edited by hand) are an error naming them.
 func (s dataSpec) flags() (dataFlags, error) {
-	d := dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey}
+	d := dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey, delim: s.Delim}
 	if s.Limits != "" {
 		if err := d.limits.Set(s.Limits); err != nil {
 			return d, fmt.Errorf("the recorded -limit %q: %v", s.Limits, err)
 		}
 	}
 	return d, nil
+}
+
+// separator reads -delimiter: one character, or "tab"; 0 (find it) when
+// empty.
+func (d *dataFlags) separator() (rune, error) {
+	switch d.delim {
+	case "":
+		return 0, nil
+	case "tab", `\t`:
+		return '\t', nil
+	}
+	r := []rune(d.delim)
+	if len(r) != 1 || r[0] == '"' || r[0] == '\n' || r[0] == '\r' {
+		return 0, usagef("-delimiter %q: want one character (such as ; or |) or tab", d.delim)
+	}
+	return r[0], nil
 }
 
 func splitList(s string) []string {
@@ -156,11 +175,29 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 	if d.path == "" {
 		return nil, "", usagef("-data is required")
 	}
+	comma, err := d.separator()
+	if err != nil {
+		return nil, "", err
+	}
+	csvCfg := data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep), Comma: comma, Limits: d.limits.l}
+	if d.path == "-" {
+		// standard input: CSV, plain or gzip
+		if st != nil {
+			st.begin("load", func() string { return "standard input" })
+			defer st.end()
+		}
+		ds, err := data.ReadCSVStream(os.Stdin, "standard input", csvCfg)
+		var le *data.LimitError
+		if errors.As(err, &le) {
+			return nil, "", fmt.Errorf("%w (raise it with -limit %s=N)", err, le.Key)
+		}
+		return ds, data.FormatCSV, err
+	}
 	if _, err := os.Stat(d.path); err != nil {
 		return nil, "", fmt.Errorf("cannot read data: %w", err)
 	}
 	cfg := data.LoadConfig{
-		CSV:    data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep)},
+		CSV:    csvCfg,
 		IDX:    data.IDXConfig{Labels: d.labels},
 		Images: data.ImageConfig{Grey: d.grey},
 		Limits: d.limits.l,
@@ -194,7 +231,7 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 // position of columns that may mean something else.
 func (d *dataFlags) loadFor(columns []string, cols int, st *status) (*data.Dataset, error) {
 	if d.columns == "" && !d.noHeader && len(columns) == cols && columns[0] != "" && columns[0] != "c0" {
-		if f, err := data.Detect(d.path); err == nil && f == data.FormatCSV {
+		if f, err := data.Detect(d.path); d.path == "-" || (err == nil && f == data.FormatCSV) {
 			saved := d.columns
 			d.columns = strings.Join(columns, ",")
 			ds, _, err := d.load(st)

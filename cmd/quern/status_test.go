@@ -2,9 +2,11 @@ package main
 
 import (
 	"bytes"
+	"compress/gzip"
 	"fmt"
 	"math"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -215,4 +217,48 @@ func TestScoreKeepsColumns(t *testing.T) {
 	require.Contains(t, r.stderr, `the column "site" to keep is not in the header`)
 	r = quern(t, dir, nil, "score", "-model", "m.qm", "-data", fmImages, "-keep", "id", "-out", "s3.csv")
 	require.NotEqual(t, 0, r.code)
+}
+
+// A semicolon- or tab-separated file is read as such without a flag, a
+// gzip CSV on standard input (-data -) scores like the file, and
+// -delimiter takes one character or tab.
+func TestDialectsAndStandardInput(t *testing.T) {
+	dir := t.TempDir()
+	var comma, semi, tab strings.Builder
+	for _, b := range []*strings.Builder{&comma, &semi, &tab} {
+		b.WriteString("a,b,c\n")
+	}
+	for i := 0; i < 400; i++ {
+		fmt.Fprintf(&comma, "%g,%g,%d\n", math.Sin(float64(i)), math.Cos(float64(i)), i%5)
+	}
+	semi.Reset()
+	tab.Reset()
+	semi.WriteString(strings.ReplaceAll(comma.String(), ",", ";"))
+	tab.WriteString(strings.ReplaceAll(comma.String(), ",", "\t"))
+	for name, text := range map[string]string{"c.csv": comma.String(), "s.csv": semi.String(), "t.tsv": tab.String()} {
+		require.NoError(t, os.WriteFile(filepath.Join(dir, name), []byte(text), 0o644))
+	}
+	ok(t, quern(t, dir, nil, "train", "-data", "c.csv", "-out", "m.qm", "-epochs", "1", "-latent", "2", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", "c.csv", "-out", "ref.csv", "-quiet"))
+	want, err := os.ReadFile(filepath.Join(dir, "ref.csv"))
+	require.NoError(t, err)
+	for _, f := range []string{"s.csv", "t.tsv"} {
+		ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", f, "-out", "got.csv", "-quiet"))
+		got, err := os.ReadFile(filepath.Join(dir, "got.csv"))
+		require.NoError(t, err)
+		require.Equal(t, string(want), string(got), f)
+	}
+	var z bytes.Buffer
+	zw := gzip.NewWriter(&z)
+	zw.Write([]byte(comma.String()))
+	require.NoError(t, zw.Close())
+	cmd := exec.Command(bin, "score", "-model", "m.qm", "-data", "-", "-out", "-", "-quiet")
+	cmd.Dir = dir
+	cmd.Stdin = &z
+	got, err := cmd.Output()
+	require.NoError(t, err)
+	require.Equal(t, string(want), string(got), "gzip CSV on standard input")
+	r := quern(t, dir, nil, "score", "-model", "m.qm", "-data", "s.csv", "-delimiter", ";;", "-out", "x.csv")
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, `-delimiter ";;": want one character`)
 }
