@@ -93,19 +93,32 @@ func (d *Dataset) Subset(idx []int) *Dataset {
 // when 0 < valFrac < 1 and Rows >= 2). valFrac 0 returns the whole set as
 // training and a nil validation set.
 func (d *Dataset) Split(valFrac float64, rng *rand.Rand) (train, val *Dataset, err error) {
-	if !(valFrac >= 0 && valFrac < 1) {
-		return nil, nil, fmt.Errorf("%w: validation fraction %v outside [0, 1)", ErrConfig, valFrac)
+	perm, nv, err := d.splitPerm(valFrac, rng)
+	if err != nil {
+		return nil, nil, err
 	}
-	if valFrac == 0 {
+	if perm == nil {
 		return d, nil, nil
 	}
-	if d.Rows < 2 {
-		return nil, nil, fmt.Errorf("data: cannot split %d rows", d.Rows)
-	}
-	nv := int(math.Round(valFrac * float64(d.Rows)))
-	nv = min(max(nv, 1), d.Rows-1)
-	perm := rng.Perm(d.Rows)
 	return d.Subset(perm[nv:]), d.Subset(perm[:nv]), nil
+}
+
+// splitPerm checks a validation fraction and draws Split's permutation:
+// the first nv rows of perm are the validation part. A nil perm with no
+// error means no split (valFrac 0).
+func (d *Dataset) splitPerm(valFrac float64, rng *rand.Rand) (perm []int, nv int, err error) {
+	if !(valFrac >= 0 && valFrac < 1) {
+		return nil, 0, fmt.Errorf("%w: validation fraction %v outside [0, 1)", ErrConfig, valFrac)
+	}
+	if valFrac == 0 {
+		return nil, 0, nil
+	}
+	if d.Rows < 2 {
+		return nil, 0, fmt.Errorf("data: cannot split %d rows", d.Rows)
+	}
+	nv = int(math.Round(valFrac * float64(d.Rows)))
+	nv = min(max(nv, 1), d.Rows-1)
+	return rng.Perm(d.Rows), nv, nil
 }
 
 // SplitInPlace is Split without the copies: it reorders d's rows (and
@@ -115,18 +128,13 @@ func (d *Dataset) Split(valFrac float64, rng *rand.Rand) (train, val *Dataset, e
 // is left shuffled. It needs one row of extra memory and, per row, an int
 // of the permutation and a bool (17 bytes a row on 64-bit machines).
 func (d *Dataset) SplitInPlace(valFrac float64, rng *rand.Rand) (train, val *Dataset, err error) {
-	if !(valFrac >= 0 && valFrac < 1) {
-		return nil, nil, fmt.Errorf("%w: validation fraction %v outside [0, 1)", ErrConfig, valFrac)
+	perm, nv, err := d.splitPerm(valFrac, rng)
+	if err != nil {
+		return nil, nil, err
 	}
-	if valFrac == 0 {
+	if perm == nil {
 		return d, nil, nil
 	}
-	if d.Rows < 2 {
-		return nil, nil, fmt.Errorf("data: cannot split %d rows", d.Rows)
-	}
-	nv := int(math.Round(valFrac * float64(d.Rows)))
-	nv = min(max(nv, 1), d.Rows-1)
-	perm := rng.Perm(d.Rows)
 	// position i takes old row order[i]: Split's training rows, then its
 	// validation rows
 	order := append(perm[nv:len(perm):len(perm)], perm[:nv]...)

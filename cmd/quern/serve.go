@@ -13,6 +13,7 @@ import (
 	"github.com/quernlab/quern/anomaly"
 	qmodel "github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/serve"
+	"github.com/quernlab/quern/watch"
 )
 
 // quern serve reloads on SIGHUP. Until its handler is installed a SIGHUP
@@ -50,7 +51,7 @@ func cmdServe(e *env, args []string) error {
 			return usagef("-token-env %s: the variable is empty", *tokenEnv)
 		}
 	}
-	if token == "" && !*public && !loopback(*addr) {
+	if token == "" && !*public && !watch.Loopback(*addr) {
 		return usagef("-addr %s is reachable from other machines and no -token-env is set: give a token, or -public-without-token to serve it open", *addr)
 	}
 	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
@@ -77,7 +78,7 @@ func cmdServe(e *env, args []string) error {
 		}
 	}()
 	log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind())
-	if token == "" && !loopback(*addr) {
+	if token == "" && !watch.Loopback(*addr) {
 		log.Warn("no bearer token: anyone who can reach this address can use the model", "addr", ln.Addr().String())
 	}
 	if _, ok := s.Model().Model.(qmodel.Scorer); ok {
@@ -93,19 +94,4 @@ func drainDelay(d time.Duration) time.Duration {
 		return -1
 	}
 	return d
-}
-
-// loopback reports whether a listen address accepts connections from this
-// machine only: a loopback IP or "localhost". An empty host (":8417") or
-// an unspecified one (0.0.0.0, ::) listens on every interface.
-func loopback(addr string) bool {
-	host, _, err := net.SplitHostPort(addr)
-	if err != nil {
-		return false
-	}
-	if host == "localhost" {
-		return true
-	}
-	ip := net.ParseIP(host)
-	return ip != nil && ip.IsLoopback()
 }
