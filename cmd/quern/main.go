@@ -40,6 +40,7 @@ func init() {
 		"inspect":     {"describe a model file and check it", cmdInspect},
 		"demo":        {"run the whole job on an invented pump fleet", cmdDemo},
 		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
+		"evaluate":    {"measure anomaly scores against labelled rows (ROC, precision, recall); set a threshold again", cmdEvaluate},
 		"version":     {"print the version, the Go toolchain, the build settings and the matrix kernel", cmdVersion},
 	}
 }

@@ -12,6 +12,9 @@ import (
 	"testing"
 	"time"
 
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/train"
 	"github.com/stretchr/testify/require"
 )
@@ -261,4 +264,51 @@ func TestDialectsAndStandardInput(t *testing.T) {
 	r := quern(t, dir, nil, "score", "-model", "m.qm", "-data", "s.csv", "-delimiter", ";;", "-out", "x.csv")
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, `-delimiter ";;": want one character`)
+}
+
+// quern evaluate: the figures of a labelled file agree with the anomaly
+// package's (ROC AUC, counts at the threshold), the curves and page are
+// written, and -recalibrate writes a copy whose threshold is set on the
+// file's normal rows, the original left as it was.
+func TestEvaluate(t *testing.T) {
+	dir := t.TempDir()
+	base := []string{"-data", bc, "-no-header", "-skip", "1", "-label", "c30"}
+	ok(t, quern(t, dir, nil, append([]string{"train", "-out", "m.qm", "-epochs", "5", "-latent", "4", "-quiet"}, base...)...))
+	before, err := os.ReadFile(filepath.Join(dir, "m.qm"))
+	require.NoError(t, err)
+	r := ok(t, quern(t, dir, nil, append([]string{"evaluate", "-model", "m.qm", "-normal", "1", "-out", "ev", "-recalibrate", "m2.qm", "-false-alarm", "0.05", "-quiet"}, base...)...))
+	require.Contains(t, r.stdout, "evaluated 569 labelled rows")
+	require.Contains(t, r.stdout, "357 normal, 212 anomalous")
+	require.Regexp(t, `ROC AUC 0\.\d{4}, average precision 0\.\d{4}`, r.stdout)
+	require.Contains(t, r.stderr, "decision aid")
+	for _, f := range []string{"ev/curves.png", "ev/index.html", "m2.qm"} {
+		_, err := os.Stat(filepath.Join(dir, f))
+		require.NoError(t, err, f)
+	}
+	after, err := os.ReadFile(filepath.Join(dir, "m.qm"))
+	require.NoError(t, err)
+	require.Equal(t, before, after, "the original model is left as it was")
+	m, err := model.Open(filepath.Join(dir, "m2.qm"))
+	require.NoError(t, err)
+	th := m.(model.Scorer).Calibrated()
+	require.NotNil(t, th)
+	require.Equal(t, 357, th.Rows, "set on the normal rows")
+	// the printed counts are the anomaly package's at that threshold
+	d, err := data.LoadCSV(bc, data.CSVConfig{NoHeader: true, SkipLines: 1, Label: "c30"})
+	require.NoError(t, err)
+	s, err := m.(model.Scorer).RowScores(d.X, d.Rows)
+	require.NoError(t, err)
+	pos := make([]bool, d.Rows)
+	for i, l := range d.Labels {
+		pos[i] = l != 1
+	}
+	auc, err := anomaly.ROCAUC(s, pos)
+	require.NoError(t, err)
+	c, err := anomaly.CountsAt(s, pos, th.Value)
+	require.NoError(t, err)
+	require.Contains(t, r.stdout, fmt.Sprintf("ROC AUC %.4f", auc))
+	require.Contains(t, r.stdout, fmt.Sprintf("%d anomalous rows flagged, %d missed; %d normal rows flagged, %d passed", c.TP, c.FN, c.FP, c.TN))
+	r = quern(t, dir, nil, append([]string{"evaluate", "-model", "m.qm"}, base[:5]...)...)
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, "-label COLUMN (CSV) or -labels FILE (idx) is required")
 }

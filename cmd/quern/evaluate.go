@@ -1,0 +1,206 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"path/filepath"
+	"strconv"
+	"time"
+
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/model"
+	"github.com/quernlab/quern/modelfile"
+	"github.com/quernlab/quern/report"
+)
+
+// cmdEvaluate measures a model's anomaly scores against labelled rows:
+// ROC AUC, average precision, and at the model's threshold the confusion
+// counts, precision, recall, F1 and false-alarm rate; with -out, the ROC
+// and precision-recall curves; with -recalibrate, a copy of the model
+// whose threshold is set again on the file's normal rows, without
+// retraining.
+func cmdEvaluate(e *env, args []string) error {
+	fs := newFlags(e, "evaluate", "-model MODEL -data FILE (-label COLUMN | -labels IDX) [-normal 0] [-out DIR] [-recalibrate NEW.qm]")
+	modelPath := fs.String("model", "", "model file with anomaly scores: an autoencoder or a VAE (required)")
+	var d dataFlags
+	d.register(fs, true)
+	normal := fs.String("normal", "0", "comma-separated label values of normal rows; every other label is anomalous (empty cells are left out)")
+	out := fs.String("out", "", "folder for the ROC and precision-recall curves and a page")
+	recal := fs.String("recalibrate", "", "write a copy of the model to this file with its threshold set on the file's normal rows (no retraining)")
+	falseAlarm := fs.Float64("false-alarm", 0.01, "with -recalibrate: target false-alarm rate of the new threshold")
+	quiet := fs.Bool("quiet", false, "no progress output")
+	if _, err := parse(e, fs, args, 0); err != nil {
+		return err
+	}
+	if d.label == "" && d.labels == "" {
+		return usagef("-label COLUMN (CSV) or -labels FILE (idx) is required: evaluation needs to know which rows are anomalous")
+	}
+	if *recal != "" && !(*falseAlarm > 0 && *falseAlarm < 1) {
+		return usagef("-false-alarm %v: want a rate between 0 and 1, such as 0.01", *falseAlarm)
+	}
+	normals := map[int]bool{}
+	for _, s := range splitList(*normal) {
+		v, err := strconv.Atoi(s)
+		if err != nil || v < 0 {
+			return usagef("-normal %q: want label values such as 0 or 0,3", *normal)
+		}
+		normals[v] = true
+	}
+	if len(normals) == 0 {
+		return usagef("-normal: name at least one label value of normal rows")
+	}
+	if err := reportFolder(*out); err != nil {
+		return err
+	}
+	st := newStatus(e.stderr, *quiet)
+	defer st.end()
+	st.begin("open", nil)
+	l, sc, err := openAs[model.Scorer]("evaluate", "a model with anomaly scores (an autoencoder or a VAE)",
+		map[string]string{"-data": d.path, "-model": *modelPath, "-out": "", "-recalibrate": *recal})
+	if err != nil {
+		return err
+	}
+	if *recal != "" {
+		if err := writable(*recal, "-recalibrate"); err != nil {
+			return err
+		}
+	}
+	ds, err := l.loadRows(&d, st)
+	if err != nil {
+		return err
+	}
+	if ds.Labels == nil {
+		return fmt.Errorf("%s: no labels were read", d.path)
+	}
+	// the labelled rows, in file order
+	var x []float32
+	var positive []bool
+	skipped := 0
+	for i, lab := range ds.Labels {
+		if lab == data.Unlabelled {
+			skipped++
+			continue
+		}
+		x = append(x, ds.Row(i)...)
+		positive = append(positive, !normals[lab])
+	}
+	n := len(positive)
+	np := 0
+	for _, p := range positive {
+		if p {
+			np++
+		}
+	}
+	if np == 0 || np == n {
+		return fmt.Errorf("%s: %d labelled rows, %d of them anomalous: evaluation needs both normal (-normal %s) and anomalous rows", d.path, n, np, *normal)
+	}
+	if *recal != "" {
+		c, ok := l.model.(model.Calibrator)
+		if !ok {
+			return l.cannot("-recalibrate", "a model whose threshold can be set")
+		}
+		var nx []float32
+		for i, p := range positive {
+			if !p {
+				nx = append(nx, x[i*ds.Cols:(i+1)*ds.Cols]...)
+			}
+		}
+		st.begin("calibrate", func() string { return fmt.Sprintf("%d normal rows", n-np) })
+		th, err := c.Calibrate(nx, n-np, anomaly.Config{FalseAlarm: *falseAlarm})
+		if err != nil {
+			return fmt.Errorf("-recalibrate: %w", err)
+		}
+		st.begin("write", nil)
+		if err := writeRecalibrated(*recal, l); err != nil {
+			return err
+		}
+		st.end()
+		fmt.Fprintf(e.stderr, "wrote %s: the model with its threshold set on %d normal rows of %s: %.6g (expected false-alarm rate %.2f%%)\n",
+			*recal, n-np, d.path, th.Value, 100*th.ExpectedFalseAlarm)
+	}
+	th := sc.Calibrated()
+	if th == nil {
+		return fmt.Errorf("%s has no threshold; give -recalibrate NEW.qm to set one on this file's normal rows", *modelPath)
+	}
+	scores := make([]float64, 0, n)
+	err = inChunks(st, "score", n, func(lo, hi int) ([]float64, error) {
+		return sc.RowScores(x[lo*ds.Cols:hi*ds.Cols], hi-lo)
+	}, func(lo, hi int, s []float64) error {
+		scores = append(scores, s...)
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	roc, pr, ap, err := anomaly.Curves(scores, positive)
+	if err != nil {
+		return err
+	}
+	auc, err := anomaly.ROCAUC(scores, positive)
+	if err != nil {
+		return err
+	}
+	c, err := anomaly.CountsAt(scores, positive, th.Value)
+	if err != nil {
+		return err
+	}
+	lines := []string{
+		fmt.Sprintf("evaluated %d labelled rows of %s: %d normal, %d anomalous", n, d.path, n-np, np),
+		fmt.Sprintf("ROC AUC %.4f, average precision %.4f (a random order scores %.4f)", auc, ap, float64(np)/float64(n)),
+		fmt.Sprintf("at the threshold %.6g: %d anomalous rows flagged, %d missed; %d normal rows flagged, %d passed", th.Value, c.TP, c.FN, c.FP, c.TN),
+		fmt.Sprintf("precision %.4f, recall %.4f, F1 %.4f, false-alarm rate %.2f%% (expected %.2f%%)", c.Precision(), c.Recall(), c.F1(), 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm),
+	}
+	if skipped > 0 {
+		lines = append(lines, fmt.Sprintf("%d unlabelled rows left out", skipped))
+	}
+	st.end()
+	for _, line := range lines {
+		fmt.Fprintln(e.stdout, line)
+	}
+	fmt.Fprintln(e.stderr, anomaly.Caution)
+	if *out != "" {
+		st.begin("report", nil)
+		if err := report.EvaluationCurves(filepath.Join(*out, "curves.png"), roc, pr, c, auc, ap); err != nil {
+			return err
+		}
+		pg := report.Page{Title: "quern evaluation: " + filepath.Base(*modelPath) + " on " + filepath.Base(d.path), Caution: anomaly.Caution,
+			Generated: time.Now().UTC().Format("2006-01-02 15:04 UTC"), Version: version(), RunTime: shortDuration(time.Since(st.begun)),
+			Summary: []report.Setting{
+				{Name: "labelled rows", Value: fmt.Sprintf("%d (%d normal, %d anomalous; normal labels %s)", n, n-np, np, *normal)},
+				{Name: "ROC AUC", Value: fmt.Sprintf("%.4f", auc)},
+				{Name: "average precision", Value: fmt.Sprintf("%.4f", ap)},
+				{Name: "threshold", Value: fmt.Sprintf("%.6g (%s)", th.Value, th.Method)},
+				{Name: "precision / recall / F1", Value: fmt.Sprintf("%.4f / %.4f / %.4f", c.Precision(), c.Recall(), c.F1())},
+				{Name: "false-alarm rate", Value: fmt.Sprintf("%.2f%% (expected %.2f%%)", 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm)},
+				{Name: "flagged anomalous / missed / flagged normal / passed normal", Value: fmt.Sprintf("%d / %d / %d / %d", c.TP, c.FN, c.FP, c.TN)},
+			},
+			Figures: []report.Figure{{File: "curves.png", Caption: "Left: recall against false-alarm rate as the threshold falls; right: precision against recall; the dot is the model's threshold."}}}
+		if err := pg.Write(*out); err != nil {
+			return err
+		}
+		st.end()
+		fmt.Fprintf(e.stderr, "report: %s\n", filepath.Join(*out, "index.html"))
+	}
+	st.done()
+	return nil
+}
+
+// writeRecalibrated writes the model, with its new threshold, keeping the
+// original file's provenance and its training and command sections.
+func writeRecalibrated(path string, l *loaded) error {
+	prov, _ := modelfile.ProvenanceOf(l.file)
+	f, err := l.model.File(prov)
+	if err != nil {
+		return err
+	}
+	for _, key := range []string{"training", commandSection} {
+		var raw json.RawMessage
+		if ok, err := l.file.Section(key, &raw); ok && err == nil {
+			if err := f.SetSection(key, raw); err != nil {
+				return err
+			}
+		}
+	}
+	return modelfile.Write(path, f)
+}
