@@ -60,6 +60,9 @@ type CSVConfig struct {
 	// Dataset.Kept (for passing through to an output); they may also be
 	// features. Nil keeps none.
 	Keep []string
+	// Exclude names columns that are not features when Columns is nil
+	// (a label read through Keep, say).
+	Exclude []string
 	// Comma is the field separator; 0 finds it from the first line read
 	// (the header, or the first row without one): whichever of comma,
 	// semicolon, tab and vertical bar occurs most often outside quotes,
@@ -235,8 +238,12 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 			sel = append(sel, i)
 		}
 	} else {
-		for i := range header {
-			if i != label {
+		excluded := map[string]bool{}
+		for _, c := range cfg.Exclude {
+			excluded[c] = true
+		}
+		for i, h := range header {
+			if i != label && !excluded[h] {
 				sel = append(sel, i)
 			}
 		}

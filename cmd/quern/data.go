@@ -24,6 +24,7 @@ type dataFlags struct {
 	grey     bool
 	limits   limitFlag
 	keep     string // CSV columns kept as text (score's -keep)
+	exclude  string // CSV columns that are not features (evaluate's text label)
 	delim    string
 }
 
@@ -179,7 +180,7 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 	if err != nil {
 		return nil, "", err
 	}
-	csvCfg := data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep), Comma: comma, Limits: d.limits.l}
+	csvCfg := data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep), Exclude: splitList(d.exclude), Comma: comma, Limits: d.limits.l}
 	if d.path == "-" {
 		// standard input: CSV, plain or gzip
 		if st != nil {

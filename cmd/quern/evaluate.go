@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/quernlab/quern/anomaly"
@@ -25,7 +26,7 @@ func cmdEvaluate(e *env, args []string) error {
 	modelPath := fs.String("model", "", "model file with anomaly scores: an autoencoder or a VAE (required)")
 	var d dataFlags
 	d.register(fs, true)
-	normal := fs.String("normal", "0", "comma-separated label values of normal rows; every other label is anomalous (empty cells are left out)")
+	normal := fs.String("normal", "0", "comma-separated label values (numbers or text) of normal rows, the word empty for an empty cell; every other value is anomalous, and empty cells not named are left out")
 	out := fs.String("out", "", "folder for the ROC and precision-recall curves and a page")
 	recal := fs.String("recalibrate", "", "write a copy of the model to this file with its threshold set on the file's normal rows (no retraining)")
 	falseAlarm := fs.Float64("false-alarm", 0.01, "with -recalibrate: target false-alarm rate of the new threshold")
@@ -39,16 +40,21 @@ func cmdEvaluate(e *env, args []string) error {
 	if *recal != "" && !(*falseAlarm > 0 && *falseAlarm < 1) {
 		return usagef("-false-alarm %v: want a rate between 0 and 1, such as 0.01", *falseAlarm)
 	}
-	normals := map[int]bool{}
+	normals := map[string]bool{}
 	for _, s := range splitList(*normal) {
-		v, err := strconv.Atoi(s)
-		if err != nil || v < 0 {
-			return usagef("-normal %q: want label values such as 0 or 0,3", *normal)
+		if s == "empty" {
+			s = ""
 		}
-		normals[v] = true
+		normals[s] = true
 	}
 	if len(normals) == 0 {
-		return usagef("-normal: name at least one label value of normal rows")
+		return usagef("-normal: name at least one label value of normal rows (0, ok, empty, ...)")
+	}
+	// a CSV label column is read as text, so that labels may be names
+	// (bearing_wear, fraud) as well as numbers
+	textLabel := d.label
+	if textLabel != "" {
+		d.keep, d.exclude, d.label = textLabel, textLabel, ""
 	}
 	if err := reportFolder(*out); err != nil {
 		return err
@@ -70,15 +76,26 @@ func cmdEvaluate(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if ds.Labels == nil {
+	labelOf := func(i int) (string, bool) {
+		if textLabel != "" {
+			s := strings.TrimSpace(ds.Kept[i])
+			return s, s != "" || normals[""]
+		}
+		if ds.Labels == nil || ds.Labels[i] == data.Unlabelled {
+			return "", false
+		}
+		return strconv.Itoa(ds.Labels[i]), true
+	}
+	if textLabel == "" && ds.Labels == nil {
 		return fmt.Errorf("%s: no labels were read", d.path)
 	}
 	// the labelled rows, in file order
 	var x []float32
 	var positive []bool
 	skipped := 0
-	for i, lab := range ds.Labels {
-		if lab == data.Unlabelled {
+	for i := 0; i < ds.Rows; i++ {
+		lab, ok := labelOf(i)
+		if !ok {
 			skipped++
 			continue
 		}

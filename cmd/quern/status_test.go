@@ -312,3 +312,25 @@ func TestEvaluate(t *testing.T) {
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, "-label COLUMN (CSV) or -labels FILE (idx) is required")
 }
+
+// evaluate reads text labels too: on the demo's hold-out week (faults
+// named in text, healthy readings empty) it gives the demo's own
+// precision, recall and ROC AUC, which the demo computes with the anomaly
+// package from the fleet's known labels.
+func TestEvaluateTextLabelsMatchDemo(t *testing.T) {
+	dir := t.TempDir()
+	demoOut := ok(t, quern(t, dir, nil, "demo", "-short", "-out", "d", "-quiet"))
+	r := ok(t, quern(t, dir, nil, "evaluate", "-model", "d/pumps.qm", "-data", "d/holdout.csv", "-label", "fault", "-normal", "empty", "-quiet"))
+	var prec, rec, auc float64
+	_, err := fmt.Sscanf(demoOut.stdout[strings.Index(demoOut.stdout, "Hold-out week:"):], "Hold-out week: precision %f, recall %f at the threshold; ROC AUC %f.", &prec, &rec, &auc)
+	require.NoError(t, err)
+	var eAUC, eAP, eBase, ePrec, eRec float64
+	lines := strings.Split(r.stdout, "\n")
+	_, err = fmt.Sscanf(lines[1], "ROC AUC %f, average precision %f (a random order scores %f)", &eAUC, &eAP, &eBase)
+	require.NoError(t, err, lines[1])
+	_, err = fmt.Sscanf(lines[3], "precision %f, recall %f", &ePrec, &eRec)
+	require.NoError(t, err, lines[3])
+	require.InDelta(t, auc, eAUC, 5e-4, "the demo prints three digits")
+	require.InDelta(t, prec, ePrec, 5e-4)
+	require.InDelta(t, rec, eRec, 5e-4)
+}
