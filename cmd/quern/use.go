@@ -95,7 +95,7 @@ func (l *loaded) loadRows(d *dataFlags, st *status) (*data.Dataset, error) {
 
 // output opens path for writing ("-" or empty: standard output).
 func output(e *env, path string) (io.Writer, func() error, error) {
-	if path == "" || path == "-" {
+	if isStdout(path) {
 		return e.stdout, func() error { return nil }, nil
 	}
 	f, err := os.Create(path)
