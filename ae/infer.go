@@ -161,11 +161,14 @@ func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
 	return dst, modelio.Finite(Kind, "reconstruction", dst, m.cfg.Inputs)
 }
 
-// Contributions returns, for each row and column, that column's
+// Contributions returns, for each row and column, that column's part in
+// the row's score. With a Profile it is the column's part of the residual
+// distance over Latent + Inputs (see Profile: it can be negative, and the
+// code part of the score is the rest). Without one it is the column's
 // reconstruction error in scaled space: the squared error for MSE models,
 // the binary cross-entropy for BCE models (from the decoder's logits, as
-// the training loss has it, in float32: max(z,0) - z y + log(1+e^-|z|)).
-// A row's score is the mean of its row here.
+// the training loss has it, in float32: max(z,0) - z y + log(1+e^-|z|)),
+// and a row's score is the mean of its row here.
 func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	return m.ContributionsInto(nil, x, rows)
 }
@@ -173,6 +176,14 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 // ContributionsInto is Contributions writing into dst (grown if too
 // short); no allocation in steady state for float32 models.
 func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float64, error) {
+	if m.Profile != nil {
+		if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+			return nil, err
+		}
+		dst = scratch.Grow(dst, rows*m.cfg.Inputs)
+		_, err := m.profileScores(nil, dst, x, rows)
+		return dst, err
+	}
 	w, in, out, err := m.reconstructRowsAs(x, rows, m.cfg.Loss == BCE)
 	if err != nil {
 		return nil, err
@@ -201,15 +212,25 @@ func bceLogit(z, y float32) float64 {
 	return float64(max(z, 0) - z*y + vec.Log1pExpNeg32(math32.Abs(z)))
 }
 
-// RowErrors returns each row's reconstruction error (the mean of its
-// Contributions): the anomaly score.
+// RowErrors returns each row's mean reconstruction error in scaled space
+// (the anomaly score of a model without a Profile).
 func (m *Model) RowErrors(x []float32, rows int) ([]float64, error) {
 	return m.RowErrorsInto(nil, x, rows)
 }
 
-// RowScores is RowErrors: the score Score compares with the threshold.
+// RowScores returns each row's anomaly score, the value Score compares
+// with the threshold: the profile distance for a model with a Profile,
+// RowErrors for one without.
 func (m *Model) RowScores(x []float32, rows int) ([]float64, error) {
-	return m.RowErrorsInto(nil, x, rows)
+	return m.RowScoresInto(nil, x, rows)
+}
+
+// RowScoresInto is RowScores writing into dst (grown if too short).
+func (m *Model) RowScoresInto(dst []float64, x []float32, rows int) ([]float64, error) {
+	if m.Profile != nil {
+		return m.profileScores(dst, nil, x, rows)
+	}
+	return m.RowErrorsInto(dst, x, rows)
 }
 
 // RowErrorsInto is RowErrors writing into dst (grown if too short) and
@@ -260,18 +281,27 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 	if top <= 0 {
 		top = 3
 	}
-	c, err := m.Contributions(x, rows)
+	cols := m.cfg.Inputs
+	var scores, c []float64
+	var err error
+	if m.Profile != nil {
+		if err := checkRows(x, rows, cols, "input"); err != nil {
+			return nil, err
+		}
+		c = make([]float64, rows*cols)
+		scores, err = m.profileScores(nil, c, x, rows)
+	} else if c, err = m.Contributions(x, rows); err == nil {
+		scores = make([]float64, rows)
+		for r := range scores {
+			var total float64
+			for _, v := range c[r*cols : (r+1)*cols] {
+				total += v
+			}
+			scores[r] = total / float64(cols)
+		}
+	}
 	if err != nil {
 		return nil, err
-	}
-	cols := m.cfg.Inputs
-	scores := make([]float64, rows)
-	for r := range scores {
-		var total float64
-		for _, v := range c[r*cols : (r+1)*cols] {
-			total += v
-		}
-		scores[r] = total / float64(cols)
 	}
 	return anomaly.AssessRows(scores, c, cols, m.Columns, top, *m.Threshold), nil
 }
@@ -286,7 +316,7 @@ func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }
 // it (scoring, encoding and the rest are safe for concurrent use only
 // among themselves).
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
-	th, err := anomaly.CalibrateRows(m.RowErrors, normal, rows, c)
+	th, err := anomaly.CalibrateRows(m.RowScores, normal, rows, c)
 	if err != nil {
 		return th, err
 	}

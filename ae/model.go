@@ -32,6 +32,9 @@ type Model struct {
 	// of the columns (which name the features behind a score).
 	data.Fitted
 	Threshold *anomaly.Threshold
+	// Profile, when set (FitProfile), is the score's model of normal
+	// codes and residuals.
+	Profile *Profile
 
 	pool scratch.Pool[work]
 }

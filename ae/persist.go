@@ -12,13 +12,19 @@ type meta struct {
 	Config Config `json:"config"`
 	data.Fitted
 	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
+	Profile    *Profile              `json:"profile,omitempty"`
 	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
 }
 
 func (md *meta) Settings() *Config  { return &md.Config }
 func (md *meta) Data() *data.Fitted { return &md.Fitted }
 func (md *meta) Apply(m *Model, _ *modelfile.File) error {
-	m.Fitted, m.Threshold = md.Fitted, md.Threshold
+	if md.Profile != nil {
+		if err := md.Profile.check(md.Config.withDefaults()); err != nil {
+			return err
+		}
+	}
+	m.Fitted, m.Threshold, m.Profile = md.Fitted, md.Threshold, md.Profile
 	return nil
 }
 
@@ -34,7 +40,7 @@ var loader = modelio.Kind[Config, *Model]{Name: Kind, Build: New, Resolve: func(
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	return modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, prov}, m.Params())
+	return modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.Profile, prov}, m.Params())
 }
 
 // Save writes the model to path atomically.

@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 	"sort"
+
+	"gonum.org/v1/gonum/stat/distuv"
 )
 
 // Caution is printed wherever a score drives a decision.
@@ -35,15 +37,42 @@ type Config struct {
 	FalseAlarm float64
 }
 
+// BoundConfidence is the confidence of Threshold.FalseAlarmBound.
+const BoundConfidence = 0.95
+
+// MinCalibrationRows is the fewest calibration rows below which
+// Calibrate's callers warn: with fewer, the false-alarm bound of a 1%
+// target is above 4% (the bound of the largest of 70 scores is 4.2%).
+const MinCalibrationRows = 70
+
 // Threshold is a calibrated decision threshold: a score above Value is
 // flagged. ExpectedFalseAlarm is the rate at which normal data like the
-// calibration data would be flagged. It marshals as JSON.
+// calibration data would be flagged, on average over calibration sets;
+// FalseAlarmBound is the rate that, with probability BoundConfidence over
+// the calibration rows, the threshold's actual false-alarm rate does not
+// exceed. For the k-th smallest of n calibration scores that rate follows
+// a Beta(n+1-k, k) distribution (the calibration-conditional guarantee
+// of split-conformal methods: Vovk, "Conditional validity of inductive
+// conformal predictors", Asian Conference on Machine Learning, 2012), so
+// the bound is its BoundConfidence quantile. It marshals as JSON.
 type Threshold struct {
 	Value              float64 `json:"value"`
 	Method             Method  `json:"method"`
 	TargetFalseAlarm   float64 `json:"target_false_alarm,omitempty"`
 	ExpectedFalseAlarm float64 `json:"expected_false_alarm"`
+	FalseAlarmBound    float64 `json:"false_alarm_bound,omitempty"`
 	Rows               int     `json:"calibration_rows"`
+	// CrossFitted says the calibration scores came from models that had
+	// not seen their rows (cross-fitting), not from held-out rows of the
+	// model itself.
+	CrossFitted bool `json:"cross_fitted,omitempty"`
+}
+
+// falseAlarmBound is the BoundConfidence quantile of Beta(n+1-k, k): the
+// bound on the false-alarm rate of a threshold at the k-th smallest of n
+// calibration scores.
+func falseAlarmBound(n, k int) float64 {
+	return distuv.Beta{Alpha: float64(n + 1 - k), Beta: float64(k)}.Quantile(BoundConfidence)
 }
 
 // Flag reports whether score exceeds the threshold.
@@ -71,7 +100,7 @@ func Calibrate(scores []float64, c Config) (Threshold, error) {
 	sort.Float64s(s)
 	switch c.Method {
 	case Max:
-		return Threshold{Value: s[n-1], Method: Max, ExpectedFalseAlarm: 1 / float64(n+1), Rows: n}, nil
+		return Threshold{Value: s[n-1], Method: Max, ExpectedFalseAlarm: 1 / float64(n+1), FalseAlarmBound: falseAlarmBound(n, n), Rows: n}, nil
 	case Quantile:
 		a := c.FalseAlarm
 		if !(a > 0 && a < 1) {
@@ -82,7 +111,7 @@ func Calibrate(scores []float64, c Config) (Threshold, error) {
 			return Threshold{}, fmt.Errorf("anomaly: a false-alarm rate of %v needs at least %d calibration rows, got %d", a, int(math.Ceil(1/a))-1, n)
 		}
 		k = max(k, 1)
-		return Threshold{Value: s[k-1], Method: Quantile, TargetFalseAlarm: a, ExpectedFalseAlarm: 1 - float64(k)/float64(n+1), Rows: n}, nil
+		return Threshold{Value: s[k-1], Method: Quantile, TargetFalseAlarm: a, ExpectedFalseAlarm: 1 - float64(k)/float64(n+1), FalseAlarmBound: falseAlarmBound(n, k), Rows: n}, nil
 	}
 	return Threshold{}, fmt.Errorf("%w: unknown method %q", ErrConfig, c.Method)
 }

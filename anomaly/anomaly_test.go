@@ -96,3 +96,32 @@ func TestAssess(t *testing.T) {
 	require.Len(t, s.Top, 2)
 	require.Equal(t, 0.0, s.Top[0].Share)
 }
+
+// TestFalseAlarmBound checks Threshold.FalseAlarmBound, the 0.95 quantile
+// of Beta(n+1-k, k), against scipy.stats.beta.ppf (Debian python3-scipy;
+// values printed by
+// /usr/bin/python3 -c "import scipy.stats as s; print(s.beta.ppf(0.95, n+1-k, k))").
+func TestFalseAlarmBound(t *testing.T) {
+	for _, c := range []struct {
+		n    int
+		want float64
+	}{
+		{70, 0.04189334406688858},    // max method: k = n
+		{99, 0.029806673773350886},   // k = 99
+		{500, 0.018212851796106527},  // k = 496
+		{5000, 0.012417810325471835}, // k = 4951
+	} {
+		s := make([]float64, c.n)
+		for i := range s {
+			s[i] = float64(i)
+		}
+		m := Quantile
+		if c.n < 99 {
+			m = Max
+		}
+		th, err := Calibrate(s, Config{Method: m, FalseAlarm: 0.01})
+		require.NoError(t, err)
+		require.InEpsilon(t, c.want, th.FalseAlarmBound, 1e-9, "n=%d", c.n)
+		require.Greater(t, th.FalseAlarmBound, th.ExpectedFalseAlarm)
+	}
+}

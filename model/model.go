@@ -43,6 +43,14 @@ type Scorer interface {
 	Calibrated() *anomaly.Threshold
 }
 
+// Profiler fits what a Scorer's score knows of normal rows beyond the
+// weights (ae.Profile) to the training rows; Calibrate after it. A model
+// whose score takes no profile returns an error wrapping
+// anomaly.ErrNoProfile. Like Calibrate it changes the model.
+type Profiler interface {
+	FitProfile(x []float32, rows int) error
+}
+
 // Calibrator sets a Scorer's threshold from held-out normal rows. It
 // changes the model: unlike the other capabilities, it must not run while
 // other goroutines use the model.

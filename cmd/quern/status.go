@@ -27,16 +27,18 @@ type status struct {
 	quiet bool
 	every time.Duration // between plain lines
 
-	mu     sync.Mutex
-	last   time.Time
-	drawn  bool
-	phase  string
-	start  time.Time
-	detail func() string // the current phase's fields, for the ticker
-	fields string        // the fields last shown
-	stop   chan struct{}
-	times  []phaseTime
-	begun  time.Time
+	mu   sync.Mutex
+	last time.Time
+	// lastKept is when the last epoch line was kept
+	lastKept time.Time
+	drawn    bool
+	phase    string
+	start    time.Time
+	detail   func() string // the current phase's fields, for the ticker
+	fields   string        // the fields last shown
+	stop     chan struct{}
+	times    []phaseTime
+	begun    time.Time
 }
 
 type phaseTime struct {
@@ -272,7 +274,14 @@ func (s *status) step(p train.Progress) {
 		p.Epoch, p.Epochs, p.Step, p.Steps, metricFields(p.Metrics, 3, ""), rate(p.SamplesPerSec), toGo(p.Remaining)))
 }
 
-// epoch is train.Callbacks.OnEpoch's printing: one kept line an epoch.
+// keptEpochGap is the least time between two kept epoch lines on a
+// terminal (elsewhere: every); the epochs between only redraw the line.
+const keptEpochGap = 2 * time.Second
+
+// epoch is train.Callbacks.OnEpoch's printing: a kept line for the first
+// epoch, the last, and an epoch at most every few seconds between (a
+// run of thousands of short epochs on a small file would otherwise print
+// thousands of lines); the others redraw the status line.
 func (s *status) epoch(p train.Progress, h *train.History) {
 	line := fmt.Sprintf("epoch %d/%d  %s", p.Epoch, p.Epochs, metricFields(p.Metrics, 4, ""))
 	if p.Validation != nil {
@@ -281,7 +290,23 @@ func (s *status) epoch(p train.Progress, h *train.History) {
 			line += " (best)"
 		}
 	}
-	s.say("%s  %s rows/s%s", line, rate(p.SamplesPerSec), toGo(p.Remaining))
+	line = fmt.Sprintf("%s  %s rows/s%s", line, rate(p.SamplesPerSec), toGo(p.Remaining))
+	s.mu.Lock()
+	gap := keptEpochGap
+	if !s.tty {
+		gap = s.every
+	}
+	now := time.Now()
+	keep := p.Epoch == 1 || p.Epoch == p.Epochs || now.Sub(s.lastKept) >= gap
+	if keep {
+		s.lastKept = now
+	}
+	s.mu.Unlock()
+	if keep {
+		s.say("%s", line)
+	} else {
+		s.show(line)
+	}
 }
 
 // loaded returns a load phase's detail for data.Progress figures.

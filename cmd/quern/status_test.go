@@ -181,8 +181,8 @@ func TestTrainWarnings(t *testing.T) {
 		require.NoError(t, os.WriteFile(p, []byte(b.String()), 0o644))
 		return p
 	}
-	r := ok(t, quern(t, dir, nil, "train", "-data", write("small.csv", 20, true), "-out", "s.qm", "-epochs", "1", "-quiet"))
-	require.Contains(t, r.stderr, "warning: 18 training rows: too few to learn from")
+	r := ok(t, quern(t, dir, nil, "train", "-data", write("small.csv", 20, true), "-out", "s.qm", "-epochs", "1", "-latent", "8", "-quiet"))
+	require.Contains(t, r.stderr, "warning: 20 training rows: too few to learn from")
 	require.Contains(t, r.stderr, "warning: c never changes")
 	require.Contains(t, r.stderr, "warning: the code is 8 wide for 4 input columns")
 	r = ok(t, quern(t, dir, nil, "train", "-data", write("ok.csv", 2000, false), "-out", "o.qm", "-epochs", "1", "-latent", "2", "-hidden", "3", "-quiet",

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"flag"
@@ -59,6 +60,8 @@ type trainOpts struct {
 	cond       bool
 	falseAlarm float64
 	method     string
+	score      string
+	folds      int
 	checkpoint string
 	every      int
 	resume     string
@@ -72,9 +75,9 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.StringVar(&o.kind, "kind", "ae", "model kind: ae (autoencoder), vae (variational autoencoder) or gan")
 	o.data.register(fs, true)
 	fs.StringVar(&o.out, "out", "", "model file to write (required, except when resuming CHECKPOINT.ckpt)")
-	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: the model's)")
-	fs.IntVar(&o.latent, "latent", 0, "code / latent width (default: the model's)")
-	fs.IntVar(&o.epochs, "epochs", 20, "training epochs (when resuming: the run's new total)")
+	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: ae and vae one layer, 2 per input column within 16..256; gan the model's)")
+	fs.IntVar(&o.latent, "latent", 0, "code / latent width (default: ae and vae the principal components for 90% of the variance, at most 64; gan none)")
+	fs.IntVar(&o.epochs, "epochs", 0, "training epochs (when resuming: the run's new total); default: ae and vae about 10000 steps with early stopping, gan 20")
 	fs.IntVar(&o.batch, "batch", 64, "mini-batch size")
 	fs.Float64Var(&o.rate, "rate", 0, "learning rate (default: the model kind's)")
 	fs.Float64Var(&o.decay, "weight-decay", 0, "decoupled weight decay of the Adam updates (AdamW; 0: none)")
@@ -83,7 +86,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.Float64Var(&o.clip, "clip", 0, "clip the gradients to this global norm (0: no clipping)")
 	fs.Uint64Var(&o.seed, "seed", 1, "random seed: same seed, same data, same model")
 	fs.Float64Var(&o.val, "val", 0.1, "fraction of rows held out for validation (and, for ae and vae, threshold calibration)")
-	fs.IntVar(&o.patience, "patience", 0, "stop after this many epochs without validation improvement (0: never)")
+	fs.IntVar(&o.patience, "patience", 0, "stop after this many epochs without validation improvement (0: never; default with the default length: about 1000 steps)")
 	fs.StringVar(&o.scaling, "scaling", "", "column scaling: standard, minmax or none (default: by kind and data)")
 	fs.StringVar(&o.activation, "activation", "", "hidden activation: relu, leaky_relu, elu, tanh, sigmoid, softplus, identity")
 	fs.StringVar(&o.denoise, "denoise", "", "ae: corrupt inputs while training, KIND:LEVEL with KIND gaussian, masking or salt_pepper")
@@ -99,6 +102,8 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.IntVar(&o.pack, "pack", 0, "gan: samples the discriminator judges together (default 1)")
 	fs.BoolVar(&o.cond, "conditional", false, "gan: condition both networks on the labels")
 	fs.Float64Var(&o.falseAlarm, "false-alarm", 0.01, "ae, vae: target false-alarm rate of the threshold")
+	fs.StringVar(&o.score, "score", "", "ae: anomaly score: distance (of the code and the residual from the training rows') or error (mean reconstruction error); default distance, error for images")
+	fs.IntVar(&o.folds, "folds", 0, "ae: cross-fit the residual profile and the threshold over N folds, using every row to train and to calibrate (default 5 for tables under 20000 rows with the distance score, else 0: -val rows held out)")
 	fs.StringVar(&o.method, "threshold", "quantile", "ae, vae: threshold method: quantile (for -false-alarm) or max")
 	fs.StringVar(&o.checkpoint, "checkpoint", "", "checkpoint file (default: MODEL.ckpt when -every > 0)")
 	fs.IntVar(&o.every, "every", 0, "write a checkpoint every N epochs")
@@ -119,8 +124,19 @@ type runRecord struct {
 	SplitSeed  uint64   `json:"split_seed"`
 	FalseAlarm float64  `json:"false_alarm"`
 	Threshold  string   `json:"threshold"`
-	Every      int      `json:"every,omitempty"`
+	Score      string   `json:"score,omitempty"`
+	// CrossFit holds what cross-fitting found (nil: a held-out split).
+	CrossFit *crossFitRecord `json:"cross_fit,omitempty"`
+	Every    int             `json:"every,omitempty"`
+	// Chosen says what the defaults chose from the data, and why.
+	Chosen []string `json:"chosen,omitempty"`
 }
+
+// The -score values.
+const (
+	scoreDistance = "distance"
+	scoreError    = "error"
+)
 
 // commandSection is the record's section name in model files.
 const commandSection = "command"
@@ -167,16 +183,56 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Every: o.every}
+	why, err := o.chooseDefaults(full, set)
+	if err != nil {
+		return err
+	}
+	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Score: cmp.Or(o.score, scoreDistance), Every: o.every, Chosen: why}
 	m, obj, err := o.build(full)
 	if err != nil {
 		return err
 	}
-	for _, w := range trainWarnings(m, full, o.val) {
+	folds := o.folds
+	if !set["folds"] {
+		folds = 0
+		if o.kind == ae.Kind && rec.Score == scoreDistance && full.Image == nil && o.loss != string(ae.BCE) &&
+			full.Rows < crossFitRows && full.Rows >= 2*defaultFolds && !set["val"] && o.val > 0 {
+			folds = defaultFolds
+		}
+	}
+	warnVal := o.val
+	if folds > 0 {
+		warnVal = 0 // the final model trains on every row
+	}
+	for _, w := range trainWarnings(m, full, warnVal) {
 		st.warn("%s", w)
 	}
 	s := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Objective: obj,
 		Optimizer: train.Optimizer{Rate: o.rate, WeightDecay: o.decay, Beta1: o.beta1, Beta2: o.beta2, ClipNorm: o.clip}}
+	if folds > 0 {
+		if o.kind != ae.Kind || rec.Score != scoreDistance {
+			return usagef("-folds: cross-fitting is for autoencoders scored by distance (-kind ae, -score distance)")
+		}
+		ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+		fs := s
+		if !set["epochs"] {
+			fs.Epochs, fs.Patience = 0, 0 // the default budget for each fold's rows
+		}
+		cf, err := crossFit(ctx, st, &o, full, fs, folds, o.seed, anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm})
+		stop()
+		if err != nil {
+			return err
+		}
+		rec.CrossFit, rec.Validation = cf, 0
+		batches := max(1, (full.Rows+o.batch-1)/o.batch)
+		if !set["epochs"] {
+			s.Epochs = max(1, (cf.Steps+batches/2)/batches)
+		}
+		s.Patience = 0
+		rec.Chosen = append(rec.Chosen, fmt.Sprintf("cross-fitted over %d folds: a model per fold trained on the others (stopping early on the fold) gave every row a held-out residual and score, for the residual profile and the threshold; the final model trains on all %d rows for %d epochs (%d steps, the folds' mean at their best) (-folds 0 holds out -val rows instead)", folds, full.Rows, s.Epochs, s.Epochs*batches))
+		// the length line chooseDefaults wrote was for a held-out split
+		rec.Chosen = slices.DeleteFunc(rec.Chosen, func(c string) bool { return strings.HasPrefix(c, "length:") })
+	}
 	if s.Patience > 0 && o.val == 0 {
 		return usagef("-patience needs a validation split (-val > 0)")
 	}
@@ -189,8 +245,8 @@ func cmdTrain(e *env, args []string) error {
 
 func (o *trainOpts) checkNumbers() error {
 	switch {
-	case o.epochs <= 0:
-		return usagef("-epochs %d: want at least 1", o.epochs)
+	case o.epochs < 0:
+		return usagef("-epochs %d: want at least 1 (or 0 for the default length)", o.epochs)
 	case o.batch <= 0:
 		return usagef("-batch %d: want at least 1", o.batch)
 	case o.val < 0 || o.val >= 1:
@@ -223,6 +279,10 @@ func (o *trainOpts) checkNumbers() error {
 		return usagef("-adam-beta2 %v: want a decay in [0, 1) (0: the default 0.999)", o.beta2)
 	case o.clip < 0 || math.IsNaN(o.clip) || math.IsInf(o.clip, 0):
 		return usagef("-clip %v: want 0 (no clipping) or a positive gradient norm", o.clip)
+	case o.folds < 0 || o.folds == 1:
+		return usagef("-folds %d: want 0 (no cross-fitting) or at least 2", o.folds)
+	case o.score != "" && o.score != scoreDistance && o.score != scoreError:
+		return usagef("-score %q: want distance or error", o.score)
 	case !(o.falseAlarm > 0 && o.falseAlarm < 1):
 		return usagef("-false-alarm %v: want a rate between 0 and 1, such as 0.01", o.falseAlarm)
 	}
@@ -399,13 +459,51 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		return err
 	}
 	m := t.Model().(model.Model)
+	scoreLine := ""
 	var th *anomaly.Threshold
-	if c, ok := m.(model.Calibrator); ok && valSet != nil {
+	if cf := rec.CrossFit; cf != nil {
+		rf, ok := m.(residualFitter)
+		ts, ok2 := m.(thresholdSetter)
+		if !ok || !ok2 {
+			return fmt.Errorf("the checkpoint records a cross-fit, but a %s model cannot take one", m.Kind())
+		}
+		st.begin("profile", func() string { return fmt.Sprintf("%d training rows", trainSet.Rows) })
+		err := rf.FitProfileWith(trainSet.X, trainSet.Rows, ae.ProfileSettings{Residual: cf.Residual, InputOnly: cf.InputOnly})
+		st.end()
+		if err != nil {
+			return err
+		}
+		scoreLine = profileLine(m)
+		if cf.ThresholdNote != "" {
+			st.warn("%s", cf.ThresholdNote)
+		}
+		if cf.Threshold != nil {
+			ts.SetThreshold(*cf.Threshold)
+			th = cf.Threshold
+		}
+	} else if _, ok := m.(model.Profiler); ok && rec.Score == scoreDistance && trainSet != nil && trainSet.Rows < 2 {
+		st.warn("warning: %d training row: scored by the reconstruction error (the distance score needs at least 2 rows)", trainSet.Rows)
+	} else if p, ok := m.(model.Profiler); ok && rec.Score == scoreDistance && trainSet != nil {
+		// runs recorded before -score existed (Score "") keep the error
+		st.begin("profile", func() string { return fmt.Sprintf("%d training rows", trainSet.Rows) })
+		err := p.FitProfile(trainSet.X, trainSet.Rows)
+		st.end()
+		if err != nil && !errors.Is(err, anomaly.ErrNoProfile) {
+			return err
+		}
+		if err == nil {
+			scoreLine = profileLine(m)
+		}
+	}
+	if c, ok := m.(model.Calibrator); ok && valSet != nil && rec.CrossFit == nil {
 		st.begin("calibrate", func() string { return fmt.Sprintf("%d validation rows", valSet.Rows) })
 		got, err := c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Method(rec.Threshold), FalseAlarm: rec.FalseAlarm})
 		if err != nil && rec.Threshold == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
 			st.warn("warning: %v; using the largest validation score instead", err)
 			got, err = c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
+		}
+		if err == nil && got.Rows < anomaly.MinCalibrationRows {
+			st.warn("warning: the threshold rests on %d validation rows (fewer than %d): its false-alarm rate is only known to be below %.1f%% (%.0f%% confidence)", got.Rows, anomaly.MinCalibrationRows, 100*got.FalseAlarmBound, 100*anomaly.BoundConfidence)
 		}
 		st.end()
 		if err != nil {
@@ -443,14 +541,32 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		line += ", stopped early"
 	}
 	st.say("%s", line)
+	for _, c := range rec.Chosen {
+		st.say("chosen: %s", c)
+	}
+	if scoreLine != "" {
+		st.say("%s", scoreLine)
+	}
 	if th != nil {
-		st.say("threshold %.6g (%s), expected false-alarm rate %.2f%% on data like the validation rows", th.Value, th.Method, 100*th.ExpectedFalseAlarm)
+		from := "validation rows"
+		if th.CrossFitted {
+			from = "cross-fitted scores of the training rows"
+		}
+		st.say("threshold %.6g (%s), expected false-alarm rate %.2f%%, below %.2f%% with %.0f%% confidence, on data like the %d %s", th.Value, th.Method, 100*th.ExpectedFalseAlarm, 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence, th.Rows, from)
 	}
 	if report != "" {
 		st.say("report: %s", filepath.Join(report, "index.html"))
 	}
 	st.done()
 	return nil
+}
+
+// profileLine says in the closing lines what a model's score is.
+func profileLine(m model.Model) string {
+	if a, ok := m.(*ae.Model); ok && a.Profile != nil && a.Profile.Weight == 0 {
+		return fmt.Sprintf("score: each row's distance from the training rows under their shrunk covariance alone, too few rows (under %d) for the autoencoder's part (about 1 for rows like them)", minRows)
+	}
+	return "score: the average of two distances from the training rows, of each row's code and reconstruction residual and of the row under their shrunk covariance (about 1 for rows like them)"
 }
 
 // kindPhrase names a model kind with its article: "an autoencoder".

@@ -516,7 +516,15 @@ func cmdInspect(e *env, args []string) error {
 	}
 	if sc, ok := m.(model.Scorer); ok {
 		if th := sc.Calibrated(); th != nil {
-			fmt.Fprintf(w, "threshold   %.6g (%s, expected false-alarm rate %.2f%%, %d calibration rows)\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm, th.Rows)
+			how := "calibration rows"
+			if th.CrossFitted {
+				how = "cross-fitted calibration rows"
+			}
+			bound := ""
+			if th.FalseAlarmBound > 0 {
+				bound = fmt.Sprintf(", below %.2f%% with %.0f%% confidence", 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence)
+			}
+			fmt.Fprintf(w, "threshold   %.6g (%s, expected false-alarm rate %.2f%%%s, %d %s)\n", th.Value, th.Method, 100*th.ExpectedFalseAlarm, bound, th.Rows, how)
 		} else {
 			fmt.Fprintln(w, "threshold   none")
 		}
@@ -538,6 +546,12 @@ func cmdInspect(e *env, args []string) error {
 		fmt.Fprintf(w, "rows        images of %dx%d, %d channels\n", sch.Image[0], sch.Image[1], sch.Image[2])
 	} else if len(sch.Columns) > 0 {
 		fmt.Fprintf(w, "columns     %s\n", strings.Join(sch.Columns, ", "))
+	}
+	var rec runRecord
+	if ok, err := l.file.Section(commandSection, &rec); err == nil && ok {
+		for _, c := range rec.Chosen {
+			fmt.Fprintf(w, "chosen      %s\n", c)
+		}
 	}
 	if p, err := modelfile.ProvenanceOf(l.file); err == nil && p != nil {
 		fmt.Fprintf(w, "data        %s, %d rows, fingerprint %s\n", p.DataFile, p.DataRows, p.DataFingerprint)

@@ -1,0 +1,248 @@
+package ae
+
+import (
+	"fmt"
+
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/internal/scratch"
+)
+
+// Profile is what a model learnt of its normal rows beyond the weights:
+// Gaussians (each with a Ledoit-Wolf shrunk covariance) of their codes,
+// of their reconstruction residuals (scaled input minus reconstruction)
+// and of the scaled rows themselves. With a profile a row's score is the
+// average of two standardised distances from normal:
+//
+//	w (d_code + d_residual) / (Latent + Inputs) + (1 - w) d_input / Inputs
+//
+// with d the squared Mahalanobis distances and w = Weight, so that rows
+// like the training rows score around 1 (a little under on average: the
+// shrinkage widens the Gaussians).
+//
+// The autoencoder's part measures how unusual a row is on the data's own
+// manifold (the code) and how far it lies off it (the residual): for a
+// linear model the two add up to the Gaussian log-density of
+// probabilistic PCA (Tipping and Bishop, "Probabilistic principal
+// component analysis", J. Royal Statistical Society B 61, 1999); fitting a
+// Gaussian to reconstruction errors is the score of Malhotra et al.
+// ("LSTM-based encoder-decoder for multi-sensor anomaly detection", 2016).
+// The input part is the plain shrunk-covariance distance. Averaging
+// standardised scores of different detectors is the combination studied by
+// Aggarwal and Sathe ("Theoretical foundations and algorithms for outlier
+// ensembles", SIGKDD Explorations 17, 2015): the autoencoder wins where
+// the data are curved and plentiful, the Gaussian on small, nearly linear
+// tables, and the average was the best of the variants tried on the open
+// panel (bench/panel.sh, README). Profiles apply to MSE models (tables);
+// BCE models (images) keep the mean reconstruction error.
+type Profile struct {
+	Code     *anomaly.Gaussian `json:"code"`
+	Residual *anomaly.Gaussian `json:"residual"`
+	Input    *anomaly.Gaussian `json:"input"`
+	// Weight is the autoencoder part's weight w in [0, 1].
+	Weight float64 `json:"autoencoder_weight"`
+}
+
+// DefaultProfileWeight is the autoencoder part's default weight.
+const DefaultProfileWeight = 0.5
+
+// ProfileSettings configure FitProfileWith. The zero value fits every
+// part on the rows given, with the default weight.
+type ProfileSettings struct {
+	// Residual, when set, is the residual part fitted elsewhere: with
+	// anomaly.FitGaussian on the Residuals of rows the model (or models
+	// trained like it) did not see. A model's residuals on its own
+	// training rows are smaller than on new rows, the more so the fewer
+	// the rows.
+	Residual *anomaly.Gaussian
+	// InputOnly gives the autoencoder part no weight: the score is the
+	// input distance alone (for tables too small to learn a model from).
+	InputOnly bool
+}
+
+// profileChunk is the number of rows the profile fits run through the
+// networks at once.
+const profileChunk = 4096
+
+// FitProfile fits the model's Profile to normal rows (the training rows)
+// and sets it: from then on RowScores, Score, Contributions and Calibrate
+// use the profile's distance. Calibrate again after it. Like Calibrate it
+// changes the model: it must not run while other goroutines use it.
+func (m *Model) FitProfile(x []float32, rows int) error {
+	return m.FitProfileWith(x, rows, ProfileSettings{})
+}
+
+// FitProfileWith is FitProfile with settings.
+func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
+	if m.cfg.Loss == BCE {
+		return fmt.Errorf("ae: BCE models score by their reconstruction error: %w", anomaly.ErrNoProfile)
+	}
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return err
+	}
+	d, k := m.cfg.Inputs, m.cfg.Latent
+	if s.Residual != nil {
+		if s.Residual.Width() != d {
+			return fmt.Errorf("ae: a residual Gaussian of width %d for a model of %d inputs", s.Residual.Width(), d)
+		}
+		if err := s.Residual.Check(); err != nil {
+			return fmt.Errorf("ae: %w", err)
+		}
+	}
+	code, err := anomaly.NewGaussianFit(k)
+	if err != nil {
+		return err
+	}
+	res, err := anomaly.NewGaussianFit(d)
+	if err != nil {
+		return err
+	}
+	input, err := anomaly.NewGaussianFit(d)
+	if err != nil {
+		return err
+	}
+	resid := make([]float32, d)
+	pass := func(first bool) error {
+		for lo := 0; lo < rows; lo += profileChunk {
+			hi := min(lo+profileChunk, rows)
+			w, in, out, err := m.reconstructRows(x[lo*d:hi*d], hi-lo)
+			if err != nil {
+				return err
+			}
+			for r := range hi - lo {
+				add := func(f *anomaly.GaussianFit, v []float32) {
+					if first {
+						f.AddMean(v)
+					} else {
+						f.AddScatter(v)
+					}
+				}
+				add(code, w.code32[r*k:(r+1)*k])
+				add(input, in[r*d:(r+1)*d])
+				if s.Residual == nil {
+					for j := range resid {
+						resid[j] = in[r*d+j] - out[r*d+j]
+					}
+					add(res, resid)
+				}
+			}
+			m.pool.Put(w)
+		}
+		return nil
+	}
+	if err := pass(true); err != nil {
+		return err
+	}
+	if err := pass(false); err != nil {
+		return err
+	}
+	p := &Profile{Residual: s.Residual, Weight: DefaultProfileWeight}
+	if s.InputOnly {
+		p.Weight = 0
+	}
+	if p.Code, err = code.Gaussian(); err != nil {
+		return fmt.Errorf("ae: profile of the codes: %w", err)
+	}
+	if p.Input, err = input.Gaussian(); err != nil {
+		return fmt.Errorf("ae: profile of the rows: %w", err)
+	}
+	if s.Residual == nil {
+		if p.Residual, err = res.Gaussian(); err != nil {
+			return fmt.Errorf("ae: profile of the residuals: %w", err)
+		}
+	}
+	m.Profile = p
+	return nil
+}
+
+// Residuals returns each raw row's reconstruction residual in scaled
+// space (scaled input minus reconstruction; rows x Inputs), what the
+// residual part of a Profile describes. MSE models only.
+func (m *Model) Residuals(x []float32, rows int) ([]float32, error) {
+	if m.cfg.Loss == BCE {
+		return nil, fmt.Errorf("ae: BCE models score by their reconstruction error: %w", anomaly.ErrNoProfile)
+	}
+	w, in, out, err := m.reconstructRows(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	defer m.pool.Put(w)
+	r := make([]float32, len(in))
+	for i := range r {
+		r[i] = in[i] - out[i]
+	}
+	return r, nil
+}
+
+// check reports whether a profile read from a file fits the model.
+func (p *Profile) check(c Config) error {
+	if p.Code == nil || p.Residual == nil || p.Input == nil {
+		return fmt.Errorf("ae: a profile without its code, residual or input part")
+	}
+	for _, g := range []struct {
+		what string
+		g    *anomaly.Gaussian
+		want int
+	}{{"codes", p.Code, c.Latent}, {"residuals", p.Residual, c.Inputs}, {"rows", p.Input, c.Inputs}} {
+		if err := g.g.Check(); err != nil {
+			return fmt.Errorf("ae: profile of the %s: %w", g.what, err)
+		}
+		if g.g.Width() != g.want {
+			return fmt.Errorf("ae: a profile of the %s %d wide for a model that makes them %d wide", g.what, g.g.Width(), g.want)
+		}
+	}
+	if !(p.Weight >= 0 && p.Weight <= 1) {
+		return fmt.Errorf("ae: a profile weight of %v (want 0 to 1)", p.Weight)
+	}
+	if c.Loss == BCE {
+		return fmt.Errorf("ae: a profile in a BCE model")
+	}
+	return nil
+}
+
+// profileScores writes each row's profile distance into dst and, when
+// contrib is not nil, each column's part of it into contrib (rows x
+// Inputs): its residual term times w / (Latent + Inputs) plus its input
+// term times (1 - w) / Inputs. The code's part is the rest.
+func (m *Model) profileScores(dst, contrib []float64, x []float32, rows int) ([]float64, error) {
+	w, in, out, err := m.reconstructRows(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	defer m.pool.Put(w)
+	d, k := m.cfg.Inputs, m.cfg.Latent
+	dst = scratch.Grow(dst, rows)
+	w.scratch = scratch.Grow(w.scratch, d)
+	resid := w.scratch
+	var terms, tmp []float64
+	p := m.Profile
+	wa := p.Weight / float64(d+k)
+	wi := (1 - p.Weight) / float64(d)
+	for r := range rows {
+		row := in[r*d : (r+1)*d]
+		var di, dc, dr float64
+		di, terms, tmp = p.Input.Distance(terms, tmp, row)
+		if contrib != nil {
+			for j, t := range terms {
+				contrib[r*d+j] = t * wi
+			}
+		}
+		if p.Weight > 0 {
+			dc, terms, tmp = p.Code.Distance(terms, tmp, w.code32[r*k:(r+1)*k])
+			for j := range resid {
+				resid[j] = row[j] - out[r*d+j]
+			}
+			dr, terms, tmp = p.Residual.Distance(terms, tmp, resid)
+			if contrib != nil {
+				for j, t := range terms {
+					contrib[r*d+j] += t * wa
+				}
+			}
+		}
+		dst[r] = (dc+dr)*wa + di*wi
+	}
+	return dst, nil
+}
+
+// SetThreshold sets the model's threshold to one calibrated elsewhere (by
+// cross-fitting, say). Like Calibrate it changes the model.
+func (m *Model) SetThreshold(t anomaly.Threshold) { m.Threshold = &t }
