@@ -9,7 +9,7 @@
 #   SETS=wine,iris bash bench/panel.sh   # some of them
 #   OUT=DIR bash bench/panel.sh          # keep the tasks and scores in DIR
 #   TRAIN_FLAGS="-latent 4" bash bench/panel.sh   # something other than the defaults
-# Needs Debian's python3-numpy and python3-rdata; fetches python3-sklearn
+# Needs Debian's python3-numpy, python3-scipy and python3-rdata; fetches python3-sklearn
 # and r-cran-mlbench into a temporary folder (apt-get download, nothing
 # installed) when they are not installed.
 set -euo pipefail

@@ -7,9 +7,12 @@ import (
 	"gonum.org/v1/gonum/mat"
 )
 
-// SpectrumRows is the most rows Spectrum reads: evenly spaced rows past
-// it (a fixed stride, so the result depends on the data alone).
+// SpectrumRows is the most rows Spectrum reads, fewer for wide data (at
+// most spectrumWork / Cols^2, and never fewer than 2000): evenly spaced
+// rows past it (a fixed stride, so the result depends on the data alone).
 const SpectrumRows = 20000
+
+const spectrumWork = 4e8
 
 // SpectrumColumns is the widest data Spectrum decomposes.
 const SpectrumColumns = 2048
@@ -29,43 +32,32 @@ func Spectrum(d *Dataset, kind ScaleKind) ([]float64, error) {
 	if err != nil {
 		return nil, err
 	}
-	step := max(1, (d.Rows+SpectrumRows-1)/SpectrumRows)
 	p := d.Cols
-	row := make([]float64, p)
+	most := min(SpectrumRows, max(2000, int(spectrumWork/float64(p*p))))
+	step := max(1, (d.Rows+most-1)/most)
+	n := (d.Rows + step - 1) / step
+	x := mat.NewDense(n, p, nil)
 	mean := make([]float64, p)
-	n := 0
-	for i := 0; i < d.Rows; i += step {
-		for j, v := range d.Row(i) {
-			mean[j] += s.apply(j, v)
+	for r := range n {
+		row := x.RawRowView(r)
+		for j, v := range d.Row(r * step) {
+			row[j] = s.apply(j, v)
+			mean[j] += row[j]
 		}
-		n++
 	}
 	for j := range mean {
 		mean[j] /= float64(n)
 	}
-	cov := make([]float64, p*p)
-	for i := 0; i < d.Rows; i += step {
-		for j, v := range d.Row(i) {
-			row[j] = s.apply(j, v) - mean[j]
-		}
-		for a, va := range row {
-			if va == 0 {
-				continue
-			}
-			c := cov[a*p : a*p+p]
-			for b := a; b < p; b++ {
-				c[b] += va * row[b]
-			}
+	for r := range n {
+		row := x.RawRowView(r)
+		for j := range row {
+			row[j] -= mean[j]
 		}
 	}
-	sym := mat.NewSymDense(p, nil)
-	for a := range p {
-		for b := a; b < p; b++ {
-			sym.SetSym(a, b, cov[a*p+b]/float64(n))
-		}
-	}
+	var sym mat.SymDense
+	sym.SymOuterK(1/float64(n), x.T())
 	var eig mat.EigenSym
-	if !eig.Factorize(sym, false) {
+	if !eig.Factorize(&sym, false) {
 		return nil, fmt.Errorf("data: the eigen-decomposition of a %d-column covariance did not converge", p)
 	}
 	ev := eig.Values(nil)

@@ -66,7 +66,7 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, set map[string]bool) ([]stri
 		}
 		capAt := min(max(d.Cols-1, 1), maxDefaultCode)
 		o.latent = min(max(k, 1), capAt)
-		reason := fmt.Sprintf("%d principal components explain %.0f%% of the variance of the %s rows", k, 100*codeVariance, kind)
+		reason := fmt.Sprintf("%d principal components explain %.0f%% of the variance of the rows (%s scaling)", k, 100*codeVariance, kind)
 		if k > capAt {
 			reason += fmt.Sprintf(", capped at %d", capAt)
 		}
