@@ -14,6 +14,7 @@
 #                 and encode every row
 # For each job and thread count it prints, for both sides, the wall time
 # of each phase (load, train, calibrate, score, write, encode, sample),
+# for the VAE jobs the test negative ELBO each side reached,
 # their ratio (quern / peer), the whole job's wall time (the sum of
 # quern's processes; the peer's one process) and peak RSS (the largest
 # of quern's processes).
@@ -96,5 +97,12 @@ for th in $THREADS; do
 				printf "%-7s %3d  %-9s %9.2f %9.2f %7.2f\n", j, t, "job", wall[1], wall[2], wall[1]/wall[2]
 				printf "%-7s %3d  %-9s %9.0f %9.0f %7.2f\n", j, t, "peak_MB", rss[1]/1024, rss[2]/1024, rss[1]/rss[2]
 			}' "$tmp/ours.txt" "$tmp/peer.txt"
+		if [ "$job" = vae ]; then
+			# the model's quality: the mean test score, the negative ELBO
+			# with 16 draws a row, in nats per image (lower is better)
+			a=$(awk -F, 'NR>1 {s+=$2; n++} END {printf "%.3f", s/n}' "$tmp/scores.csv")
+			b=$(awk -F, 'NR>1 {s+=$2; n++} END {printf "%.3f", s/n}' "$tmp/peer-scores.csv")
+			printf '%-7s %3d  %-9s %9s %9s %7s\n' "$j" "$th" test_nelbo "$a" "$b" "$(awk -v a="$a" -v b="$b" 'BEGIN {printf "%.4f", a/b}')"
+		fi
 	done
 done

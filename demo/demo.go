@@ -108,6 +108,9 @@ func Run(ctx context.Context, cfg Config) error {
 		return err
 	}
 	phase("calibrate")
+	if err := m.FitProfile(trainSet.X, trainSet.Rows); err != nil {
+		return err
+	}
 	th, err := m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01})
 	if err != nil {
 		return err

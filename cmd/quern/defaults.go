@@ -2,7 +2,6 @@ package main
 
 import (
 	"fmt"
-	"math"
 
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/data"
@@ -44,8 +43,10 @@ const (
 // given) from the data: for autoencoders and VAEs the code width from the
 // data's spectrum, the hidden width from the input width, and the
 // training length in steps with early stopping on the validation rows. It
-// returns one line per choice, saying what was chosen and why.
-func (o *trainOpts) chooseDefaults(d *data.Dataset, set map[string]bool) ([]string, error) {
+// returns one line per choice, saying what was chosen and why. rows is
+// the number of rows a model trains on (a fold model's when
+// cross-fitting).
+func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, set map[string]bool) ([]string, error) {
 	var why []string
 	coded := o.kind == ae.Kind || o.kind == vae.Kind
 	if coded && !set["latent"] {
@@ -76,7 +77,6 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, set map[string]bool) ([]stri
 		h := min(max(hiddenPerInput*d.Cols, minDefaultHidden, 2*o.latent), maxDefaultHidden)
 		h = (h + 7) / 8 * 8
 		line := fmt.Sprintf("%d per input column, between %d and %d", hiddenPerInput, minDefaultHidden, maxDefaultHidden)
-		rows := d.Rows - int(math.Round(o.val*float64(d.Rows)))
 		if fit := rows * weightsPerRow / (2 * (d.Cols + o.latent)); fit < h {
 			h = max(fit, o.latent, 1)
 			line = fmt.Sprintf("at most about %d weights per training row (%d rows)", weightsPerRow, rows)
@@ -87,7 +87,6 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, set map[string]bool) ([]stri
 	if !set["epochs"] {
 		switch {
 		case coded && o.val > 0:
-			rows := d.Rows - int(math.Round(o.val*float64(d.Rows)))
 			batches := max(1, (rows+o.batch-1)/o.batch)
 			o.epochs = max((budgetSteps+batches-1)/batches, minBudgetEpochs)
 			line := fmt.Sprintf("length: up to %d epochs of %d steps (about %d steps)", o.epochs, batches, o.epochs*batches)

@@ -183,22 +183,29 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	why, err := o.chooseDefaults(full, set)
-	if err != nil {
-		return err
-	}
-	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Score: cmp.Or(o.score, scoreDistance), Every: o.every, Chosen: why}
-	m, obj, err := o.build(full)
-	if err != nil {
-		return err
-	}
+	score := cmp.Or(o.score, scoreDistance)
 	folds := o.folds
 	if !set["folds"] {
 		folds = 0
-		if o.kind == ae.Kind && rec.Score == scoreDistance && full.Image == nil && o.loss != string(ae.BCE) &&
+		if o.kind == ae.Kind && score == scoreDistance && full.Image == nil && o.loss != string(ae.BCE) &&
 			full.Rows < crossFitRows && full.Rows >= 2*defaultFolds && !set["val"] && o.val > 0 {
 			folds = defaultFolds
 		}
+	}
+	// the rows the models are sized for: those of a fold model when
+	// cross-fitting (the fold models set the length and the threshold)
+	fitRows := full.Rows - int(math.Round(o.val*float64(full.Rows)))
+	if folds > 0 {
+		fitRows = full.Rows - (full.Rows+folds-1)/folds
+	}
+	why, err := o.chooseDefaults(full, fitRows, set)
+	if err != nil {
+		return err
+	}
+	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Score: score, Every: o.every, Chosen: why}
+	m, obj, err := o.build(full)
+	if err != nil {
+		return err
 	}
 	warnVal := o.val
 	if folds > 0 {
