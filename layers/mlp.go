@@ -118,7 +118,7 @@ func (c MLPConfig) Validate() error {
 	if !c.Hidden.Concrete() || !c.Output.Concrete() {
 		return fmt.Errorf("%w: MLP %q has an unknown activation", ErrConfig, c.Name)
 	}
-	if c.Init > HeNormal {
+	if c.Init > HeGlorot {
 		return fmt.Errorf("%w: MLP %q has unknown init %d", ErrConfig, c.Name, c.Init)
 	}
 	if !(c.Dropout >= 0 && c.Dropout < 1) {
@@ -157,15 +157,18 @@ func NewMLP(cfg MLPConfig, rng *rand.Rand) (*MLP, error) {
 			B: NewParam(fmt.Sprintf("%s.%d.bias", cfg.Name, i), 1, out, cfg.Precision),
 		}
 		init := cfg.Init
-		if init == InitAuto {
+		if init == InitAuto || init == HeGlorot {
 			init = GlorotUniform
 			if act == ReLU || act == LeakyReLU || act == ELU {
 				init = HeNormal
 			}
 		}
-		if init == HeNormal {
+		switch init {
+		case HeNormal:
 			FillHeNormal(d.W, in, rng)
-		} else {
+		case FanInUniform:
+			FillFanInUniform(d.W, in, rng)
+		default:
 			FillGlorotUniform(d.W, in, out, rng)
 		}
 		m.Layers = append(m.Layers, d)

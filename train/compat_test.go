@@ -97,13 +97,13 @@ var compatCases = []compatCase{
 			Scaling: data.ScaleMinMax, Precision: layers.Float64, Seed: 5}))
 	}, train.Settings{Objective: train.Reconstruction{Noise: train.Corruption{Kind: train.SaltPepperNoise, Level: 0.1}}}},
 	{"vae-bernoulli", false, func() train.Model {
-		return mustModel(vae.New(vae.Config{Inputs: 784, Hidden: []int{16}, Latent: 3, Seed: 6}))
+		return mustModel(vae.New(vae.Config{Inputs: 784, Hidden: []int{16}, Latent: 3, Seed: 6, Init: layers.HeGlorot}))
 	}, train.Settings{Objective: train.Variational{FreeBits: 0.1, Schedule: train.BetaSchedule{Kind: train.BetaLinear, Steps: 10}}}},
 	{"vae-gaussian", false, func() train.Model {
-		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{16}, Latent: 3, Likelihood: vae.GaussianLearned, Seed: 7}))
+		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{16}, Latent: 3, Likelihood: vae.GaussianLearned, Seed: 7, Init: layers.HeGlorot}))
 	}, train.Settings{Optimizer: train.Optimizer{ClipNorm: 5, WeightDecay: 1e-4, Rate: 3e-3}}},
 	{"vae-f64", false, func() train.Model {
-		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.GaussianShared, Precision: layers.Float64, Seed: 8}))
+		return mustModel(vae.New(vae.Config{Inputs: 30, Hidden: []int{8}, Latent: 2, Likelihood: vae.GaussianShared, Precision: layers.Float64, Seed: 8, Init: layers.HeGlorot}))
 	}, train.Settings{Objective: train.Variational{Beta: 0.5, Schedule: train.BetaSchedule{Kind: train.BetaCyclical, Steps: 12}}}},
 	{"gan-bce", false, func() train.Model {
 		return mustModel(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Pack: 2, Seed: 9}))

@@ -1,6 +1,7 @@
 package vae
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"math"
@@ -54,6 +55,10 @@ type Config struct {
 	Scaling data.ScaleKind
 	// Precision of the parameters. Default float32.
 	Precision layers.Precision
+	// Init is the weights' initialisation. Default layers.FanInUniform;
+	// model files written before this field existed read as
+	// layers.HeGlorot, the scheme they were drawn with.
+	Init layers.Init
 	// Seed draws the initial weights and, when the model is trained, the
 	// training's own random streams.
 	Seed uint64
@@ -77,6 +82,9 @@ func (c Config) withDefaults() Config {
 	}
 	if c.OutputVariance == 0 {
 		c.OutputVariance = 1
+	}
+	if c.Init == layers.InitAuto {
+		c.Init = layers.FanInUniform
 	}
 	if c.Scaling == "" {
 		c.Scaling = data.ScaleStandard
@@ -153,4 +161,23 @@ func (c Config) logVarShape() (int, int) {
 		return 1, 1
 	}
 	return 0, 0
+}
+
+// UnmarshalJSON reads a configuration; one written before Config had an
+// Init field was initialised by layers.HeGlorot and reads as such.
+func (c *Config) UnmarshalJSON(b []byte) error {
+	type plain Config
+	var p plain
+	if err := json.Unmarshal(b, &p); err != nil {
+		return err
+	}
+	var keys map[string]json.RawMessage
+	if err := json.Unmarshal(b, &keys); err != nil {
+		return err
+	}
+	if _, ok := keys["Init"]; !ok {
+		p.Init = layers.HeGlorot
+	}
+	*c = Config(p)
+	return nil
 }

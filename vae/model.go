@@ -50,11 +50,11 @@ func New(cfg Config) (*Model, error) {
 	initRNG := rand.New(rand.NewPCG(cfg.Seed, stream.Init))
 	m := &Model{cfg: cfg, pool: scratch.Pool[work]{New: newWork}}
 	var err error
-	m.Encoder, err = layers.NewMLP(layers.MLPConfig{Name: "encoder", Widths: cfg.encoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear, Precision: cfg.Precision}, initRNG)
+	m.Encoder, err = layers.NewMLP(layers.MLPConfig{Name: "encoder", Widths: cfg.encoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear, Precision: cfg.Precision, Init: cfg.Init}, initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("vae: %w", err)
 	}
-	m.Decoder, err = layers.NewMLP(layers.MLPConfig{Name: "decoder", Widths: cfg.decoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear, Precision: cfg.Precision}, initRNG)
+	m.Decoder, err = layers.NewMLP(layers.MLPConfig{Name: "decoder", Widths: cfg.decoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear, Precision: cfg.Precision, Init: cfg.Init}, initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("vae: %w", err)
 	}

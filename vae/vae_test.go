@@ -95,7 +95,7 @@ func TestLinearVAERecoversPPCA(t *testing.T) {
 	d := ppcaData(2000, 8, 2, 0.5, 3, 1)
 	want := ppcaMaxLogLik(d, 2)
 	m, err := vae.New(vae.Config{Inputs: 8, Hidden: []int{}, Latent: 4, Linear: true, Likelihood: vae.GaussianShared,
-		Scaling: data.ScaleNone, Precision: layers.Float64, Seed: 2})
+		Scaling: data.ScaleNone, Precision: layers.Float64, Init: layers.HeGlorot, Seed: 2})
 	require.NoError(t, err)
 	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 200, BatchSize: 100, Optimizer: train.Optimizer{Rate: 0.02, Schedule: optim.Cosine{Steps: 4000, Min: 0.01}}})
 	elbo, err := m.ELBO(d.X, d.Rows, 64, 9)
