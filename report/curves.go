@@ -222,10 +222,20 @@ func addLine(pn *panel, name string, y []float64, k int, dashed bool) error {
 		l.Dashes = []vg.Length{vg.Points(5), vg.Points(3)}
 		s.Shape = shapeOf(len(Palette)) // a triangle tells validation apart in grey print
 	}
+	if len(pts) > maxMarkedEpochs {
+		// a marker an epoch would merge into a thick band: the line
+		// alone (dashes still tell validation apart)
+		pn.p.Add(l)
+		pn.add(name, l)
+		return nil
+	}
 	pn.p.Add(l, s)
 	pn.add(name, l, s)
 	return nil
 }
+
+// maxMarkedEpochs is the most epochs whose points get a marker each.
+const maxMarkedEpochs = 60
 
 func isLog(p *plot.Plot) bool {
 	_, ok := p.Y.Scale.(plot.LogScale)

@@ -49,6 +49,9 @@ type crossFitRecord struct {
 	Steps int `json:"steps"`
 	// InputOnly: too few rows for the autoencoder's part of the score.
 	InputOnly bool `json:"input_only,omitempty"`
+	// heldOut are the rows' cross-fitted scores, for the report (not
+	// kept in files: a resumed run's report shows in-sample scores)
+	heldOut []float64
 }
 
 // residualFitter is what cross-fitting needs of a model: its residuals,
@@ -142,7 +145,7 @@ func crossFit(ctx context.Context, st *status, o *trainOpts, d *data.Dataset, s 
 		scores = append(scores, s...)
 		steps += f.steps
 	}
-	rec := &crossFitRecord{Folds: folds, Residual: residual, Steps: max(1, steps/folds), InputOnly: inputOnly}
+	rec := &crossFitRecord{Folds: folds, Residual: residual, Steps: max(1, steps/folds), InputOnly: inputOnly, heldOut: scores}
 	th, note, err := calibrateScores(scores, cal)
 	if err != nil {
 		rec.ThresholdNote = "no threshold set: " + err.Error()

@@ -133,8 +133,8 @@ func cmdEvaluate(e *env, args []string) error {
 			return err
 		}
 		st.end()
-		fmt.Fprintf(e.stderr, "wrote %s: the model with its threshold set on %d normal rows of %s: %.6g (expected false-alarm rate %.2f%%)\n",
-			*recal, n-np, d.path, th.Value, 100*th.ExpectedFalseAlarm)
+		fmt.Fprintf(e.stderr, "wrote %s: the model with its threshold set on %d normal rows of %s: %.6g (expected false-alarm rate %.2f%%%s)\n",
+			*recal, n-np, d.path, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(th))
 	}
 	th := sc.Calibrated()
 	if th == nil {
@@ -166,7 +166,7 @@ func cmdEvaluate(e *env, args []string) error {
 		fmt.Sprintf("evaluated %d labelled rows of %s: %d normal, %d anomalous", n, d.path, n-np, np),
 		fmt.Sprintf("ROC AUC %.4f, average precision %.4f (a random order scores %.4f)", auc, ap, float64(np)/float64(n)),
 		fmt.Sprintf("at the threshold %.6g: %d anomalous rows flagged, %d missed; %d normal rows flagged, %d passed", th.Value, c.TP, c.FN, c.FP, c.TN),
-		fmt.Sprintf("precision %.4f, recall %.4f, F1 %.4f, false-alarm rate %.2f%% (expected %.2f%%)", c.Precision(), c.Recall(), c.F1(), 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm),
+		fmt.Sprintf("precision %.4f, recall %.4f, F1 %.4f, false-alarm rate %.2f%% (expected %.2f%%%s)", c.Precision(), c.Recall(), c.F1(), 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm, boundPhrase(*th)),
 	}
 	if skipped > 0 {
 		lines = append(lines, fmt.Sprintf("%d unlabelled rows left out", skipped))
@@ -189,7 +189,7 @@ func cmdEvaluate(e *env, args []string) error {
 				{Name: "average precision", Value: fmt.Sprintf("%.4f", ap)},
 				{Name: "threshold", Value: fmt.Sprintf("%.6g (%s)", th.Value, th.Method)},
 				{Name: "precision / recall / F1", Value: fmt.Sprintf("%.4f / %.4f / %.4f", c.Precision(), c.Recall(), c.F1())},
-				{Name: "false-alarm rate", Value: fmt.Sprintf("%.2f%% (expected %.2f%%)", 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm)},
+				{Name: "false-alarm rate", Value: fmt.Sprintf("%.2f%% (expected %.2f%%%s)", 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm, boundPhrase(*th))},
 				{Name: "flagged anomalous / missed / flagged normal / passed normal", Value: fmt.Sprintf("%d / %d / %d / %d", c.TP, c.FN, c.FP, c.TN)},
 			},
 			Figures: []report.Figure{{File: "curves.png", Caption: "Left: recall against false-alarm rate as the threshold falls; right: precision against recall; the dot is the model's threshold."}}}
@@ -220,4 +220,13 @@ func writeRecalibrated(path string, l *loaded) error {
 		}
 	}
 	return modelfile.Write(path, f)
+}
+
+// boundPhrase is ", below B% with 95% confidence" for a threshold with a
+// false-alarm bound, empty for one calibrated before bounds were kept.
+func boundPhrase(th anomaly.Threshold) string {
+	if th.FalseAlarmBound <= 0 {
+		return ""
+	}
+	return fmt.Sprintf(", below %.2f%% with %.0f%% confidence", 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence)
 }

@@ -93,7 +93,9 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 	_, isGAN := m.(model.Sampler)
 	_, hasCodes := m.(model.Encoder)
 	isGAN = isGAN && !hasCodes
-	opt := report.CurveOptions{NoBest: isGAN}
+	// no best epoch without validation rows (a GAN's lowest loss is not
+	// its best; a run without them has a fixed length)
+	opt := report.CurveOptions{NoBest: isGAN || val == nil}
 	caption := "Training metrics per epoch, solid, and on the validation rows, dashed; the dotted line marks the best epoch (lowest validation loss)."
 	if isGAN {
 		caption = "Per epoch: the discriminator's and the generator's losses, the discriminator's mean output on real and on generated rows, and the other training figures; dashed lines are the validation rows."
@@ -113,16 +115,32 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 	img := full.Image
 	if sc, ok := m.(model.Scorer); ok {
 		pg.Caution = anomaly.Caution
-		if th := sc.Calibrated(); val != nil && th != nil {
-			s, err := sc.RowScores(val.X, val.Rows)
-			if err != nil {
-				return err
+		th := sc.Calibrated()
+		rows, whose := val, "validation rows"
+		if val == nil && th != nil && th.CrossFitted {
+			// the threshold came from the rows' cross-fitted scores; the
+			// final model's own scores of them are in-sample
+			rows, whose = full, "training rows (the final model's own scores; the threshold was set on their cross-fitted scores)"
+		}
+		if rows != nil && th != nil {
+			var s []float64
+			n := rows.Rows
+			if cf := rec.CrossFit; whose != "validation rows" && cf != nil && len(cf.heldOut) == full.Rows {
+				s, whose = cf.heldOut, "training rows, each from the fold model that had not seen it (the scores the threshold was set on)"
+			} else {
+				var err error
+				if s, err = sc.RowScores(rows.X, rows.Rows); err != nil {
+					return err
+				}
 			}
 			what := "reconstruction error"
-			if m.Kind() == "vae" {
+			switch {
+			case m.Kind() == "vae":
 				what = "negative ELBO (nats)"
+			case rec.Score == scoreDistance:
+				what = "distance score"
 			}
-			if err := add("scores.png", fmt.Sprintf("Scores of the %d validation rows; the dashed line is the threshold %.4g (method %s, expected false-alarm rate %.2f%%).", val.Rows, th.Value, th.Method, 100*th.ExpectedFalseAlarm),
+			if err := add("scores.png", fmt.Sprintf("Scores of the %d %s; the dashed line is the threshold %.4g (method %s, expected false-alarm rate %.2f%%%s).", n, whose, th.Value, th.Method, 100*th.ExpectedFalseAlarm, boundPhrase(*th)),
 				report.ScoreHistogram(filepath.Join(dir, "scores.png"), s, th.Value, nil, what)); err != nil {
 				return err
 			}
@@ -222,7 +240,11 @@ func runSummary(m model.Model, h *train.History, full, val *data.Dataset, th *an
 		out = append(out, report.Setting{Name: "stopped early", Value: "yes"})
 	}
 	if th != nil {
-		out = append(out, report.Setting{Name: "threshold", Value: fmt.Sprintf("%.6g (%s, expected false-alarm rate %.2f%% on %d calibration rows)", th.Value, th.Method, 100*th.ExpectedFalseAlarm, th.Rows)})
+		how := "calibration rows"
+		if th.CrossFitted {
+			how = "cross-fitted calibration rows"
+		}
+		out = append(out, report.Setting{Name: "threshold", Value: fmt.Sprintf("%.6g (%s, expected false-alarm rate %.2f%%%s, on %d %s)", th.Value, th.Method, 100*th.ExpectedFalseAlarm, boundPhrase(*th), th.Rows, how)})
 	}
 	for _, w := range h.Warnings {
 		out = append(out, report.Setting{Name: fmt.Sprintf("warning at step %d", w.Step), Value: w.Message})
@@ -240,6 +262,15 @@ func reportSettings(s train.Settings, rec runRecord) []report.Setting {
 		{Name: "batch size", Value: strconv.Itoa(s.BatchSize)},
 		{Name: "learning rate", Value: strconv.FormatFloat(s.Optimizer.Rate, 'g', -1, 64)},
 		{Name: "threshold method", Value: fmt.Sprintf("%s (target false-alarm rate %g)", rec.Threshold, rec.FalseAlarm)},
+	}
+	if rec.Score != "" {
+		st = append(st, report.Setting{Name: "score", Value: rec.Score})
+	}
+	if cf := rec.CrossFit; cf != nil {
+		st = append(st, report.Setting{Name: "cross-fitting", Value: fmt.Sprintf("%d folds, the folds' mean best length %d steps", cf.Folds, cf.Steps)})
+	}
+	for _, c := range rec.Chosen {
+		st = append(st, report.Setting{Name: "chosen", Value: c})
 	}
 	if s.Patience > 0 {
 		st = append(st, report.Setting{Name: "patience", Value: strconv.Itoa(s.Patience)})

@@ -193,6 +193,15 @@ func TestTrainWarnings(t *testing.T) {
 	r = quern(t, dir, nil, "train", "-data", "ok.csv", "-out", "x.qm", "-adam-beta2", "1")
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, "-adam-beta2 1: want a decay in [0, 1)")
+	// a network of more than 4 weights a row is warned of; the default
+	// width, chosen to keep to about that, is not
+	mid := write("mid.csv", 120, false)
+	r = ok(t, quern(t, dir, nil, "train", "-data", mid, "-out", "m.qm", "-hidden", "64", "-latent", "2", "-epochs", "1", "-quiet"))
+	require.Contains(t, r.stderr, "warning: 120 training rows for 902 parameters (more than 4 a row)")
+	r = ok(t, quern(t, dir, nil, "train", "-data", mid, "-out", "m.qm"))
+	require.NotContains(t, r.stderr, "memorise")
+	require.Contains(t, r.stderr, "chosen: hidden width")
+	require.Contains(t, r.stderr, "chosen: cross-fitted over 5 folds")
 }
 
 // score -keep copies columns, as they are, beside each row's score; a

@@ -833,8 +833,8 @@ func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	switch {
 	case rows < minRows:
 		out = append(out, fmt.Sprintf("warning: %d training rows: too few to learn from (fewer than %d); expect scores that mean little", rows, minRows))
-	case params > 0 && rows < params && d.Image == nil:
-		out = append(out, fmt.Sprintf("warning: %d training rows for %d parameters: the model can memorise the rows; consider narrower -hidden and -latent", rows, params))
+	case params > 0 && rows*weightsPerRow < params && d.Image == nil:
+		out = append(out, fmt.Sprintf("warning: %d training rows for %d parameters (more than %d a row): the model can memorise the rows; consider narrower -hidden and -latent (the default width keeps to about %d)", rows, params, weightsPerRow, weightsPerRow))
 	}
 	if d.Image == nil && d.Rows > 1 {
 		var constant []string

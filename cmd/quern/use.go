@@ -315,7 +315,7 @@ func cmdScore(e *env, args []string) error {
 		return err
 	}
 	st.end()
-	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%)", ds.Rows, flagged, th.Value, 100*th.ExpectedFalseAlarm)
+	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%%s)", ds.Rows, flagged, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(*th))
 	if unscorable > 0 {
 		line += fmt.Sprintf("; %d unscorable rows, flagged (outside the range the model can represent: see the status column)", unscorable)
 	}
