@@ -102,10 +102,15 @@ func (f *GaussianFit) AddScatter(v []float32) {
 		c[j] = float64(x) - f.mean[j]
 		sq += c[j] * c[j]
 	}
-	f.sum4 += sq * sq
+	if p <= FullLimit {
+		f.sum4 += sq * sq
+	}
 	if p > FullLimit {
+		// the diagonal form shrinks diag(S): its fourth-moment term is
+		// sum_k ||diag(c_k c_k') - diag(S)||^2, built from c_kj^4
 		for j, cj := range c {
 			f.s[j] += cj * cj
+			f.sum4 += cj * cj * cj * cj
 		}
 		return
 	}
