@@ -121,21 +121,39 @@ func crossFit(ctx context.Context, st *status, o *trainOpts, d *data.Dataset, s 
 		}
 	}
 	cols := d.Cols
-	residual, err := anomaly.FitGaussian(cols, func(visit func([]float32)) error {
-		for _, f := range fs {
-			for r := 0; r+cols <= len(f.resid); r += cols {
-				visit(f.resid[r : r+cols])
+	// residualsBut fits a Gaussian to every fold's held-out residuals
+	// except fold skip's (-1: all of them, for the final model): a fold's
+	// calibration scores must not come from a Gaussian fitted on its own
+	// rows, or they run low and the threshold promises too little
+	residualsBut := func(skip int) (*anomaly.Gaussian, error) {
+		g, err := anomaly.FitGaussian(cols, func(visit func([]float32)) error {
+			for i, f := range fs {
+				if i == skip {
+					continue
+				}
+				for r := 0; r+cols <= len(f.resid); r += cols {
+					visit(f.resid[r : r+cols])
+				}
 			}
+			return nil
+		})
+		if err != nil {
+			return nil, fmt.Errorf("cross-fit: the held-out residuals: %w", err)
 		}
-		return nil
-	})
+		return g, nil
+	}
+	residual, err := residualsBut(-1)
 	if err != nil {
-		return nil, fmt.Errorf("cross-fit: the held-out residuals: %w", err)
+		return nil, err
 	}
 	scores := make([]float64, 0, d.Rows)
 	steps := 0
 	for i, f := range fs {
-		if err := f.m.FitProfileWith(f.train.X, f.train.Rows, ae.ProfileSettings{Residual: residual, InputOnly: inputOnly}); err != nil {
+		others, err := residualsBut(i)
+		if err != nil {
+			return nil, err
+		}
+		if err := f.m.FitProfileWith(f.train.X, f.train.Rows, ae.ProfileSettings{Residual: others, InputOnly: inputOnly}); err != nil {
 			return nil, fmt.Errorf("cross-fit fold %d: %w", i+1, err)
 		}
 		s, err := f.m.RowScores(f.held.X, f.held.Rows)
