@@ -162,9 +162,11 @@ func (m *Model) ReconstructInto(dst, x []float32, rows int) ([]float32, error) {
 }
 
 // Contributions returns, for each row and column, that column's part in
-// the row's score. With a Profile it is the column's part of the residual
-// distance over Latent + Inputs (see Profile: it can be negative, and the
-// code part of the score is the rest). Without one it is the column's
+// the row's score. With a Profile it is the column's part of the
+// residual distance, times Weight/(Latent+Inputs), plus its part of the
+// input distance, times (1-Weight)/Inputs (see Profile): either part can
+// be negative under a full covariance, and the code's part of the score
+// is the rest. Without one it is the column's
 // reconstruction error in scaled space: the squared error for MSE models,
 // the binary cross-entropy for BCE models (from the decoder's logits, as
 // the training loss has it, in float32: max(z,0) - z y + log(1+e^-|z|)),
@@ -308,6 +310,19 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 
 // Calibrated returns the model's threshold (nil before calibration).
 func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }
+
+// ScoreName names what RowScores measure: "distance score" with a
+// Profile ("input distance score" when its Weight is 0), else
+// "reconstruction error".
+func (m *Model) ScoreName() string {
+	switch {
+	case m.Profile != nil && m.Profile.Weight == 0:
+		return "input distance score"
+	case m.Profile != nil:
+		return "distance score"
+	}
+	return "reconstruction error"
+}
 
 // Calibrate sets the model's threshold from held-out normal rows (not used
 // for training) and returns it.

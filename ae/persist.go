@@ -40,8 +40,18 @@ var loader = modelio.Kind[Config, *Model]{Name: Kind, Build: New, Resolve: func(
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	return modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.Profile, prov}, m.Params())
+	f, err := modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.Profile, prov}, m.Params())
+	if err == nil && m.Profile != nil {
+		// builds that predate profiles would ignore it and score by
+		// the reconstruction error: they refuse version 2
+		f.Version = profileVersion
+	}
+	return f, err
 }
+
+// profileVersion is the model-file format version a file with a Profile
+// needs (see modelfile.Version).
+const profileVersion = 2
 
 // Save writes the model to path atomically.
 func (m *Model) Save(path string, prov *modelfile.Provenance) error {

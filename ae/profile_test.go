@@ -115,11 +115,14 @@ func seq(lo, hi int) []int {
 // width or with a bad weight is refused when the file is read.
 func TestProfileInFile(t *testing.T) {
 	m, bc := trainedBC(t)
+	require.Equal(t, "reconstruction error", m.ScoreName())
 	require.NoError(t, m.FitProfile(bc.X, bc.Rows))
+	require.Equal(t, "distance score", m.ScoreName())
 	want, err := m.RowScores(bc.X, bc.Rows)
 	require.NoError(t, err)
 	f, err := m.File(nil)
 	require.NoError(t, err)
+	require.EqualValues(t, 2, f.Version, "a file with a profile must be refused by builds that ignore profiles")
 	back, err := FromFile(f)
 	require.NoError(t, err)
 	got, err := back.RowScores(bc.X, bc.Rows)

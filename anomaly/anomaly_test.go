@@ -95,6 +95,11 @@ func TestAssess(t *testing.T) {
 	require.False(t, s.Anomaly, "a score equal to the threshold is not flagged")
 	require.Len(t, s.Top, 2)
 	require.Equal(t, 0.0, s.Top[0].Share)
+	// negative contributions (a full covariance's) have no share and do
+	// not count in the total: shares stay in [0, 1] (common practice, no
+	// source)
+	s = Assess(2, []float64{-1, 3, 1}, nil, 3, th)
+	require.Equal(t, []Feature{{Column: 1, Share: 0.75}, {Column: 2, Share: 0.25}, {Column: 0, Share: 0}}, s.Top)
 }
 
 // TestFalseAlarmBound checks Threshold.FalseAlarmBound, the 0.95 quantile

@@ -7,9 +7,13 @@ import (
 
 // Feature is one column's part in a row's score.
 type Feature struct {
-	Column int     `json:"column"`
-	Name   string  `json:"name,omitempty"`
-	Share  float64 `json:"share"` // fraction of the row's total contribution
+	Column int    `json:"column"`
+	Name   string `json:"name,omitempty"`
+	// Share is the column's fraction of the row's positive
+	// contributions, in [0, 1]. A column's contribution can be negative
+	// under a profile's full covariance (its deviation is one another
+	// column's makes expected): it raises nothing and has no share.
+	Share float64 `json:"share"`
 }
 
 // Score is one row's anomaly assessment.
@@ -67,7 +71,9 @@ func Assess(value float64, contrib []float64, names []string, top int, t Thresho
 			s.Anomaly, s.Unscorable = true, NotFinite
 			return s
 		}
-		total += v
+		if v > 0 {
+			total += v
+		}
 		if top == 0 || (len(idx) == top && v <= contrib[idx[top-1]]) {
 			continue
 		}
@@ -90,7 +96,7 @@ func Assess(value float64, contrib []float64, names []string, top int, t Thresho
 	for i, j := range idx {
 		f := Feature{Column: j}
 		if total > 0 {
-			f.Share = contrib[j] / total
+			f.Share = max(contrib[j], 0) / total
 		}
 		if j < len(names) {
 			f.Name = names[j]

@@ -5,7 +5,7 @@
 # (k=3 and k for 90% of the variance) and the shrunk-covariance z-distance
 # computed by numpy in the same run. Prints the per-set table the README
 # quotes; DIR/results.csv keeps every task.
-#   bash bench/panel.sh                  # every set (about ten minutes on 2 cores)
+#   bash bench/panel.sh                  # every set (about a minute on 2 cores)
 #   SETS=wine,iris bash bench/panel.sh   # some of them
 #   OUT=DIR bash bench/panel.sh          # keep the tasks and scores in DIR
 #   TRAIN_FLAGS="-latent 4" bash bench/panel.sh   # something other than the defaults

@@ -55,8 +55,8 @@ func (in Init) MarshalText() ([]byte, error) {
 	return []byte(in.String()), nil
 }
 
-// UnmarshalText reads a scheme's name (or its number, as files written
-// before the names had it).
+// UnmarshalText reads a scheme's name; its number in decimal text ("3")
+// is accepted too.
 func (in *Init) UnmarshalText(b []byte) error {
 	for c := InitAuto; c <= HeGlorot; c++ {
 		if string(b) == c.String() || string(b) == fmt.Sprint(uint8(c)) {

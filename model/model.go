@@ -43,6 +43,12 @@ type Scorer interface {
 	Calibrated() *anomaly.Threshold
 }
 
+// ScoreNamer names what a Scorer's RowScores measure, for captions and
+// axis labels ("distance score", "reconstruction error").
+type ScoreNamer interface {
+	ScoreName() string
+}
+
 // Profiler fits what a Scorer's score knows of normal rows beyond the
 // weights (ae.Profile) to the training rows; Calibrate after it. A model
 // whose score takes no profile returns an error wrapping

@@ -20,9 +20,14 @@ import (
 // Magic opens every quern model file.
 var Magic = [8]byte{'Q', 'U', 'E', 'R', 'N', 'M', 'D', 'L'}
 
-// Version is the format version this package writes; it reads versions up
-// to and including it.
-const Version = 1
+// Version is the highest format version this package reads and writes.
+// Version 1 is the layout below. Version 2 has the same layout and marks a
+// file whose metadata a version-1 reader would misread: an autoencoder
+// with a score profile, whose profile an older build ignores, scoring
+// every row differently. Older builds refuse such a file (ErrVersion)
+// instead. A writer writes the least version its content needs
+// (File.Version), so other files stay readable by older builds.
+const Version = 2
 
 // Limits a reader enforces before allocating.
 const (
@@ -51,6 +56,9 @@ type File struct {
 	Kind    string
 	Meta    json.RawMessage
 	Tensors []Tensor
+	// Version is the format version Decode read, or the least version
+	// the content needs when encoding (0 means 1).
+	Version uint16
 }
 
 // Tensor returns the tensor with the given name.
@@ -92,8 +100,12 @@ func Encode(w io.Writer, f *File) error {
 	bw := bufio.NewWriter(io.MultiWriter(w, h))
 	le := binary.LittleEndian
 	var b [8]byte
+	v := max(f.Version, 1)
+	if v > Version {
+		return fmt.Errorf("modelfile: version %d asked for, this build writes up to %d", v, Version)
+	}
 	bw.Write(Magic[:])
-	le.PutUint16(b[:], Version)
+	le.PutUint16(b[:], v)
 	bw.Write(b[:2])
 	le.PutUint16(b[:], uint16(len(f.Kind)))
 	bw.Write(b[:2])
@@ -180,7 +192,7 @@ func Decode(b []byte, path string) (*File, error) {
 	if kl > MaxNameBytes || !need(kl) {
 		return nil, bad(p, "kind length %d", kl)
 	}
-	f := &File{Kind: string(body[p : p+kl])}
+	f := &File{Kind: string(body[p : p+kl]), Version: v}
 	p += kl
 	if !need(4) {
 		return nil, bad(p, "missing metadata length")

@@ -33,7 +33,9 @@ func TestRoundTrip(t *testing.T) {
 	b := encode(t, sample())
 	f, err := Decode(b, "x")
 	require.NoError(t, err)
-	require.Equal(t, sample(), f)
+	want := sample()
+	want.Version = 1 // the least version, written for 0
+	require.Equal(t, want, f)
 	tt, ok := f.Tensor("encoder.0.bias")
 	require.True(t, ok)
 	require.Equal(t, 1e-300, tt.F64[1])
@@ -55,6 +57,24 @@ func TestCorruptionIsDetected(t *testing.T) {
 	_, err := Decode(good[:len(good)-1], "model.qm")
 	require.True(t, errors.As(err, &ce))
 	require.Contains(t, err.Error(), "model.qm")
+}
+
+// Files are written at the least version their content asks for, and
+// read back with it; a version past this build's is refused both ways.
+func TestVersionWritten(t *testing.T) {
+	for _, v := range []uint16{0, 1, 2} {
+		f := sample()
+		f.Version = v
+		var b bytes.Buffer
+		require.NoError(t, Encode(&b, f))
+		require.EqualValues(t, max(v, 1), b.Bytes()[8], "version %d", v)
+		back, err := Decode(b.Bytes(), "x")
+		require.NoError(t, err)
+		require.Equal(t, max(v, 1), back.Version)
+	}
+	f := sample()
+	f.Version = Version + 1
+	require.Error(t, Encode(&bytes.Buffer{}, f))
 }
 
 func TestFutureVersionIsRefused(t *testing.T) {

@@ -4,7 +4,10 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"maps"
 	"math"
+	"slices"
+	"strings"
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/layers"
@@ -175,7 +178,9 @@ func (c *Config) UnmarshalJSON(b []byte) error {
 	if err := json.Unmarshal(b, &keys); err != nil {
 		return err
 	}
-	if _, ok := keys["Init"]; !ok {
+	// encoding/json matches keys without regard to case, and so must
+	// this test of whether the key is there
+	if !slices.ContainsFunc(slices.Collect(maps.Keys(keys)), func(k string) bool { return strings.EqualFold(k, "Init") }) {
 		p.Init = layers.HeGlorot
 	}
 	*c = Config(p)

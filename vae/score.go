@@ -98,6 +98,9 @@ func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
 	return anomaly.AssessRows(s, c, m.cfg.Inputs, m.Columns, top, *m.Threshold), nil
 }
 
+// ScoreName names what RowScores measure.
+func (m *Model) ScoreName() string { return "negative ELBO (nats)" }
+
 // RowScores is NegELBO: the score Score compares with the threshold.
 func (m *Model) RowScores(x []float32, rows int) ([]float64, error) { return m.NegELBO(x, rows) }
 

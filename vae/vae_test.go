@@ -1,6 +1,7 @@
 package vae_test
 
 import (
+	"encoding/json"
 	"math"
 	"math/rand/v2"
 	"sort"
@@ -244,4 +245,23 @@ func TestRowScoreIndependentOfBatch(t *testing.T) {
 		require.Equal(t, all[r], back[19-r], "row %d reordered", r)
 	}
 	require.NotEqual(t, all[0], all[1], "different rows get different scores")
+}
+
+// A configuration written before Config had Init reads as HeGlorot; one
+// that has it keeps it, whatever the key's case (encoding/json matches
+// keys without regard to case).
+func TestConfigInitKey(t *testing.T) {
+	for _, c := range []struct {
+		json string
+		want layers.Init
+	}{
+		{`{"Inputs":4}`, layers.HeGlorot},
+		{`{"Inputs":4,"Init":"fan_in_uniform"}`, layers.FanInUniform},
+		{`{"Inputs":4,"init":"glorot_uniform"}`, layers.GlorotUniform},
+		{`{"Inputs":4,"INIT":"auto"}`, layers.InitAuto},
+	} {
+		var cfg vae.Config
+		require.NoError(t, json.Unmarshal([]byte(c.json), &cfg), c.json)
+		require.Equal(t, c.want, cfg.Init, c.json)
+	}
 }

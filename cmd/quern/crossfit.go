@@ -197,7 +197,10 @@ func (f *crossFold) run(ctx context.Context, o *trainOpts, s train.Settings) err
 	}
 	epochs, patience, batches := foldSettings(f.train.Rows, s.BatchSize)
 	if s.Epochs == 0 {
-		s.Epochs, s.Patience = epochs, patience
+		s.Epochs = epochs
+		if s.Patience == 0 {
+			s.Patience = patience
+		}
 	}
 	s.Objective, s.Callbacks = obj, train.Callbacks{}
 	t, err := train.New(m, s)
@@ -227,7 +230,7 @@ func calibrateScores(scores []float64, c anomaly.Config) (anomaly.Threshold, str
 		if note != "" {
 			note += "\n"
 		}
-		note += fmt.Sprintf("warning: the threshold rests on %d normal rows (fewer than %d): its false-alarm rate is only known to be below %.1f%% (%.0f%% confidence)", len(scores), anomaly.MinCalibrationRows, 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence)
+		note += fmt.Sprintf("warning: the threshold rests on %s (fewer than %d): its false-alarm rate is only known to be below %.1f%% (%.0f%% confidence)", plural(len(scores), "normal row"), anomaly.MinCalibrationRows, 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence)
 	}
 	return th, note, err
 }

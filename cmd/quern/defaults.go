@@ -45,8 +45,8 @@ const (
 // training length in steps with early stopping on the validation rows. It
 // returns one line per choice, saying what was chosen and why. rows is
 // the number of rows a model trains on (a fold model's when
-// cross-fitting).
-func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, set map[string]bool) ([]string, error) {
+// cross-fitting), and rowsWhat names them for those lines.
+func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, rowsWhat string, set map[string]bool) ([]string, error) {
 	var why []string
 	coded := o.kind == ae.Kind || o.kind == vae.Kind
 	if coded && !set["latent"] {
@@ -57,29 +57,42 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, set map[string]boo
 				kind = data.ScaleNone
 			}
 		}
-		k := 1 // a single row has no spectrum (and is warned about)
-		if d.Rows >= 2 {
+		capAt := min(max(d.Cols-1, 1), maxDefaultCode)
+		var reason string
+		switch {
+		case d.Rows < 2:
+			// a single row has no spectrum (and is warned about)
+			o.latent = 1
+			reason = "a single row has no spectrum to choose from"
+		case d.Cols > data.SpectrumColumns:
+			// the spectrum of a very wide table costs more than the
+			// training; such tables get the cap
+			o.latent = capAt
+			reason = fmt.Sprintf("the largest default: %d columns are too many to measure the spectrum of (more than %d)", d.Cols, data.SpectrumColumns)
+		default:
 			ev, err := data.Spectrum(d, kind)
 			if err != nil {
 				return nil, fmt.Errorf("choosing the code width (give -latent): %w", err)
 			}
-			k = data.ComponentsFor(ev, codeVariance)
-		}
-		capAt := min(max(d.Cols-1, 1), maxDefaultCode)
-		o.latent = min(max(k, 1), capAt)
-		reason := fmt.Sprintf("%d principal components explain %.0f%% of the variance of the rows (%s scaling)", k, 100*codeVariance, kind)
-		if k > capAt {
-			reason += fmt.Sprintf(", capped at %d", capAt)
+			k := data.ComponentsFor(ev, codeVariance)
+			o.latent = min(max(k, 1), capAt)
+			reason = fmt.Sprintf("%s explain %.0f%% of the variance of the rows (%s scaling)", plural(k, "principal component"), 100*codeVariance, kind)
+			if k > capAt {
+				reason += fmt.Sprintf(", capped at %d", capAt)
+			}
+			if k < 1 {
+				reason = fmt.Sprintf("the rows have no variance (%s scaling), so the narrowest code", kind)
+			}
 		}
 		why = append(why, fmt.Sprintf("code width %d: %s (-latent sets it)", o.latent, reason))
 	}
 	if coded && !set["hidden"] {
 		h := min(max(hiddenPerInput*d.Cols, minDefaultHidden, 2*o.latent), maxDefaultHidden)
 		h = (h + 7) / 8 * 8
-		line := fmt.Sprintf("%d per input column, between %d and %d", hiddenPerInput, minDefaultHidden, maxDefaultHidden)
+		line := fmt.Sprintf("%d per input column, between %d and %d, rounded up to a multiple of 8", hiddenPerInput, minDefaultHidden, maxDefaultHidden)
 		if fit := rows * weightsPerRow / (2 * (d.Cols + o.latent)); fit < h {
 			h = max(fit, o.latent, 1)
-			line = fmt.Sprintf("at most about %d weights per training row (%d rows)", weightsPerRow, rows)
+			line = fmt.Sprintf("at most about %d weights per training row (%d %s)", weightsPerRow, rows, rowsWhat)
 		}
 		o.hidden = fmt.Sprint(h)
 		why = append(why, fmt.Sprintf("hidden width %d: %s (-hidden sets it)", h, line))
@@ -95,9 +108,22 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, set map[string]boo
 				line += fmt.Sprintf(", stopping after %d epochs without a better validation loss and keeping the best epoch's weights", o.patience)
 			}
 			why = append(why, line+" (-epochs and -patience set them)")
+		case coded:
+			// no validation rows to stop on: the whole budget
+			batches := max(1, (rows+o.batch-1)/o.batch)
+			o.epochs = max((budgetSteps+batches-1)/batches, minBudgetEpochs)
+			why = append(why, fmt.Sprintf("length: %d epochs of %d steps (about %d steps), without early stopping: there are no validation rows to stop on (-val 0) (-epochs sets it)", o.epochs, batches, o.epochs*batches))
 		default:
 			o.epochs = defaultGANEpochs
 		}
 	}
 	return why, nil
+}
+
+// plural counts n of a noun: "1 row", "2 rows" (nouns that take -s).
+func plural(n int, noun string) string {
+	if n == 1 {
+		return "1 " + noun
+	}
+	return fmt.Sprintf("%d %ss", n, noun)
 }

@@ -167,6 +167,9 @@ func parse(e *env, fs *flag.FlagSet, args []string, positional int) ([]string, e
 func flagMessage(fs *flag.FlagSet, err error) string {
 	msg := err.Error()
 	if name, ok := strings.CutPrefix(msg, "flag provided but not defined: "); ok {
+		if near := nearestFlag(fs, strings.TrimLeft(name, "-")); near != "" {
+			return fmt.Sprintf("unknown flag %s: did you mean -%s? (%s -h lists the flags)", name, near, fs.Name())
+		}
 		return fmt.Sprintf("unknown flag %s (%s -h lists the flags)", name, fs.Name())
 	}
 	if name, ok := strings.CutPrefix(msg, "flag needs an argument: "); ok {
@@ -211,4 +214,37 @@ func flagKind(f *flag.Flag) string {
 		return "a duration such as 500ms, 10s or 2m"
 	}
 	return "a valid value"
+}
+
+// nearestFlag returns the flag of fs whose name is within two edits of
+// name (the closest; the first in order on a tie), or "" when none is.
+func nearestFlag(fs *flag.FlagSet, name string) string {
+	best, bestD := "", 3
+	fs.VisitAll(func(f *flag.Flag) {
+		if d := editDistance(name, f.Name); d < bestD && d < len(f.Name) {
+			best, bestD = f.Name, d
+		}
+	})
+	return best
+}
+
+// editDistance is the Levenshtein distance between a and b (bytes).
+func editDistance(a, b string) int {
+	prev := make([]int, len(b)+1)
+	cur := make([]int, len(b)+1)
+	for j := range prev {
+		prev[j] = j
+	}
+	for i := 1; i <= len(a); i++ {
+		cur[0] = i
+		for j := 1; j <= len(b); j++ {
+			sub := prev[j-1]
+			if a[i-1] != b[j-1] {
+				sub++
+			}
+			cur[j] = min(sub, prev[j]+1, cur[j-1]+1)
+		}
+		prev, cur = cur, prev
+	}
+	return prev[len(b)]
 }

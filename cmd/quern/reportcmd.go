@@ -97,6 +97,13 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 	// its best; a run without them has a fixed length)
 	opt := report.CurveOptions{NoBest: isGAN || val == nil}
 	caption := "Training metrics per epoch, solid, and on the validation rows, dashed; the dotted line marks the best epoch (lowest validation loss)."
+	if val == nil {
+		caption = "Training metrics per epoch (no validation rows: the run's length was set in advance"
+		if rec.CrossFit != nil {
+			caption += ", from where the cross-fit folds' models were best"
+		}
+		caption += ")."
+	}
 	if isGAN {
 		caption = "Per epoch: the discriminator's and the generator's losses, the discriminator's mean output on real and on generated rows, and the other training figures; dashed lines are the validation rows."
 	}
@@ -133,12 +140,9 @@ func writeTrainReport(dir string, m model.Model, s train.Settings, rec runRecord
 					return err
 				}
 			}
-			what := "reconstruction error"
-			switch {
-			case m.Kind() == "vae":
-				what = "negative ELBO (nats)"
-			case rec.Score == scoreDistance:
-				what = "distance score"
+			what := "score"
+			if n, ok := m.(model.ScoreNamer); ok {
+				what = n.ScoreName()
 			}
 			if err := add("scores.png", fmt.Sprintf("Scores of the %d %s; the dashed line is the threshold %.4g (method %s, expected false-alarm rate %.2f%%%s).", n, whose, th.Value, th.Method, 100*th.ExpectedFalseAlarm, boundPhrase(*th)),
 				report.ScoreHistogram(filepath.Join(dir, "scores.png"), s, th.Value, nil, what)); err != nil {
@@ -216,9 +220,9 @@ func classNames(*data.Dataset) []string { return nil }
 // runSummary lists the run's numbers for the report.
 func runSummary(m model.Model, h *train.History, full, val *data.Dataset, th *anomaly.Threshold) []report.Setting {
 	n := len(h.Epochs)
-	out := []report.Setting{{Name: "rows (training + validation)", Value: strconv.Itoa(full.Rows)}, {Name: "epochs run", Value: strconv.Itoa(n)}}
+	out := []report.Setting{{Name: "training rows", Value: strconv.Itoa(full.Rows)}, {Name: "epochs run", Value: strconv.Itoa(n)}}
 	if val != nil {
-		out[0].Value = fmt.Sprintf("%d (%d + %d)", full.Rows, full.Rows-val.Rows, val.Rows)
+		out[0] = report.Setting{Name: "rows (training + validation)", Value: fmt.Sprintf("%d (%d + %d)", full.Rows, full.Rows-val.Rows, val.Rows)}
 	}
 	last := h.Epochs[n-1]
 	for i, mt := range last.Train {
@@ -233,7 +237,7 @@ func runSummary(m model.Model, h *train.History, full, val *data.Dataset, th *an
 		}
 		out = append(out, report.Setting{Name: "final validation " + mt.Name, Value: fmt.Sprintf("%.6g", mt.Value)})
 	}
-	if _, ok := m.(model.Encoder); ok && h.BestEpoch > 0 {
+	if _, ok := m.(model.Encoder); ok && h.BestEpoch > 0 && val != nil {
 		out = append(out, report.Setting{Name: "best epoch", Value: fmt.Sprintf("%d (loss %.6g)", h.BestEpoch, h.BestLoss)})
 	}
 	if h.StoppedEarly {

@@ -180,6 +180,10 @@ func (s *status) say(format string, a ...any) {
 	fmt.Fprintf(s.w, format+"\n", a...)
 }
 
+// result prints a result line (what was written, the threshold), with
+// -quiet too.
+func (s *status) result(format string, a ...any) { s.warn(format, a...) }
+
 // warn prints a warning on a line of its own, with -quiet too: it says
 // something about the result, not about progress.
 func (s *status) warn(format string, a ...any) {

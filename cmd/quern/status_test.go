@@ -204,6 +204,61 @@ func TestTrainWarnings(t *testing.T) {
 	require.Contains(t, r.stderr, "chosen: cross-fitted over 5 folds")
 }
 
+// The defaults in the corners: without validation rows the whole step
+// budget runs, said so; under 50 training rows held out by -val the score
+// is the input distance alone, as when cross-fitting; a table too wide
+// for the spectrum gets the largest default code; -quiet still prints
+// the results; scoring the training rows warns that the scores are
+// in-sample.
+func TestDefaultsInTheCorners(t *testing.T) {
+	dir := t.TempDir()
+	table := func(name string, rows, cols int) string {
+		var b strings.Builder
+		for j := range cols {
+			if j > 0 {
+				b.WriteByte(',')
+			}
+			fmt.Fprintf(&b, "x%d", j)
+		}
+		b.WriteByte('\n')
+		for i := range rows {
+			for j := range cols {
+				if j > 0 {
+					b.WriteByte(',')
+				}
+				fmt.Fprintf(&b, "%.4g", math.Sin(float64(i*(j+1)))+0.1*float64(j%3))
+			}
+			b.WriteByte('\n')
+		}
+		p := filepath.Join(dir, name)
+		require.NoError(t, os.WriteFile(p, []byte(b.String()), 0o644))
+		return p
+	}
+	small := table("small.csv", 40, 4)
+	r := ok(t, quern(t, dir, nil, "train", "-data", small, "-out", "a.qm", "-val", "0"))
+	require.Contains(t, r.stderr, "chosen: length: 10000 epochs of 1 steps (about 10000 steps), without early stopping: there are no validation rows to stop on (-val 0)")
+	require.Contains(t, r.stderr, "wrote a.qm: an autoencoder (ae), 10000 epochs")
+
+	r = ok(t, quern(t, dir, nil, "train", "-data", small, "-out", "b.qm", "-val", "0.25", "-quiet"))
+	require.Contains(t, r.stderr, "wrote b.qm", "-quiet prints the results")
+	require.Contains(t, r.stderr, "threshold ")
+	require.Contains(t, r.stderr, "on data like the 10 validation rows")
+	require.NotContains(t, r.stderr, "chosen:")
+	r = ok(t, quern(t, dir, nil, "inspect", "b.qm"))
+	require.Contains(t, r.stdout, "format version 2")
+	require.Contains(t, r.stdout, "score       input distance score", "30 training rows: the input distance alone")
+
+	r = ok(t, quern(t, dir, nil, "score", "-model", "b.qm", "-data", small, "-out", "s.csv", "-quiet"))
+	require.Contains(t, r.stderr, "holds the rows the model was trained on")
+	other := table("other.csv", 12, 4)
+	r = ok(t, quern(t, dir, nil, "score", "-model", "b.qm", "-data", other, "-out", "s2.csv", "-quiet"))
+	require.NotContains(t, r.stderr, "trained on")
+
+	wide := table("wide.csv", 12, data.SpectrumColumns+1)
+	r = ok(t, quern(t, dir, nil, "train", "-data", wide, "-out", "w.qm", "-epochs", "1", "-val", "0"))
+	require.Contains(t, r.stderr, "chosen: code width 64: the largest default")
+}
+
 // score -keep copies columns, as they are, beside each row's score; a
 // column the file lacks, or -keep on an idx file, is an error naming it.
 func TestScoreKeepsColumns(t *testing.T) {

@@ -103,7 +103,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.BoolVar(&o.cond, "conditional", false, "gan: condition both networks on the labels")
 	fs.Float64Var(&o.falseAlarm, "false-alarm", 0.01, "ae, vae: target false-alarm rate of the threshold")
 	fs.StringVar(&o.score, "score", "", "ae: anomaly score: distance (of the code and the residual from the training rows') or error (mean reconstruction error); default distance, error for images")
-	fs.IntVar(&o.folds, "folds", 0, "ae: cross-fit the residual profile and the threshold over N folds, using every row to train and to calibrate (default 5 for tables under 20000 rows with the distance score, else 0: -val rows held out)")
+	fs.IntVar(&o.folds, "folds", 0, "ae: cross-fit the residual profile and the threshold over N folds, using every row to train and to calibrate (default 5 for tables of 10 to 20000 rows scored by distance when -val is not given, else 0: -val rows held out and calibrate)")
 	fs.StringVar(&o.method, "threshold", "quantile", "ae, vae: threshold method: quantile (for -false-alarm) or max")
 	fs.StringVar(&o.checkpoint, "checkpoint", "", "checkpoint file (default: MODEL.ckpt when -every > 0)")
 	fs.IntVar(&o.every, "every", 0, "write a checkpoint every N epochs")
@@ -174,6 +174,17 @@ func cmdTrain(e *env, args []string) error {
 			}
 		}
 	}
+	score := cmp.Or(o.score, scoreDistance)
+	if o.folds > 0 {
+		switch {
+		case o.kind != ae.Kind || score != scoreDistance:
+			return usagef("-folds: cross-fitting is for autoencoders scored by distance (-kind ae, -score distance)")
+		case o.loss == string(ae.BCE):
+			return usagef("-folds with -loss bce: a BCE autoencoder scores by its reconstruction error, which needs no cross-fitting (give -folds 0, or -loss mse)")
+		case set["val"] && o.val > 0:
+			return usagef("-folds %d with -val %v: cross-fitting trains and calibrates on every row, with no rows held out; give one of them", o.folds, o.val)
+		}
+	}
 	if err := reportFolder(o.report); err != nil {
 		return err
 	}
@@ -183,7 +194,6 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	score := cmp.Or(o.score, scoreDistance)
 	folds := o.folds
 	if !set["folds"] {
 		folds = 0
@@ -194,11 +204,11 @@ func cmdTrain(e *env, args []string) error {
 	}
 	// the rows the models are sized for: those of a fold model when
 	// cross-fitting (the fold models set the length and the threshold)
-	fitRows := full.Rows - int(math.Round(o.val*float64(full.Rows)))
+	fitRows, rowsWhat := full.Rows-int(math.Round(o.val*float64(full.Rows))), "training rows"
 	if folds > 0 {
-		fitRows = full.Rows - (full.Rows+folds-1)/folds
+		fitRows, rowsWhat = full.Rows-(full.Rows+folds-1)/folds, "rows in each cross-fit fold's training part"
 	}
-	why, err := o.chooseDefaults(full, fitRows, set)
+	why, err := o.chooseDefaults(full, fitRows, rowsWhat, set)
 	if err != nil {
 		return err
 	}
@@ -217,13 +227,13 @@ func cmdTrain(e *env, args []string) error {
 	s := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Objective: obj,
 		Optimizer: train.Optimizer{Rate: o.rate, WeightDecay: o.decay, Beta1: o.beta1, Beta2: o.beta2, ClipNorm: o.clip}}
 	if folds > 0 {
-		if o.kind != ae.Kind || rec.Score != scoreDistance {
-			return usagef("-folds: cross-fitting is for autoencoders scored by distance (-kind ae, -score distance)")
-		}
 		ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 		fs := s
 		if !set["epochs"] {
-			fs.Epochs, fs.Patience = 0, 0 // the default budget for each fold's rows
+			fs.Epochs = 0 // the default budget for each fold's rows
+			if !set["patience"] {
+				fs.Patience = 0 // and the default patience
+			}
 		}
 		cf, err := crossFit(ctx, st, &o, full, fs, folds, o.seed, anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm})
 		stop()
@@ -232,11 +242,18 @@ func cmdTrain(e *env, args []string) error {
 		}
 		rec.CrossFit, rec.Validation = cf, 0
 		batches := max(1, (full.Rows+o.batch-1)/o.batch)
-		if !set["epochs"] {
+		length := fmt.Sprintf("for %d epochs (%d steps, the folds' mean at their best)", max(1, (cf.Steps+batches/2)/batches), max(1, (cf.Steps+batches/2)/batches)*batches)
+		if set["epochs"] {
+			length = fmt.Sprintf("for %d epochs (-epochs)", s.Epochs)
+		} else {
 			s.Epochs = max(1, (cf.Steps+batches/2)/batches)
 		}
 		s.Patience = 0
-		rec.Chosen = append(rec.Chosen, fmt.Sprintf("cross-fitted over %d folds: a model per fold trained on the others (stopping early on the fold) gave every row a held-out residual and score, for the residual profile and the threshold; the final model trains on all %d rows for %d epochs (%d steps, the folds' mean at their best) (-folds 0 holds out -val rows instead)", folds, full.Rows, s.Epochs, s.Epochs*batches))
+		foldStop := "stopping early on the fold"
+		if set["epochs"] && !set["patience"] {
+			foldStop = fmt.Sprintf("for %d epochs, without early stopping (-patience adds it)", s.Epochs)
+		}
+		rec.Chosen = append(rec.Chosen, fmt.Sprintf("cross-fitted over %d folds: a model per fold trained on the others (%s) gave every row a held-out residual and score, for the residual profile and the threshold; the final model trains on all %d rows %s (-folds 0 holds out -val rows instead)", folds, foldStop, full.Rows, length))
 		// the length line chooseDefaults wrote was for a held-out split
 		rec.Chosen = slices.DeleteFunc(rec.Chosen, func(c string) bool { return strings.HasPrefix(c, "length:") })
 	}
@@ -493,7 +510,13 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	} else if p, ok := m.(model.Profiler); ok && rec.Score == scoreDistance && trainSet != nil {
 		// runs recorded before -score existed (Score "") keep the error
 		st.begin("profile", func() string { return fmt.Sprintf("%d training rows", trainSet.Rows) })
-		err := p.FitProfile(trainSet.X, trainSet.Rows)
+		var err error
+		if rf, ok := m.(residualFitter); ok {
+			// too few rows for the autoencoder's part, as when cross-fitting
+			err = rf.FitProfileWith(trainSet.X, trainSet.Rows, ae.ProfileSettings{InputOnly: trainSet.Rows < minRows})
+		} else {
+			err = p.FitProfile(trainSet.X, trainSet.Rows)
+		}
 		st.end()
 		if err != nil && !errors.Is(err, anomaly.ErrNoProfile) {
 			return err
@@ -510,7 +533,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 			got, err = c.Calibrate(valSet.X, valSet.Rows, anomaly.Config{Method: anomaly.Max})
 		}
 		if err == nil && got.Rows < anomaly.MinCalibrationRows {
-			st.warn("warning: the threshold rests on %d validation rows (fewer than %d): its false-alarm rate is only known to be below %.1f%% (%.0f%% confidence)", got.Rows, anomaly.MinCalibrationRows, 100*got.FalseAlarmBound, 100*anomaly.BoundConfidence)
+			st.warn("warning: the threshold rests on %s (fewer than %d): its false-alarm rate is only known to be below %.1f%% (%.0f%% confidence)", plural(got.Rows, "validation row"), anomaly.MinCalibrationRows, 100*got.FalseAlarmBound, 100*anomaly.BoundConfidence)
 		}
 		st.end()
 		if err != nil {
@@ -547,7 +570,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	if h.StoppedEarly {
 		line += ", stopped early"
 	}
-	st.say("%s", line)
+	st.result("%s", line)
 	for _, c := range rec.Chosen {
 		st.say("chosen: %s", c)
 	}
@@ -555,11 +578,11 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		st.say("%s", scoreLine)
 	}
 	if th != nil {
-		from := "validation rows"
+		from := plural(th.Rows, "validation row")
 		if th.CrossFitted {
-			from = "cross-fitted scores of the training rows"
+			from = plural(th.Rows, "cross-fitted score") + " of the training rows"
 		}
-		st.say("threshold %.6g (%s), expected false-alarm rate %.2f%%, below %.2f%% with %.0f%% confidence, on data like the %d %s", th.Value, th.Method, 100*th.ExpectedFalseAlarm, 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence, th.Rows, from)
+		st.result("threshold %.6g (%s), expected false-alarm rate %.2f%%, below %.2f%% with %.0f%% confidence, on data like the %s", th.Value, th.Method, 100*th.ExpectedFalseAlarm, 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence, from)
 	}
 	if report != "" {
 		st.say("report: %s", filepath.Join(report, "index.html"))
@@ -571,9 +594,9 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 // profileLine says in the closing lines what a model's score is.
 func profileLine(m model.Model) string {
 	if a, ok := m.(*ae.Model); ok && a.Profile != nil && a.Profile.Weight == 0 {
-		return fmt.Sprintf("score: each row's distance from the training rows under their shrunk covariance alone, too few rows (under %d) for the autoencoder's part (about 1 for rows like them)", minRows)
+		return fmt.Sprintf("score: each row's distance from the training rows under their shrunk covariance alone, too few rows (under %d) for the autoencoder's part (the training rows average about 1; the threshold marks what is unusual)", minRows)
 	}
-	return "score: the average of two distances from the training rows, of each row's code and reconstruction residual and of the row under their shrunk covariance (about 1 for rows like them)"
+	return "score: the average of two distances from the training rows, of each row's code and reconstruction residual and of the row under their shrunk covariance (the training rows average about 1; the threshold marks what is unusual)"
 }
 
 // kindPhrase names a model kind with its article: "an autoencoder".
@@ -832,7 +855,7 @@ func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	}
 	switch {
 	case rows < minRows:
-		out = append(out, fmt.Sprintf("warning: %d training rows: too few to learn from (fewer than %d); expect scores that mean little", rows, minRows))
+		out = append(out, fmt.Sprintf("warning: %s: too few to learn from (fewer than %d); expect scores that mean little", plural(rows, "training row"), minRows))
 	case params > 0 && rows*weightsPerRow < params && d.Image == nil:
 		out = append(out, fmt.Sprintf("warning: %d training rows for %d parameters (more than %d a row): the model can memorise the rows; consider narrower -hidden and -latent (the default width keeps to about %d)", rows, params, weightsPerRow, weightsPerRow))
 	}

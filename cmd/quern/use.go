@@ -47,6 +47,13 @@ func loadModel(path string) (*loaded, error) {
 	return &loaded{path: path, file: f, model: m}, nil
 }
 
+// trainedOn reports whether ds holds the rows the model was trained on,
+// by the data fingerprint in its provenance.
+func (l *loaded) trainedOn(ds *data.Dataset) bool {
+	p, err := modelfile.ProvenanceOf(l.file)
+	return err == nil && p != nil && p.DataFingerprint != "" && p.DataFingerprint == ds.Fingerprint()
+}
+
 // isCheckpoint reports whether the file holds a run's training state.
 func (l *loaded) isCheckpoint() bool {
 	var raw json.RawMessage
@@ -231,7 +238,7 @@ func cmdScore(e *env, args []string) error {
 	var d dataFlags
 	d.register(fs, true)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
-	top := fs.Int("top", 3, "contributing features to list per row")
+	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share: its fraction of the parts of the score the row's columns add (negative parts count as none)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
 	if _, err := parse(e, fs, args, 0); err != nil {
@@ -259,6 +266,9 @@ func cmdScore(e *env, args []string) error {
 	ds, err := l.loadRows(&d, st)
 	if err != nil {
 		return err
+	}
+	if l.trainedOn(ds) {
+		st.warn("warning: %s holds the rows the model was trained on: their scores are in-sample, lower than new rows' would be, so fewer rows are flagged than the expected false-alarm rate; score rows the model has not seen to check the threshold", d.path)
 	}
 	if *top > ds.Cols {
 		*top = ds.Cols // the file stays rectangular: one pair per feature at most
@@ -509,10 +519,13 @@ func cmdInspect(e *env, args []string) error {
 	}
 	w := e.stdout
 	m := l.model
-	fmt.Fprintf(w, "file        %s (%d bytes, format version %d, checksum verified)\n", path, st.Size(), modelfile.Version)
+	fmt.Fprintf(w, "file        %s (%d bytes, format version %d, checksum verified)\n", path, st.Size(), l.file.Version)
 	fmt.Fprintf(w, "kind        %s\n", m.Kind())
 	if cfg, ok := sectionLine(l.file, "config"); ok {
 		fmt.Fprintf(w, "settings    %s\n", readableSettings(cfg))
+	}
+	if n, ok := m.(model.ScoreNamer); ok {
+		fmt.Fprintf(w, "score       %s\n", n.ScoreName())
 	}
 	if sc, ok := m.(model.Scorer); ok {
 		if th := sc.Calibrated(); th != nil {
