@@ -305,7 +305,8 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 	if err != nil {
 		return nil, err
 	}
-	return anomaly.AssessRows(scores, c, cols, m.Columns, top, *m.Threshold), nil
+	owner, names := m.Explained()
+	return anomaly.AssessGrouped(scores, c, cols, owner, names, top, *m.Threshold), nil
 }
 
 // Calibrated returns the model's threshold (nil before calibration).

@@ -117,6 +117,27 @@ func AssessRows(scores, contrib []float64, cols int, names []string, top int, t 
 	return out
 }
 
+// AssessGrouped is AssessRows for inputs that come in groups (the
+// one-hot inputs of a categorical column, a column and its missing-cell
+// indicator): owner[j] is the index in names of input j's group, and a
+// group's contribution is the sum of its inputs'. The top features are
+// then groups. A nil owner is AssessRows.
+func AssessGrouped(scores, contrib []float64, cols int, owner []int, names []string, top int, t Threshold) []Score {
+	if owner == nil {
+		return AssessRows(scores, contrib, cols, names, top, t)
+	}
+	out := make([]Score, len(scores))
+	g := make([]float64, len(names))
+	for r := range out {
+		clear(g)
+		for j, v := range contrib[r*cols : (r+1)*cols] {
+			g[owner[j]] += v
+		}
+		out[r] = Assess(scores[r], g, names, top, t)
+	}
+	return out
+}
+
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 func allFinite(v []float64) bool {

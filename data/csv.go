@@ -21,6 +21,8 @@ type ParseError struct {
 	Column int
 	Name   string // column name, when known
 	Msg    string
+	// text: a cell that is not a number (a typed reading takes it)
+	text bool
 }
 
 func (e *ParseError) Error() string {
@@ -72,6 +74,40 @@ type CSVConfig struct {
 	Limits Limits
 	// Progress, when not nil, is told how much of the file has been read.
 	Progress Progress
+	// Typed reads the feature columns by type: numbers, integers,
+	// booleans and text categories, with missing cells, and sets the
+	// Dataset's Encoding to say how (see Encoding). A table whose feature
+	// cells are all numbers is read in one pass; any other takes three
+	// (the numbers tried, the columns surveyed, the rows encoded).
+	// Without Typed every feature cell must be a finite number.
+	Typed bool
+	// Types gives the type of the named columns instead of the one
+	// inferred (Typed only).
+	Types map[string]FieldType
+	// Missing lists the texts that mark a missing cell besides the empty
+	// cell (Typed only); nil means DefaultMissing.
+	Missing []string
+	// MaxLevels caps a categorical column's distinct values (Typed only;
+	// 0: DefaultMaxLevels).
+	MaxLevels int
+	// Encoding reads the file by a model's encoding: its fields by name
+	// (by position with NoHeader; Columns, when set, gives the file's
+	// names for the fields in their order), each cell encoded as it says;
+	// a cell it cannot read is filled in and noted (Dataset.Notes), never
+	// an error. Typed is then ignored.
+	Encoding *Encoding
+
+	// pass is the typed reading's pass (internal)
+	pass *typedPass
+}
+
+// typedPass is one pass of a typed reading: a survey of the columns, or
+// the rows encoded.
+type typedPass struct {
+	survey   []*columnSurvey // filled by a survey pass
+	cols     []int           // the surveyed columns' 1-based places in the file
+	cells    *cellReader     // set for an encoding pass
+	training bool
 }
 
 // LoadCSV reads a CSV file (plain or gzip-compressed, told apart by
@@ -80,20 +116,22 @@ type CSVConfig struct {
 // or a row with the wrong number of fields is a *ParseError naming the
 // line and column.
 func LoadCSV(path string, cfg CSVConfig) (*Dataset, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return nil, fmt.Errorf("data: %w", err)
-	}
-	defer f.Close()
-	r, gz, err := maybeGzip(withProgress(f, cfg.Progress))
-	if err != nil {
-		return nil, &ParseError{File: path, Msg: err.Error()}
-	}
-	size := int64(-1)
-	if st, err := f.Stat(); err == nil && st.Mode().IsRegular() && !gz {
-		size = st.Size()
-	}
-	return readCSV(r, path, cfg, size)
+	return readTyped(func(cfg CSVConfig) (*Dataset, error) {
+		f, err := os.Open(path)
+		if err != nil {
+			return nil, fmt.Errorf("data: %w", err)
+		}
+		defer f.Close()
+		r, gz, err := maybeGzip(withProgress(f, cfg.Progress))
+		if err != nil {
+			return nil, &ParseError{File: path, Msg: err.Error()}
+		}
+		size := int64(-1)
+		if st, err := f.Stat(); err == nil && st.Mode().IsRegular() && !gz {
+			size = st.Size()
+		}
+		return readCSV(r, path, cfg, size)
+	}, path, cfg)
 }
 
 // maybeGzip returns a reader that decompresses r when it starts with
@@ -115,7 +153,22 @@ func ReadCSVStream(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
 	if err != nil {
 		return nil, &ParseError{File: name, Msg: err.Error()}
 	}
-	return readCSV(zr, name, cfg, -1)
+	if !cfg.Typed || cfg.Encoding != nil {
+		return readCSV(zr, name, cfg, -1)
+	}
+	// a typed reading may take more than one pass: the text is kept
+	// (within the byte limit)
+	lim, err := cfg.Limits.resolve()
+	if err != nil {
+		return nil, err
+	}
+	text, err := io.ReadAll(&limitReader{r: zr, name: name, max: lim.Bytes, maxLine: lim.Line})
+	if err != nil {
+		return nil, csvErr(name, 0, err)
+	}
+	return readTyped(func(cfg CSVConfig) (*Dataset, error) {
+		return readCSV(bytes.NewReader(text), name, cfg, int64(len(text)))
+	}, name, cfg)
 }
 
 // sniffSeparator picks a line's field separator: the most frequent of
@@ -148,7 +201,7 @@ func sniffSeparator(line []byte) rune {
 // a quote is split at its separators directly, one with quotes (which may
 // span lines) goes through encoding/csv.
 func ReadCSV(r io.Reader, name string, cfg CSVConfig) (*Dataset, error) {
-	return readCSV(r, name, cfg, -1)
+	return ReadCSVStream(r, name, cfg)
 }
 
 // readCSV is ReadCSV knowing the text's size in bytes (-1: unknown), so
@@ -226,6 +279,24 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 		label = i
 	}
 	var sel []int
+	if cfg.Encoding != nil {
+		switch {
+		case cfg.Columns == nil:
+			cfg.Columns = cfg.Encoding.Names()
+		case len(cfg.Columns) != len(cfg.Encoding.Fields):
+			// the file's names for the fields, in their order
+			return nil, fmt.Errorf("%w: %d columns named for the %d the model reads (%s)", ErrConfig, len(cfg.Columns), len(cfg.Encoding.Fields), strings.Join(cfg.Encoding.Names(), ", "))
+		}
+		if cfg.NoHeader {
+			// by position: the file's first columns are the fields
+			if width < len(cfg.Columns) {
+				return nil, &ParseError{File: name, Line: firstLine, Msg: fmt.Sprintf("%d columns, the model reads %d", width, len(cfg.Columns))}
+			}
+			for i := range cfg.Columns {
+				index[cfg.Columns[i]] = i
+			}
+		}
+	}
 	if cfg.Columns != nil {
 		for _, c := range cfg.Columns {
 			i, ok := index[c]
@@ -255,6 +326,22 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	for _, i := range sel {
 		d.Columns = append(d.Columns, header[i])
 	}
+	pass := cfg.pass
+	if cfg.Encoding != nil {
+		if pass == nil {
+			pass = &typedPass{}
+		}
+		pass.cells = newCellReader(cfg.Encoding, pass.training)
+		d.Cols, d.Columns, d.Encoding = cfg.Encoding.Width(), cfg.Encoding.Columns(), cfg.Encoding
+	}
+	if pass != nil && pass.cells == nil {
+		// a survey: the columns are counted, no rows kept
+		pass.survey = make([]*columnSurvey, len(sel))
+		for i := range pass.survey {
+			pass.survey[i] = newColumnSurvey()
+			pass.cols = append(pass.cols, sel[i]+1)
+		}
+	}
 	var keep []int
 	for _, c := range cfg.Keep {
 		i, ok := index[c]
@@ -267,7 +354,7 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	if label >= 0 {
 		d.Labels = []int{}
 	}
-	p := &rowParser{name: name, header: header, sel: sel, keep: keep, label: label, width: width, lr: lr, size: size}
+	p := &rowParser{name: name, header: header, sel: sel, keep: keep, label: label, width: width, lr: lr, size: size, pass: pass, cfg: &cfg}
 	var pending *csvBatch
 	if cfg.NoHeader {
 		// the first record is a row

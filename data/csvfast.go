@@ -163,7 +163,9 @@ type csvBatch struct {
 	x        []float32
 	labels   []int
 	kept     []string
-	rowLines []int // the line of each parsed row
+	rowLines []int           // the line of each parsed row
+	notes    []RowNote       // an encoding pass's notes, Row counted in the batch
+	survey   []*columnSurvey // a survey pass's counts of this batch
 	err      error
 }
 
@@ -192,14 +194,33 @@ type rowParser struct {
 	width  int
 	lr     *lineReader
 	size   int64 // the text's bytes, -1 when unknown
+	pass   *typedPass
+	cfg    *CSVConfig
 }
 
 // parse parses a batch's records into its rows, stopping at the first
 // bad record.
 func (p *rowParser) parse(b *csvBatch) {
-	var fields []string
+	var fields, cells []string
 	prev := 0
-	b.x = make([]float32, 0, len(b.ends)*len(p.sel))
+	var missing func(string) bool
+	maxLevels := cmpOrInt(p.cfg.MaxLevels, DefaultMaxLevels)
+	switch {
+	case p.pass != nil && p.pass.cells != nil:
+		b.x = make([]float32, 0, len(b.ends)*p.pass.cells.e.Width())
+	case p.pass != nil:
+		b.survey = make([]*columnSurvey, len(p.sel))
+		for i := range b.survey {
+			b.survey[i] = newColumnSurvey()
+		}
+		markers := map[string]bool{}
+		for _, m := range markersOf(p.cfg) {
+			markers[m] = true
+		}
+		missing = func(s string) bool { return s == "" || markers[s] }
+	default:
+		b.x = make([]float32, 0, len(b.ends)*len(p.sel))
+	}
 	for k, end := range b.ends {
 		rec := b.text[prev:end]
 		prev = end
@@ -216,7 +237,27 @@ func (p *rowParser) parse(b *csvBatch) {
 			b.err = &ParseError{File: p.name, Line: line, Msg: fmt.Sprintf("row has %d fields, want %d", len(fields), p.width)}
 			return
 		}
+		switch {
+		case p.pass != nil && p.pass.cells != nil:
+			cells = cells[:0]
+			for _, i := range p.sel {
+				cells = append(cells, strings.TrimSpace(fields[i]))
+			}
+			var note string
+			var unscorable bool
+			b.x, note, unscorable = p.pass.cells.row(b.x, cells)
+			if note != "" {
+				b.notes = append(b.notes, RowNote{Row: len(b.rowLines), Line: line, Text: note, Unscorable: unscorable})
+			}
+		case p.pass != nil:
+			for k, i := range p.sel {
+				b.survey[k].add(strings.TrimSpace(fields[i]), line, missing, maxLevels)
+			}
+		}
 		for _, i := range p.sel {
+			if p.pass != nil {
+				break
+			}
 			s := strings.TrimSpace(fields[i])
 			v, err := parseFloat32(s)
 			if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
@@ -224,7 +265,7 @@ func (p *rowParser) parse(b *csvBatch) {
 				if errors.Is(err, strconv.ErrRange) {
 					msg = fmt.Sprintf("%q is outside the float32 range", s)
 				}
-				b.err = &ParseError{File: p.name, Line: line, Column: i + 1, Name: p.header[i], Msg: msg}
+				b.err = &ParseError{File: p.name, Line: line, Column: i + 1, Name: p.header[i], Msg: msg, text: !errors.Is(err, strconv.ErrRange)}
 				return
 			}
 			b.x = append(b.x, float32(v))
@@ -299,6 +340,15 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 			d.Labels = append(d.Labels, b.labels...)
 		}
 		d.Kept = append(d.Kept, b.kept...)
+		for _, nt := range b.notes {
+			nt.Row += d.Rows
+			d.Notes = append(d.Notes, nt)
+		}
+		if p.pass != nil && b.survey != nil {
+			for k, c := range b.survey {
+				p.pass.survey[k].merge(c, cmpOrInt(p.cfg.MaxLevels, DefaultMaxLevels))
+			}
+		}
 		d.Rows += n
 		return b.err
 	}

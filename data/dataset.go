@@ -35,6 +35,18 @@ type Dataset struct {
 	// timestamp). Split, SplitInPlace and Subset leave it behind.
 	Kept        []string
 	KeptColumns []string
+	// Encoding, for a table read by type (CSVConfig.Typed or Encoding),
+	// says how the file's columns became these (then Columns names the
+	// inputs: see Encoding.Columns); nil for a table of numbers read as
+	// they are. Split and Subset keep it.
+	Encoding *Encoding
+	// Notes are what reading rows by an encoding found worth saying, in
+	// row order (a cell filled in, an unseen level, an unscorable row).
+	// Split and Subset leave them behind.
+	Notes []RowNote
+	// Skipped lists the lines of training rows left out for having no
+	// observed cell.
+	Skipped []int
 }
 
 // New wraps x (rows x cols, row-major) in a Dataset, checking the length and
@@ -75,7 +87,7 @@ func (d *Dataset) Classes() int {
 
 // Subset copies the rows at idx, in that order, into a new Dataset.
 func (d *Dataset) Subset(idx []int) *Dataset {
-	s := &Dataset{Rows: len(idx), Cols: d.Cols, X: make([]float32, len(idx)*d.Cols), Columns: d.Columns, Image: d.Image}
+	s := &Dataset{Rows: len(idx), Cols: d.Cols, X: make([]float32, len(idx)*d.Cols), Columns: d.Columns, Image: d.Image, Encoding: d.Encoding}
 	if d.Labels != nil {
 		s.Labels = make([]int, len(idx))
 	}
@@ -141,7 +153,7 @@ func (d *Dataset) SplitInPlace(valFrac float64, rng *rand.Rand) (train, val *Dat
 	d.gather(order)
 	nt := d.Rows - nv
 	view := func(lo, hi int) *Dataset {
-		v := &Dataset{Rows: hi - lo, Cols: d.Cols, X: d.X[lo*d.Cols : hi*d.Cols : hi*d.Cols], Columns: d.Columns, Image: d.Image}
+		v := &Dataset{Rows: hi - lo, Cols: d.Cols, X: d.X[lo*d.Cols : hi*d.Cols : hi*d.Cols], Columns: d.Columns, Image: d.Image, Encoding: d.Encoding}
 		if d.Labels != nil {
 			v.Labels = d.Labels[lo:hi:hi]
 		}
@@ -312,4 +324,7 @@ func CheckRows(x []float32, rows, cols int, what string) error {
 type Schema struct {
 	Columns []string
 	Image   []int
+	// Encoding, for a model of a table read by type, says how the
+	// table's columns become Columns.
+	Encoding *Encoding
 }

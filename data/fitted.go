@@ -13,7 +13,24 @@ type Fitted struct {
 	// Image is the height, width and channels of image rows (nil for
 	// tabular data).
 	Image []int `json:"image,omitempty"`
+	// Encoding, for a table read by type, says how its columns became
+	// the inputs (Columns then names the inputs); later files are read by
+	// it (CSVConfig.Encoding).
+	Encoding *Encoding `json:"encoding,omitempty"`
+}
+
+// Explained gives what a score's contributions are reported by: with an
+// encoding that groups inputs (a categorical column's levels, a missing
+// cell's indicator), each input's column (owner) and the columns' names;
+// otherwise a nil owner and the inputs' names.
+func (f *Fitted) Explained() (owner []int, names []string) {
+	if f.Encoding != nil && !f.Encoding.Plain() {
+		return f.Encoding.Owners(), f.Encoding.Names()
+	}
+	return nil, f.Columns
 }
 
 // Schema names the columns and, for images, their shape.
-func (f *Fitted) Schema() Schema { return Schema{Columns: f.Columns, Image: f.Image} }
+func (f *Fitted) Schema() Schema {
+	return Schema{Columns: f.Columns, Image: f.Image, Encoding: f.Encoding}
+}

@@ -96,7 +96,7 @@ func (r *aeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data
 		return nil, nil, err
 	}
 	if r.m.Columns == nil {
-		r.m.Columns, r.m.Image = trainSet.Columns, trainSet.Image
+		r.m.Columns, r.m.Image, r.m.Encoding = trainSet.Columns, trainSet.Image, trainSet.Encoding
 	}
 	r.lo, r.hi = colRange(tr, r.rowScaler())
 	if r.trainPhase == nil {

@@ -214,7 +214,7 @@ func (r *ganRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		return nil, nil, err
 	}
 	if r.m.Columns == nil {
-		r.m.Columns, r.m.Image = trainSet.Columns, trainSet.Image
+		r.m.Columns, r.m.Image, r.m.Encoding = trainSet.Columns, trainSet.Image, trainSet.Encoding
 	}
 	r.train = tr
 	r.dataSpread = math.Max(spreadScaled(tr, r.rowScaler()), 1e-12)

@@ -63,7 +63,7 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		return nil, nil, err
 	}
 	if r.m.Columns == nil {
-		r.m.Columns, r.m.Image = trainSet.Columns, trainSet.Image
+		r.m.Columns, r.m.Image, r.m.Encoding = trainSet.Columns, trainSet.Image, trainSet.Encoding
 	}
 	if r.c.Likelihood == vae.Bernoulli {
 		for _, d := range []*data.Dataset{tr, va} {

@@ -95,7 +95,8 @@ func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
 	if err != nil {
 		return nil, err
 	}
-	return anomaly.AssessRows(s, c, m.cfg.Inputs, m.Columns, top, *m.Threshold), nil
+	owner, names := m.Explained()
+	return anomaly.AssessGrouped(s, c, m.cfg.Inputs, owner, names, top, *m.Threshold), nil
 }
 
 // ScoreName names what RowScores measure.

@@ -26,6 +26,20 @@ type dataFlags struct {
 	keep     string // CSV columns kept as text (score's -keep)
 	exclude  string // CSV columns that are not features (evaluate's text label)
 	delim    string
+	// a training read: CSV columns by type (see registerTyped)
+	typed   bool
+	types   string
+	missing string
+	// a model's encoding to read a CSV by (loadFor)
+	enc *data.Encoding
+}
+
+// registerTyped adds the flags of a training read, which infers the CSV
+// columns' types.
+func (d *dataFlags) registerTyped(fs *flag.FlagSet) {
+	d.typed = true
+	fs.StringVar(&d.types, "types", "", "CSV column types instead of the inferred ones, `COLUMN=TYPE,...` with TYPE numeric, integer, boolean or categorical (inferred: numbers, whole numbers, two texts such as yes/no, other texts)")
+	fs.StringVar(&d.missing, "missing", "", "comma-separated texts that mark a missing CSV cell besides the empty cell (default NA,N/A,NaN,nan,?); none: only the empty cell")
 }
 
 func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
@@ -125,16 +139,18 @@ type dataSpec struct {
 	Grey     bool   `json:"grey,omitempty"`
 	Limits   string `json:"limits,omitempty"`
 	Delim    string `json:"delimiter,omitempty"`
+	Types    string `json:"types,omitempty"`
+	Missing  string `json:"missing,omitempty"`
 }
 
 func (d *dataFlags) spec() dataSpec {
-	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey, Limits: d.limits.String(), Delim: d.delim}
+	return dataSpec{Path: d.path, Labels: d.labels, Label: d.label, Columns: d.columns, NoHeader: d.noHeader, Skip: d.skip, Grey: d.grey, Limits: d.limits.String(), Delim: d.delim, Types: d.types, Missing: d.missing}
 }
 
 // flags turns a recorded spec back into flags; limits that no longer
 // parse (a file edited by hand) are an error naming them.
 func (s dataSpec) flags() (dataFlags, error) {
-	d := dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey, delim: s.Delim}
+	d := dataFlags{path: s.Path, labels: s.Labels, label: s.Label, columns: s.Columns, noHeader: s.NoHeader, skip: s.Skip, grey: s.Grey, delim: s.Delim, types: s.Types, missing: s.Missing, typed: true}
 	if s.Limits != "" {
 		if err := d.limits.Set(s.Limits); err != nil {
 			return d, fmt.Errorf("the recorded -limit %q: %v", s.Limits, err)
@@ -180,7 +196,20 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 	if err != nil {
 		return nil, "", err
 	}
-	csvCfg := data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep), Exclude: splitList(d.exclude), Comma: comma, Limits: d.limits.l}
+	csvCfg := data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Label: d.label, Keep: splitList(d.keep), Exclude: splitList(d.exclude), Comma: comma, Limits: d.limits.l,
+		Typed: d.typed, Encoding: d.enc}
+	if d.typed {
+		if csvCfg.Types, err = data.ParseTypes(d.types); err != nil {
+			return nil, "", usagef("-types %s", strings.TrimPrefix(err.Error(), "data: invalid configuration: "))
+		}
+		switch strings.TrimSpace(d.missing) {
+		case "":
+		case "none":
+			csvCfg.Missing = []string{}
+		default:
+			csvCfg.Missing = splitList(d.missing)
+		}
+	}
 	if d.path == "-" {
 		// standard input: CSV, plain or gzip
 		if st != nil {
@@ -230,7 +259,22 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 // -columns are given, so extra columns (an id, a timestamp) are ignored.
 // A column the header lacks is an error naming it: never a silent read by
 // position of columns that may mean something else.
-func (d *dataFlags) loadFor(columns []string, cols int, st *status) (*data.Dataset, error) {
+func (d *dataFlags) loadFor(schema data.Schema, cols int, st *status) (*data.Dataset, error) {
+	columns := schema.Columns
+	if enc := schema.Encoding; enc != nil && !d.typed {
+		if f, err := data.Detect(d.path); d.path == "-" || (err == nil && f == data.FormatCSV) {
+			// the model's encoding names its columns and reads each cell
+			d.enc = enc
+			ds, _, err := d.load(st)
+			d.enc = nil
+			var pe *data.ParseError
+			if errors.As(err, &pe) && strings.HasPrefix(pe.Msg, "no column ") {
+				return nil, fmt.Errorf("%s: the model's column %s is not in the header (the model reads %s by name, in any order); give -columns with the file's names for them in that order, or -no-header to read by position",
+					d.path, strings.TrimPrefix(pe.Msg, "no column "), strings.Join(enc.Names(), ", "))
+			}
+			return ds, err
+		}
+	}
 	if d.columns == "" && !d.noHeader && len(columns) == cols && columns[0] != "" && columns[0] != "c0" {
 		if f, err := data.Detect(d.path); d.path == "-" || (err == nil && f == data.FormatCSV) {
 			saved := d.columns

@@ -76,7 +76,11 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, rowsWhat string, s
 			}
 			k := data.ComponentsFor(ev, codeVariance)
 			o.latent = min(max(k, 1), capAt)
-			reason = fmt.Sprintf("%s explain %.0f%% of the variance of the rows (%s scaling)", plural(k, "principal component"), 100*codeVariance, kind)
+			verb := "explain"
+			if k == 1 {
+				verb = "explains"
+			}
+			reason = fmt.Sprintf("%s %s %.0f%% of the variance of the rows (%s scaling)", plural(k, "principal component"), verb, 100*codeVariance, kind)
 			if k > capAt {
 				reason += fmt.Sprintf(", capped at %d", capAt)
 			}

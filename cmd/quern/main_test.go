@@ -148,7 +148,7 @@ func TestBadInput(t *testing.T) {
 		want string
 	}{
 		{"ragged", []string{"train", "-data", write("r.csv", "a,b\n1,2\n3\n"), "-out", "m.qm"}, 1, "r.csv:3"},
-		{"nan", []string{"train", "-data", write("n.csv", "a,b\n1,2\n3,NaN\n"), "-out", "m.qm"}, 1, "column 2 (b)"},
+		{"infinite", []string{"train", "-data", write("n.csv", "a,b\n1,2\n3,inf\n"), "-out", "m.qm"}, 1, `n.csv:3: column 2 (b): "inf" is outside the float32 range`},
 		{"idx size", []string{"train", "-data", write("x.idx", "\x00\x00\x08\x02\x00\x00\x00\x05\x00\x00\x00\x02ab"), "-out", "m.qm"}, 1, "declares"},
 		{"idx magic", []string{"train", "-data", write("images-idx3-ubyte", "\x08\x03\x00\x00\x00\x00\x00\x01\x00\x00\x00\x01\x00\x00\x00\x01a"), "-out", "m.qm"}, 1, "not an idx file (magic"},
 		{"mixed images", []string{"train", "-data", mixed, "-out", "m.qm"}, 1, "b.png"},

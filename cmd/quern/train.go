@@ -74,6 +74,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs := newFlags(e, "train", "-kind ae|vae|gan -data FILE -out MODEL [flags]\n       quern train -resume CHECKPOINT [-out MODEL] [-data FILE] [-limit KEY=N] [-epochs N]")
 	fs.StringVar(&o.kind, "kind", "ae", "model kind: ae (autoencoder), vae (variational autoencoder) or gan")
 	o.data.register(fs, true)
+	o.data.registerTyped(fs)
 	fs.StringVar(&o.out, "out", "", "model file to write (required, except when resuming CHECKPOINT.ckpt)")
 	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: ae and vae one layer, 2 per input column within 16..256; gan the model's)")
 	fs.IntVar(&o.latent, "latent", 0, "code / latent width (default: ae and vae the principal components for 90% of the variance, at most 64; gan none)")

@@ -97,7 +97,7 @@ func openAs[C any](command, needs string, paths map[string]string) (*loaded, C, 
 // loadRows loads the data flags' rows for the model: by its column names
 // where the file has a header.
 func (l *loaded) loadRows(d *dataFlags, st *status) (*data.Dataset, error) {
-	return d.loadFor(l.model.Schema().Columns, l.model.Width(), st)
+	return d.loadFor(l.model.Schema(), l.model.Width(), st)
 }
 
 // output opens path for writing ("-" or empty: standard output).
@@ -270,8 +270,12 @@ func cmdScore(e *env, args []string) error {
 	if l.trainedOn(ds) {
 		st.warn("warning: %s holds the rows the model was trained on: their scores are in-sample, lower than new rows' would be, so fewer rows are flagged than the expected false-alarm rate; score rows the model has not seen to check the threshold", d.path)
 	}
-	if *top > ds.Cols {
-		*top = ds.Cols // the file stays rectangular: one pair per feature at most
+	features := ds.Cols
+	if enc := ds.Encoding; enc != nil && !enc.Plain() {
+		features = len(enc.Fields) // contributions by the file's columns
+	}
+	if *top > features {
+		*top = features // the file stays rectangular: one pair per feature at most
 	}
 	w, closeOut, err := output(e, *out)
 	if err != nil {
@@ -284,15 +288,32 @@ func cmdScore(e *env, args []string) error {
 		header = append(header, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k))
 	}
 	cw.Write(append(header, "status"))
-	flagged, unscorable := 0, 0
+	flagged, unscorable, noted := 0, 0, 0
+	notes := ds.Notes // in row order
 	rec := make([]string, 0, len(header)+1)
 	err = inChunks(st, "score", ds.Rows, func(lo, hi int) ([]anomaly.Score, error) {
 		return sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
 	}, func(lo, hi int, scores []anomaly.Score) error {
 		for i, s := range scores {
+			var note *data.RowNote
+			for len(notes) > 0 && notes[0].Row <= lo+i {
+				if notes[0].Row == lo+i {
+					note = &notes[0]
+				}
+				notes = notes[1:]
+			}
+			if note != nil && note.Unscorable && s.Unscorable == "" {
+				// never reported as normal: flagged, with no score
+				s = anomaly.Score{Value: math.NaN(), Threshold: s.Threshold, Anomaly: true, Unscorable: note.Text}
+				note = nil
+			}
 			rec = append(rec[:0], strconv.Itoa(lo+i+1))
 			rec = append(rec, ds.Kept[(lo+i)*nk:(lo+i+1)*nk]...)
-			rec = append(rec, strconv.FormatFloat(s.Value, 'g', 8, 64), strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
+			value := strconv.FormatFloat(s.Value, 'g', 8, 64)
+			if s.Unscorable != "" {
+				value = ""
+			}
+			rec = append(rec, value, strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			for k := 0; k < *top; k++ {
 				if k >= len(s.Top) {
 					rec = append(rec, "", "")
@@ -312,6 +333,10 @@ func cmdScore(e *env, args []string) error {
 			} else if s.Anomaly {
 				flagged++
 			}
+			if note != nil {
+				status += "; read: " + note.Text
+				noted++
+			}
 			cw.Write(append(rec, status))
 		}
 		cw.Flush()
@@ -327,7 +352,10 @@ func cmdScore(e *env, args []string) error {
 	st.end()
 	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%%s)", ds.Rows, flagged, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(*th))
 	if unscorable > 0 {
-		line += fmt.Sprintf("; %d unscorable rows, flagged (outside the range the model can represent: see the status column)", unscorable)
+		line += fmt.Sprintf("; %s, flagged (see the status column)", plural(unscorable, "unscorable row"))
+	}
+	if noted > 0 {
+		line += fmt.Sprintf("; %s with cells filled in or levels not seen in training (the status column says which)", plural(noted, "row"))
 	}
 	fmt.Fprintln(e.stderr, line)
 	fmt.Fprintln(e.stderr, anomaly.Caution)
@@ -523,6 +551,13 @@ func cmdInspect(e *env, args []string) error {
 	fmt.Fprintf(w, "kind        %s\n", m.Kind())
 	if cfg, ok := sectionLine(l.file, "config"); ok {
 		fmt.Fprintf(w, "settings    %s\n", readableSettings(cfg))
+	}
+	if enc := m.Schema().Encoding; enc != nil && !enc.Plain() {
+		var parts []string
+		for i := range enc.Fields {
+			parts = append(parts, enc.Fields[i].Describe())
+		}
+		fmt.Fprintf(w, "fields      %s\n", strings.Join(parts, "; "))
 	}
 	if n, ok := m.(model.ScoreNamer); ok {
 		fmt.Fprintf(w, "score       %s\n", n.ScoreName())

@@ -3,6 +3,7 @@ package modelio
 import (
 	"encoding/json"
 	"fmt"
+	"slices"
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/layers"
@@ -42,6 +43,14 @@ func Check(kind string, f *modelfile.File, s Spec, rows data.Fitted) error {
 	}
 	if rows.Columns != nil && len(rows.Columns) != s.Width {
 		return fmt.Errorf("%s: the file names %d columns for rows of %d", kind, len(rows.Columns), s.Width)
+	}
+	if e := rows.Encoding; e != nil {
+		if err := e.Check(); err != nil {
+			return fmt.Errorf("%s: %w", kind, err)
+		}
+		if e.Width() != s.Width || !slices.Equal(e.Columns(), rows.Columns) {
+			return fmt.Errorf("%s: the file's encoding makes %d inputs named %v, its rows have %d named %v", kind, e.Width(), e.Columns(), s.Width, rows.Columns)
+		}
 	}
 	if rows.Image != nil {
 		if !imageOf(rows.Image, s.Width) {

@@ -1,0 +1,108 @@
+package main
+
+import (
+	"encoding/csv"
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+// writePayments writes an invented table of card payments: an
+// identifier, an amount (some cells empty), an item count, a yes/no
+// column, a channel and a country (some NA), n rows from seed.
+func writePayments(t *testing.T, path string, n int, seed uint64) {
+	t.Helper()
+	r := rand.New(rand.NewPCG(seed, 7))
+	var b strings.Builder
+	b.WriteString("id,amount,items,card_present,channel,country\n")
+	for i := range n {
+		ch := []string{"web", "web", "shop", "phone"}[r.IntN(4)]
+		amount := fmt.Sprintf("%.2f", 20+10*r.NormFloat64())
+		if ch == "shop" {
+			amount = fmt.Sprintf("%.2f", 60+15*r.NormFloat64())
+		}
+		if r.Float64() < 0.05 {
+			amount = ""
+		}
+		country := []string{"FR", "FR", "DE", "ES"}[r.IntN(4)]
+		if r.Float64() < 0.05 {
+			country = "NA"
+		}
+		present := "no"
+		if ch == "shop" {
+			present = "yes"
+		}
+		fmt.Fprintf(&b, "tx%05d,%s,%d,%s,%s,%s\n", i, amount, 1+r.IntN(4), present, ch, country)
+	}
+	require.NoError(t, os.WriteFile(path, []byte(b.String()), 0o644))
+}
+
+// A table with text categories, a yes/no column and missing cells trains
+// at the defaults; it scores by column name in any order, with the
+// cells it could not read said in the status column, contributions by
+// the file's columns, rows with nothing to score flagged as unscorable;
+// inspect lists the fields.
+func TestTypedTableThroughTheCommandLine(t *testing.T) {
+	dir := t.TempDir()
+	writePayments(t, filepath.Join(dir, "pay.csv"), 400, 1)
+	r := ok(t, quern(t, dir, nil, "train", "-data", "pay.csv", "-columns", "amount,items,card_present,channel,country", "-out", "m.qm", "-epochs", "3", "-quiet"))
+	require.NotContains(t, r.stderr, "error")
+	r = ok(t, quern(t, dir, nil, "inspect", "m.qm"))
+	require.Contains(t, r.stdout, "fields      amount numeric, ")
+	require.Contains(t, r.stdout, "missing filled with")
+	require.Contains(t, r.stdout, "card_present boolean (yes/no); channel categorical (3 levels); country categorical (3 levels), ")
+
+	later := "country,extra,channel,card_present,items,amount,id\n" +
+		"FR,1,web,no,2,21.5,a1\n" +
+		"US,1,fax,maybe,x,25,a2\n" +
+		",1,,,,,a3\n" +
+		"DE,1,shop,yes,3,,a4\n" +
+		"ES,1,shop,no,1,900,a5\n"
+	require.NoError(t, os.WriteFile(filepath.Join(dir, "later.csv"), []byte(later), 0o644))
+	r = ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", "later.csv", "-keep", "id", "-out", "s.csv", "-quiet"))
+	require.Contains(t, r.stderr, "1 unscorable row, flagged (see the status column)")
+	require.Contains(t, r.stderr, "2 rows with cells filled in or levels not seen in training")
+	f, err := os.Open(filepath.Join(dir, "s.csv"))
+	require.NoError(t, err)
+	defer f.Close()
+	recs, err := csv.NewReader(f).ReadAll() // fails on a ragged file
+	require.NoError(t, err)
+	require.Len(t, recs, 6)
+	require.Equal(t, []string{"row", "id", "score", "threshold", "anomaly", "feature1", "share1", "feature2", "share2", "feature3", "share3", "status"}, recs[0])
+	require.Equal(t, "ok", recs[1][11])
+	require.Contains(t, recs[2][11], `channel: level "fax" not seen in training`)
+	require.Contains(t, recs[2][11], `card_present: "maybe" is neither "yes" nor "no"`)
+	require.Equal(t, []string{"3", "a3", "", recs[3][3], "true", "", "", "", "", "", "", "unscorable: no observed cell"}, recs[3])
+	require.Contains(t, recs[4][11], "read: amount: missing, filled with")
+	require.Equal(t, "true", recs[5][4], "a 900 payment at a shop without the card is flagged")
+	for _, rec := range recs[1:] {
+		for k := 5; k < 11; k += 2 {
+			require.NotContains(t, rec[k], "=", "features are the file's columns, not one-hot parts")
+		}
+	}
+
+	// a column the model reads is missing: an error naming it
+	require.NoError(t, os.WriteFile(filepath.Join(dir, "short.csv"), []byte("amount,items,card_present,channel\n1,2,yes,web\n"), 0o644))
+	r = quern(t, dir, nil, "score", "-model", "m.qm", "-data", "short.csv", "-out", "s2.csv")
+	require.Equal(t, 1, r.code)
+	require.Contains(t, r.stderr, `the model's column "country" is not in the header`)
+	// -top 0 keeps the file rectangular
+	ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", "later.csv", "-top", "0", "-out", "s3.csv", "-quiet"))
+	b, err := os.ReadFile(filepath.Join(dir, "s3.csv"))
+	require.NoError(t, err)
+	_, err = csv.NewReader(strings.NewReader(string(b))).ReadAll()
+	require.NoError(t, err)
+
+	// type overrides and markers reach the model; a bad one is named
+	r = ok(t, quern(t, dir, nil, "train", "-data", "pay.csv", "-columns", "amount,items,channel", "-types", "items=categorical", "-missing", "none", "-out", "m2.qm", "-epochs", "1", "-quiet"))
+	r = ok(t, quern(t, dir, nil, "inspect", "m2.qm"))
+	require.Contains(t, r.stdout, "items categorical (4 levels)")
+	r = quern(t, dir, nil, "train", "-data", "pay.csv", "-types", "items=text", "-out", "m3.qm")
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, `-types "items=text": want COLUMN=TYPE`)
+}

@@ -1,0 +1,117 @@
+package data
+
+import (
+	"math"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+// A table of numbers, integers, booleans, categories and missing cells:
+// the types, levels, fills (medians, worked by hand) and indicators
+// inferred, the inputs one-hot, and later files read by the encoding by
+// column name, with what could not be read noted, never an error.
+func TestTypedTable(t *testing.T) {
+	const train = "id,amount,items,card,channel,country\n" +
+		"1,10.5,1,yes,web,FR\n" +
+		"2,,2,no,shop,DE\n" +
+		"3,3.25,NA,yes,web,\n" +
+		"4,7,4,,phone,FR\n" +
+		"5,1,3,no,web,FR\n" +
+		",,?,,,\n"
+	d, err := ReadCSV(strings.NewReader(train), "pay.csv", CSVConfig{Typed: true, Exclude: []string{"id"}})
+	require.NoError(t, err)
+	e := d.Encoding
+	require.NotNil(t, e)
+	require.Equal(t, []int{7}, d.Skipped, "the row without an observed cell is left out")
+	require.Equal(t, 5, d.Rows)
+	want := []Field{
+		// observed 10.5, 3.25, 7, 1: median (3.25+7)/2
+		{Name: "amount", Type: Numeric, Fill: 5.125, Indicator: true, Missing: 2, Min: 1, Max: 10.5},
+		// observed 1, 2, 4, 3: median 2.5, rounded to 3 (half away from zero)
+		{Name: "items", Type: Integer, Fill: 3, Indicator: true, Missing: 2, Min: 1, Max: 4},
+		// yes, no, yes, no: median of 1, 0, 1, 0 is 0.5, rounded to 1
+		{Name: "card", Type: Boolean, True: "yes", False: "no", Fill: 1, Indicator: true, Missing: 2},
+		{Name: "channel", Type: Categorical, Levels: []string{"phone", "shop", "web"}, Indicator: true, Missing: 1},
+		{Name: "country", Type: Categorical, Levels: []string{"DE", "FR"}, Indicator: true, Missing: 2},
+	}
+	require.Equal(t, want, e.Fields)
+	require.Equal(t, []string{"amount", "amount (missing)", "items", "items (missing)", "card", "card (missing)",
+		"channel=phone", "channel=shop", "channel=web", "channel (missing)", "country=DE", "country=FR", "country (missing)"}, d.Columns)
+	require.Equal(t, 13, d.Cols)
+	require.Equal(t, []float32{5.125, 1, 2, 0, 0, 0, 0, 1, 0, 0, 1, 0, 0}, d.Row(1), "row 2: amount filled, card no, shop, DE")
+	require.Equal(t, []float32{3.25, 0, 3, 1, 1, 0, 0, 0, 1, 0, 0, 0, 1}, d.Row(2), "row 3: items filled, country missing")
+	require.Equal(t, []int{0, 0, 1, 1, 2, 2, 3, 3, 3, 3, 4, 4, 4}, e.Owners())
+	require.NoError(t, e.Check())
+
+	// a later file: reordered, an extra column, an unseen level, a
+	// number that is text, a boolean that is neither, a row with nothing
+	const later = "country,channel,note,card,items,amount\n" +
+		"FR,web,a,yes,2,4\n" +
+		"US,fax,b,maybe,x,1e39\n" +
+		",,c,,,\n"
+	s, err := ReadCSV(strings.NewReader(later), "new.csv", CSVConfig{Encoding: e})
+	require.NoError(t, err)
+	require.Equal(t, 3, s.Rows)
+	require.Equal(t, []float32{4, 0, 2, 0, 1, 0, 0, 0, 1, 0, 0, 1, 0}, s.Row(0))
+	require.Len(t, s.Notes, 2)
+	require.Equal(t, 1, s.Notes[0].Row)
+	require.Equal(t, 3, s.Notes[0].Line)
+	require.True(t, s.Notes[0].Unscorable, "1e39 is outside float32: the row cannot be scored")
+	require.Contains(t, s.Notes[0].Text, `amount: "1e39" is outside the float32 range`)
+	require.Contains(t, s.Notes[0].Text, `items: "x" is not a number, read as missing`)
+	require.Contains(t, s.Notes[0].Text, `card: "maybe" is neither "yes" nor "no"`)
+	require.Contains(t, s.Notes[0].Text, `channel: level "fax" not seen in training`)
+	require.Contains(t, s.Notes[0].Text, `country: level "US" not seen in training`)
+	require.Equal(t, RowNote{Row: 2, Line: 4, Text: "no observed cell", Unscorable: true}, s.Notes[1])
+	require.Equal(t, float32(1), s.Row(1)[3], "the text in items is read as missing: its indicator is set")
+
+	// a column the model reads is not in the file
+	_, err = ReadCSV(strings.NewReader("amount,items,card,channel\n1,2,yes,web\n"), "short.csv", CSVConfig{Encoding: e})
+	require.ErrorContains(t, err, `no column "country"`)
+}
+
+// A table of numbers reads in one pass and gets a plain encoding whose
+// fills are the medians; its later files may have missing cells.
+func TestPlainEncoding(t *testing.T) {
+	d, err := ReadCSV(strings.NewReader("a,b\n1,0.5\n2,1.5\n4,2.5\n"), "n.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, []Field{{Name: "a", Type: Integer, Fill: 2, Min: 1, Max: 4}, {Name: "b", Type: Numeric, Fill: 1.5, Min: 0.5, Max: 2.5}}, d.Encoding.Fields)
+	require.True(t, d.Encoding.Plain())
+	s, err := ReadCSV(strings.NewReader("b,a\nNA,7\n"), "m.csv", CSVConfig{Encoding: d.Encoding})
+	require.NoError(t, err)
+	require.Equal(t, []float32{7, 1.5}, s.X)
+	require.Equal(t, "b: missing, filled with 1.5", s.Notes[0].Text)
+	require.False(t, s.Notes[0].Unscorable)
+}
+
+// Type overrides, and the columns a typed reading refuses, each named.
+func TestTypedTableRefusals(t *testing.T) {
+	d, err := ReadCSV(strings.NewReader("zip,v\n75001,1\n10115,2\n75001,3\n"), "z.csv", CSVConfig{Typed: true, Types: map[string]FieldType{"zip": Categorical}})
+	require.NoError(t, err)
+	require.Equal(t, []string{"10115", "75001"}, d.Encoding.Fields[0].Levels)
+	for _, c := range []struct {
+		text  string
+		cfg   CSVConfig
+		error string
+	}{
+		{"a,b\nx,1\ny,2\n", CSVConfig{Types: map[string]FieldType{"a": Numeric}}, `z.csv:2: column 1 (a): "x" is not a number (the column was given as numeric)`},
+		{"a,b\n1.5,1\n2,2\n", CSVConfig{Types: map[string]FieldType{"a": Integer}}, "given as integer but holds fractions"},
+		{"a,b\nx,1\ny,2\n", CSVConfig{Types: map[string]FieldType{"a": Boolean}}, `given as boolean but holds "x", "y"`},
+		{"a,b\nx,1\ny,2\n", CSVConfig{Types: map[string]FieldType{"c": Boolean}}, `a type is given for "c"`},
+		{"a,b\nx,1\ny,2\nz,3\n", CSVConfig{MaxLevels: 2}, "column 1 (a): more than 2 distinct values: an identifier"},
+		{"a,b\n,1\nNA,2\n", CSVConfig{}, "column 1 (a): every cell is missing"},
+		{"a,b\nx,inf\n", CSVConfig{}, `column 2 (b): "inf" is outside the float32 range`},
+	} {
+		c.cfg.Typed = true
+		_, err := ReadCSV(strings.NewReader(c.text), "z.csv", c.cfg)
+		require.ErrorContains(t, err, c.error, c.text)
+	}
+	// markers are configurable: "-" is missing, NA is then a level
+	d, err = ReadCSV(strings.NewReader("a,b\nNA,1\n-,2\nx,3\n"), "m.csv", CSVConfig{Typed: true, Missing: []string{"-"}})
+	require.NoError(t, err)
+	require.Equal(t, []string{"NA", "x"}, d.Encoding.Fields[0].Levels)
+	require.Equal(t, 1, d.Encoding.Fields[0].Missing)
+	require.False(t, math.IsNaN(float64(d.X[0])))
+}

@@ -1,0 +1,183 @@
+package data
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+)
+
+// readTyped reads a table as cfg asks, calling read for each pass over
+// the text: once for numbers only (cfg.Typed unset, or an Encoding
+// given); with cfg.Typed, first as numbers, and when a feature cell is
+// not one, again to survey the columns and a third time to encode the
+// rows by the Encoding the survey gives.
+func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfig) (*Dataset, error) {
+	if cfg.Encoding != nil {
+		if err := cfg.Encoding.Check(); err != nil {
+			return nil, err
+		}
+		return read(cfg)
+	}
+	if !cfg.Typed {
+		return read(cfg)
+	}
+	if cfg.MaxLevels < 0 {
+		return nil, fmt.Errorf("%w: MaxLevels %d", ErrConfig, cfg.MaxLevels)
+	}
+	if len(cfg.Types) == 0 {
+		d, err := read(cfg)
+		var pe *ParseError
+		if err == nil {
+			d.Encoding = plainEncoding(d, markersOf(&cfg))
+			return d, nil
+		}
+		if !errors.As(err, &pe) || !pe.text {
+			return nil, err
+		}
+	}
+	// the survey
+	sv := cfg
+	sv.pass = &typedPass{}
+	sd, err := read(sv)
+	if err != nil {
+		return nil, err
+	}
+	for t := range cfg.Types {
+		if !slices.Contains(sd.Columns, t) {
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("a type is given for %q, which is not a feature column (columns: %v)", t, sd.Columns)}
+		}
+	}
+	enc := &Encoding{Markers: markersOf(&cfg)}
+	for k, c := range sv.pass.survey {
+		f, err := c.decide(sd.Columns[k], name, sv.pass.cols[k], cfg.Types[sd.Columns[k]], cmpOrInt(cfg.MaxLevels, DefaultMaxLevels))
+		if err != nil {
+			return nil, err
+		}
+		enc.Fields = append(enc.Fields, f)
+	}
+	// the rows
+	en := cfg
+	en.Encoding, en.Columns = enc, nil
+	en.pass = &typedPass{training: true}
+	d, err := read(en)
+	if err != nil {
+		return nil, err
+	}
+	enc.fillMissing(d)
+	// rows without an observed cell teach nothing: left out, counted
+	if slices.ContainsFunc(d.Notes, func(n RowNote) bool { return n.Unscorable }) {
+		keep := make([]int, 0, d.Rows)
+		next := 0
+		for r := range d.Rows {
+			for next < len(d.Notes) && d.Notes[next].Row < r {
+				next++
+			}
+			if next < len(d.Notes) && d.Notes[next].Row == r && d.Notes[next].Unscorable {
+				d.Skipped = append(d.Skipped, d.Notes[next].Line)
+				continue
+			}
+			keep = append(keep, r)
+		}
+		kept := d.Kept
+		nd := d.Subset(keep)
+		nd.Encoding, nd.Skipped = d.Encoding, d.Skipped
+		if len(kept) > 0 {
+			nk := len(d.KeptColumns)
+			nd.KeptColumns = d.KeptColumns
+			for _, r := range keep {
+				nd.Kept = append(nd.Kept, kept[r*nk:(r+1)*nk]...)
+			}
+		}
+		if nd.Rows == 0 {
+			return nil, &ParseError{File: name, Msg: "no row has an observed cell"}
+		}
+		d = nd
+	}
+	d.Notes = nil // in training rows, filled cells are the norm
+	return d, nil
+}
+
+// markersOf is cfg's missing-cell markers.
+func markersOf(cfg *CSVConfig) []string {
+	if cfg.Missing == nil {
+		return slices.Clone(DefaultMissing)
+	}
+	return cfg.Missing
+}
+
+func cmpOrInt(a, b int) int {
+	if a != 0 {
+		return a
+	}
+	return b
+}
+
+// fillSample is the most rows a fill (a median) is taken over: an even
+// sample of them when there are more.
+const fillSample = 1 << 16
+
+// plainEncoding is the encoding of a table whose feature cells are all
+// numbers: each column a number, or an integer when every value is
+// whole, with its range and its median as the fill for missing cells in
+// later files.
+func plainEncoding(d *Dataset, markers []string) *Encoding {
+	e := &Encoding{Markers: markers, Fields: make([]Field, d.Cols)}
+	step := max(1, d.Rows/fillSample)
+	vals := make([]float64, 0, min(d.Rows, fillSample+1))
+	for j := range d.Cols {
+		f := Field{Name: d.Columns[j], Type: Integer}
+		lo, hi := math.Inf(1), math.Inf(-1)
+		for r := range d.Rows {
+			v := float64(d.X[r*d.Cols+j])
+			lo, hi = min(lo, v), max(hi, v)
+			if v != math.Trunc(v) {
+				f.Type = Numeric
+			}
+		}
+		vals = vals[:0]
+		for r := 0; r < d.Rows; r += step {
+			vals = append(vals, float64(d.X[r*d.Cols+j]))
+		}
+		f.Min, f.Max, f.Fill = lo, hi, float32(median(vals))
+		if f.Type == Integer {
+			f.Fill = float32(math.Round(float64(f.Fill)))
+		}
+		e.Fields[j] = f
+	}
+	return e
+}
+
+// merge adds another batch's counts (a later part of the file).
+func (c *columnSurvey) merge(o *columnSurvey, maxLevels int) {
+	if o.numbers > 0 {
+		if c.numbers == 0 || o.min < c.min {
+			c.min = o.min
+		}
+		if c.numbers == 0 || o.max > c.max {
+			c.max = o.max
+		}
+	}
+	c.missing += o.missing
+	c.numbers += o.numbers
+	c.ranged += o.ranged
+	c.cells += o.cells
+	c.integral = c.integral && o.integral
+	c.tooMany = c.tooMany || o.tooMany
+	for s, n := range o.texts {
+		if c.tooMany {
+			break
+		}
+		if _, ok := c.texts[s]; !ok && len(c.texts) >= maxLevels {
+			c.tooMany = true
+			break
+		}
+		c.texts[s] += n
+	}
+	if c.firstText == "" {
+		c.firstText, c.firstTextLine = o.firstText, o.firstTextLine
+	}
+	if c.badNumber == "" {
+		c.badNumber, c.badLine = o.badNumber, o.badLine
+	}
+}
