@@ -266,7 +266,11 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	index := map[string]int{}
 	for i, h := range header {
 		if _, dup := index[h]; dup && h != "" {
-			return nil, &ParseError{File: name, Line: firstLine, Column: i + 1, Name: h, Msg: "duplicate column name"}
+			msg := "duplicate column name"
+			if _, kind := classify(h); kind == cellNumber {
+				msg += " (the first line holds numbers: a file without a header? say so with -no-header)"
+			}
+			return nil, &ParseError{File: name, Line: firstLine, Column: i + 1, Name: h, Msg: msg}
 		}
 		index[h] = i
 	}

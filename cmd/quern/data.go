@@ -34,6 +34,13 @@ type dataFlags struct {
 	enc *data.Encoding
 }
 
+// registerForModel adds the data flags of a command that reads rows for
+// a trained model, which names its columns.
+func (d *dataFlags) registerForModel(fs *flag.FlagSet) {
+	d.register(fs, true)
+	fs.Lookup("columns").Usage = "comma-separated CSV columns: the file's names for the model's columns, in the model's order (default: the model's own names, read in any order; quern inspect lists them)"
+}
+
 // registerTyped adds the flags of a training read, which infers the CSV
 // columns' types.
 func (d *dataFlags) registerTyped(fs *flag.FlagSet) {

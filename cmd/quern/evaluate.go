@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/json"
 	"fmt"
+	"math"
 	"path/filepath"
 	"strconv"
 	"strings"
@@ -25,7 +26,7 @@ func cmdEvaluate(e *env, args []string) error {
 	fs := newFlags(e, "evaluate", "-model MODEL -data FILE (-label COLUMN | -labels IDX) [-normal 0] [-out DIR] [-recalibrate NEW.qm]")
 	modelPath := fs.String("model", "", "model file with anomaly scores: an autoencoder or a VAE (required)")
 	var d dataFlags
-	d.register(fs, true)
+	d.registerForModel(fs)
 	normal := fs.String("normal", "0", "comma-separated label values (numbers or text) of normal rows, the word empty for an empty cell; every other value is anomalous, and empty cells not named are left out")
 	out := fs.String("out", "", "folder for the ROC and precision-recall curves and a page")
 	recal := fs.String("recalibrate", "", "write a copy of the model to this file with its threshold set on the file's normal rows (no retraining)")
@@ -166,7 +167,7 @@ func cmdEvaluate(e *env, args []string) error {
 		fmt.Sprintf("evaluated %d labelled rows of %s: %d normal, %d anomalous", n, d.path, n-np, np),
 		fmt.Sprintf("ROC AUC %.4f, average precision %.4f (a random order scores %.4f)", auc, ap, float64(np)/float64(n)),
 		fmt.Sprintf("at the threshold %.6g: %d anomalous rows flagged, %d missed; %d normal rows flagged, %d passed", th.Value, c.TP, c.FN, c.FP, c.TN),
-		fmt.Sprintf("precision %.4f, recall %.4f, F1 %.4f, false-alarm rate %.2f%% (expected %.2f%%%s)", c.Precision(), c.Recall(), c.F1(), 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm, boundPhrase(*th)),
+		fmt.Sprintf("precision %s, recall %s, F1 %s, false-alarm rate %.2f%% (expected %.2f%%%s)", ratioText(c.Precision(), "no row flagged"), ratioText(c.Recall(), "no anomalous row"), ratioText(c.F1(), "no row flagged or anomalous"), 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm, boundPhrase(*th)),
 	}
 	if skipped > 0 {
 		lines = append(lines, fmt.Sprintf("%d unlabelled rows left out", skipped))
@@ -188,7 +189,7 @@ func cmdEvaluate(e *env, args []string) error {
 				{Name: "ROC AUC", Value: fmt.Sprintf("%.4f", auc)},
 				{Name: "average precision", Value: fmt.Sprintf("%.4f", ap)},
 				{Name: "threshold", Value: fmt.Sprintf("%.6g (%s)", th.Value, th.Method)},
-				{Name: "precision / recall / F1", Value: fmt.Sprintf("%.4f / %.4f / %.4f", c.Precision(), c.Recall(), c.F1())},
+				{Name: "precision / recall / F1", Value: fmt.Sprintf("%s / %s / %s", ratioText(c.Precision(), "no row flagged"), ratioText(c.Recall(), "no anomalous row"), ratioText(c.F1(), "no row flagged or anomalous"))},
 				{Name: "false-alarm rate", Value: fmt.Sprintf("%.2f%% (expected %.2f%%%s)", 100*c.FalseAlarmRate(), 100*th.ExpectedFalseAlarm, boundPhrase(*th))},
 				{Name: "flagged anomalous / missed / flagged normal / passed normal", Value: fmt.Sprintf("%d / %d / %d / %d", c.TP, c.FN, c.FP, c.TN)},
 			},
@@ -229,4 +230,13 @@ func boundPhrase(th anomaly.Threshold) string {
 		return ""
 	}
 	return fmt.Sprintf(", below %.2f%% with %.0f%% confidence", 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence)
+}
+
+// ratioText writes a ratio with four decimals, or says why it has none
+// (a NaN: nothing to divide by).
+func ratioText(v float64, why string) string {
+	if math.IsNaN(v) {
+		return "undefined (" + why + ")"
+	}
+	return fmt.Sprintf("%.4f", v)
 }

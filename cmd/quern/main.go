@@ -88,6 +88,16 @@ func run(args []string, e *env) int {
 	}
 	c, ok := commands[args[0]]
 	if !ok {
+		near := ""
+		for name := range commands {
+			if d := editDistance(args[0], name); d <= 2 && d < len(name) && (near == "" || d < editDistance(args[0], near) || (d == editDistance(args[0], near) && name < near)) {
+				near = name
+			}
+		}
+		if near != "" {
+			fmt.Fprintf(e.stderr, "quern: unknown command %q: did you mean %s? (quern help lists the commands)\n", args[0], near)
+			return 2
+		}
 		fmt.Fprintf(e.stderr, "quern: unknown command %q (quern help lists the commands)\n", args[0])
 		return 2
 	}

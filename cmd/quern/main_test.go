@@ -157,6 +157,8 @@ func TestBadInput(t *testing.T) {
 		{"folds and val", []string{"train", "-data", bc, "-out", "m.qm", "-folds", "3", "-val", "0.2"}, 2, "-folds 3 with -val 0.2"},
 		{"folds and bce", []string{"train", "-data", bc, "-out", "m.qm", "-folds", "3", "-loss", "bce"}, 2, "-folds with -loss bce"},
 		{"folds of a vae", []string{"train", "-data", bc, "-out", "m.qm", "-folds", "3", "-kind", "vae"}, 2, "cross-fitting is for autoencoders"},
+		{"misspelt command", []string{"trian"}, 2, `quern: unknown command "trian": did you mean train?`},
+		{"numbers for a header", []string{"train", "-data", write("nh.csv", "1,2,1\n3,4,5\n"), "-out", "m.qm"}, 1, "duplicate column name (the first line holds numbers: a file without a header? say so with -no-header)"},
 		{"misspelt flag", []string{"train", "-fold", "3"}, 2, "quern train: unknown flag -fold: did you mean -folds? (quern train -h lists the flags)"},
 		{"bad number", []string{"train", "-epochs", "x"}, 2, `-epochs "x": want a whole number`},
 		{"bad duration", []string{"serve", "-drain", "5"}, 2, "-drain \"5\": want a duration"},

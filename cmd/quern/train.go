@@ -76,7 +76,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	o.data.register(fs, true)
 	o.data.registerTyped(fs)
 	fs.StringVar(&o.out, "out", "", "model file to write (required, except when resuming CHECKPOINT.ckpt)")
-	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: ae and vae one layer, 2 per input column within 16..256; gan the model's)")
+	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: ae and vae one layer, 2 per input column within 16..256, narrower on small tables to keep about 4 weights per training row; gan the model's)")
 	fs.IntVar(&o.latent, "latent", 0, "code / latent width (default: ae and vae the principal components for 90% of the variance, at most 64; gan none)")
 	fs.IntVar(&o.epochs, "epochs", 0, "training epochs (when resuming: the run's new total); default: ae and vae about 10000 steps with early stopping, gan 20")
 	fs.IntVar(&o.batch, "batch", 64, "mini-batch size")

@@ -234,9 +234,9 @@ func inChunks[T any](st *status, name string, rows int, compute func(lo, hi int)
 
 func cmdScore(e *env, args []string) error {
 	fs := newFlags(e, "score", "-model MODEL -data FILE.csv [-out SCORES.csv]")
-	modelPath := fs.String("model", "", "model file with anomaly scores and a threshold: an autoencoder (reconstruction error) or a VAE (negative ELBO) (required)")
+	modelPath := fs.String("model", "", "model file with anomaly scores and a threshold: an autoencoder (its distance score, or the reconstruction error) or a VAE (negative ELBO) (required)")
 	var d dataFlags
-	d.register(fs, true)
+	d.registerForModel(fs)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
 	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share: its fraction of the parts of the score the row's columns add (negative parts count as none)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp)")
@@ -367,7 +367,7 @@ func cmdEncode(e *env, args []string) error {
 	fs := newFlags(e, "encode", "-model MODEL -data FILE [-out CODES.csv]")
 	modelPath := fs.String("model", "", "model file with codes: an autoencoder or a VAE (required)")
 	var d dataFlags
-	d.register(fs, true)
+	d.registerForModel(fs)
 	out := fs.String("out", "-", "CSV file for the codes (- for standard output)")
 	quiet := fs.Bool("quiet", false, "no progress output")
 	if _, err := parse(e, fs, args, 0); err != nil {
@@ -493,7 +493,7 @@ func cmdInterpolate(e *env, args []string) error {
 	fs := newFlags(e, "interpolate", "-model MODEL -data FILE -from ROW -to ROW [-steps N] [-out FILE]")
 	modelPath := fs.String("model", "", "model file with a latent space to walk: a VAE (required)")
 	var d dataFlags
-	d.register(fs, true)
+	d.registerForModel(fs)
 	from := fs.Int("from", 1, "first row (1-based)")
 	to := fs.Int("to", 2, "last row (1-based)")
 	steps := fs.Int("steps", 8, "points on the path, ends included")
