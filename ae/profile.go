@@ -13,9 +13,10 @@ import (
 // and of the scaled rows themselves. With a profile a row's score is the
 // average of two standardised distances from normal:
 //
-//	w (d_code + d_residual) / (Latent + Inputs) + (1 - w) d_input / Inputs
+//	w (d_code + d_residual) / (Latent + n) + (1 - w) d_input / n
 //
-// with d the squared Mahalanobis distances and w = Weight, so that rows
+// with d the squared Mahalanobis distances, n the number of inputs scored
+// (Scored) and w = Weight, so that rows
 // like the training rows score around 1 (a little under on average: the
 // shrinkage widens the Gaussians).
 //
@@ -40,6 +41,47 @@ type Profile struct {
 	Input    *anomaly.Gaussian `json:"input"`
 	// Weight is the autoencoder part's weight w in [0, 1].
 	Weight float64 `json:"autoencoder_weight"`
+	// Scored lists the inputs the residual and input parts cover, in
+	// order; nil means every input. A table's missing-cell indicators are
+	// left out (data.Encoding.Indicators): a missing cell says nothing of
+	// how unusual the row is, and a rare indicator, standardised, would
+	// dominate the distance.
+	Scored []int `json:"scored_inputs,omitempty"`
+}
+
+// scoredInputs are the inputs a profile fitted now covers: all but a
+// table's missing-cell indicators (nil: all).
+func (m *Model) scoredInputs() []int {
+	if m.Encoding == nil {
+		return nil
+	}
+	ind := m.Encoding.Indicators()
+	if len(ind) != m.cfg.Inputs {
+		return nil
+	}
+	var out []int
+	for j, is := range ind {
+		if !is {
+			out = append(out, j)
+		}
+	}
+	if len(out) == m.cfg.Inputs {
+		return nil
+	}
+	return out
+}
+
+// gather writes v's scored inputs into dst (grown) and returns it; v
+// itself when every input is scored.
+func gather(dst []float32, v []float32, scored []int) []float32 {
+	if scored == nil {
+		return v
+	}
+	dst = dst[:0]
+	for _, j := range scored {
+		dst = append(dst, v[j])
+	}
+	return dst
 }
 
 // DefaultProfileWeight is the autoencoder part's default weight.
@@ -80,9 +122,14 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 		return err
 	}
 	d, k := m.cfg.Inputs, m.cfg.Latent
+	scored := m.scoredInputs()
+	ds := d
+	if scored != nil {
+		ds = len(scored)
+	}
 	if s.Residual != nil {
-		if s.Residual.Width() != d {
-			return fmt.Errorf("ae: a residual Gaussian of width %d for a model of %d inputs", s.Residual.Width(), d)
+		if s.Residual.Width() != ds {
+			return fmt.Errorf("ae: a residual Gaussian of width %d for a model that scores %d inputs", s.Residual.Width(), ds)
 		}
 		if err := s.Residual.Check(); err != nil {
 			return fmt.Errorf("ae: %w", err)
@@ -92,15 +139,16 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 	if err != nil {
 		return err
 	}
-	res, err := anomaly.NewGaussianFit(d)
+	res, err := anomaly.NewGaussianFit(ds)
 	if err != nil {
 		return err
 	}
-	input, err := anomaly.NewGaussianFit(d)
+	input, err := anomaly.NewGaussianFit(ds)
 	if err != nil {
 		return err
 	}
 	resid := make([]float32, d)
+	var buf []float32
 	pass := func(first bool) error {
 		for lo := 0; lo < rows; lo += profileChunk {
 			hi := min(lo+profileChunk, rows)
@@ -117,12 +165,14 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 					}
 				}
 				add(code, w.code32[r*k:(r+1)*k])
-				add(input, in[r*d:(r+1)*d])
+				buf = gather(buf, in[r*d:(r+1)*d], scored)
+				add(input, buf)
 				if s.Residual == nil {
 					for j := range resid {
 						resid[j] = in[r*d+j] - out[r*d+j]
 					}
-					add(res, resid)
+					buf = gather(buf, resid, scored)
+					add(res, buf)
 				}
 			}
 			m.pool.Put(w)
@@ -135,7 +185,7 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 	if err := pass(false); err != nil {
 		return err
 	}
-	p := &Profile{Residual: s.Residual, Weight: DefaultProfileWeight}
+	p := &Profile{Residual: s.Residual, Weight: DefaultProfileWeight, Scored: scored}
 	if s.InputOnly {
 		p.Weight = 0
 	}
@@ -155,8 +205,10 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 }
 
 // Residuals returns each raw row's reconstruction residual in scaled
-// space (scaled input minus reconstruction; rows x Inputs), what the
-// residual part of a Profile describes. MSE models only.
+// space (scaled input minus reconstruction), what the residual part of a
+// Profile describes: rows x the inputs a profile scores (every input but
+// a table's missing-cell indicators; see Profile.Scored). MSE models
+// only.
 func (m *Model) Residuals(x []float32, rows int) ([]float32, error) {
 	if m.cfg.Loss == BCE {
 		return nil, fmt.Errorf("ae: BCE models score by their reconstruction error: %w", anomaly.ErrNoProfile)
@@ -166,9 +218,20 @@ func (m *Model) Residuals(x []float32, rows int) ([]float32, error) {
 		return nil, err
 	}
 	defer m.pool.Put(w)
-	r := make([]float32, len(in))
-	for i := range r {
-		r[i] = in[i] - out[i]
+	d := m.cfg.Inputs
+	scored := m.scoredInputs()
+	if scored == nil {
+		r := make([]float32, len(in))
+		for i := range r {
+			r[i] = in[i] - out[i]
+		}
+		return r, nil
+	}
+	r := make([]float32, 0, rows*len(scored))
+	for i := range rows {
+		for _, j := range scored {
+			r = append(r, in[i*d+j]-out[i*d+j])
+		}
 	}
 	return r, nil
 }
@@ -178,11 +241,23 @@ func (p *Profile) check(c Config) error {
 	if p.Code == nil || p.Residual == nil || p.Input == nil {
 		return fmt.Errorf("ae: a profile without its code, residual or input part")
 	}
+	ds := c.Inputs
+	if p.Scored != nil {
+		ds = len(p.Scored)
+		for i, j := range p.Scored {
+			if j < 0 || j >= c.Inputs || (i > 0 && j <= p.Scored[i-1]) {
+				return fmt.Errorf("ae: a profile's scored inputs %v are not increasing inputs of %d", p.Scored, c.Inputs)
+			}
+		}
+		if ds == 0 {
+			return fmt.Errorf("ae: a profile that scores no input")
+		}
+	}
 	for _, g := range []struct {
 		what string
 		g    *anomaly.Gaussian
 		want int
-	}{{"codes", p.Code, c.Latent}, {"residuals", p.Residual, c.Inputs}, {"rows", p.Input, c.Inputs}} {
+	}{{"codes", p.Code, c.Latent}, {"residuals", p.Residual, ds}, {"rows", p.Input, ds}} {
 		if err := g.g.Check(); err != nil {
 			return fmt.Errorf("ae: profile of the %s: %w", g.what, err)
 		}
@@ -210,20 +285,34 @@ func (m *Model) profileScores(dst, contrib []float64, x []float32, rows int) ([]
 	}
 	defer m.pool.Put(w)
 	d, k := m.cfg.Inputs, m.cfg.Latent
-	dst = scratch.Grow(dst, rows)
-	w.scratch = scratch.Grow(w.scratch, d)
-	resid := w.scratch
-	var terms, tmp []float64
 	p := m.Profile
-	wa := p.Weight / float64(d+k)
-	wi := (1 - p.Weight) / float64(d)
+	ds := d
+	if p.Scored != nil {
+		ds = len(p.Scored)
+	}
+	dst = scratch.Grow(dst, rows)
+	w.scratch = scratch.Grow(w.scratch, d+ds)
+	resid, buf := w.scratch[:d], w.scratch[d:d]
+	var terms, tmp []float64
+	wa := p.Weight / float64(ds+k)
+	wi := (1 - p.Weight) / float64(ds)
+	// at maps a scored input's place to the input (itself when all are)
+	at := func(j int) int {
+		if p.Scored == nil {
+			return j
+		}
+		return p.Scored[j]
+	}
 	for r := range rows {
 		row := in[r*d : (r+1)*d]
 		var di, dc, dr float64
-		di, terms, tmp = p.Input.Distance(terms, tmp, row)
+		if contrib != nil && p.Scored != nil {
+			clear(contrib[r*d : (r+1)*d])
+		}
+		di, terms, tmp = p.Input.Distance(terms, tmp, gather(buf, row, p.Scored))
 		if contrib != nil {
 			for j, t := range terms {
-				contrib[r*d+j] = t * wi
+				contrib[r*d+at(j)] = t * wi
 			}
 		}
 		if p.Weight > 0 {
@@ -231,10 +320,10 @@ func (m *Model) profileScores(dst, contrib []float64, x []float32, rows int) ([]
 			for j := range resid {
 				resid[j] = row[j] - out[r*d+j]
 			}
-			dr, terms, tmp = p.Residual.Distance(terms, tmp, resid)
+			dr, terms, tmp = p.Residual.Distance(terms, tmp, gather(buf, resid, p.Scored))
 			if contrib != nil {
 				for j, t := range terms {
-					contrib[r*d+j] += t * wa
+					contrib[r*d+at(j)] += t * wa
 				}
 			}
 		}

@@ -185,3 +185,62 @@ func TestProfileConcurrent(t *testing.T) {
 		t.Errorf("row %d scored differently alone and concurrently", r)
 	}
 }
+
+// A table's missing-cell indicators are left out of the profile: the
+// residual and input parts cover the other inputs only (the formula of
+// Profile's documentation with n the inputs scored), the indicators
+// contribute nothing, and the profile survives a round trip through a
+// file.
+func TestProfileLeavesIndicatorsOut(t *testing.T) {
+	m, bc := trainedBC(t)
+	// read the 30 inputs as 15 numbers, each followed by an indicator
+	enc := &data.Encoding{}
+	for i := range 15 {
+		enc.Fields = append(enc.Fields, data.Field{Name: bc.Columns[2*i], Type: data.Numeric, Indicator: true})
+	}
+	m.Encoding, m.Columns = enc, enc.Columns()
+	require.NoError(t, m.FitProfile(bc.X, bc.Rows))
+	var even []int
+	for j := 0; j < 30; j += 2 {
+		even = append(even, j)
+	}
+	require.Equal(t, even, m.Profile.Scored)
+	d, k, ds := m.cfg.Inputs, m.cfg.Latent, 15
+	codes, err := m.Encode(bc.X, bc.Rows)
+	require.NoError(t, err)
+	res, err := m.Residuals(bc.X, bc.Rows)
+	require.NoError(t, err)
+	require.Len(t, res, bc.Rows*ds)
+	in := scaledRows(m, bc)
+	var inS []float32
+	for r := range bc.Rows {
+		for _, j := range even {
+			inS = append(inS, in[r*d+j])
+		}
+	}
+	gc, gr, gi := gaussOf(t, codes, k), gaussOf(t, res, ds), gaussOf(t, inS, ds)
+	got, err := m.RowScores(bc.X, bc.Rows)
+	require.NoError(t, err)
+	contrib, err := m.Contributions(bc.X, bc.Rows)
+	require.NoError(t, err)
+	w := m.Profile.Weight
+	for r := range bc.Rows {
+		dc, _, _ := gc.Distance(nil, nil, codes[r*k:(r+1)*k])
+		dr, _, _ := gr.Distance(nil, nil, res[r*ds:(r+1)*ds])
+		di, _, _ := gi.Distance(nil, nil, inS[r*ds:(r+1)*ds])
+		want := w*(dc+dr)/float64(ds+k) + (1-w)*di/float64(ds)
+		require.InEpsilon(t, want, got[r], 1e-9, "row %d", r)
+		for j := 1; j < d; j += 2 {
+			require.Zero(t, contrib[r*d+j], "row %d: indicator %d contributes", r, j)
+		}
+	}
+	f, err := m.File(nil)
+	require.NoError(t, err)
+	back, err := FromFile(f)
+	require.NoError(t, err)
+	again, err := back.RowScores(bc.X, bc.Rows)
+	require.NoError(t, err)
+	require.Equal(t, got, again)
+	back.Profile.Scored = []int{3, 1}
+	require.Error(t, back.Profile.check(back.cfg), "scored inputs out of order")
+}

@@ -133,6 +133,21 @@ func (e *Encoding) Owners() []int {
 	return out
 }
 
+// Indicators marks, for each input, whether it is a missing-cell
+// indicator.
+func (e *Encoding) Indicators() []bool {
+	out := make([]bool, 0, e.Width())
+	for _, f := range e.Fields {
+		for range f.Width() {
+			out = append(out, false)
+		}
+		if f.Indicator {
+			out[len(out)-1] = true
+		}
+	}
+	return out
+}
+
 // Plain reports whether every field is a number or an integer without
 // an indicator: the inputs are then the columns themselves.
 func (e *Encoding) Plain() bool {

@@ -120,7 +120,12 @@ func crossFit(ctx context.Context, st *status, o *trainOpts, d *data.Dataset, s 
 			return nil, fmt.Errorf("cross-fit fold %d of %d: %w", i+1, folds, f.err)
 		}
 	}
+	// the residuals' width: the inputs a profile scores (a table's
+	// missing-cell indicators are not)
 	cols := d.Cols
+	if f := fs[0]; f.held.Rows > 0 {
+		cols = len(f.resid) / f.held.Rows
+	}
 	// residualsBut fits a Gaussian to every fold's held-out residuals
 	// except fold skip's (-1: all of them, for the final model): a fold's
 	// calibration scores must not come from a Gaussian fitted on its own

@@ -88,13 +88,29 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, rowsWhat string, s
 				reason = fmt.Sprintf("the rows have no variance (%s scaling), so the narrowest code", kind)
 			}
 		}
+		if !set["hidden"] {
+			// a network no wider than its code within weightsPerRow
+			// parameters per row
+			most := 1
+			for l := 2; aeParams(d.Cols, l, l) <= weightsPerRow*rows; l++ {
+				most = l
+			}
+			if o.latent > most {
+				o.latent = most
+				reason += fmt.Sprintf(", narrowed to %d to keep about %d weights per training row (%d %s)", most, weightsPerRow, rows, rowsWhat)
+			}
+		}
 		why = append(why, fmt.Sprintf("code width %d: %s (-latent sets it)", o.latent, reason))
 	}
 	if coded && !set["hidden"] {
 		h := min(max(hiddenPerInput*d.Cols, minDefaultHidden, 2*o.latent), maxDefaultHidden)
 		h = (h + 7) / 8 * 8
 		line := fmt.Sprintf("%d per input column, between %d and %d, rounded up to a multiple of 8", hiddenPerInput, minDefaultHidden, maxDefaultHidden)
-		if fit := rows * weightsPerRow / (2 * (d.Cols + o.latent)); fit < h {
+		fit := 0
+		for fit < h && aeParams(d.Cols, fit+1, o.latent) <= weightsPerRow*rows {
+			fit++
+		}
+		if fit < h {
 			h = max(fit, o.latent, 1)
 			line = fmt.Sprintf("at most about %d weights per training row (%d %s)", weightsPerRow, rows, rowsWhat)
 		}
@@ -130,4 +146,10 @@ func plural(n int, noun string) string {
 		return "1 " + noun
 	}
 	return fmt.Sprintf("%d %ss", n, noun)
+}
+
+// aeParams counts the parameters (weights and biases) of an autoencoder
+// with one hidden layer of h between cols inputs and a code of latent.
+func aeParams(cols, h, latent int) int {
+	return (cols+1)*h + (h+1)*latent + (latent+1)*h + (h+1)*cols
 }

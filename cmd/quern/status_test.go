@@ -254,8 +254,14 @@ func TestDefaultsInTheCorners(t *testing.T) {
 	r = ok(t, quern(t, dir, nil, "score", "-model", "b.qm", "-data", other, "-out", "s2.csv", "-quiet"))
 	require.NotContains(t, r.stderr, "trained on")
 
+	// 60 rows of 30 columns: the code narrowed with the hidden layer, so
+	// the defaults are not warned of as memorising
+	r = ok(t, quern(t, dir, nil, "train", "-data", table("narrow.csv", 60, 30), "-out", "n.qm", "-epochs", "2", "-folds", "0"))
+	require.Contains(t, r.stderr, "to keep about 4 weights per training row")
+	require.NotContains(t, r.stderr, "memorise")
+
 	wide := table("wide.csv", 12, data.SpectrumColumns+1)
-	r = ok(t, quern(t, dir, nil, "train", "-data", wide, "-out", "w.qm", "-epochs", "1", "-val", "0"))
+	r = ok(t, quern(t, dir, nil, "train", "-data", wide, "-out", "w.qm", "-epochs", "1", "-val", "0", "-hidden", "64"))
 	require.Contains(t, r.stderr, "chosen: code width 64: the largest default")
 }
 
