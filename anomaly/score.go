@@ -26,6 +26,10 @@ type Score struct {
 	// intermediate result outside the range the model can represent. Such
 	// a row is flagged (Anomaly is true), never reported as normal.
 	Unscorable string `json:"unscorable,omitempty"`
+	// Read, when set, says what reading the row's cells found: a missing
+	// cell filled in, a text where a number belongs, a level not seen in
+	// training (data.RowNote).
+	Read string `json:"read,omitempty"`
 }
 
 // NotFinite is the reason Assess gives for a row whose score or

@@ -339,10 +339,11 @@ func (r *cellReader) row(dst []float32, cells []string) ([]float32, string, bool
 // number reads a number, integer or boolean cell; false when it is none.
 func (r *cellReader) number(f *Field, s string) (float32, bool) {
 	if f.Type == Boolean {
+		// the column's own texts, or true and false (a JSON boolean)
 		switch {
-		case strings.EqualFold(s, f.True):
+		case strings.EqualFold(s, f.True), strings.EqualFold(s, "true"):
 			return 1, true
-		case strings.EqualFold(s, f.False):
+		case strings.EqualFold(s, f.False), strings.EqualFold(s, "false"):
 			return 0, true
 		}
 		return 0, false
@@ -589,4 +590,32 @@ func (f *Field) Describe() string {
 		}
 	}
 	return b.String()
+}
+
+// RowEncoder encodes rows of cell texts by an Encoding, as a file read
+// with CSVConfig.Encoding is: for a server taking records one at a time.
+// It is safe for concurrent use.
+type RowEncoder struct{ r *cellReader }
+
+// NewRowEncoder checks e and returns its encoder.
+func NewRowEncoder(e *Encoding) (*RowEncoder, error) {
+	if err := e.Check(); err != nil {
+		return nil, err
+	}
+	return &RowEncoder{newCellReader(e, false)}, nil
+}
+
+// Encode appends the inputs of one row to dst: cells[i] is field i's
+// text ("" or a marker for a missing cell). It returns what reading the
+// row found worth saying ("" when nothing) and whether the row is
+// unscorable (see RowNote). A cell it cannot read is filled in and said,
+// never an error.
+func (re *RowEncoder) Encode(dst []float32, cells []string) ([]float32, string, bool) {
+	if len(cells) != len(re.r.e.Fields) {
+		panic(fmt.Sprintf("data: RowEncoder.Encode: %d cells for %d fields", len(cells), len(re.r.e.Fields)))
+	}
+	for i, c := range cells {
+		cells[i] = strings.TrimSpace(c)
+	}
+	return re.r.row(dst, cells)
 }

@@ -8,13 +8,16 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"net"
 	"net/http"
+	"strconv"
 	"strings"
 	"sync/atomic"
 	"time"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/model"
 )
 
@@ -24,6 +27,9 @@ type Loaded struct {
 	Model  model.Model
 	Path   string
 	Loaded time.Time
+	// cells encodes records by the model's table encoding (nil: the
+	// model reads numbers as they are)
+	cells *data.RowEncoder
 }
 
 // Kind is the served model's kind.
@@ -42,7 +48,13 @@ func LoadModel(path string) (l *Loaded, err error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Loaded{Model: m, Path: path, Loaded: time.Now()}, nil
+	l = &Loaded{Model: m, Path: path, Loaded: time.Now()}
+	if enc := m.Schema().Encoding; enc != nil {
+		if l.cells, err = data.NewRowEncoder(enc); err != nil {
+			return nil, fmt.Errorf("serve: %s: %w", path, err)
+		}
+	}
+	return l, nil
 }
 
 // Config configures a Server. Zero fields mean the documented defaults.
@@ -338,25 +350,81 @@ type rowsRequest struct {
 	Top     int                          `json:"top,omitempty"`
 }
 
+// rowRead is what reading one record by a table encoding found.
+type rowRead struct {
+	text       string
+	unscorable bool
+}
+
 // decodeRows reads and checks a rows request: every row cols numbers,
-// none null, at most MaxRows rows.
-func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, names []string) (*rowsRequest, []float32, bool) {
+// none null, at most MaxRows rows. A model of a table read by type (cells
+// not nil) takes records keyed by its columns' names, with texts,
+// numbers, booleans or null (missing) as values; what reading each found
+// is returned beside the rows (nil when nothing).
+func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, names []string, cells *data.RowEncoder, fields []string) (*rowsRequest, []float32, []rowRead, bool) {
 	var req rowsRequest
 	if !decodeJSON(w, r, &req) {
-		return nil, nil, false
+		return nil, nil, nil, false
+	}
+	if cells != nil && req.Records != nil {
+		if req.Rows != nil {
+			writeError(w, http.StatusBadRequest, "send \"rows\" or \"records\", not both")
+			return nil, nil, nil, false
+		}
+		if len(req.Records) == 0 {
+			writeError(w, http.StatusBadRequest, "\"records\" is empty")
+			return nil, nil, nil, false
+		}
+		if len(req.Records) > s.cfg.MaxRows {
+			writeError(w, http.StatusRequestEntityTooLarge, "%d records, the limit is %d", len(req.Records), s.cfg.MaxRows)
+			return nil, nil, nil, false
+		}
+		x := make([]float32, 0, len(req.Records)*cols)
+		var reads []rowRead
+		texts := make([]string, len(fields))
+		for i, rec := range req.Records {
+			for j, name := range fields {
+				raw, ok := rec[name]
+				if !ok {
+					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s; null marks a missing value)", i+1, name, strings.Join(fields, ", "))
+					return nil, nil, nil, false
+				}
+				t, err := cellText(raw)
+				if err != nil {
+					writeError(w, http.StatusBadRequest, "record %d: %q is %s: %v", i+1, name, raw, err)
+					return nil, nil, nil, false
+				}
+				texts[j] = t
+			}
+			var note string
+			var unscorable bool
+			x, note, unscorable = cells.Encode(x, texts)
+			if note != "" {
+				if reads == nil {
+					reads = make([]rowRead, len(req.Records))
+				}
+				reads[i] = rowRead{note, unscorable}
+			}
+		}
+		req.Rows = make([][]*float64, len(req.Records)) // the count
+		return &req, x, reads, true
+	}
+	if cells != nil && req.Rows != nil && len(fields) != cols {
+		writeError(w, http.StatusBadRequest, "the served model reads a table of %s by column name: send \"records\", objects keyed by them", strings.Join(fields, ", "))
+		return nil, nil, nil, false
 	}
 	if req.Records != nil {
 		if req.Rows != nil {
 			writeError(w, http.StatusBadRequest, "send \"rows\" or \"records\", not both")
-			return nil, nil, false
+			return nil, nil, nil, false
 		}
 		if len(names) != cols {
 			writeError(w, http.StatusBadRequest, "the served model's columns have no names: send \"rows\" (arrays of %d numbers)", cols)
-			return nil, nil, false
+			return nil, nil, nil, false
 		}
 		if len(req.Records) > s.cfg.MaxRows {
 			writeError(w, http.StatusRequestEntityTooLarge, "%d records, the limit is %d", len(req.Records), s.cfg.MaxRows)
-			return nil, nil, false
+			return nil, nil, nil, false
 		}
 		// records become rows in the model's column order
 		req.Rows = make([][]*float64, len(req.Records))
@@ -366,16 +434,16 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 				raw, ok := rec[name]
 				if !ok {
 					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s)", i+1, name, strings.Join(names, ", "))
-					return nil, nil, false
+					return nil, nil, nil, false
 				}
 				var v *float64
 				if err := json.Unmarshal(raw, &v); err != nil {
 					writeError(w, http.StatusBadRequest, "record %d: %q is %s, not a number", i+1, name, raw)
-					return nil, nil, false
+					return nil, nil, nil, false
 				}
 				if v == nil {
 					writeError(w, http.StatusBadRequest, "record %d: %q is null", i+1, name)
-					return nil, nil, false
+					return nil, nil, nil, false
 				}
 				row[j] = v
 			}
@@ -384,32 +452,32 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 	}
 	if len(req.Rows) == 0 {
 		writeError(w, http.StatusBadRequest, "\"rows\" is empty")
-		return nil, nil, false
+		return nil, nil, nil, false
 	}
 	if len(req.Rows) > s.cfg.MaxRows {
 		writeError(w, http.StatusRequestEntityTooLarge, "%d rows, the limit is %d", len(req.Rows), s.cfg.MaxRows)
-		return nil, nil, false
+		return nil, nil, nil, false
 	}
 	x := make([]float32, 0, len(req.Rows)*cols)
 	for i, row := range req.Rows {
 		if len(row) != cols {
 			writeError(w, http.StatusBadRequest, "row %d has %d columns, the model takes %d", i+1, len(row), cols)
-			return nil, nil, false
+			return nil, nil, nil, false
 		}
 		for j, v := range row {
 			if v == nil {
 				writeError(w, http.StatusBadRequest, "row %d column %d is null", i+1, j+1)
-				return nil, nil, false
+				return nil, nil, nil, false
 			}
 			f := float32(*v)
 			if f-f != 0 {
 				writeError(w, http.StatusBadRequest, "row %d column %d is %v, outside the float32 range", i+1, j+1, *v)
-				return nil, nil, false
+				return nil, nil, nil, false
 			}
 			x = append(x, f)
 		}
 	}
-	return &req, x, true
+	return &req, x, nil, true
 }
 
 func chunk(x []float32, rows, cols int) [][]float32 {
@@ -447,12 +515,16 @@ func namedColumns(cols []string) []string {
 
 // answerRows decodes a rows request for the served model, runs f on its
 // rows and answers with f's result as JSON, or 400 with f's error.
-func (s *Server) answerRows(w http.ResponseWriter, r *http.Request, m *Loaded, f func(x []float32, n int, req *rowsRequest) (any, error)) {
-	req, x, ok := s.decodeRows(w, r, m.Model.Width(), namedColumns(m.Model.Schema().Columns))
+func (s *Server) answerRows(w http.ResponseWriter, r *http.Request, m *Loaded, f func(x []float32, n int, req *rowsRequest, reads []rowRead) (any, error)) {
+	var fields []string
+	if enc := m.Model.Schema().Encoding; enc != nil {
+		fields = enc.Names()
+	}
+	req, x, reads, ok := s.decodeRows(w, r, m.Model.Width(), namedColumns(m.Model.Schema().Columns), m.cells, fields)
 	if !ok {
 		return
 	}
-	v, err := f(x, len(req.Rows), req)
+	v, err := f(x, len(req.Rows), req, reads)
 	if err != nil {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
@@ -470,7 +542,7 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold")
 		return
 	}
-	s.answerRows(w, r, m, func(x []float32, n int, req *rowsRequest) (any, error) {
+	s.answerRows(w, r, m, func(x []float32, n int, req *rowsRequest, reads []rowRead) (any, error) {
 		top := req.Top
 		if top <= 0 {
 			top = 3
@@ -478,6 +550,15 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 		res, err := sc.Score(x, n, top)
 		if err != nil {
 			return nil, err
+		}
+		for i, rd := range reads {
+			switch {
+			case rd.unscorable && res[i].Unscorable == "":
+				// never reported as normal: flagged, with no score
+				res[i] = anomaly.Score{Value: math.NaN(), Threshold: res[i].Threshold, Anomaly: true, Unscorable: rd.text}
+			case rd.text != "":
+				res[i].Read = rd.text
+			}
 		}
 		flagged := 0
 		for _, sc := range res {
@@ -494,12 +575,12 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
 	if enc, ok := capability[model.Encoder](w, m, "encoding", "a model with codes (an autoencoder or a VAE)"); ok {
-		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest) (any, error) {
+		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest, reads []rowRead) (any, error) {
 			codes, err := enc.Encode(x, n)
 			if err != nil {
 				return nil, err
 			}
-			return map[string]any{"codes": chunk(codes, n, enc.CodeWidth())}, nil
+			return withReads(map[string]any{"codes": chunk(codes, n, enc.CodeWidth())}, reads), nil
 		})
 	}
 }
@@ -507,12 +588,12 @@ func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
 func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request) {
 	m := s.Model()
 	if rec, ok := capability[model.Reconstructor](w, m, "reconstruction", "an autoencoder or a VAE"); ok {
-		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest) (any, error) {
+		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest, reads []rowRead) (any, error) {
 			out, err := rec.Reconstruct(x, n)
 			if err != nil {
 				return nil, err
 			}
-			return map[string]any{"rows": chunk(out, n, m.Model.Width())}, nil
+			return withReads(map[string]any{"rows": chunk(out, n, m.Model.Width())}, reads), nil
 		})
 	}
 }
@@ -597,4 +678,38 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 		return err
 	}
 	return nil
+}
+
+// withReads adds to a response, when reading records found anything,
+// "read": for each record what was found ("" when nothing).
+func withReads(v map[string]any, reads []rowRead) map[string]any {
+	if reads != nil {
+		texts := make([]string, len(reads))
+		for i, rd := range reads {
+			texts[i] = rd.text
+		}
+		v["read"] = texts
+	}
+	return v
+}
+
+// cellText turns a record's JSON value into a cell's text: a string as it
+// is, a number in its shortest form, a boolean as true or false, null as
+// an empty (missing) cell.
+func cellText(raw json.RawMessage) (string, error) {
+	var v any
+	if err := json.Unmarshal(raw, &v); err != nil {
+		return "", err
+	}
+	switch t := v.(type) {
+	case nil:
+		return "", nil
+	case string:
+		return t, nil
+	case float64:
+		return strconv.FormatFloat(t, 'g', -1, 64), nil
+	case bool:
+		return strconv.FormatBool(t), nil
+	}
+	return "", fmt.Errorf("not a text, a number, a boolean or null")
 }

@@ -448,3 +448,75 @@ func TestRecordsByColumnName(t *testing.T) {
 	require.Equal(t, 400, code)
 	require.Contains(t, v["error"], "columns have no names")
 }
+
+// A model of a table read by type takes records keyed by its columns'
+// names, with texts, numbers, booleans and nulls: the same scores as the
+// same rows read from a CSV by the model's encoding; a level not seen in
+// training and a missing value are said in "read"; a record with nothing
+// observed is unscorable (null score, flagged); arrays of numbers, and a
+// record without a column, are 400s naming the columns.
+func TestTypedRecords(t *testing.T) {
+	dir := t.TempDir()
+	var b strings.Builder
+	b.WriteString("amount,channel,card\n")
+	for i := range 300 {
+		ch := []string{"web", "shop", "phone"}[i%3]
+		card := []string{"yes", "no"}[(i/3)%2]
+		amount := fmt.Sprint(10 + (i*7)%23)
+		if i%17 == 0 {
+			amount = ""
+		}
+		fmt.Fprintf(&b, "%s,%s,%s\n", amount, ch, card)
+	}
+	d, err := data.ReadCSV(strings.NewReader(b.String()), "pay.csv", data.CSVConfig{Typed: true})
+	require.NoError(t, err)
+	m, err := ae.New(ae.Config{Inputs: d.Cols, Hidden: []int{8}, Latent: 2, Seed: 3})
+	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 2})
+	_, err = m.Calibrate(d.X, d.Rows, anomaly.Config{FalseAlarm: 0.05})
+	require.NoError(t, err)
+	path := filepath.Join(dir, "typed.qm")
+	require.NoError(t, m.Save(path, nil))
+
+	later := "card,channel,amount\nno,web,12\nyes,fax,\ntrue,shop,30\n,,\n"
+	want, err := data.ReadCSV(strings.NewReader(later), "later.csv", data.CSVConfig{Encoding: d.Encoding})
+	require.NoError(t, err)
+	wantScores, err := m.Score(want.X, want.Rows, 2)
+	require.NoError(t, err)
+
+	l := start(t, Config{ModelPath: path})
+	c := &http.Client{Timeout: 5 * time.Second}
+	body := []byte(`{"top": 2, "records": [
+		{"amount": 12, "channel": "web", "card": "no", "id": "a1"},
+		{"card": "yes", "amount": null, "channel": "fax"},
+		{"channel": "shop", "amount": "30", "card": true},
+		{"channel": null, "amount": null, "card": null}]}`)
+	code, v := post(t, c, l.url+"/v1/score", body)
+	require.Equal(t, 200, code, "%v", v)
+	res := v["results"].([]any)
+	require.Len(t, res, 4)
+	for i := range 3 {
+		r := res[i].(map[string]any)
+		require.InDelta(t, wantScores[i].Value, r["score"], 1e-6*wantScores[i].Value, "record %d", i+1)
+		for _, f := range r["top_features"].([]any) {
+			require.Contains(t, []string{"amount", "channel", "card"}, f.(map[string]any)["name"], "features are the table's columns")
+		}
+	}
+	require.NotContains(t, res[0].(map[string]any), "read")
+	require.Contains(t, res[1].(map[string]any)["read"], `channel: level "fax" not seen in training`)
+	require.Contains(t, res[1].(map[string]any)["read"], "amount: missing, filled with")
+	last := res[3].(map[string]any)
+	require.Nil(t, last["score"])
+	require.Equal(t, true, last["anomaly"])
+	require.Equal(t, "no observed cell", last["unscorable"])
+
+	code, v = post(t, c, l.url+"/v1/score", []byte(`{"records": [{"amount": 1, "channel": "web"}]}`))
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], `record 1 has no "card" (the model reads amount, channel, card`)
+	code, v = post(t, c, l.url+"/v1/score", []byte(`{"rows": [[1, 0, 0, 1, 0, 1]]}`))
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], "send \"records\"")
+	code, v = post(t, c, l.url+"/v1/score", []byte(`{"records": [{"amount": [1], "channel": "web", "card": "no"}]}`))
+	require.Equal(t, 400, code)
+	require.Contains(t, v["error"], `"amount" is [1]`)
+}
