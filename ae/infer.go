@@ -306,7 +306,13 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 		return nil, err
 	}
 	owner, names := m.Explained()
-	return anomaly.AssessGrouped(scores, c, cols, owner, names, top, *m.Threshold), nil
+	out := anomaly.AssessGrouped(scores, c, cols, owner, names, top, *m.Threshold)
+	recon, err := m.Reconstruct(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	modelio.Explain(&m.Fitted, out, x, recon, cols)
+	return out, nil
 }
 
 // Calibrated returns the model's threshold (nil before calibration).

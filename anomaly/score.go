@@ -14,6 +14,14 @@ type Feature struct {
 	// under a profile's full covariance (its deviation is one another
 	// column's makes expected): it raises nothing and has no share.
 	Share float64 `json:"share"`
+	// Expected is what the model expected of the column: its
+	// reconstruction (a number), or the level (category) or text
+	// (boolean) it reconstructs most. Empty when unknown.
+	Expected string `json:"expected,omitempty"`
+	// Direction says how the row's value stands to Expected: "above" or
+	// "below" for a number, "other" for a category or boolean whose
+	// value is not the expected one, "missing" for a missing cell.
+	Direction string `json:"direction,omitempty"`
 }
 
 // Score is one row's anomaly assessment.

@@ -5,6 +5,7 @@ import (
 	"math"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/losses"
 )
@@ -96,7 +97,13 @@ func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
 		return nil, err
 	}
 	owner, names := m.Explained()
-	return anomaly.AssessGrouped(s, c, m.cfg.Inputs, owner, names, top, *m.Threshold), nil
+	out := anomaly.AssessGrouped(s, c, m.cfg.Inputs, owner, names, top, *m.Threshold)
+	recon, err := m.Reconstruct(x, rows)
+	if err != nil {
+		return nil, err
+	}
+	modelio.Explain(&m.Fitted, out, x, recon, m.cfg.Inputs)
+	return out, nil
 }
 
 // ScoreName names what RowScores measure.

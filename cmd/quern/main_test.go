@@ -8,6 +8,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"runtime"
+	"strconv"
 	"strings"
 	"syscall"
 	"testing"
@@ -88,7 +89,7 @@ func TestTrainScoreEncodeInspectCSV(t *testing.T) {
 	require.Equal(t, 569, scores.Rows)
 	head, err := os.ReadFile(filepath.Join(dir, "scores.csv"))
 	require.NoError(t, err)
-	require.True(t, strings.HasPrefix(string(head), "row,score,threshold,anomaly,feature1,share1,feature2,share2,feature3,share3,status\n"))
+	require.True(t, strings.HasPrefix(string(head), "row,score,threshold,anomaly,feature1,share1,expected1,direction1,feature2,share2,expected2,direction2,feature3,share3,expected3,direction3,status\n"))
 	r = ok(t, quern(t, dir, nil, "encode", "-model", "bc.qm", "-data", bc, "-no-header", "-skip", "1", "-label", "c30"))
 	require.Equal(t, 570, strings.Count(r.stdout, "\n"))
 	require.True(t, strings.HasPrefix(r.stdout, "z0,z1,z2\n"))
@@ -460,6 +461,11 @@ func TestVAEScore(t *testing.T) {
 	require.Contains(t, r.stderr, "decision aid")
 	lines := strings.Split(strings.TrimSpace(r.stdout), "\n")
 	require.Len(t, lines, 570)
-	require.Equal(t, "row,score,threshold,anomaly,feature1,share1,status", lines[0])
+	require.Equal(t, "row,score,threshold,anomaly,feature1,share1,expected1,direction1,status", lines[0])
+	first := strings.Split(lines[1], ",")
+	require.Len(t, first, 9)
+	_, err := strconv.ParseFloat(first[6], 64)
+	require.NoError(t, err, "the expected value is the reconstruction, a number: %s", lines[1])
+	require.Contains(t, []string{"above", "below"}, first[7])
 	require.Contains(t, quern(t, dir, nil, "inspect", "v.qm").stdout, "threshold")
 }

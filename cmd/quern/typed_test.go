@@ -6,6 +6,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -73,16 +74,34 @@ func TestTypedTableThroughTheCommandLine(t *testing.T) {
 	recs, err := csv.NewReader(f).ReadAll() // fails on a ragged file
 	require.NoError(t, err)
 	require.Len(t, recs, 6)
-	require.Equal(t, []string{"row", "id", "score", "threshold", "anomaly", "feature1", "share1", "feature2", "share2", "feature3", "share3", "status"}, recs[0])
-	require.Equal(t, "ok", recs[1][11])
-	require.Contains(t, recs[2][11], `channel: level "fax" not seen in training`)
-	require.Contains(t, recs[2][11], `card_present: "maybe" is neither "yes" nor "no"`)
-	require.Equal(t, []string{"3", "a3", "", recs[3][3], "true", "", "", "", "", "", "", "unscorable: no observed cell"}, recs[3])
-	require.Contains(t, recs[4][11], "read: amount: missing, filled with")
+	require.Equal(t, []string{"row", "id", "score", "threshold", "anomaly",
+		"feature1", "share1", "expected1", "direction1", "feature2", "share2", "expected2", "direction2",
+		"feature3", "share3", "expected3", "direction3", "status"}, recs[0])
+	require.Equal(t, "ok", recs[1][17])
+	require.Contains(t, recs[2][17], `channel: level "fax" not seen in training`)
+	require.Contains(t, recs[2][17], `card_present: "maybe" is neither "yes" nor "no"`)
+	require.Equal(t, []string{"3", "a3", "", recs[3][3], "true", "", "", "", "", "", "", "", "", "", "", "", "", "unscorable: no observed cell"}, recs[3])
+	require.Contains(t, recs[4][17], "read: amount: missing, filled with")
 	require.Equal(t, "true", recs[5][4], "a 900 payment at a shop without the card is flagged")
 	for _, rec := range recs[1:] {
-		for k := 5; k < 11; k += 2 {
+		for k := 5; k < 17; k += 4 {
 			require.NotContains(t, rec[k], "=", "features are the file's columns, not one-hot parts")
+		}
+	}
+	// the explanations: a number's expected value and direction, a
+	// category's expected level
+	for k := 5; k < 17; k += 4 {
+		switch recs[5][k] {
+		case "amount":
+			require.Equal(t, "above", recs[5][k+3], "900 is above what the model expects")
+			v, err := strconv.ParseFloat(recs[5][k+2], 64)
+			require.NoError(t, err)
+			require.Less(t, v, 900.0)
+		case "card_present":
+			require.Equal(t, "yes", recs[5][k+2], "a shop payment is expected with the card present")
+			require.Equal(t, "other", recs[5][k+3])
+		case "channel":
+			require.Contains(t, []string{"web", "shop", "phone"}, recs[5][k+2])
 		}
 	}
 

@@ -238,7 +238,7 @@ func cmdScore(e *env, args []string) error {
 	var d dataFlags
 	d.registerForModel(fs)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
-	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share: its fraction of the parts of the score the row's columns add (negative parts count as none)")
+	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share (its fraction of the parts of the score the row's columns add; negative parts count as none), the value the model expected (its reconstruction, kept within the training range, or a category's level) and the direction (above, below, other, missing)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
 	if _, err := parse(e, fs, args, 0); err != nil {
@@ -285,7 +285,7 @@ func cmdScore(e *env, args []string) error {
 	header := append(append([]string{"row"}, ds.KeptColumns...), "score", "threshold", "anomaly")
 	nk := len(ds.KeptColumns)
 	for k := 1; k <= *top; k++ {
-		header = append(header, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k))
+		header = append(header, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k), fmt.Sprintf("expected%d", k), fmt.Sprintf("direction%d", k))
 	}
 	cw.Write(append(header, "status"))
 	flagged, unscorable, noted := 0, 0, 0
@@ -316,7 +316,7 @@ func cmdScore(e *env, args []string) error {
 			rec = append(rec, value, strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			for k := 0; k < *top; k++ {
 				if k >= len(s.Top) {
-					rec = append(rec, "", "")
+					rec = append(rec, "", "", "", "")
 					continue
 				}
 				f := s.Top[k]
@@ -324,7 +324,7 @@ func cmdScore(e *env, args []string) error {
 				if name == "" {
 					name = "c" + strconv.Itoa(f.Column)
 				}
-				rec = append(rec, name, strconv.FormatFloat(f.Share, 'f', 4, 64))
+				rec = append(rec, name, strconv.FormatFloat(f.Share, 'f', 4, 64), f.Expected, f.Direction)
 			}
 			status := "ok"
 			if s.Unscorable != "" {
