@@ -619,3 +619,47 @@ func (re *RowEncoder) Encode(dst []float32, cells []string) ([]float32, string, 
 	}
 	return re.r.row(dst, cells)
 }
+
+// Decode writes one row of inputs (a reconstruction, a sample) as the
+// table's cells, appended to dst: a number kept within the column's
+// training range (so a column never negative stays so) and an integer
+// rounded, a boolean's text by the side of 0.5 its input is on, a
+// category's level with the largest input, and an empty (missing) cell
+// where the column's missing-cell indicator is at least 0.5.
+func (e *Encoding) Decode(dst []string, in []float32) []string {
+	at := 0
+	for i := range e.Fields {
+		f := &e.Fields[i]
+		w := f.Width()
+		v := in[at : at+w]
+		at += w
+		if f.Indicator && v[w-1] >= 0.5 {
+			dst = append(dst, "")
+			continue
+		}
+		switch f.Type {
+		case Numeric, Integer:
+			x := min(max(float64(v[0]), f.Min), f.Max)
+			if f.Type == Integer {
+				dst = append(dst, strconv.FormatFloat(math.Round(x), 'f', 0, 64))
+			} else {
+				dst = append(dst, strconv.FormatFloat(x, 'g', -1, 32))
+			}
+		case Boolean:
+			if v[0] >= 0.5 {
+				dst = append(dst, f.True)
+			} else {
+				dst = append(dst, f.False)
+			}
+		case Categorical:
+			best := 0
+			for l := range f.Levels {
+				if v[l] > v[best] {
+					best = l
+				}
+			}
+			dst = append(dst, f.Levels[best])
+		}
+	}
+	return dst
+}

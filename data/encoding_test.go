@@ -115,3 +115,18 @@ func TestTypedTableRefusals(t *testing.T) {
 	require.Equal(t, 1, d.Encoding.Fields[0].Missing)
 	require.False(t, math.IsNaN(float64(d.X[0])))
 }
+
+// Decode turns inputs back into cells: ranges kept, integers rounded,
+// booleans and levels chosen, indicators read as missing (worked by
+// hand).
+func TestDecode(t *testing.T) {
+	e := &Encoding{Fields: []Field{
+		{Name: "amount", Type: Numeric, Min: 0, Max: 100, Indicator: true},
+		{Name: "items", Type: Integer, Min: 1, Max: 5},
+		{Name: "card", Type: Boolean, True: "yes", False: "no"},
+		{Name: "channel", Type: Categorical, Levels: []string{"phone", "shop", "web"}, Indicator: true},
+	}}
+	require.Equal(t, []string{"0", "3", "yes", "shop"}, e.Decode(nil, []float32{-4.5, 0.2, 2.6, 0.7, 0.1, 0.8, 0.3, 0.4}))
+	require.Equal(t, []string{"", "5", "no", ""}, e.Decode(nil, []float32{50, 0.6, 9, 0.2, 0.1, 0.8, 0.3, 0.5}))
+	require.Equal(t, []string{"12.5", "1", "no", "phone"}, e.Decode(nil, []float32{12.5, 0, -3, 0.49, 0.9, 0.1, 0.2, 0}))
+}

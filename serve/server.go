@@ -593,7 +593,7 @@ func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request) {
 			if err != nil {
 				return nil, err
 			}
-			return withReads(map[string]any{"rows": chunk(out, n, m.Model.Width())}, reads), nil
+			return withReads(withRecords(map[string]any{"rows": chunk(out, n, m.Model.Width())}, m, out, n), reads), nil
 		})
 	}
 }
@@ -638,7 +638,7 @@ func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"rows": chunk(out, req.Count, m.Model.Width())})
+	writeJSON(w, http.StatusOK, withRecords(map[string]any{"rows": chunk(out, req.Count, m.Model.Width())}, m, out, req.Count))
 }
 
 // Serve answers on ln until ctx ends, then stops accepting connections and
@@ -712,4 +712,28 @@ func cellText(raw json.RawMessage) (string, error) {
 		return strconv.FormatBool(t), nil
 	}
 	return "", fmt.Errorf("not a text, a number, a boolean or null")
+}
+
+// withRecords adds to a response of rows, for a model of a table read by
+// type, "records": the rows as the table's cells keyed by column name
+// (levels, texts, numbers kept within their training ranges, "" for a
+// missing cell; data.Encoding.Decode).
+func withRecords(v map[string]any, m *Loaded, x []float32, n int) map[string]any {
+	enc := m.Model.Schema().Encoding
+	if enc == nil || enc.Width() != m.Model.Width() {
+		return v
+	}
+	names := enc.Names()
+	w := m.Model.Width()
+	recs := make([]map[string]string, n)
+	var cells []string
+	for r := range recs {
+		cells = enc.Decode(cells[:0], x[r*w:(r+1)*w])
+		recs[r] = make(map[string]string, len(names))
+		for j, name := range names {
+			recs[r][name] = cells[j]
+		}
+	}
+	v["records"] = recs
+	return v
 }

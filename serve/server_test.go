@@ -510,6 +510,13 @@ func TestTypedRecords(t *testing.T) {
 	require.Equal(t, true, last["anomaly"])
 	require.Equal(t, "no observed cell", last["unscorable"])
 
+	// reconstructions come back as the table's cells too
+	code, v = post(t, c, l.url+"/v1/reconstruct", []byte(`{"records": [{"amount": 12, "channel": "web", "card": "no"}]}`))
+	require.Equal(t, 200, code, "%v", v)
+	rec := v["records"].([]any)[0].(map[string]any)
+	require.Contains(t, []string{"web", "shop", "phone"}, rec["channel"])
+	require.Contains(t, []string{"yes", "no"}, rec["card"])
+
 	code, v = post(t, c, l.url+"/v1/score", []byte(`{"records": [{"amount": 1, "channel": "web"}]}`))
 	require.Equal(t, 400, code)
 	require.Contains(t, v["error"], `record 1 has no "card" (the model reads amount, channel, card`)

@@ -858,7 +858,12 @@ func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	case rows < minRows:
 		out = append(out, fmt.Sprintf("warning: %s: too few to learn from (fewer than %d); expect scores that mean little", plural(rows, "training row"), minRows))
 	case params > 0 && rows*weightsPerRow < params && d.Image == nil:
-		out = append(out, fmt.Sprintf("warning: %d training rows for %d parameters (more than %d a row): the model can memorise the rows; consider narrower -hidden and -latent (the default width keeps to about %d)", rows, params, weightsPerRow, weightsPerRow))
+		advice := fmt.Sprintf("consider narrower -hidden and -latent (the default width keeps to about %d)", weightsPerRow)
+		if m.Kind() == gan.Kind {
+			// a GAN's generator learning the rows would copy them
+			advice = "consider narrower -hidden, or check that samples are not copies of training rows"
+		}
+		out = append(out, fmt.Sprintf("warning: %d training rows for %d parameters (more than %d a row): the model can memorise the rows; %s", rows, params, weightsPerRow, advice))
 	}
 	if d.Image == nil && d.Rows > 1 {
 		var constant []string

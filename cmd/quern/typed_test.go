@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/csv"
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -124,4 +125,48 @@ func TestTypedTableThroughTheCommandLine(t *testing.T) {
 	r = quern(t, dir, nil, "train", "-data", "pay.csv", "-types", "items=text", "-out", "m3.qm")
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, `-types "items=text": want COLUMN=TYPE`)
+}
+
+// Samples of a model of a typed table come as the table's cells: the
+// columns by name, categories as levels seen in training, booleans as the
+// column's texts, whole numbers whole, numbers within the training range.
+func TestTypedSamples(t *testing.T) {
+	dir := t.TempDir()
+	writePayments(t, filepath.Join(dir, "pay.csv"), 300, 2)
+	f, err := os.Open(filepath.Join(dir, "pay.csv"))
+	require.NoError(t, err)
+	rows, err := csv.NewReader(f).ReadAll()
+	f.Close()
+	require.NoError(t, err)
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, r := range rows[1:] {
+		if v, err := strconv.ParseFloat(r[1], 64); err == nil {
+			lo, hi = min(lo, v), max(hi, v)
+		}
+	}
+	for _, kind := range []string{"vae", "gan"} {
+		ok(t, quern(t, dir, nil, "train", "-kind", kind, "-data", "pay.csv", "-columns", "amount,items,card_present,channel,country", "-out", kind+".qm", "-epochs", "2", "-quiet"))
+		r := ok(t, quern(t, dir, nil, "sample", "-model", kind+".qm", "-n", "50", "-seed", "3"))
+		recs, err := csv.NewReader(strings.NewReader(r.stdout)).ReadAll()
+		require.NoError(t, err, kind)
+		require.Equal(t, []string{"amount", "items", "card_present", "channel", "country"}, recs[0], kind)
+		require.Len(t, recs, 51, kind)
+		insp := ok(t, quern(t, dir, nil, "inspect", kind+".qm")).stdout
+		for _, rec := range recs[1:] {
+			if rec[0] != "" {
+				v, err := strconv.ParseFloat(rec[0], 64)
+				require.NoError(t, err, kind)
+				require.GreaterOrEqual(t, v, lo-1e-4, kind)
+				require.LessOrEqual(t, v, hi+1e-4, kind)
+			}
+			if rec[1] != "" {
+				_, err := strconv.Atoi(rec[1])
+				require.NoError(t, err, "%s: items %q is a whole number", kind, rec[1])
+			}
+			require.Contains(t, []string{"yes", "no"}, rec[2], kind)
+			require.Contains(t, []string{"phone", "shop", "web"}, rec[3], kind)
+			require.Contains(t, []string{"DE", "ES", "FR", ""}, rec[4], kind)
+		}
+		require.Contains(t, insp, "fields", kind)
+	}
 }

@@ -416,6 +416,8 @@ func cmdEncode(e *env, args []string) error {
 func isStdout(path string) bool { return path == "" || path == "-" }
 
 // writeImagesOrCSV writes rows as a PNG grid when the path ends in .png
+// (a model of a table read by type writes its rows as the table's cells:
+// data.Encoding.Decode)
 // and the model was trained on images, else as CSV.
 func writeImagesOrCSV(e *env, path string, x []float32, rows int, schema data.Schema, width int) error {
 	if strings.EqualFold(filepath.Ext(path), ".png") {
@@ -436,6 +438,21 @@ func writeImagesOrCSV(e *env, path string, x []float32, rows int, schema data.Sc
 	w, closeOut, err := output(e, path)
 	if err != nil {
 		return err
+	}
+	if enc := schema.Encoding; enc != nil && enc.Width() == width {
+		// a table's rows, as its cells: levels, texts, ranges kept
+		cw := csv.NewWriter(w)
+		cw.Write(enc.Names())
+		var cells []string
+		for r := range rows {
+			cells = enc.Decode(cells[:0], x[r*width:(r+1)*width])
+			cw.Write(cells)
+		}
+		cw.Flush()
+		if err := cw.Error(); err != nil {
+			return err
+		}
+		return closeOut()
 	}
 	if err := writeRows(w, header, x, rows); err != nil {
 		return err
