@@ -4,6 +4,7 @@ import (
 	"fmt"
 
 	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/scratch"
 )
 
@@ -45,8 +46,30 @@ type Profile struct {
 	// order; nil means every input. A table's missing-cell indicators are
 	// left out (data.Encoding.Indicators): a missing cell says nothing of
 	// how unusual the row is, and a rare indicator, standardised, would
-	// dominate the distance.
+	// dominate the distance. For the same reason a missing cell's
+	// residual counts as 0 (the training loss leaves it out too), and its
+	// input is the fill, the training median.
 	Scored []int `json:"scored_inputs,omitempty"`
+}
+
+// missingGroups are the model's table's missing-cell indicators (nil:
+// none).
+func (m *Model) missingGroups() []data.MissingGroup {
+	if m.Encoding == nil || m.Encoding.Width() != m.cfg.Inputs {
+		return nil
+	}
+	return m.Encoding.MissingGroups()
+}
+
+// maskResidual zeroes the residual of a row's missing cells (raw row x):
+// the training loss leaves them out, so the network's output there says
+// nothing, and the profile takes them as no error.
+func maskResidual(resid, x []float32, groups []data.MissingGroup) {
+	for _, g := range groups {
+		if x[g.Indicator] >= 0.5 {
+			clear(resid[g.From:g.To])
+		}
+	}
 }
 
 // scoredInputs are the inputs a profile fitted now covers: all but a
@@ -149,6 +172,7 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 	}
 	resid := make([]float32, d)
 	var buf []float32
+	groups := m.missingGroups()
 	pass := func(first bool) error {
 		for lo := 0; lo < rows; lo += profileChunk {
 			hi := min(lo+profileChunk, rows)
@@ -171,6 +195,7 @@ func (m *Model) FitProfileWith(x []float32, rows int, s ProfileSettings) error {
 					for j := range resid {
 						resid[j] = in[r*d+j] - out[r*d+j]
 					}
+					maskResidual(resid, x[(lo+r)*d:(lo+r+1)*d], groups)
 					buf = gather(buf, resid, scored)
 					add(res, buf)
 				}
@@ -228,9 +253,15 @@ func (m *Model) Residuals(x []float32, rows int) ([]float32, error) {
 		return r, nil
 	}
 	r := make([]float32, 0, rows*len(scored))
+	groups := m.missingGroups()
+	resid := make([]float32, d)
 	for i := range rows {
+		for j := range resid {
+			resid[j] = in[i*d+j] - out[i*d+j]
+		}
+		maskResidual(resid, x[i*d:(i+1)*d], groups)
 		for _, j := range scored {
-			r = append(r, in[i*d+j]-out[i*d+j])
+			r = append(r, resid[j])
 		}
 	}
 	return r, nil
@@ -294,6 +325,7 @@ func (m *Model) profileScores(dst, contrib []float64, x []float32, rows int) ([]
 	w.scratch = scratch.Grow(w.scratch, d+ds)
 	resid, buf := w.scratch[:d], w.scratch[d:d]
 	var terms, tmp []float64
+	groups := m.missingGroups()
 	wa := p.Weight / float64(ds+k)
 	wi := (1 - p.Weight) / float64(ds)
 	// at maps a scored input's place to the input (itself when all are)
@@ -320,6 +352,7 @@ func (m *Model) profileScores(dst, contrib []float64, x []float32, rows int) ([]
 			for j := range resid {
 				resid[j] = row[j] - out[r*d+j]
 			}
+			maskResidual(resid, x[r*d:(r+1)*d], groups)
 			dr, terms, tmp = p.Residual.Distance(terms, tmp, gather(buf, resid, p.Scored))
 			if contrib != nil {
 				for j, t := range terms {

@@ -211,6 +211,20 @@ func TestProfileLeavesIndicatorsOut(t *testing.T) {
 	res, err := m.Residuals(bc.X, bc.Rows)
 	require.NoError(t, err)
 	require.Len(t, res, bc.Rows*ds)
+	// a value whose indicator is set (raw at least 0.5) has no residual:
+	// the loss left it out
+	masked := 0
+	for r := range bc.Rows {
+		for i := range ds {
+			if bc.X[r*d+2*i+1] >= 0.5 {
+				require.Zero(t, res[r*ds+i], "row %d value %d", r, i)
+				masked++
+			} else {
+				require.NotZero(t, res[r*ds+i], "row %d value %d", r, i)
+			}
+		}
+	}
+	require.NotZero(t, masked)
 	in := scaledRows(m, bc)
 	var inS []float32
 	for r := range bc.Rows {

@@ -663,3 +663,23 @@ func (e *Encoding) Decode(dst []string, in []float32) []string {
 	}
 	return dst
 }
+
+// MissingGroup is the inputs a missing-cell indicator stands for: inputs
+// From..To-1 (a column's value, or a category's levels) say nothing of a
+// row whose input Indicator is 1.
+type MissingGroup struct{ From, To, Indicator int }
+
+// MissingGroups lists the encoding's indicators and the inputs each
+// stands for, in input order (nil: none).
+func (e *Encoding) MissingGroups() []MissingGroup {
+	var out []MissingGroup
+	at := 0
+	for _, f := range e.Fields {
+		w := f.Width()
+		if f.Indicator {
+			out = append(out, MissingGroup{From: at, To: at + w - 1, Indicator: at + w - 1})
+		}
+		at += w
+	}
+	return out
+}

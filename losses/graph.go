@@ -63,6 +63,16 @@ func GraphMSE[N Node](g Graph[N], pred, target N) N {
 	return g.MSE(pred, target)
 }
 
+// GraphMaskedMSE is the graph form of MaskedMSE, from element-wise
+// operations (the fused MSE has no mask).
+func GraphMaskedMSE[N Node](g Graph[N], pred, target, mask N) N {
+	if !same(g, "MaskedMSE", pred, target) || !same(g, "MaskedMSE", pred, mask) {
+		return pred
+	}
+	d := g.Sub(pred, target)
+	return g.Scale(g.Sum(g.Mul(mask, g.Square(d))), 1/float64(pred.Rows()*pred.Cols()))
+}
+
 // GraphBCE is the graph form of BCE for probabilities strictly inside (0, 1).
 func GraphBCE[N Node](g Graph[N], p, y N) N {
 	same(g, "BCE", p, y)

@@ -32,6 +32,26 @@ func MSE(pred, target []float64) (float64, error) {
 	return s / float64(len(pred)), nil
 }
 
+// MaskedMSE is the squared error of pred against target where mask is 1
+// (0 elsewhere), summed and divided by the number of all elements: the
+// mean squared error with the masked elements (a table's missing cells)
+// counting as no error, so that what the target holds there does not
+// matter. With a mask of ones it is MSE.
+func MaskedMSE(pred, target, mask []float64) (float64, error) {
+	if err := sameLen("MaskedMSE", len(pred), len(target)); err != nil {
+		return 0, err
+	}
+	if err := sameLen("MaskedMSE", len(pred), len(mask)); err != nil {
+		return 0, err
+	}
+	var s float64
+	for i, p := range pred {
+		d := p - target[i]
+		s += mask[i] * d * d
+	}
+	return s / float64(len(pred)), nil
+}
+
 // logClamp is the floor applied to log terms of BCE on probabilities, so
 // that p = 0 or 1 gives a finite loss (the same convention as the
 // general-purpose library whose values the golden tests use).

@@ -22,6 +22,11 @@ type aeRecipe struct {
 	opt   optim.Optimizer
 
 	x, target, onehot, labelWeight *engine.Input
+	// mask leaves a table's missing cells out of the reconstruction loss
+	// (nil without missing-cell indicators); missing says which inputs a
+	// row's indicators mask
+	mask    *engine.Input
+	missing []missingRule
 	// dropout masks of the training graphs, per network
 	dropEnc, dropDec, dropHead []*engine.Input
 
@@ -100,6 +105,10 @@ func (r *aeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data
 	}
 	r.lo, r.hi = colRange(tr, r.rowScaler())
 	if r.trainPhase == nil {
+		r.missing = missingRules(r.m.Encoding, r.m.Scaler, r.c.Inputs)
+		if len(r.missing) > 0 && r.c.Loss == ae.MSE {
+			r.mask = engine.NewInput("mask")
+		}
 		r.trainPhase = engine.NewPhase(r.c.Precision, true, r.build(true)).Only(r.trainable())
 		r.evalPhase = engine.NewPhase(r.c.Precision, false, r.build(false))
 		r.step.Phase = r.trainPhase
@@ -154,9 +163,12 @@ func (r *aeRecipe) build(trainMode bool) engine.BuildFunc {
 		var total, recon, sparse, ce *engine.Node
 		if !obj.HeadOnly {
 			out := g.MLP(m.Decoder, code, dropDec)
-			if c.Loss == ae.BCE {
+			switch {
+			case c.Loss == ae.BCE:
 				recon = losses.GraphBCEWithLogits(g, out, target)
-			} else {
+			case r.mask != nil:
+				recon = losses.GraphMaskedMSE(g, out, target, g.Input(r.mask, n, c.Inputs))
+			default:
 				recon = losses.GraphMSE(g, out, target)
 			}
 			total = recon
@@ -216,6 +228,18 @@ func (r *aeRecipe) fill(p *engine.Program, x []float32, labels []int, rows int, 
 		if trainMode {
 			corrupt(x32, obj.Noise, c.Inputs, r.lo, r.hi, r.noise)
 		}
+	}
+	if r.mask != nil && p.Has(r.mask) {
+		d := c.Inputs
+		setInput(p, r.mask, func(i int) float64 {
+			row, j := i/d, i%d
+			for _, m := range r.missing {
+				if j >= m.from && j < m.to && x[row*d+m.indicator] > m.above {
+					return 0
+				}
+			}
+			return 1
+		})
 	}
 	if trainMode {
 		for _, net := range []struct {
@@ -343,3 +367,37 @@ func colRange(d *data.Dataset, s *data.Scaler) (lo, hi []float32) {
 }
 
 func (r *aeRecipe) rowScaler() *data.Scaler { return rowScaler(r.m.Scaler) }
+
+// missingRule says which inputs a missing-cell indicator masks: inputs
+// from..to-1 (the column's value, or a category's levels) of a row whose
+// indicator input, scaled, is above the scaled 0.5.
+type missingRule struct {
+	from, to, indicator int
+	above               float32
+}
+
+// missingRules reads a table encoding's indicators (none: nil), with the
+// scaler the rows are scaled by (nil: none).
+func missingRules(enc *data.Encoding, s *data.Scaler, inputs int) []missingRule {
+	if enc == nil || enc.Width() != inputs {
+		return nil
+	}
+	var rules []missingRule
+	for _, g := range enc.MissingGroups() {
+		rules = append(rules, missingRule{from: g.From, to: g.To, indicator: g.Indicator})
+	}
+	if len(rules) == 0 {
+		return nil
+	}
+	half := make([]float32, inputs)
+	for _, r := range rules {
+		half[r.indicator] = 0.5
+	}
+	if s != nil {
+		s.ApplyRows(half)
+	}
+	for i := range rules {
+		rules[i].above = half[rules[i].indicator]
+	}
+	return rules
+}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"runtime"
@@ -14,7 +15,9 @@ import (
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/gan"
 	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/losses"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/optim"
 	"github.com/quernlab/quern/train"
@@ -319,4 +322,65 @@ func TestResumeKeepsTheBestWeights(t *testing.T) {
 			require.Equal(t, q.At(j), p.At(j), "%s[%d]", p.Name(), j)
 		}
 	}
+}
+
+// A table's missing cells are left out of an autoencoder's reconstruction
+// loss: the validation loss the run reports is MaskedMSE of the scaled
+// rows against the model's reconstruction with the missing cells' inputs
+// masked (worked from the model's own passes), and not the plain MSE.
+func TestMissingCellsLeftOutOfTheLoss(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("a,b,c\n")
+	for i := range 200 {
+		a := fmt.Sprint(float64(i%13) / 2)
+		if i%5 == 0 {
+			a = ""
+		}
+		c := []string{"x", "y", "z"}[i%3]
+		if i%7 == 0 {
+			c = "NA"
+		}
+		fmt.Fprintf(&b, "%s,%d,%s\n", a, i%4, c)
+	}
+	d, err := data.ReadCSV(strings.NewReader(b.String()), "t.csv", data.CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, 7, d.Cols) // a, a (missing), b, c=x, c=y, c=z, c (missing)
+	tr, va := d.Subset(seq(0, 150)), d.Subset(seq(150, 200))
+	m, err := ae.New(ae.Config{Inputs: d.Cols, Hidden: []int{6}, Latent: 2, Seed: 4, Precision: layers.Float64})
+	require.NoError(t, err)
+	h := trainenv.Fit(t, m, tr, va, train.Settings{Epochs: 2, BatchSize: 50})
+	_, got := h.Loss(2)
+	rec, err := m.Reconstruct(va.X, va.Rows)
+	require.NoError(t, err)
+	in := append([]float32(nil), va.X...)
+	m.Scaler.ApplyRows(in)
+	m.Scaler.ApplyRows(rec)
+	var p, y, mask []float64
+	for r := range va.Rows {
+		row := va.Row(r)
+		for j := range d.Cols {
+			p, y = append(p, float64(rec[r*d.Cols+j])), append(y, float64(in[r*d.Cols+j]))
+			keep := 1.0
+			if (j == 0 && row[1] == 1) || (j >= 3 && j <= 5 && row[6] == 1) {
+				keep = 0
+			}
+			mask = append(mask, keep)
+		}
+	}
+	want, err := losses.MaskedMSE(p, y, mask)
+	require.NoError(t, err)
+	plain, err := losses.MSE(p, y)
+	require.NoError(t, err)
+	// tolerance: the reconstruction comes back through float32 (1e-6
+	// relative); the plain MSE is farther off than that
+	require.InDelta(t, want, got, 1e-6*want)
+	require.Greater(t, math.Abs(plain-got), 1e-3*got, "the plain MSE differs, so the test can tell them apart")
+}
+
+func seq(lo, hi int) []int {
+	out := make([]int, 0, hi-lo)
+	for i := lo; i < hi; i++ {
+		out = append(out, i)
+	}
+	return out
 }
