@@ -183,7 +183,7 @@ func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float
 			return nil, err
 		}
 		dst = scratch.Grow(dst, rows*m.cfg.Inputs)
-		_, err := m.profileScores(nil, dst, x, rows)
+		_, err := m.profileScores(nil, dst, nil, x, rows)
 		return dst, err
 	}
 	w, in, out, err := m.reconstructRowsAs(x, rows, m.cfg.Loss == BCE)
@@ -230,7 +230,7 @@ func (m *Model) RowScores(x []float32, rows int) ([]float64, error) {
 // RowScoresInto is RowScores writing into dst (grown if too short).
 func (m *Model) RowScoresInto(dst []float64, x []float32, rows int) ([]float64, error) {
 	if m.Profile != nil {
-		return m.profileScores(dst, nil, x, rows)
+		return m.profileScores(dst, nil, nil, x, rows)
 	}
 	return m.RowErrorsInto(dst, x, rows)
 }
@@ -285,13 +285,15 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 	}
 	cols := m.cfg.Inputs
 	var scores, c []float64
+	var recon []float32
 	var err error
 	if m.Profile != nil {
 		if err := checkRows(x, rows, cols, "input"); err != nil {
 			return nil, err
 		}
 		c = make([]float64, rows*cols)
-		scores, err = m.profileScores(nil, c, x, rows)
+		recon = make([]float32, rows*cols)
+		scores, err = m.profileScores(nil, c, recon, x, rows)
 	} else if c, err = m.Contributions(x, rows); err == nil {
 		scores = make([]float64, rows)
 		for r := range scores {
@@ -307,9 +309,10 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 	}
 	owner, names := m.Explained()
 	out := anomaly.AssessGrouped(scores, c, cols, owner, names, top, *m.Threshold)
-	recon, err := m.Reconstruct(x, rows)
-	if err != nil {
-		return nil, err
+	if recon == nil {
+		if recon, err = m.Reconstruct(x, rows); err != nil {
+			return nil, err
+		}
 	}
 	modelio.Explain(&m.Fitted, out, x, recon, cols)
 	return out, nil

@@ -308,13 +308,22 @@ func (p *Profile) check(c Config) error {
 // profileScores writes each row's profile distance into dst and, when
 // contrib is not nil, each column's part of it into contrib (rows x
 // Inputs): its residual term times w / (Latent + Inputs) plus its input
-// term times (1 - w) / Inputs. The code's part is the rest.
-func (m *Model) profileScores(dst, contrib []float64, x []float32, rows int) ([]float64, error) {
+// term times (1 - w) / Inputs. The code's part is the rest. When recon
+// is not nil it also receives the raw reconstruction (rows x Inputs), as
+// Reconstruct gives it.
+func (m *Model) profileScores(dst, contrib []float64, recon, x []float32, rows int) ([]float64, error) {
 	w, in, out, err := m.reconstructRows(x, rows)
 	if err != nil {
 		return nil, err
 	}
 	defer m.pool.Put(w)
+	if recon != nil {
+		// the raw reconstruction, as Reconstruct gives it
+		copy(recon, out)
+		if m.Scaler != nil {
+			m.Scaler.InvertRows(recon)
+		}
+	}
 	d, k := m.cfg.Inputs, m.cfg.Latent
 	p := m.Profile
 	ds := d

@@ -166,6 +166,7 @@ type csvBatch struct {
 	rowLines []int           // the line of each parsed row
 	notes    []RowNote       // an encoding pass's notes, Row counted in the batch
 	survey   []*columnSurvey // a survey pass's counts of this batch
+	stats    *columnStats    // a typed reading's numbers: each column's range
 	err      error
 }
 
@@ -205,6 +206,9 @@ func (p *rowParser) parse(b *csvBatch) {
 	prev := 0
 	var missing func(string) bool
 	maxLevels := cmpOrInt(p.cfg.MaxLevels, DefaultMaxLevels)
+	if p.cfg.Typed && p.pass == nil && p.cfg.Encoding == nil {
+		b.stats = newColumnStats(len(p.sel))
+	}
 	switch {
 	case p.pass != nil && p.pass.cells != nil:
 		b.x = make([]float32, 0, len(b.ends)*p.pass.cells.e.Width())
@@ -254,7 +258,7 @@ func (p *rowParser) parse(b *csvBatch) {
 				b.survey[k].add(strings.TrimSpace(fields[i]), line, missing, maxLevels)
 			}
 		}
-		for _, i := range p.sel {
+		for k, i := range p.sel {
 			if p.pass != nil {
 				break
 			}
@@ -269,6 +273,9 @@ func (p *rowParser) parse(b *csvBatch) {
 				return
 			}
 			b.x = append(b.x, float32(v))
+			if b.stats != nil {
+				b.stats.add(k, float32(v))
+			}
 		}
 		if p.label >= 0 {
 			s := strings.TrimSpace(fields[p.label])
@@ -340,6 +347,12 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 			d.Labels = append(d.Labels, b.labels...)
 		}
 		d.Kept = append(d.Kept, b.kept...)
+		if b.stats != nil && n > 0 {
+			if d.stats == nil {
+				d.stats = newColumnStats(d.Cols)
+			}
+			d.stats.merge(b.stats)
+		}
 		for _, nt := range b.notes {
 			nt.Row += d.Rows
 			d.Notes = append(d.Notes, nt)

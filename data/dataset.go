@@ -47,6 +47,10 @@ type Dataset struct {
 	// Skipped lists the lines of training rows left out for having no
 	// observed cell.
 	Skipped []int
+
+	// stats are each column's range, gathered while a typed reading
+	// parsed the numbers (nil otherwise)
+	stats *columnStats
 }
 
 // New wraps x (rows x cols, row-major) in a Dataset, checking the length and

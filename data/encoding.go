@@ -527,16 +527,18 @@ func sampleTexts(texts map[string]int) string {
 }
 
 // fillMissing sets each number, integer and boolean field's Fill to the
-// median of its observed inputs in d (rounded for integers) and writes it
-// where training left NaN.
+// median of its observed inputs in d (of an even sample of fillSample
+// rows when there are more; rounded for integers) and writes it where
+// training left NaN.
 func (e *Encoding) fillMissing(d *Dataset) {
 	at := 0
-	vals := make([]float64, 0, d.Rows)
+	step := max(1, d.Rows/fillSample)
+	vals := make([]float64, 0, min(d.Rows, fillSample+1))
 	for i := range e.Fields {
 		f := &e.Fields[i]
 		if f.Type != Categorical {
 			vals = vals[:0]
-			for r := range d.Rows {
+			for r := 0; r < d.Rows; r += step {
 				if v := d.X[r*d.Cols+at]; !math.IsNaN(float64(v)) {
 					vals = append(vals, float64(v))
 				}
@@ -557,17 +559,62 @@ func (e *Encoding) fillMissing(d *Dataset) {
 	}
 }
 
-// median of v (reordered); 0 for none.
+// median of v (reordered); 0 for none. The middle order statistics by
+// selection (Hoare's quickselect, median-of-three pivots), linear time on
+// average.
 func median(v []float64) float64 {
-	if len(v) == 0 {
+	n := len(v)
+	if n == 0 {
 		return 0
 	}
-	slices.Sort(v)
-	n := len(v)
+	hi := selectKth(v, n/2)
 	if n%2 == 1 {
-		return v[n/2]
+		return hi
 	}
-	return (v[n/2-1] + v[n/2]) / 2
+	// the largest of the lower half
+	lo := v[0]
+	for _, x := range v[1 : n/2] {
+		lo = max(lo, x)
+	}
+	return (lo + hi) / 2
+}
+
+// selectKth reorders v so that v[k] is its k-th smallest value (0-based),
+// every value before it no larger and every one after it no smaller, and
+// returns v[k].
+func selectKth(v []float64, k int) float64 {
+	lo, hi := 0, len(v)-1
+	for lo < hi {
+		mid := lo + (hi-lo)/2
+		// median of three as the pivot, moved to hi
+		if v[mid] < v[lo] {
+			v[mid], v[lo] = v[lo], v[mid]
+		}
+		if v[hi] < v[lo] {
+			v[hi], v[lo] = v[lo], v[hi]
+		}
+		if v[mid] < v[hi] {
+			v[mid], v[hi] = v[hi], v[mid]
+		}
+		p := v[hi]
+		i := lo
+		for j := lo; j < hi; j++ {
+			if v[j] < p {
+				v[i], v[j] = v[j], v[i]
+				i++
+			}
+		}
+		v[i], v[hi] = v[hi], v[i]
+		switch {
+		case k < i:
+			hi = i - 1
+		case k > i:
+			lo = i + 1
+		default:
+			return v[k]
+		}
+	}
+	return v[k]
 }
 
 // Describe says in a line what the field is: its type, its levels or

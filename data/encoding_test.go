@@ -2,6 +2,8 @@ package data
 
 import (
 	"math"
+	"math/rand/v2"
+	"slices"
 	"strings"
 	"testing"
 
@@ -129,4 +131,56 @@ func TestDecode(t *testing.T) {
 	require.Equal(t, []string{"0", "3", "yes", "shop"}, e.Decode(nil, []float32{-4.5, 0.2, 2.6, 0.7, 0.1, 0.8, 0.3, 0.4}))
 	require.Equal(t, []string{"", "5", "no", ""}, e.Decode(nil, []float32{50, 0.6, 9, 0.2, 0.1, 0.8, 0.3, 0.5}))
 	require.Equal(t, []string{"12.5", "1", "no", "phone"}, e.Decode(nil, []float32{12.5, 0, -3, 0.49, 0.9, 0.1, 0.2, 0}))
+}
+
+// median by selection equals the median of the sorted values (by
+// definition), for odd and even counts, ties and random orders.
+func TestMedian(t *testing.T) {
+	r := rand.New(rand.NewPCG(1, 2))
+	for n := 1; n < 60; n++ {
+		for range 20 {
+			v := make([]float64, n)
+			for i := range v {
+				v[i] = float64(r.IntN(7)) // many ties
+				if n > 30 {
+					v[i] = r.NormFloat64()
+				}
+			}
+			s := slices.Clone(v)
+			slices.Sort(s)
+			want := s[n/2]
+			if n%2 == 0 {
+				want = (s[n/2-1] + s[n/2]) / 2
+			}
+			require.Equal(t, want, median(v), "%v", s)
+		}
+	}
+}
+
+// A file read by a plain encoding takes the numbers' pass when every cell
+// is a number, and the encoding's when one is not; either way the same
+// rows, by name, and without a header by position.
+func TestPlainEncodingPaths(t *testing.T) {
+	d, err := ReadCSV(strings.NewReader("a,b\n1,2\n3,4\n"), "t.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	e := d.Encoding
+	for _, c := range []struct {
+		text  string
+		cfg   CSVConfig
+		x     []float32
+		notes int
+	}{
+		{"b,x,a\n5,0,6\n", CSVConfig{}, []float32{6, 5}, 0},
+		{"b,x,a\n5,0,\n", CSVConfig{}, []float32{2, 5}, 1},
+		{"6,5,9\n", CSVConfig{NoHeader: true}, []float32{6, 5}, 0},
+		{"q,r\n6,5\n", CSVConfig{Columns: []string{"q", "r"}}, []float32{6, 5}, 0},
+	} {
+		c.cfg.Encoding = e
+		s, err := ReadCSV(strings.NewReader(c.text), "s.csv", c.cfg)
+		require.NoError(t, err, c.text)
+		require.Equal(t, c.x, s.X, c.text)
+		require.Len(t, s.Notes, c.notes, c.text)
+		require.Equal(t, e, s.Encoding)
+		require.Equal(t, []string{"a", "b"}, s.Columns)
+	}
 }

@@ -17,6 +17,24 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		if err := cfg.Encoding.Check(); err != nil {
 			return nil, err
 		}
+		if cfg.Encoding.Plain() && !cfg.NoHeader {
+			// a table of numbers: the numbers' own pass, and the
+			// encoding's only when a cell is not a number
+			num := cfg
+			num.Encoding, num.Typed = nil, false
+			if num.Columns == nil {
+				num.Columns = cfg.Encoding.Names()
+			}
+			d, err := read(num)
+			var pe *ParseError
+			if err == nil {
+				d.Encoding, d.Columns = cfg.Encoding, cfg.Encoding.Columns()
+				return d, nil
+			}
+			if !errors.As(err, &pe) || !pe.text {
+				return nil, err
+			}
+		}
 		return read(cfg)
 	}
 	if !cfg.Typed {
@@ -123,23 +141,31 @@ const fillSample = 1 << 16
 // later files.
 func plainEncoding(d *Dataset, markers []string) *Encoding {
 	e := &Encoding{Markers: markers, Fields: make([]Field, d.Cols)}
+	// the ranges as the parse gathered them, else one pass in row order
+	// (the table is row-major: a pass per column would walk all of
+	// memory once per column)
+	st := d.stats
+	if st == nil || !st.seen {
+		st = newColumnStats(d.Cols)
+		for r := range d.Rows {
+			for j, v := range d.Row(r) {
+				st.add(j, v)
+			}
+		}
+	}
+	lo, hi, whole := st.lo, st.hi, st.whole
 	step := max(1, d.Rows/fillSample)
 	vals := make([]float64, 0, min(d.Rows, fillSample+1))
 	for j := range d.Cols {
-		f := Field{Name: d.Columns[j], Type: Integer}
-		lo, hi := math.Inf(1), math.Inf(-1)
-		for r := range d.Rows {
-			v := float64(d.X[r*d.Cols+j])
-			lo, hi = min(lo, v), max(hi, v)
-			if v != math.Trunc(v) {
-				f.Type = Numeric
-			}
+		f := Field{Name: d.Columns[j], Type: Numeric, Min: float64(lo[j]), Max: float64(hi[j])}
+		if whole[j] {
+			f.Type = Integer
 		}
 		vals = vals[:0]
 		for r := 0; r < d.Rows; r += step {
 			vals = append(vals, float64(d.X[r*d.Cols+j]))
 		}
-		f.Min, f.Max, f.Fill = lo, hi, float32(median(vals))
+		f.Fill = float32(median(vals))
 		if f.Type == Integer {
 			f.Fill = float32(math.Round(float64(f.Fill)))
 		}
@@ -179,5 +205,54 @@ func (c *columnSurvey) merge(o *columnSurvey, maxLevels int) {
 	}
 	if c.badNumber == "" {
 		c.badNumber, c.badLine = o.badNumber, o.badLine
+	}
+}
+
+// columnStats are the range of each column of numbers and whether its
+// values are all whole, gathered as they are parsed.
+type columnStats struct {
+	lo, hi []float32
+	whole  []bool
+	seen   bool
+}
+
+func newColumnStats(cols int) *columnStats {
+	s := &columnStats{lo: make([]float32, cols), hi: make([]float32, cols), whole: make([]bool, cols)}
+	for j := range s.whole {
+		s.whole[j] = true
+	}
+	return s
+}
+
+// add counts value v of column j; the first row sets the range.
+func (s *columnStats) add(j int, v float32) {
+	if !s.seen {
+		s.lo[j], s.hi[j] = v, v
+		if j == len(s.lo)-1 {
+			s.seen = true
+		}
+	} else if v < s.lo[j] {
+		s.lo[j] = v
+	} else if v > s.hi[j] {
+		s.hi[j] = v
+	}
+	if s.whole[j] && v != float32(math.Trunc(float64(v))) {
+		s.whole[j] = false
+	}
+}
+
+// merge adds another part's counts.
+func (s *columnStats) merge(o *columnStats) {
+	if !o.seen {
+		return
+	}
+	if !s.seen {
+		copy(s.lo, o.lo)
+		copy(s.hi, o.hi)
+		s.seen = true
+	}
+	for j := range s.lo {
+		s.lo[j], s.hi[j] = min(s.lo[j], o.lo[j]), max(s.hi[j], o.hi[j])
+		s.whole[j] = s.whole[j] && o.whole[j]
 	}
 }
