@@ -46,6 +46,14 @@ type Config struct {
 	LeakySlope float64
 	// Loss is the reconstruction loss. Default MSE.
 	Loss Reconstruction
+	// Categories lists the inputs [from, to) that one-hot encode a
+	// categorical column, each two or more wide and disjoint (a table
+	// read by type: data.Encoding.CategorySpans). With the MSE loss the
+	// decoder's outputs there are logits: the reconstruction is their
+	// softmax, the levels' probabilities, and training charges the
+	// softmax cross-entropy there, the squared error elsewhere. Default
+	// none.
+	Categories [][2]int `json:",omitempty"`
 	// Classes > 0 adds a classification head on the code with that many
 	// classes (trained on the rows that have a label).
 	Classes int
@@ -121,6 +129,14 @@ func (c Config) Validate() error {
 	case MSE, BCE:
 	default:
 		return bad("unknown reconstruction loss %q (want mse or bce)", c.Loss)
+	}
+	if len(c.Categories) > 0 {
+		if c.Loss != MSE {
+			return bad("categories need the mse loss, not %s", c.Loss)
+		}
+		if err := data.CheckSpans(c.Categories, c.Inputs); err != nil {
+			return bad("%v", err)
+		}
 	}
 	if c.Classes < 0 || c.Classes == 1 {
 		return bad("%d classes, want 0 or at least 2", c.Classes)

@@ -82,11 +82,26 @@ func (m *Model) DecodeInto(dst, z []float32, rows int) ([]float32, error) {
 	return out, modelio.Finite(Kind, "decoded row", out, m.cfg.Inputs)
 }
 
-// finishOutput applies the output link (sigmoid for BCE models).
+// finishOutput applies the output link: a sigmoid for BCE models, a
+// softmax over each category's levels (scaled like the inputs, so that
+// the reconstruction is in scaled space throughout).
 func (m *Model) finishOutput(out []float32) {
 	if m.cfg.Loss == BCE {
 		for i, v := range out {
 			out[i] = float32(layers.Sigmoid.Eval(float64(v), 0))
+		}
+	}
+	if cats := m.cfg.Categories; len(cats) > 0 {
+		cols := m.cfg.Inputs
+		data.SoftmaxSpans(out, cols, cats)
+		if s := m.Scaler; s != nil && len(s.Offset) == cols {
+			for r := 0; r+cols <= len(out); r += cols {
+				for _, sp := range cats {
+					for j := sp[0]; j < sp[1]; j++ {
+						out[r+j] = float32((float64(out[r+j]) - s.Offset[j]) * s.Factor[j])
+					}
+				}
+			}
 		}
 	}
 }

@@ -3,11 +3,13 @@ package ae
 import (
 	"errors"
 	"math"
+	"path/filepath"
 	"sync"
 	"testing"
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/testenv"
+	"github.com/quernlab/quern/modelfile"
 	"github.com/stretchr/testify/require"
 )
 
@@ -113,10 +115,65 @@ func TestInputValidation(t *testing.T) {
 		{Inputs: 3, Scaling: "log"},
 		{Inputs: 3, Dropout: 1},
 		{Inputs: 3, Hidden: []int{4, 0}},
+		{Inputs: 6, Categories: [][2]int{{1, 2}}},
+		{Inputs: 6, Categories: [][2]int{{0, 3}, {2, 5}}},
+		{Inputs: 6, Categories: [][2]int{{4, 8}}},
+		{Inputs: 6, Categories: [][2]int{{0, 3}}, Loss: BCE},
 	} {
 		_, err := New(cfg)
 		require.ErrorIs(t, err, ErrConfig, "%+v", cfg)
 	}
+}
+
+// A category's reconstruction is its levels' probabilities (a softmax,
+// positive and summing to 1 in raw space) from Reconstruct and Decode
+// alike, and survives a model file, which older builds refuse (version 2).
+func TestCategoriesReconstructAsProbabilities(t *testing.T) {
+	cats := [][2]int{{1, 4}, {5, 7}}
+	m, err := New(Config{Inputs: 8, Hidden: []int{6}, Latent: 2, Seed: 3, Categories: cats})
+	require.NoError(t, err)
+	rows := 5
+	x := make([]float32, rows*8)
+	for i := range x {
+		x[i] = float32(i%7) - 2
+	}
+	m.Scaler = &data.Scaler{Kind: data.ScaleStandard, Offset: make([]float64, 8), Factor: make([]float64, 8)}
+	for j := range 8 {
+		m.Scaler.Offset[j], m.Scaler.Factor[j] = 0.25*float64(j), 1/(1+0.5*float64(j))
+	}
+	rec, err := m.Reconstruct(x, rows)
+	require.NoError(t, err)
+	code, err := m.Encode(x, rows)
+	require.NoError(t, err)
+	dec, err := m.Decode(code, rows)
+	require.NoError(t, err)
+	for _, out := range [][]float32{rec, dec} {
+		for r := range rows {
+			for _, sp := range cats {
+				var total float64
+				for j := sp[0]; j < sp[1]; j++ {
+					v := float64(out[r*8+j])
+					require.Greater(t, v, 0.0)
+					total += v
+				}
+				// tolerance: the probabilities go through the
+				// scaler and back in float32
+				require.InDelta(t, 1, total, 1e-6)
+			}
+		}
+	}
+	require.Equal(t, rec, dec, "Decode(Encode(x)) is Reconstruct(x)")
+	path := filepath.Join(t.TempDir(), "m.qm")
+	require.NoError(t, m.Save(path, nil))
+	f, err := modelfile.Read(path, 1<<20)
+	require.NoError(t, err)
+	require.EqualValues(t, 2, f.Version)
+	back, err := Load(path)
+	require.NoError(t, err)
+	require.Equal(t, cats, back.Config().Categories)
+	again, err := back.Reconstruct(x, rows)
+	require.NoError(t, err)
+	require.Equal(t, rec, again)
 }
 
 // The Into variants allocate nothing once their buffers are warm.

@@ -41,16 +41,18 @@ var loader = modelio.Kind[Config, *Model]{Name: Kind, Build: New, Resolve: func(
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
 	f, err := modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.Profile, prov}, m.Params())
-	if err == nil && m.Profile != nil {
+	if err == nil && (m.Profile != nil || len(m.cfg.Categories) > 0) {
 		// builds that predate profiles would ignore it and score by
-		// the reconstruction error: they refuse version 2
+		// the reconstruction error, builds that predate categories
+		// would take their logits for the reconstruction: they refuse
+		// version 2
 		f.Version = profileVersion
 	}
 	return f, err
 }
 
 // profileVersion is the model-file format version a file with a Profile
-// needs (see modelfile.Version).
+// or Categories needs (see modelfile.Version).
 const profileVersion = 2
 
 // Save writes the model to path atomically.

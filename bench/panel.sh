@@ -9,6 +9,7 @@
 #   SETS=wine,iris bash bench/panel.sh   # some of them
 #   OUT=DIR bash bench/panel.sh          # keep the tasks and scores in DIR
 #   TRAIN_FLAGS="-latent 4" bash bench/panel.sh   # something other than the defaults
+#   QUERN=/tmp/quern-old bash bench/panel.sh       # a binary built elsewhere (A/B runs)
 # Needs Debian's python3-numpy, python3-scipy and python3-rdata; fetches python3-sklearn
 # and r-cran-mlbench into a temporary folder (apt-get download, nothing
 # installed) when they are not installed.
@@ -27,13 +28,18 @@ if ! [ -e "$mlb/Sonar.rda" ]; then
 	(cd "$tmp" && apt-get download r-cran-mlbench >/dev/null 2>&1 && dpkg -x r-cran-mlbench_*.deb mlb)
 	mlb="$tmp/mlb/usr/lib/R/site-library/mlbench/data"
 fi
-go build -o "$tmp/quern" ./cmd/quern
+if [ -n "${QUERN:-}" ]; then
+	cp "$QUERN" "$tmp/quern"
+else
+	go build -o "$tmp/quern" ./cmd/quern
+fi
 /usr/bin/python3 scripts/panel/panel.py prepare --sklearn "$skl" --mlbench "$mlb" --out "$out" ${SETS:+--sets "$SETS"} 2>/dev/null
 start=$(date +%s)
 tail -n +2 "$out/tasks.csv" | cut -d, -f1 | while read -r task; do
 	d="$out/$task"
 	# shellcheck disable=SC2086
-	"$tmp/quern" train -data "$d/train.csv" -out "$d/m.qm" -quiet ${TRAIN_FLAGS:-} 2> "$d/train.log" || { cat "$d/train.log"; exit 1; }
+	# shellcheck disable=SC2046
+	"$tmp/quern" train -data "$d/train.csv" -out "$d/m.qm" -quiet ${TRAIN_FLAGS:-} $(cat "$d/flags.txt" 2>/dev/null) 2> "$d/train.log" || { cat "$d/train.log"; exit 1; }
 	"$tmp/quern" score -model "$d/m.qm" -data "$d/test.csv" -keep truth -top 0 -out "$d/scores.csv" -quiet
 	"$tmp/quern" inspect "$d/m.qm" | sed -n 's/^threshold .*below \([0-9.]*\)% with.*/\1/p' | awk '{print $1/100}' > "$d/bound.txt"
 done

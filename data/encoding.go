@@ -730,3 +730,58 @@ func (e *Encoding) MissingGroups() []MissingGroup {
 	}
 	return out
 }
+
+// CategorySpans lists the inputs [from, to) of each categorical field's
+// levels, in input order (nil: none): where a model's reconstruction is a
+// softmax over a column's levels.
+func (e *Encoding) CategorySpans() [][2]int {
+	var out [][2]int
+	at := 0
+	for _, f := range e.Fields {
+		if f.Type == Categorical && len(f.Levels) >= 2 {
+			out = append(out, [2]int{at, at + len(f.Levels)})
+		}
+		at += f.Width()
+	}
+	return out
+}
+
+// CheckSpans reports the first span of inputs [from, to) that is not
+// inside width inputs, is narrower than two, or overlaps another.
+func CheckSpans(spans [][2]int, width int) error {
+	used := make([]bool, width)
+	for i, s := range spans {
+		if s[0] < 0 || s[1] > width || s[1]-s[0] < 2 {
+			return fmt.Errorf("category %d: inputs [%d,%d) of %d are not a group of two or more", i+1, s[0], s[1], width)
+		}
+		for k := s[0]; k < s[1]; k++ {
+			if used[k] {
+				return fmt.Errorf("category %d: input %d is in another category too", i+1, k)
+			}
+			used[k] = true
+		}
+	}
+	return nil
+}
+
+// SoftmaxSpans replaces each span of x (rows of cols values) by its
+// softmax, in float64 within a span.
+func SoftmaxSpans(x []float32, cols int, spans [][2]int) {
+	for r := 0; r+cols <= len(x); r += cols {
+		row := x[r : r+cols]
+		for _, s := range spans {
+			v := row[s[0]:s[1]]
+			m := math.Inf(-1)
+			for _, u := range v {
+				m = math.Max(m, float64(u))
+			}
+			var z float64
+			for _, u := range v {
+				z += math.Exp(float64(u) - m)
+			}
+			for k, u := range v {
+				v[k] = float32(math.Exp(float64(u)-m) / z)
+			}
+		}
+	}
+}

@@ -27,6 +27,7 @@ type goldenCase struct {
 	PerDim []float64            `json:"perdim"`
 	Rho    float64              `json:"rho"`
 	Label  float64              `json:"label"`
+	Spans  [][2]int             `json:"spans"`
 }
 
 func loadGolden(t *testing.T) []goldenCase {
@@ -106,6 +107,13 @@ var defs = map[string]lossDef{
 		},
 		func(g *engine.Graph, c goldenCase, n map[string]*engine.Node) *engine.Node {
 			return GraphSoftmaxCrossEntropy(g, n["x"], n["t"])
+		}},
+	"GroupedSoftmaxCrossEntropy": {[]string{"x", "t"},
+		func(c goldenCase, a map[string][]float64) (float64, error) {
+			return GroupedSoftmaxCrossEntropy(a["x"], a["t"], c.Dim, c.Spans)
+		},
+		func(g *engine.Graph, c goldenCase, n map[string]*engine.Node) *engine.Node {
+			return GraphGroupedSoftmaxCE(g, n["x"], n["t"], c.Spans)
 		}},
 	"L1Activity": {[]string{"h"},
 		func(c goldenCase, a map[string][]float64) (float64, error) {

@@ -10,8 +10,9 @@ type Node interface {
 }
 
 // Graph is what the graph forms need of a computation graph. quern's
-// training engine implements it; the three fused methods (MSE,
-// BCEWithLogitsSum, KLStdNormal) are kernels that bring their own
+// training engine implements it; the four fused methods (MSE,
+// BCEWithLogitsSum, GroupedSoftmaxCESum,
+// KLStdNormal) are kernels that bring their own
 // gradients, the rest are element-wise arithmetic and reductions.
 type Graph[N Node] interface {
 	Const(v float64) N
@@ -37,6 +38,10 @@ type Graph[N Node] interface {
 	MSE(p, t N) N
 	// BCEWithLogitsSum is the sum of BCEWithLogitsElem over all elements.
 	BCEWithLogitsSum(x, y N) N
+	// GroupedSoftmaxCESum is the softmax cross-entropy of each span of
+	// columns [from, to) of x against the same columns of t, summed over
+	// rows and spans (see GroupedSoftmaxCrossEntropy).
+	GroupedSoftmaxCESum(x, t N, spans [][2]int) N
 	// KLStdNormal is KLStdNormalElem summed over columns, averaged over
 	// rows.
 	KLStdNormal(mu, logvar N) N
@@ -209,6 +214,13 @@ func GraphJensenShannon[N Node](g Graph[N], p, q N) N {
 func GraphSoftmaxCrossEntropy[N Node](g Graph[N], logits, t N) N {
 	same(g, "SoftmaxCrossEntropy", logits, t)
 	return g.Scale(g.Sum(g.Mul(t, g.LogSoftmax(logits))), -1/float64(logits.Rows()))
+}
+
+// GraphGroupedSoftmaxCE is the graph form of GroupedSoftmaxCrossEntropy,
+// one fused operation.
+func GraphGroupedSoftmaxCE[N Node](g Graph[N], x, t N, spans [][2]int) N {
+	same(g, "GroupedSoftmaxCrossEntropy", x, t)
+	return g.Scale(g.GroupedSoftmaxCESum(x, t, spans), 1/float64(max(1, x.Rows())))
 }
 
 // GraphLabelledCrossEntropy is the softmax cross-entropy of logits against

@@ -264,6 +264,39 @@ func SoftmaxCrossEntropy(x, t []float64, classes int) (float64, error) {
 	return s / float64(rows), nil
 }
 
+// GroupedSoftmaxCrossEntropy is the mean over rows of the softmax
+// cross-entropy -sum_k t_k log softmax(x[from:to])_k of each span of
+// columns [from, to), summed over the spans, for rows of cols values: the
+// reconstruction term of a table's categorical columns, one span per
+// column's levels. Columns outside every span take no part; a row whose
+// targets in a span are all zero (a missing cell) adds nothing for it.
+func GroupedSoftmaxCrossEntropy(x, t []float64, cols int, spans [][2]int) (float64, error) {
+	if err := sameLen("GroupedSoftmaxCrossEntropy", len(x), len(t)); err != nil {
+		return 0, err
+	}
+	if cols <= 0 || len(x)%cols != 0 || len(x) == 0 {
+		return 0, fmt.Errorf("%w: GroupedSoftmaxCrossEntropy: %d values are not rows of %d", ErrShape, len(x), cols)
+	}
+	for _, sp := range spans {
+		if sp[0] < 0 || sp[1] > cols || sp[1]-sp[0] < 2 {
+			return 0, fmt.Errorf("%w: GroupedSoftmaxCrossEntropy: columns [%d,%d) of %d are not a group of two or more", ErrShape, sp[0], sp[1], cols)
+		}
+	}
+	rows := len(x) / cols
+	var s float64
+	for r := 0; r < rows; r++ {
+		for _, sp := range spans {
+			xr, tr := x[r*cols+sp[0]:r*cols+sp[1]], t[r*cols+sp[0]:r*cols+sp[1]]
+			ce, err := SoftmaxCrossEntropy(xr, tr, len(xr))
+			if err != nil {
+				return 0, err
+			}
+			s += ce
+		}
+	}
+	return s / float64(rows), nil
+}
+
 // L1Activity is the sparsity penalty sum |h| over all elements divided by
 // the number of rows (the mean per-row L1 norm of the code).
 func L1Activity(h []float64, rows int) (float64, error) {

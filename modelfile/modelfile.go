@@ -24,7 +24,8 @@ var Magic = [8]byte{'Q', 'U', 'E', 'R', 'N', 'M', 'D', 'L'}
 // Version 1 is the layout below. Version 2 has the same layout and marks a
 // file whose metadata a version-1 reader would misread: an autoencoder
 // with a score profile, whose profile an older build ignores, scoring
-// every row differently. Older builds refuse such a file (ErrVersion)
+// every row differently, or with categories reconstructed by a softmax,
+// whose logits an older build would take for the reconstruction. Older builds refuse such a file (ErrVersion)
 // instead. A writer writes the least version its content needs
 // (File.Version), so other files stay readable by older builds.
 const Version = 2

@@ -27,6 +27,12 @@ type aeRecipe struct {
 	// row's indicators mask
 	mask    *engine.Input
 	missing []missingRule
+	// cat holds the one-hot levels of a table's categories (unscaled),
+	// the targets of their cross-entropy; catHalf is each input's scaled
+	// 0.5, above which a level is the row's
+	cat     *engine.Input
+	catHalf []float32
+	inCat   []bool
 	// dropout masks of the training graphs, per network
 	dropEnc, dropDec, dropHead []*engine.Input
 
@@ -106,7 +112,17 @@ func (r *aeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *data
 	r.lo, r.hi = colRange(tr, r.rowScaler())
 	if r.trainPhase == nil {
 		r.missing = missingRules(r.m.Encoding, r.m.Scaler, r.c.Inputs)
-		if len(r.missing) > 0 && r.c.Loss == ae.MSE {
+		if len(r.c.Categories) > 0 {
+			r.cat = engine.NewInput("categories")
+			r.catHalf = scaledHalf(r.m.Scaler, r.c.Inputs)
+			r.inCat = make([]bool, r.c.Inputs)
+			for _, sp := range r.c.Categories {
+				for j := sp[0]; j < sp[1]; j++ {
+					r.inCat[j] = true
+				}
+			}
+		}
+		if (len(r.missing) > 0 || r.cat != nil) && r.c.Loss == ae.MSE {
 			r.mask = engine.NewInput("mask")
 		}
 		r.trainPhase = engine.NewPhase(r.c.Precision, true, r.build(true)).Only(r.trainable())
@@ -168,6 +184,12 @@ func (r *aeRecipe) build(trainMode bool) engine.BuildFunc {
 				recon = losses.GraphBCEWithLogits(g, out, target)
 			case r.mask != nil:
 				recon = losses.GraphMaskedMSE(g, out, target, g.Input(r.mask, n, c.Inputs))
+				if r.cat != nil {
+					// the categories' cross-entropy on the scale of the
+					// squared error: summed, divided by every input
+					ce := g.GroupedSoftmaxCESum(out, g.Input(r.cat, n, c.Inputs), c.Categories)
+					recon = g.Add(recon, g.Scale(ce, 1/float64(n*c.Inputs)))
+				}
 			default:
 				recon = losses.GraphMSE(g, out, target)
 			}
@@ -231,8 +253,22 @@ func (r *aeRecipe) fill(p *engine.Program, x []float32, labels []int, rows int, 
 	}
 	if r.mask != nil && p.Has(r.mask) {
 		d := c.Inputs
+		inCat := r.inCat
+		if r.cat != nil && p.Has(r.cat) {
+			// a missing category's levels are all 0: no target, no
+			// cross-entropy
+			setInput(p, r.cat, func(i int) float64 {
+				if j := i % d; inCat[j] && x[i] > r.catHalf[j] {
+					return 1
+				}
+				return 0
+			})
+		}
 		setInput(p, r.mask, func(i int) float64 {
 			row, j := i/d, i%d
+			if inCat != nil && inCat[j] {
+				return 0
+			}
 			for _, m := range r.missing {
 				if j >= m.from && j < m.to && x[row*d+m.indicator] > m.above {
 					return 0
@@ -389,15 +425,22 @@ func missingRules(enc *data.Encoding, s *data.Scaler, inputs int) []missingRule 
 	if len(rules) == 0 {
 		return nil
 	}
-	half := make([]float32, inputs)
-	for _, r := range rules {
-		half[r.indicator] = 0.5
-	}
-	if s != nil {
-		s.ApplyRows(half)
-	}
+	half := scaledHalf(s, inputs)
 	for i := range rules {
 		rules[i].above = half[rules[i].indicator]
 	}
 	return rules
+}
+
+// scaledHalf is 0.5 in every input, scaled by s (nil: none): the level
+// between a one-hot or indicator input's 0 and 1.
+func scaledHalf(s *data.Scaler, inputs int) []float32 {
+	half := make([]float32, inputs)
+	for j := range half {
+		half[j] = 0.5
+	}
+	if s != nil {
+		s.ApplyRows(half)
+	}
+	return half
 }

@@ -377,6 +377,68 @@ func TestMissingCellsLeftOutOfTheLoss(t *testing.T) {
 	require.Greater(t, math.Abs(plain-got), 1e-3*got, "the plain MSE differs, so the test can tell them apart")
 }
 
+// A table's categories reconstruct as probabilities and train by their
+// cross-entropy: the reported validation loss is the squared error of the
+// other observed inputs plus -sum t log p over the categories' observed
+// levels, both summed over the batch and divided by its inputs, worked
+// here from the model's own reconstruction (by definition, no source).
+func TestCategoriesTrainByCrossEntropy(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("a,b,c\n")
+	for i := range 200 {
+		a := fmt.Sprint(float64(i%13) / 2)
+		if i%5 == 0 {
+			a = ""
+		}
+		c := []string{"x", "y", "z"}[(i/2)%3]
+		if i%7 == 0 {
+			c = "NA"
+		}
+		fmt.Fprintf(&b, "%s,%d,%s\n", a, i%4, c)
+	}
+	d, err := data.ReadCSV(strings.NewReader(b.String()), "t.csv", data.CSVConfig{Typed: true})
+	require.NoError(t, err)
+	spans := d.Encoding.CategorySpans()
+	require.Equal(t, [][2]int{{3, 6}}, spans)
+	tr, va := d.Subset(seq(0, 150)), d.Subset(seq(150, 200))
+	m, err := ae.New(ae.Config{Inputs: d.Cols, Hidden: []int{6}, Latent: 2, Seed: 4, Precision: layers.Float64, Categories: spans})
+	require.NoError(t, err)
+	h := trainenv.Fit(t, m, tr, va, train.Settings{Epochs: 3, BatchSize: 50})
+	_, got := h.Loss(3)
+	raw, err := m.Reconstruct(va.X, va.Rows)
+	require.NoError(t, err)
+	in := append([]float32(nil), va.X...)
+	rec := append([]float32(nil), raw...)
+	m.Scaler.ApplyRows(in)
+	m.Scaler.ApplyRows(rec)
+	var sq, ce float64
+	for r := range va.Rows {
+		row := va.Row(r)
+		total := 0.0
+		for j := 3; j < 6; j++ {
+			total += float64(raw[r*d.Cols+j])
+		}
+		require.InDelta(t, 1, total, 1e-6, "row %d: the levels' probabilities sum to 1", r)
+		for j := range d.Cols {
+			switch {
+			case j >= 3 && j < 6:
+				if row[j] == 1 {
+					ce -= math.Log(float64(raw[r*d.Cols+j]))
+				}
+			case j == 0 && row[1] == 1:
+			default:
+				e := float64(rec[r*d.Cols+j]) - float64(in[r*d.Cols+j])
+				sq += e * e
+			}
+		}
+	}
+	want := (sq + ce) / float64(va.Rows*d.Cols)
+	// tolerance: the reconstruction comes back through float32 (1e-6
+	// relative)
+	require.InDelta(t, want, got, 1e-5*want)
+	require.Greater(t, ce, 0.0)
+}
+
 func seq(lo, hi int) []int {
 	out := make([]int, 0, hi-lo)
 	for i := lo; i < hi; i++ {

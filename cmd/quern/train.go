@@ -648,6 +648,10 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 				c.Scaling = data.ScaleNone
 			}
 		}
+		if d.Encoding != nil && (c.Loss == "" || c.Loss == ae.MSE) {
+			// a category's levels reconstructed as probabilities
+			c.Categories = d.Encoding.CategorySpans()
+		}
 		if o.denoise != "" {
 			k, lv, ok := strings.Cut(o.denoise, ":")
 			l, err := strconv.ParseFloat(lv, 64)

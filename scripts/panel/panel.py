@@ -14,7 +14,7 @@ Sets the defaults were not tuned on (named in --sets only): Glass (each
 type), Ionosphere (good and bad; V2, constant, left out) and
 PimaIndiansDiabetes (neg and pos), from the same r-cran-mlbench.
 
-Tables of types other than numbers (named in --sets, or all four with
+Tables of types other than numbers (named in --sets, or all of them with
 --sets typed), from the same r-cran-mlbench, written as the text R holds
 (missing cells empty, logicals True/False): BreastCancer (benign as normal;
 Id, an identifier, left out; Bare.nuclei has missing cells), Soybean (the
@@ -27,6 +27,13 @@ numbers, a logical (0/1) and a number are numbers, missing cells filled
 with the training median; any other factor is one-hot over its training
 levels, missing cells filled with the training mode; then the baselines
 below on those columns.
+
+Soybean+factors and BreastCancer+factors (in --sets typed too) are the same
+tables read as R types them: every factor column a category, its numbered
+levels too (Soybean's are codes of nominal values such as precipitation
+below, at or above normal; BreastCancer's are ordered 1 to 10). quern is
+told so (-types COLUMN=categorical, the task's flags.txt) and the
+baselines one-hot those columns.
 
 Protocol (novelty detection, one task per normal class): the normal class's
 even-indexed rows (0, 2, 4, ... in file order) train; its odd-indexed rows
@@ -80,10 +87,13 @@ MLBENCH_SETS = ["Sonar", "Vehicle", "Satellite", "Vowel", "Shuttle", "LetterReco
 UNTUNED_SETS = ["Glass", "Ionosphere", "PimaIndiansDiabetes"]
 # tables of categories, logicals and missing cells, run when named
 TYPED_SETS = ["BreastCancer", "Soybean", "DNA", "Zoo", "HouseVotes84"]
+# the same tables read as R types them: every factor column a category
+# (quern told so with -types, the baselines one-hot), numbered levels too
+FACTOR_SETS = ["Soybean+factors", "BreastCancer+factors"]
 TYPED_LABEL = {"BreastCancer": "Class", "Soybean": "Class", "DNA": "Class", "Zoo": "type", "HouseVotes84": "Class"}
 
 
-def read_typed(d, name):
+def read_typed(d, name, factors=False):
     """An mlbench table as text cells ("" for missing), and the analyst's
     numeric encoding of the same cells for the baselines (see the module
     note); returns the text columns, the label and a function that
@@ -109,6 +119,8 @@ def read_typed(d, name):
                 return False
         if str(s.dtype) == "bool":
             kinds[c] = "bool"
+        elif factors and str(s.dtype) == "category":
+            kinds[c] = "factor"
         elif all(isnum(v) for v in present):
             kinds[c] = "number"
         else:
@@ -122,7 +134,7 @@ def encode_typed(cols, text, kinds, tr, rows):
     out = []
     for c in cols:
         v = text[c]
-        if kinds[c] == "category":
+        if kinds[c] in ("category", "factor"):
             seen = [v[i] for i in tr if v[i] is not None]
             levels = sorted(set(seen))
             mode = max(levels, key=lambda l: (seen.count(l), l)) if levels else None
@@ -286,19 +298,25 @@ def prepare(a):
     sets = a.sets.split(",") if a.sets else SKLEARN_SETS + MLBENCH_SETS
     tasks, base = [], []
     if sets == ["typed"]:
-        sets = TYPED_SETS
+        sets = TYPED_SETS + FACTOR_SETS
     for name in sets:
-        if name in TYPED_SETS:
-            cols, text, kinds, y = read_typed(a.mlbench, name)
+        if name in TYPED_SETS or name in FACTOR_SETS:
+            factors = name.endswith("+factors")
+            cols, text, kinds, y = read_typed(a.mlbench, name.split("+")[0], factors)
             safe = ["".join(ch if ch.isalnum() else "_" for ch in c) for c in cols]
-            for c in typed_normals(name, y):
+            flags = ""
+            if factors:
+                flags = "-types " + ",".join("%s=categorical" % s0 for s0, c0 in zip(safe, cols) if kinds[c0] == "factor")
+            for c in typed_normals(name.split("+")[0], y):
                 idx = np.flatnonzero(y == c)
                 tr, held = idx[0::2], idx[1::2]
                 other = np.flatnonzero(y != c)
                 te = np.concatenate([held, other])
                 lab = np.concatenate([np.zeros(len(held), int), np.ones(len(other), int)])
-                task = "%s-%s" % (name, "".join(ch if ch.isalnum() else "_" for ch in c))
+                task = "%s-%s" % (name.replace("+", "_"), "".join(ch if ch.isalnum() else "_" for ch in c))
                 os.makedirs(os.path.join(out, task), exist_ok=True)
+                with open(os.path.join(out, task, "flags.txt"), "w") as f:
+                    f.write(flags)
                 write_text_csv(os.path.join(out, task, "train.csv"), safe, {s: text[c0] for s, c0 in zip(safe, cols)}, tr)
                 write_text_csv(os.path.join(out, task, "test.csv"), safe, {s: text[c0] for s, c0 in zip(safe, cols)}, te, ("truth", lab))
                 p3, p90, k90, md = baselines(encode_typed(cols, text, kinds, tr, tr), encode_typed(cols, text, kinds, tr, te))

@@ -133,4 +133,25 @@ add("g_minimax", "GeneratorMinimax", {"fake": f}, torch.log1p(-torch.sigmoid(t(f
 add("w_critic", "WassersteinCritic", {"real": r, "fake": f}, np.mean(f) - np.mean(r), "numpy.mean")
 add("w_gen", "WassersteinGenerator", {"fake": f}, -np.mean(f), "numpy.mean")
 
+# Grouped softmax cross-entropy (a table's categorical columns): per span,
+# torch.nn.functional.cross_entropy with class-index targets, reduction
+# "sum", rows whose span is missing (all-zero targets) left out, the sum
+# over spans divided by the rows. Columns 0 and 4 are numeric (no part).
+x = rng.normal(scale=3, size=(5, 8))
+spans = [(1, 4), (5, 8)]
+labels = rng.integers(0, 3, size=(5, 2))
+missing = [(1, 0), (3, 1)]
+tt = np.zeros((5, 8))
+for r in range(5):
+    for s, (a, b) in enumerate(spans):
+        if (r, s) not in missing:
+            tt[r, a + labels[r, s]] = 1.0
+v = 0.0
+for s, (a, b) in enumerate(spans):
+    keep = [r for r in range(5) if (r, s) not in missing]
+    v += F.cross_entropy(t(x[keep, a:b]), torch.tensor(labels[keep, s]), reduction="sum").item()
+add("grouped_softmax_ce", "GroupedSoftmaxCrossEntropy", {"x": x, "t": tt}, v / 5,
+    "torch.nn.functional.cross_entropy per column group (class-index targets, sum)", dim=8,
+    extra={"spans": [list(s) for s in spans]})
+
 print(json.dumps({"versions": versions, "cases": cases}, indent=1))
