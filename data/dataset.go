@@ -47,6 +47,10 @@ type Dataset struct {
 	// Skipped lists the lines of training rows left out for having no
 	// observed cell.
 	Skipped []int
+	// LeftOut says, for each column a typed reading inferred to be an
+	// identifier or a time and so left out of the features, which and
+	// why (a type given for the column reads it instead).
+	LeftOut []string
 
 	// stats are each column's range, gathered while a typed reading
 	// parsed the numbers (nil otherwise)

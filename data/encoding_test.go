@@ -1,6 +1,7 @@
 package data
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -102,7 +103,8 @@ func TestTypedTableRefusals(t *testing.T) {
 		{"a,b\n1.5,1\n2,2\n", CSVConfig{Types: map[string]FieldType{"a": Integer}}, "given as integer but holds fractions"},
 		{"a,b\nx,1\ny,2\n", CSVConfig{Types: map[string]FieldType{"a": Boolean}}, `given as boolean but holds "x", "y"`},
 		{"a,b\nx,1\ny,2\n", CSVConfig{Types: map[string]FieldType{"c": Boolean}}, `a type is given for "c"`},
-		{"a,b\nx,1\ny,2\nz,3\n", CSVConfig{MaxLevels: 2}, "column 1 (a): more than 2 distinct values: an identifier"},
+		{"a,b\nx,1\ny,2\nz,3\n", CSVConfig{MaxLevels: 2, Types: map[string]FieldType{"a": Categorical}}, "column 1 (a): more than 2 distinct values: an identifier"},
+		{"a\n2026-01-02\n2026-01-03\n", CSVConfig{}, `no feature column left: column "a" left out: its cells are dates or times`},
 		{"a,b\n,1\nNA,2\n", CSVConfig{}, "column 1 (a): every cell is missing"},
 		{"a,b\nx,inf\n", CSVConfig{}, `column 2 (b): "inf" is outside the float32 range`},
 	} {
@@ -116,6 +118,37 @@ func TestTypedTableRefusals(t *testing.T) {
 	require.Equal(t, []string{"NA", "x"}, d.Encoding.Fields[0].Levels)
 	require.Equal(t, 1, d.Encoding.Fields[0].Missing)
 	require.False(t, math.IsNaN(float64(d.X[0])))
+}
+
+// Columns inferred to be identifiers (texts all different over 20 or
+// more cells, or more distinct than MaxLevels) or times (RFC 3339 and ISO
+// 8601 dates and times) are left out and said so; a type given reads
+// them; a few all-different texts stay a category.
+func TestIdentifiersAndTimesLeftOut(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("id,when,day,shop,amount,few\n")
+	for i := range 30 {
+		few := fmt.Sprint("f", i%3)
+		fmt.Fprintf(&b, "p%03d,2026-03-%02dT10:%02d:00Z,2026-03-%02d,%s,%d.5,%s\n", i, 1+i%28, i, 1+i%28, []string{"a", "b"}[i%2], i, few)
+	}
+	d, err := ReadCSV(strings.NewReader(b.String()), "p.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, []string{"shop", "amount", "few"}, d.Encoding.Names())
+	require.Len(t, d.LeftOut, 3)
+	require.Contains(t, d.LeftOut[0], `column "id" left out: each of its 30 cells is different, an identifier`)
+	require.Contains(t, d.LeftOut[1], `column "when" left out: its cells are dates or times`)
+	require.Contains(t, d.LeftOut[2], `column "day" left out: its cells are dates or times`)
+	d, err = ReadCSV(strings.NewReader(b.String()), "p.csv", CSVConfig{Typed: true, Types: map[string]FieldType{"id": Categorical}, MaxLevels: 20})
+	require.Nil(t, d)
+	require.ErrorContains(t, err, "column 1 (id): more than 20 distinct values")
+	d, err = ReadCSV(strings.NewReader(b.String()), "p.csv", CSVConfig{Typed: true, MaxLevels: 20})
+	require.NoError(t, err)
+	require.Contains(t, d.LeftOut[0], `column "id" left out: more than 20 distinct values`)
+	// ten different texts are too few to call an identifier
+	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Empty(t, d.LeftOut)
+	require.Len(t, d.Encoding.Fields[0].Levels, 10)
 }
 
 // Decode turns inputs back into cells: ranges kept, integers rounded,

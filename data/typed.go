@@ -5,7 +5,61 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strings"
+	"time"
 )
+
+// minIdentifierRows is the fewest observed cells, all distinct, for a
+// column of texts to be taken for an identifier (common practice, no
+// source: below it a category may well have a level a row).
+const minIdentifierRows = 20
+
+// timeLayouts are the layouts a column of dates or times is recognised
+// by: RFC 3339 and its common relatives, and ISO 8601 dates.
+var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 15:04:05", "2006-01-02 15:04", "2006-01-02T15:04", "2006-01-02", "2006/01/02", "2006/01/02 15:04:05"}
+
+// notAFeature says why a column whose type is inferred is not one of a
+// model's features ("" when it is one): texts that are all dates or
+// times, texts that are all distinct over minIdentifierRows or more cells
+// (an identifier), more distinct texts than maxLevels.
+func (c *columnSurvey) notAFeature(maxLevels int) string {
+	observed := c.cells - c.missing
+	texts := observed - c.numbers - c.ranged
+	if texts == 0 {
+		return ""
+	}
+	if c.numbers == 0 && c.ranged == 0 && len(c.texts) > 0 {
+		times := true
+		for t := range c.texts {
+			if !isTime(t) {
+				times = false
+				break
+			}
+		}
+		if times {
+			return "its cells are dates or times"
+		}
+	}
+	if c.tooMany {
+		return fmt.Sprintf("more than %d distinct values, an identifier rather than a category", maxLevels)
+	}
+	if observed >= minIdentifierRows && len(c.texts) == observed && booleanPair(c.texts) == nil {
+		return fmt.Sprintf("each of its %d cells is different, an identifier rather than a category", observed)
+	}
+	return ""
+}
+
+func isTime(s string) bool {
+	if len(s) < 8 || s[0] < '0' || s[0] > '9' {
+		return false
+	}
+	for _, l := range timeLayouts {
+		if _, err := time.Parse(l, s); err == nil {
+			return true
+		}
+	}
+	return false
+}
 
 // readTyped reads a table as cfg asks, calling read for each pass over
 // the text: once for numbers only (cfg.Typed unset, or an Encoding
@@ -67,12 +121,22 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		}
 	}
 	enc := &Encoding{Markers: markersOf(&cfg)}
+	var leftOut []string
 	for k, c := range sv.pass.survey {
-		f, err := c.decide(sd.Columns[k], name, sv.pass.cols[k], cfg.Types[sd.Columns[k]], cmpOrInt(cfg.MaxLevels, DefaultMaxLevels))
+		col := sd.Columns[k]
+		want := cfg.Types[col]
+		if why := c.notAFeature(cmpOrInt(cfg.MaxLevels, DefaultMaxLevels)); want == "" && why != "" {
+			leftOut = append(leftOut, fmt.Sprintf("column %q left out: %s (-keep %s passes it through beside each row; -types %s=categorical reads it as a category)", col, why, col, col))
+			continue
+		}
+		f, err := c.decide(col, name, sv.pass.cols[k], want, cmpOrInt(cfg.MaxLevels, DefaultMaxLevels))
 		if err != nil {
 			return nil, err
 		}
 		enc.Fields = append(enc.Fields, f)
+	}
+	if len(enc.Fields) == 0 {
+		return nil, &ParseError{File: name, Msg: "no feature column left: " + strings.Join(leftOut, "; ")}
 	}
 	// the rows
 	en := cfg
@@ -113,6 +177,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		d = nd
 	}
 	d.Notes = nil // in training rows, filled cells are the norm
+	d.LeftOut = leftOut
 	return d, nil
 }
 

@@ -851,6 +851,20 @@ const minRows = 50
 // the inputs (an autoencoder that can copy its input).
 func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	var out []string
+	for _, s := range d.LeftOut {
+		out = append(out, "warning: "+s)
+	}
+	if n := len(d.Skipped); n > 0 {
+		lines := make([]string, 0, 5)
+		for _, l := range d.Skipped[:min(n, 5)] {
+			lines = append(lines, strconv.Itoa(l))
+		}
+		more := ""
+		if n > 5 {
+			more = ", ..."
+		}
+		out = append(out, fmt.Sprintf("warning: %s left out: no observed cell (line %s%s)", plural(n, "training row"), strings.Join(lines, ", "), more))
+	}
 	rows := d.Rows - int(math.Round(val*float64(d.Rows)))
 	params := 0
 	if p, ok := m.(interface{ Params() []*layers.Param }); ok {

@@ -121,6 +121,12 @@ func TestTypedTableThroughTheCommandLine(t *testing.T) {
 	_, err = csv.NewReader(strings.NewReader(string(b))).ReadAll()
 	require.NoError(t, err)
 
+	// an identifier column is left out, and said so
+	r = ok(t, quern(t, dir, nil, "train", "-data", "pay.csv", "-out", "m4.qm", "-epochs", "1", "-quiet"))
+	require.Contains(t, r.stderr, `warning: column "id" left out: each of its 400 cells is different, an identifier rather than a category (-keep id passes it through`)
+	r = ok(t, quern(t, dir, nil, "inspect", "m4.qm"))
+	require.NotContains(t, r.stdout, "id categorical")
+
 	// type overrides and markers reach the model; a bad one is named
 	r = ok(t, quern(t, dir, nil, "train", "-data", "pay.csv", "-columns", "amount,items,channel", "-types", "items=categorical", "-missing", "none", "-out", "m2.qm", "-epochs", "1", "-quiet"))
 	r = ok(t, quern(t, dir, nil, "inspect", "m2.qm"))
