@@ -639,6 +639,16 @@ func (f *Field) Describe() string {
 	return b.String()
 }
 
+// Describe says in a line what the encoding reads: each field's
+// Describe, separated by semicolons.
+func (e *Encoding) Describe() string {
+	parts := make([]string, len(e.Fields))
+	for i := range e.Fields {
+		parts[i] = e.Fields[i].Describe()
+	}
+	return strings.Join(parts, "; ")
+}
+
 // RowEncoder encodes rows of cell texts by an Encoding, as a file read
 // with CSVConfig.Encoding is: for a server taking records one at a time.
 // It is safe for concurrent use.

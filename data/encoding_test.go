@@ -144,6 +144,17 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	d, err = ReadCSV(strings.NewReader(b.String()), "p.csv", CSVConfig{Typed: true, MaxLevels: 20})
 	require.NoError(t, err)
 	require.Contains(t, d.LeftOut[0], `column "id" left out: more than 20 distinct values`)
+	// times past the cap are still told from identifiers
+	require.Contains(t, d.LeftOut[1], `column "when" left out: its cells are dates or times`)
+	// mostly different texts are an identifier too
+	var mostly strings.Builder
+	mostly.WriteString("k,v\n")
+	for i := range 40 {
+		fmt.Fprintf(&mostly, "k%d,%d\n", i%25, i)
+	}
+	d, err = ReadCSV(strings.NewReader(mostly.String()), "k.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, []string{`column "k" left out: 25 different values in 40 cells, an identifier rather than a category (-keep k passes it through beside each row; -types k=categorical reads it as a category)`}, d.LeftOut)
 	// ten different texts are too few to call an identifier
 	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)

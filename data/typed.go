@@ -9,9 +9,10 @@ import (
 	"time"
 )
 
-// minIdentifierRows is the fewest observed cells, all distinct, for a
-// column of texts to be taken for an identifier (common practice, no
-// source: below it a category may well have a level a row).
+// minIdentifierRows is the fewest observed cells, more than half of them
+// distinct, for a column of texts to be taken for an identifier (common
+// practice, no source: below it a category may well have a level a row,
+// and above it a category of mostly one-off levels teaches nothing).
 const minIdentifierRows = 20
 
 // timeLayouts are the layouts a column of dates or times is recognised
@@ -20,8 +21,8 @@ var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 
 
 // notAFeature says why a column whose type is inferred is not one of a
 // model's features ("" when it is one): texts that are all dates or
-// times, texts that are all distinct over minIdentifierRows or more cells
-// (an identifier), more distinct texts than maxLevels.
+// times, more distinct texts than half the cells over minIdentifierRows
+// or more cells (an identifier), more distinct texts than maxLevels.
 func (c *columnSurvey) notAFeature(maxLevels int) string {
 	observed := c.cells - c.missing
 	texts := observed - c.numbers - c.ranged
@@ -43,8 +44,13 @@ func (c *columnSurvey) notAFeature(maxLevels int) string {
 	if c.tooMany {
 		return fmt.Sprintf("more than %d distinct values, an identifier rather than a category", maxLevels)
 	}
-	if observed >= minIdentifierRows && len(c.texts) == observed && booleanPair(c.texts) == nil {
-		return fmt.Sprintf("each of its %d cells is different, an identifier rather than a category", observed)
+	if observed >= minIdentifierRows && booleanPair(c.texts) == nil {
+		switch {
+		case len(c.texts) == observed:
+			return fmt.Sprintf("each of its %d cells is different, an identifier rather than a category", observed)
+		case 2*len(c.texts) > observed:
+			return fmt.Sprintf("%d different values in %d cells, an identifier rather than a category", len(c.texts), observed)
+		}
 	}
 	return ""
 }
@@ -254,7 +260,8 @@ func (c *columnSurvey) merge(o *columnSurvey, maxLevels int) {
 	c.ranged += o.ranged
 	c.cells += o.cells
 	c.integral = c.integral && o.integral
-	c.tooMany = c.tooMany || o.tooMany
+	// the texts up to the cap, a sample when there are more (what
+	// notAFeature reads them for)
 	for s, n := range o.texts {
 		if c.tooMany {
 			break
@@ -265,6 +272,7 @@ func (c *columnSurvey) merge(o *columnSurvey, maxLevels int) {
 		}
 		c.texts[s] += n
 	}
+	c.tooMany = c.tooMany || o.tooMany
 	if c.firstText == "" {
 		c.firstText, c.firstTextLine = o.firstText, o.firstTextLine
 	}

@@ -37,6 +37,10 @@ type Config struct {
 	Callbacks train.Callbacks
 	// Version names the program for the report page (may be empty).
 	Version string
+	// Scenario is "pumps" (the default: a pump fleet's telemetry) or
+	// "payments" (card payments with text categories, identifiers, times
+	// and empty cells; package payments).
+	Scenario string
 	// Phase, when not nil, is told the name of each phase as it starts
 	// (generate, train, calibrate, score, write, report) and "" when the
 	// last one ends.
@@ -55,6 +59,21 @@ func Run(ctx context.Context, cfg Config) error {
 	start := time.Now()
 	if err := os.MkdirAll(cfg.Out, 0o755); err != nil {
 		return err
+	}
+	switch cfg.Scenario {
+	case "", "pumps":
+	case "payments":
+		return runPayments(ctx, cfg, func(format string, a ...any) {
+			if cfg.Say != nil {
+				cfg.Say(fmt.Sprintf(format, a...))
+			}
+		}, func(name string) {
+			if cfg.Phase != nil {
+				cfg.Phase(name)
+			}
+		})
+	default:
+		return fmt.Errorf("demo: unknown scenario %q (want pumps or payments)", cfg.Scenario)
 	}
 	fc := fleet.Config{Seed: cfg.Seed}
 	epochs := 30

@@ -9,7 +9,8 @@ import (
 )
 
 func cmdDemo(e *env, args []string) error {
-	fs := newFlags(e, "demo", "[-out DIR] [-short]")
+	fs := newFlags(e, "demo", "[-scenario pumps|payments] [-out DIR] [-short]")
+	scenario := fs.String("scenario", "pumps", "the invented scenario: pumps (a pump fleet's telemetry) or payments (card payments with text categories, identifiers, times and empty cells)")
 	out := fs.String("out", "quern-demo", "folder for the data, model, scores and report")
 	short := fs.Bool("short", false, "a smaller fleet and fewer epochs (for CI)")
 	seed := fs.Uint64("seed", 1, "random seed for the fleet and the model")
@@ -19,7 +20,12 @@ func cmdDemo(e *env, args []string) error {
 	}
 	st := newStatus(e.stderr, *quiet)
 	defer st.end() // an error return leaves no phase drawn or ticking
-	cfg := demo.Config{Out: *out, Short: *short, Seed: *seed, Version: version(),
+	switch *scenario {
+	case "pumps", "payments":
+	default:
+		return usagef("-scenario %q: want pumps or payments", *scenario)
+	}
+	cfg := demo.Config{Out: *out, Short: *short, Seed: *seed, Version: version(), Scenario: *scenario,
 		Callbacks: train.Callbacks{OnStep: st.step, OnEpoch: func(p train.Progress, h *train.History) error {
 			st.epoch(p, h)
 			return nil

@@ -570,11 +570,7 @@ func cmdInspect(e *env, args []string) error {
 		fmt.Fprintf(w, "settings    %s\n", readableSettings(cfg))
 	}
 	if enc := m.Schema().Encoding; enc != nil && !enc.Plain() {
-		var parts []string
-		for i := range enc.Fields {
-			parts = append(parts, enc.Fields[i].Describe())
-		}
-		fmt.Fprintf(w, "fields      %s\n", strings.Join(parts, "; "))
+		fmt.Fprintf(w, "fields      %s\n", enc.Describe())
 	}
 	if n, ok := m.(model.ScoreNamer); ok {
 		fmt.Fprintf(w, "score       %s\n", n.ScoreName())

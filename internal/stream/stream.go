@@ -19,6 +19,8 @@ const (
 	Split uint64 = 7
 	// Fleet invents the demo's pump fleet.
 	Fleet uint64 = 0xf1ee7
+	// Payments invents the demo's card payments.
+	Payments uint64 = 0xca4d
 	// PriorSample draws a VAE's latent rows from its prior.
 	PriorSample uint64 = 0x5a
 	// GeneratorInput draws a GAN generator's noise (and classes) when
