@@ -118,9 +118,12 @@ func GraphBernoulliNLL[N Node](g Graph[N], logits, x N) N {
 // variance for every column.
 func GraphGaussianNLLFixed[N Node](g Graph[N], x, mean N, variance float64) N {
 	same(g, "GaussianNLLFixed", x, mean)
+	return g.Scale(g.Sum(gaussElemsFixed(g, x, mean, variance)), 1/float64(x.Rows()))
+}
+
+func gaussElemsFixed[N Node](g Graph[N], x, mean N, variance float64) N {
 	sq := g.Square(g.Sub(x, mean))
-	elems := g.Shift(g.Scale(sq, 0.5/variance), 0.5*(Log2Pi+math.Log(variance)))
-	return g.Scale(g.Sum(elems), 1/float64(x.Rows()))
+	return g.Shift(g.Scale(sq, 0.5/variance), 0.5*(Log2Pi+math.Log(variance)))
 }
 
 // GraphGaussianNLLColumns is -log N(x | mean, exp(logvar)) with one
@@ -130,19 +133,50 @@ func GraphGaussianNLLColumns[N Node](g Graph[N], x, mean, logvar N) N {
 	if logvar.Rows() != 1 || logvar.Cols() != x.Cols() {
 		g.Failf("losses: GaussianNLLColumns: log-variance %dx%d for %d columns", logvar.Rows(), logvar.Cols(), x.Cols())
 	}
+	return g.Scale(g.Sum(gaussElemsColumns(g, x, mean, logvar)), 1/float64(x.Rows()))
+}
+
+func gaussElemsColumns[N Node](g Graph[N], x, mean, logvar N) N {
 	sq := g.Square(g.Sub(x, mean))
-	elems := g.Scale(g.Shift(g.AddRow(g.MulRow(sq, g.Exp(g.Neg(logvar))), logvar), Log2Pi), 0.5)
-	return g.Scale(g.Sum(elems), 1/float64(x.Rows()))
+	return g.Scale(g.Shift(g.AddRow(g.MulRow(sq, g.Exp(g.Neg(logvar))), logvar), Log2Pi), 0.5)
 }
 
 // GraphGaussianNLLShared is -log N(x | mean, exp(logvar)) with one
 // log-variance for every column: logvar is 1 x 1.
 func GraphGaussianNLLShared[N Node](g Graph[N], x, mean, logvar N) N {
-	s := g.Sum(logvar)
 	same(g, "GaussianNLLShared", x, mean)
+	return g.Scale(g.Sum(gaussElemsShared(g, x, mean, logvar)), 1/float64(x.Rows()))
+}
+
+func gaussElemsShared[N Node](g Graph[N], x, mean, logvar N) N {
+	s := g.Sum(logvar)
 	sq := g.Square(g.Sub(x, mean))
-	elems := g.Scale(g.Add(g.Shift(g.Mul(sq, g.Exp(g.Neg(s))), Log2Pi), s), 0.5)
-	return g.Scale(g.Sum(elems), 1/float64(x.Rows()))
+	return g.Scale(g.Add(g.Shift(g.Mul(sq, g.Exp(g.Neg(s))), Log2Pi), s), 0.5)
+}
+
+// GraphGaussianNLLMasked is a Gaussian negative log-likelihood over the
+// elements where mask is 1 (0 elsewhere: a missing cell, a column of
+// another likelihood), summed over each row's columns and averaged over
+// rows: logvar is a 1 x Cols row (one log-variance per column), a 1 x 1
+// node (one for every column), or, with variance > 0, any node (it is
+// not read) for that fixed variance. The unmasked forms are GraphGaussianNLLColumns,
+// GraphGaussianNLLShared and GraphGaussianNLLFixed.
+func GraphGaussianNLLMasked[N Node](g Graph[N], x, mean, logvar, mask N, variance float64) N {
+	same(g, "GaussianNLLMasked", x, mean)
+	same(g, "GaussianNLLMasked", x, mask)
+	var elems N
+	switch {
+	case variance > 0:
+		elems = gaussElemsFixed(g, x, mean, variance)
+	case logvar.Rows() == 1 && logvar.Cols() == 1:
+		elems = gaussElemsShared(g, x, mean, logvar)
+	case logvar.Rows() == 1 && logvar.Cols() == x.Cols():
+		elems = gaussElemsColumns(g, x, mean, logvar)
+	default:
+		g.Failf("losses: GaussianNLLMasked: log-variance %dx%d for %d columns", logvar.Rows(), logvar.Cols(), x.Cols())
+		return x
+	}
+	return g.Scale(g.Sum(g.Mul(mask, elems)), 1/float64(x.Rows()))
 }
 
 // GraphKLStdNormal is the graph form of KLStdNormal: the KL of each row's

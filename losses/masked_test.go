@@ -80,3 +80,95 @@ func TestMaskedMSE(t *testing.T) {
 	_, err := MaskedMSE([]float64{1}, []float64{1}, []float64{1, 1})
 	require.Error(t, err)
 }
+
+// GaussianNLLMasked with a mask of ones is the golden Gaussian negative
+// log-likelihood times the element count (testdata/losses/golden.json,
+// torch.nn.functional.gaussian_nll_loss with full=True); the graph form,
+// for one log-variance per column, one for all and a fixed variance,
+// agrees with the reference under a mask to 1e-12 and its gradients with
+// finite differences to 1e-6 (relative).
+func TestGaussianNLLMasked(t *testing.T) {
+	n := 0
+	for _, c := range loadGolden(t) {
+		if c.Fn != "GaussianNLL" {
+			continue
+		}
+		n++
+		x := c.Args["x"]
+		ones := make([]float64, len(x))
+		for i := range ones {
+			ones[i] = 1
+		}
+		got, err := GaussianNLLMasked(x, c.Args["mu"], c.Args["logvar"], ones, 1)
+		require.NoError(t, err)
+		want := c.Value * float64(len(x))
+		require.InDelta(t, want, got, 1e-12*math.Abs(want)+1e-13, c.Name)
+	}
+	require.NotZero(t, n, "golden Gaussian cases")
+
+	rows, cols := 3, 4
+	param := func(name string, r, c int, f func(i int) float64) *layers.Param {
+		p := layers.NewParam(name, r, c, layers.Float64)
+		for i := range p.F64() {
+			p.F64()[i] = f(i)
+		}
+		return p
+	}
+	xp := param("x", rows, cols, func(i int) float64 { return math.Sin(float64(i)) * 2 })
+	mp := param("mean", rows, cols, func(i int) float64 { return math.Cos(float64(3 * i)) })
+	maskp := param("mask", rows, cols, func(i int) float64 { return float64((i % 5) % 2) })
+	for _, kind := range []string{"columns", "shared", "fixed"} {
+		t.Run(kind, func(t *testing.T) {
+			var lv *layers.Param
+			variance := 0.0
+			switch kind {
+			case "columns":
+				lv = param("logvar", 1, cols, func(i int) float64 { return 0.3*float64(i) - 0.5 })
+			case "shared":
+				lv = param("logvar", 1, 1, func(int) float64 { return -0.7 })
+			case "fixed":
+				lv = param("logvar", 1, 1, func(int) float64 { return 0 })
+				variance = 0.5
+			}
+			ref := func() float64 {
+				lvs := make([]float64, rows*cols)
+				for i := range lvs {
+					switch kind {
+					case "columns":
+						lvs[i] = lv.F64()[i%cols]
+					case "shared":
+						lvs[i] = lv.F64()[0]
+					case "fixed":
+						lvs[i] = math.Log(variance)
+					}
+				}
+				v, err := GaussianNLLMasked(xp.F64(), mp.F64(), lvs, maskp.F64(), rows)
+				require.NoError(t, err)
+				return v
+			}
+			build := func(g *engine.Graph) *engine.Node {
+				mean := g.Param(mp)
+				lvn := mean // ignored under a fixed variance
+				if variance == 0 {
+					lvn = g.Param(lv)
+				}
+				return GraphGaussianNLLMasked(g, g.Param(xp), mean, lvn, g.Param(maskp), variance)
+			}
+			g := engine.NewGraph(layers.Float64)
+			prog, err := g.Compile(build(g), engine.CompileOptions{})
+			require.NoError(t, err)
+			v, err := prog.Run(engine.RunOptions{})
+			prog.Close()
+			require.NoError(t, err)
+			want := ref()
+			require.InDelta(t, want, v, 1e-12*math.Abs(want)+1e-13)
+			ps := []*layers.Param{mp}
+			if variance == 0 {
+				ps = append(ps, lv)
+			}
+			res, err := gradcheck.Check(ps, build, ref, 1e-4)
+			require.NoError(t, err)
+			require.Less(t, res.MaxRelErr, 1e-6, res.String())
+		})
+	}
+}

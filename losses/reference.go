@@ -99,6 +99,26 @@ func GaussianNLL(x, mu, logvar []float64) (float64, error) {
 	return s / float64(len(x)), nil
 }
 
+// GaussianNLLMasked is the sum of mask * GaussianNLLElem(x, mu, logvar)
+// over all elements divided by rows: the negative log-likelihood of the
+// elements where mask is 1, summed over a row's columns, averaged over
+// rows.
+func GaussianNLLMasked(x, mu, logvar, mask []float64, rows int) (float64, error) {
+	for _, o := range [][]float64{mu, logvar, mask} {
+		if err := sameLen("GaussianNLLMasked", len(x), len(o)); err != nil {
+			return 0, err
+		}
+	}
+	if rows <= 0 || len(x)%rows != 0 {
+		return 0, fmt.Errorf("%w: GaussianNLLMasked: %d values are not %d rows", ErrShape, len(x), rows)
+	}
+	var s float64
+	for i, xi := range x {
+		s += mask[i] * GaussianNLLElem(xi, mu[i], logvar[i])
+	}
+	return s / float64(rows), nil
+}
+
 // KLStdNormal is the closed-form KL divergence of N(mu, diag(exp(logvar)))
 // from N(0, I), -0.5 * sum(1 + logvar - mu^2 - exp(logvar)), for rows
 // vectors of dim values each, averaged over rows (Kingma & Welling 2014,

@@ -20,7 +20,19 @@ type vaeRecipe struct {
 	noise *rand.Rand
 	opt   optim.Optimizer
 
-	x, eps, beta          *engine.Input
+	x, eps, beta *engine.Input
+	// a table's likelihood (nil inputs otherwise): mask is 1 where the
+	// Gaussian scores an input (not a category's level, not a missing
+	// cell), cat the categories' one-hot levels, the cross-entropy's
+	// targets
+	mask, cat *engine.Input
+	missing   []missingRule
+	catHalf   []float32
+	// inCat marks the categories' levels and the missing-cell
+	// indicators: inputs the Gaussian leaves out
+	inCat []bool
+	// isLevel marks the categories' levels
+	isLevel               []bool
 	trainPhase, evalPhase *engine.Phase
 	step                  *move
 	metric                []Metric
@@ -86,6 +98,31 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		}
 	}
 	if r.trainPhase == nil {
+		if r.c.Likelihood != vae.Bernoulli {
+			r.missing = missingRules(r.m.Encoding, r.m.Scaler, r.c.Inputs)
+		}
+		if len(r.c.Categories) > 0 || len(r.missing) > 0 {
+			r.mask = engine.NewInput("mask")
+			r.inCat = make([]bool, r.c.Inputs)
+			for _, sp := range r.c.Categories {
+				for j := sp[0]; j < sp[1]; j++ {
+					r.inCat[j] = true
+				}
+			}
+			for _, m := range r.missing {
+				r.inCat[m.indicator] = true
+			}
+		}
+		if len(r.c.Categories) > 0 {
+			r.isLevel = make([]bool, r.c.Inputs)
+			for _, sp := range r.c.Categories {
+				for j := sp[0]; j < sp[1]; j++ {
+					r.isLevel[j] = true
+				}
+			}
+			r.cat = engine.NewInput("categories")
+			r.catHalf = scaledHalf(r.m.Scaler, r.c.Inputs)
+		}
 		r.trainPhase = engine.NewPhase(r.c.Precision, true, r.build(true))
 		r.evalPhase = engine.NewPhase(r.c.Precision, false, r.build(false))
 		r.step.Phase = r.trainPhase
@@ -96,6 +133,23 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 // reconstruction is the per-row negative log-likelihood of x under the
 // decoder output out, averaged over rows.
 func (r *vaeRecipe) reconstruction(g *engine.Graph, out, x *engine.Node) *engine.Node {
+	if r.mask != nil {
+		// a table's likelihood: the Gaussian where the mask says, the
+		// categories' cross-entropy, both summed per row, averaged
+		n := x.Rows()
+		var lv *engine.Node
+		variance := 0.0
+		if r.m.LogVar != nil {
+			lv = g.Param(r.m.LogVar)
+		} else {
+			lv, variance = out, r.c.OutputVariance
+		}
+		nll := losses.GraphGaussianNLLMasked(g, x, out, lv, g.Input(r.mask, n, r.c.Inputs), variance)
+		if r.cat != nil {
+			nll = g.Add(nll, losses.GraphGroupedSoftmaxCE(g, out, g.Input(r.cat, n, r.c.Inputs), r.c.Categories))
+		}
+		return nll
+	}
 	switch r.c.Likelihood {
 	case vae.Gaussian:
 		return losses.GraphGaussianNLLFixed(g, x, out, r.c.OutputVariance)
@@ -137,6 +191,29 @@ func (r *vaeRecipe) build(trainMode bool) engine.BuildFunc {
 
 // fill writes the rows, fresh standard normal noise and beta.
 func (r *vaeRecipe) fill(p *engine.Program, x []float32, rng *rand.Rand, beta float64) {
+	if r.mask != nil {
+		d := r.c.Inputs
+		if r.cat != nil && p.Has(r.cat) {
+			setInput(p, r.cat, func(i int) float64 {
+				if j := i % d; r.isLevel[j] && x[i] > r.catHalf[j] {
+					return 1
+				}
+				return 0
+			})
+		}
+		setInput(p, r.mask, func(i int) float64 {
+			row, j := i/d, i%d
+			if r.inCat[j] {
+				return 0
+			}
+			for _, m := range r.missing {
+				if j >= m.from && j < m.to && x[row*d+m.indicator] > m.above {
+					return 0
+				}
+			}
+			return 1
+		})
+	}
 	if r.c.Precision == layers.Float64 {
 		x64 := p.F64(r.x)
 		for i, v := range x {

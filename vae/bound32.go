@@ -36,7 +36,8 @@ func (m *Model) bound32(x []float32, rows, samples int, seed, streamID uint64, i
 	// (in float64: a tiny variance's inverse overflows float32)
 	var inv []float64
 	var gaussConst float64
-	if m.cfg.Likelihood != Bernoulli {
+	tab := m.table()
+	if m.cfg.Likelihood != Bernoulli && tab == nil {
 		inv = make([]float64, D)
 		for j := range inv {
 			lv := m.logVarAt(j)
@@ -86,12 +87,14 @@ func (m *Model) bound32(x []float32, rows, samples int, seed, streamID uint64, i
 			for s := 0; s < samples; s++ {
 				o := out[(r*samples+s)*D : (r*samples+s+1)*D]
 				var ll float64
-				if inv == nil {
-					ll = -bceSum(w, o, xs)
-				} else {
-					ll = -0.5 * (gaussConst + weightedSq(o, xs, inv))
+				switch {
+				case tab != nil:
+					ll = rowLogLik(tab, xs, o, nil)
+				case inv == nil:
+					ll = -bceSum(w, o, xs) + jac
+				default:
+					ll = -0.5*(gaussConst+weightedSq(o, xs, inv)) + jac
 				}
-				ll += jac
 				if !iwae {
 					sum += ll
 					continue

@@ -50,6 +50,14 @@ type Config struct {
 	Linear bool
 	// Likelihood of the decoder. Default Bernoulli.
 	Likelihood Likelihood
+	// Categories lists the inputs [from, to) that one-hot encode a
+	// categorical column, each two or more wide and disjoint (a table
+	// read by type: data.Encoding.CategorySpans); they need a Gaussian
+	// likelihood for the other inputs. The decoder's outputs there are
+	// logits and a row's likelihood has the probability of its level
+	// under their softmax there (a categorical distribution), the
+	// Gaussian elsewhere. Default none.
+	Categories [][2]int `json:",omitempty"`
 	// OutputVariance of the fixed Gaussian likelihood. Default 1.
 	OutputVariance float64
 	// Scaling of inputs, fitted on the training data. Default none for
@@ -120,6 +128,14 @@ func (c Config) Validate() error {
 	case Bernoulli, Gaussian, GaussianLearned, GaussianShared:
 	default:
 		return bad("unknown likelihood %q", c.Likelihood)
+	}
+	if len(c.Categories) > 0 {
+		if c.Likelihood == Bernoulli {
+			return bad("categories need a Gaussian likelihood for the other columns, not bernoulli")
+		}
+		if err := data.CheckSpans(c.Categories, c.Inputs); err != nil {
+			return bad("%v", err)
+		}
 	}
 	if !(c.OutputVariance > 0) || math.IsInf(c.OutputVariance, 0) {
 		return bad("output variance %v, want > 0", c.OutputVariance)

@@ -75,6 +75,7 @@ func (m *Model) decodeInto32(w *work, dst, z []float32, rows int) ([]float32, er
 			dst[i] = float32(layers.Sigmoid.Eval(float64(v), 0))
 		}
 	}
+	categoryMeans(m, dst)
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(dst)
 	}
@@ -206,7 +207,38 @@ func (m *Model) decodeMean(w *work, z []float64, rows int) ([]float64, error) {
 			out[i] = layers.Sigmoid.Eval(v, 0)
 		}
 	}
+	categoryMeans(m, out)
 	return out, nil
+}
+
+// categoryMeans replaces each category's logits in decoded rows (scaled
+// space) by its levels' probabilities, scaled like the inputs.
+func categoryMeans[T float32 | float64](m *Model, out []T) {
+	cats, d := m.cfg.Categories, m.cfg.Inputs
+	if len(cats) == 0 {
+		return
+	}
+	s := m.Scaler
+	for r := 0; r+d <= len(out); r += d {
+		row := out[r : r+d]
+		for _, sp := range cats {
+			mx := math.Inf(-1)
+			for k := sp[0]; k < sp[1]; k++ {
+				mx = math.Max(mx, float64(row[k]))
+			}
+			var z float64
+			for k := sp[0]; k < sp[1]; k++ {
+				z += math.Exp(float64(row[k]) - mx)
+			}
+			for k := sp[0]; k < sp[1]; k++ {
+				p := math.Exp(float64(row[k])-mx) / z
+				if s != nil && k < len(s.Factor) {
+					p = (p - s.Offset[k]) * s.Factor[k]
+				}
+				row[k] = T(p)
+			}
+		}
+	}
 }
 
 func (m *Model) toRaw(v []float64) []float32 {
@@ -409,6 +441,12 @@ func (ix *Index) Nearest(query []float32, k int) ([]Neighbour, error) {
 func (m *Model) logLik(xs, out []float64, rows int) []float64 {
 	d := m.cfg.Inputs
 	res := make([]float64, rows)
+	if t := m.table(); t != nil {
+		for r := range res {
+			res[r] = rowLogLik(t, xs[r*d:(r+1)*d], out[r*d:(r+1)*d], nil)
+		}
+		return res
+	}
 	for r := 0; r < rows; r++ {
 		var s float64
 		for j := 0; j < d; j++ {

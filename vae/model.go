@@ -37,6 +37,10 @@ type Model struct {
 	// Threshold, when calibrated, flags rows whose negative ELBO exceeds
 	// it (see Calibrate and Score).
 	Threshold *anomaly.Threshold
+	// MissingCost is what a missing cell of each of the encoding's
+	// columns costs a row's likelihood, in nats (see FitMissingCost and
+	// the table likelihood in table.go); nil: nothing.
+	MissingCost []float64
 
 	pool scratch.Pool[work]
 }

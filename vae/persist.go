@@ -1,6 +1,9 @@
 package vae
 
 import (
+	"fmt"
+	"math"
+
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/internal/modelio"
@@ -12,8 +15,10 @@ import (
 type meta struct {
 	Config Config `json:"config"`
 	data.Fitted
-	Threshold  *anomaly.Threshold    `json:"threshold,omitempty"`
-	Provenance *modelfile.Provenance `json:"provenance,omitempty"`
+	Threshold *anomaly.Threshold `json:"threshold,omitempty"`
+	// MissingCost is the model's, per encoding field
+	MissingCost []float64             `json:"missing_cost,omitempty"`
+	Provenance  *modelfile.Provenance `json:"provenance,omitempty"`
 }
 
 // The loader's view of the metadata.
@@ -24,6 +29,15 @@ func (md *meta) Data() *data.Fitted { return &md.Fitted }
 func (md *meta) Apply(v *Model, _ *modelfile.File) error {
 	v.Fitted = md.Fitted
 	v.Threshold = md.Threshold
+	v.MissingCost = md.MissingCost
+	if md.MissingCost != nil && (md.Encoding == nil || len(md.MissingCost) != len(md.Encoding.Fields)) {
+		return fmt.Errorf("vae: %d missing-cell costs for an encoding of %d columns", len(md.MissingCost), fieldCount(md.Encoding))
+	}
+	for _, c := range md.MissingCost {
+		if math.IsNaN(c) || math.IsInf(c, 0) {
+			return fmt.Errorf("vae: a missing-cell cost of %v", c)
+		}
+	}
 	return nil
 }
 
@@ -40,7 +54,20 @@ func resolve(c Config) (Config, modelio.Spec, error) {
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	return modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, prov}, m.Params())
+	f, err := modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.MissingCost, prov}, m.Params())
+	if err == nil && m.table() != nil {
+		// builds that predate the table likelihood would score its rows
+		// by a Gaussian throughout: they refuse version 2
+		f.Version = 2
+	}
+	return f, err
+}
+
+func fieldCount(e *data.Encoding) int {
+	if e == nil {
+		return 0
+	}
+	return len(e.Fields)
 }
 
 // Save writes the model to path atomically.

@@ -32,8 +32,10 @@ func (m *Model) NegELBO(x []float32, rows int) ([]float64, error) {
 // Contributions returns, for each row and column, that column's
 // discrepancy from its reconstruction at the posterior mean, in scaled
 // space: the binary cross-entropy for Bernoulli models, the squared error
-// over the likelihood's variance for Gaussian ones. It says which columns
-// drove a score.
+// over the likelihood's variance for Gaussian ones; in a table's
+// likelihood, a category's -log p of the row's level on that level's
+// input (of the least probable level for one never seen in training) and
+// nothing for a missing cell. It says which columns drove a score.
 func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
@@ -51,6 +53,12 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	}
 	c := make([]float64, len(xs))
 	d := m.cfg.Inputs
+	if t := m.table(); t != nil {
+		for r := 0; r < rows; r++ {
+			tableContributions(t, xs[r*d:(r+1)*d], out[r*d:(r+1)*d], c[r*d:(r+1)*d])
+		}
+		return c, nil
+	}
 	for i, v := range xs {
 		o := out[i]
 		if m.cfg.Likelihood == Bernoulli {
@@ -64,12 +72,16 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 }
 
 // Calibrate sets the model's threshold on the negative ELBO of held-out
-// normal rows (not used for training) and returns it.
+// normal rows (not used for training) and returns it; for a model with
+// missing-cell indicators it first fits MissingCost on the same rows.
 //
 // Calibrate changes the model: it must not run while other goroutines use
 // it (scoring, encoding and the rest are safe for concurrent use only
 // among themselves).
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
+	if err := m.FitMissingCost(normal, rows); err != nil {
+		return anomaly.Threshold{}, err
+	}
 	th, err := anomaly.CalibrateRows(m.NegELBO, normal, rows, c)
 	if err != nil {
 		return th, err

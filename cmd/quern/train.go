@@ -693,6 +693,10 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 		if c.Likelihood == "" && !image {
 			c.Likelihood = vae.Gaussian // table columns are not probabilities
 		}
+		if d.Encoding != nil && c.Likelihood != vae.Bernoulli {
+			// a category's levels: a categorical likelihood
+			c.Categories = d.Encoding.CategorySpans()
+		}
 		obj := train.Variational{Beta: o.beta, FreeBits: o.freeBits}
 		if o.warmup > 0 {
 			obj.Schedule = train.BetaSchedule{Kind: train.BetaLinear, Steps: o.warmup}

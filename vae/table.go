@@ -1,0 +1,264 @@
+package vae
+
+import (
+	"fmt"
+	"math"
+
+	"github.com/quernlab/quern/losses"
+)
+
+// A table's likelihood. A model with Categories, or one trained on a
+// table read by type whose columns had missing cells (an encoding with
+// indicators), has a row likelihood of the table's own kind:
+//
+//   - a category's levels: the log-probability of the row's level under
+//     the softmax of the decoder's outputs there (a level never seen in
+//     training gets the least probable level's: as surprising as the
+//     model allows for that column);
+//   - every other input but the missing-cell indicators: the Gaussian
+//     of the model's likelihood, with the scaler's Jacobian for raw
+//     units;
+//   - a missing cell (its indicator set): its column's terms left out,
+//     which marginalises it exactly (the decoder's columns are
+//     independent given z), and MissingCost charged instead: the
+//     column's mean log-likelihood on the calibration rows that have it
+//     (at the posterior mean). A row with a missing cell then scores like
+//     the same row with a typical value there: not lower for having
+//     fewer terms, and not higher for the missing cell itself (the
+//     indicators inform the encoder but are not scored, as in the
+//     autoencoder's distance score; training leaves them out of the
+//     likelihood too).
+
+// input kinds of a table likelihood
+const (
+	tabGauss = iota
+	tabLevel
+	tabIndicator
+)
+
+// tableLik is a model's table likelihood, read from its configuration,
+// scaler, encoding and missing costs.
+type tableLik struct {
+	kind  []uint8
+	field []int // each input's field (-1 without an encoding)
+	spans [][2]int
+	// spanField is each span's field (-1 without an encoding)
+	spanField []int
+	// ind is each field's indicator input (-1 without one)
+	ind       []int
+	half      []float64 // the scaled 0.5 of each input
+	lv        []float64 // each input's Gaussian log-variance
+	logFactor []float64 // log |scale factor| of each input
+	cost      []float64 // each field's MissingCost (0 when none)
+}
+
+// table returns the model's table likelihood, nil when its rows are
+// scored by the plain likelihood.
+func (m *Model) table() *tableLik {
+	d := m.cfg.Inputs
+	enc := m.Encoding
+	if enc != nil && enc.Width() != d {
+		enc = nil
+	}
+	groups := 0
+	if enc != nil {
+		groups = len(enc.MissingGroups())
+	}
+	if len(m.cfg.Categories) == 0 && groups == 0 {
+		return nil
+	}
+	t := &tableLik{kind: make([]uint8, d), field: make([]int, d), spans: m.cfg.Categories,
+		half: make([]float64, d), lv: make([]float64, d), logFactor: make([]float64, d)}
+	for j := range t.field {
+		t.field[j] = -1
+		t.half[j] = 0.5
+		t.lv[j] = m.logVarAt(j)
+		if m.Scaler != nil && j < len(m.Scaler.Factor) {
+			t.half[j] = (0.5 - m.Scaler.Offset[j]) * m.Scaler.Factor[j]
+			t.logFactor[j] = math.Log(math.Abs(m.Scaler.Factor[j]))
+		}
+	}
+	for _, s := range t.spans {
+		for k := s[0]; k < s[1]; k++ {
+			t.kind[k] = tabLevel
+		}
+	}
+	t.spanField = make([]int, len(t.spans))
+	for i := range t.spanField {
+		t.spanField[i] = -1
+	}
+	if enc != nil {
+		copy(t.field, enc.Owners())
+		t.ind = make([]int, len(enc.Fields))
+		for i := range t.ind {
+			t.ind[i] = -1
+		}
+		for _, g := range enc.MissingGroups() {
+			t.kind[g.Indicator] = tabIndicator
+			t.ind[t.field[g.Indicator]] = g.Indicator
+		}
+		for i, s := range t.spans {
+			t.spanField[i] = t.field[s[0]]
+		}
+		t.cost = make([]float64, len(enc.Fields))
+		copy(t.cost, m.MissingCost)
+	}
+	return t
+}
+
+// missing reports whether field f's cell is missing in the scaled row xs.
+func missing[T float32 | float64](t *tableLik, xs []T, f int) bool {
+	if f < 0 || t.ind == nil {
+		return false
+	}
+	i := t.ind[f]
+	return i >= 0 && float64(xs[i]) > t.half[i]
+}
+
+// rowLogLik is log p(x|z) of one scaled row xs under the decoder outputs
+// o, in nats for raw units. fieldLL, when not nil, receives each
+// observed field's own terms, added to.
+func rowLogLik[T float32 | float64](t *tableLik, xs, o []T, fieldLL []float64) float64 {
+	var ll float64
+	for j, k := range t.kind {
+		if k != tabGauss {
+			continue
+		}
+		f := t.field[j]
+		if missing(t, xs, f) {
+			continue
+		}
+		term := t.logFactor[j] - losses.GaussianNLLElem(float64(xs[j]), float64(o[j]), t.lv[j])
+		ll += term
+		if fieldLL != nil && f >= 0 {
+			fieldLL[f] += term
+		}
+	}
+	for i, s := range t.spans {
+		f := t.spanField[i]
+		if missing(t, xs, f) {
+			continue
+		}
+		m := math.Inf(-1)
+		for k := s[0]; k < s[1]; k++ {
+			m = math.Max(m, float64(o[k]))
+		}
+		var z float64
+		low := math.Inf(1)
+		level := -1
+		for k := s[0]; k < s[1]; k++ {
+			z += math.Exp(float64(o[k]) - m)
+			low = math.Min(low, float64(o[k]))
+			if float64(xs[k]) > t.half[k] {
+				level = k
+			}
+		}
+		v := low // a level not seen in training: the least probable one's
+		if level >= 0 {
+			v = float64(o[level])
+		}
+		term := v - m - math.Log(z)
+		ll += term
+		if fieldLL != nil && f >= 0 {
+			fieldLL[f] += term
+		}
+	}
+	if t.ind != nil {
+		for f, i := range t.ind {
+			if i >= 0 && float64(xs[i]) > t.half[i] {
+				ll -= t.cost[f]
+			}
+		}
+	}
+	return ll
+}
+
+// FitMissingCost sets MissingCost from normal rows (not used for
+// training): each column with missing-cell indicators is charged, where a
+// row misses it, minus its mean log-likelihood over the rows that have
+// it, at the posterior mean. Calibrate calls it first; it changes the
+// model, like Calibrate. A model without such columns keeps none.
+func (m *Model) FitMissingCost(x []float32, rows int) error {
+	m.MissingCost = nil
+	t := m.table()
+	if t == nil || t.ind == nil {
+		return nil
+	}
+	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
+		return err
+	}
+	w := m.pool.Get()
+	defer m.pool.Put(w)
+	xs := m.scaled(x)
+	mu, _, err := m.posterior(w, xs, rows)
+	if err != nil {
+		return err
+	}
+	out, err := m.forward(&w.ws2, m.Decoder, mu, rows)
+	if err != nil {
+		return err
+	}
+	d := m.cfg.Inputs
+	sum := make([]float64, len(t.ind))
+	n := make([]int, len(t.ind))
+	fieldLL := make([]float64, len(t.ind))
+	for r := 0; r < rows; r++ {
+		clear(fieldLL)
+		row := xs[r*d : (r+1)*d]
+		rowLogLik(t, row, out[r*d:(r+1)*d], fieldLL)
+		for f, i := range t.ind {
+			if i >= 0 && !missing(t, row, f) {
+				sum[f] += fieldLL[f]
+				n[f]++
+			}
+		}
+	}
+	cost := make([]float64, len(t.ind))
+	for f, i := range t.ind {
+		if i < 0 {
+			continue
+		}
+		if n[f] == 0 {
+			return fmt.Errorf("vae: no calibration row has column %q: its missing cells cannot be charged", m.Encoding.Fields[f].Name)
+		}
+		cost[f] = -sum[f] / float64(n[f])
+	}
+	m.MissingCost = cost
+	return nil
+}
+
+// tableContributions writes one scaled row's contributions (see
+// Contributions) into c.
+func tableContributions(t *tableLik, xs, o, c []float64) {
+	for j, k := range t.kind {
+		if k != tabGauss || missing(t, xs, t.field[j]) {
+			continue
+		}
+		e := xs[j] - o[j]
+		c[j] = e * e * math.Exp(-t.lv[j])
+	}
+	for i, s := range t.spans {
+		if missing(t, xs, t.spanField[i]) {
+			continue
+		}
+		m := math.Inf(-1)
+		for k := s[0]; k < s[1]; k++ {
+			m = math.Max(m, o[k])
+		}
+		var z float64
+		low, at, level := math.Inf(1), s[0], -1
+		for k := s[0]; k < s[1]; k++ {
+			z += math.Exp(o[k] - m)
+			if o[k] < low {
+				low, at = o[k], k
+			}
+			if xs[k] > t.half[k] {
+				level = k
+			}
+		}
+		if level >= 0 {
+			at = level
+		}
+		c[at] = m + math.Log(z) - o[at]
+	}
+}
