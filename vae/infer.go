@@ -106,7 +106,7 @@ func (m *Model) SampleInto(dst []float32, n int, seed uint64) ([]float32, error)
 	if n < 0 {
 		return nil, fmt.Errorf("vae: sample count %d", n)
 	}
-	if m.cfg.Precision != layers.Float32 {
+	if m.cfg.Precision != layers.Float32 || m.table() != nil {
 		r, err := m.Sample(n, seed)
 		if err != nil {
 			return nil, err
@@ -215,10 +215,21 @@ func (m *Model) decodeMean(w *work, z []float64, rows int) ([]float64, error) {
 // space) by its levels' probabilities, scaled like the inputs.
 func categoryMeans[T float32 | float64](m *Model, out []T) {
 	cats, d := m.cfg.Categories, m.cfg.Inputs
+	s := m.Scaler
+	if t := m.table(); t != nil && t.ind != nil {
+		// a table likelihood leaves the indicators out: their outputs
+		// are untrained, and a decoded row has no missing cell
+		for r := 0; r+d <= len(out); r += d {
+			for _, i := range t.ind {
+				if i >= 0 {
+					out[r+i] = T(scaledZero(s, i))
+				}
+			}
+		}
+	}
 	if len(cats) == 0 {
 		return
 	}
-	s := m.Scaler
 	for r := 0; r+d <= len(out); r += d {
 		row := out[r : r+d]
 		for _, sp := range cats {
@@ -290,12 +301,100 @@ func (m *Model) SampleLatent(n int, seed uint64) []float32 {
 }
 
 // Sample draws n rows from the model: z from the prior, then the decoder's
-// mean, in raw units. The same seed gives the same samples.
+// mean, in raw units; for a model with a table likelihood (see table.go),
+// a row drawn from the likelihood given z instead: a level of each
+// category from its softmax, each number its mean plus the likelihood's
+// noise, no missing cell. The same seed gives the same samples.
 func (m *Model) Sample(n int, seed uint64) ([]float32, error) {
 	if n < 0 {
 		return nil, fmt.Errorf("vae: sample count %d", n)
 	}
+	if t := m.table(); t != nil {
+		return m.sampleTable(t, n, seed)
+	}
 	return m.Decode(m.SampleLatent(n, seed), n)
+}
+
+// scaledZero is input j's 0 in scaled space.
+func scaledZero(s *data.Scaler, j int) float64 {
+	if s == nil || j >= len(s.Offset) {
+		return 0
+	}
+	return -s.Offset[j] * s.Factor[j]
+}
+
+// sampleTable is Sample for a table likelihood t.
+func (m *Model) sampleTable(t *tableLik, n int, seed uint64) ([]float32, error) {
+	z := m.SampleLatent(n, seed)
+	zz := make([]float64, len(z))
+	for i, v := range z {
+		zz[i] = float64(v)
+	}
+	w := m.pool.Get()
+	defer m.pool.Put(w)
+	out, err := m.forward(&w.ws2, m.Decoder, zz, n)
+	if err != nil {
+		return nil, err
+	}
+	rng := rand.New(rand.NewPCG(seed, stream.ObservationDraws))
+	d := m.cfg.Inputs
+	p := make([]float64, d)
+	for r := 0; r < n; r++ {
+		row := out[r*d : (r+1)*d]
+		for j, k := range t.kind {
+			switch {
+			case k == tabGauss && t.boolean != nil && t.boolean[j]:
+				// a boolean: true with its decoded mean's probability
+				pt, v := row[j], 0.0
+				if s := m.Scaler; s != nil && j < len(s.Factor) {
+					pt = pt/s.Factor[j] + s.Offset[j]
+				}
+				if rng.Float64() < pt {
+					v = 1
+				}
+				if s := m.Scaler; s != nil && j < len(s.Factor) {
+					v = (v - s.Offset[j]) * s.Factor[j]
+				}
+				row[j] = v
+			case k == tabGauss:
+				row[j] += math.Exp(0.5*t.lv[j]) * rng.NormFloat64()
+			case k == tabIndicator:
+				row[j] = scaledZero(m.Scaler, j)
+			}
+		}
+		for _, s := range t.spans {
+			mx := math.Inf(-1)
+			for k := s[0]; k < s[1]; k++ {
+				mx = math.Max(mx, row[k])
+			}
+			var zsum float64
+			for k := s[0]; k < s[1]; k++ {
+				p[k] = math.Exp(row[k] - mx)
+				zsum += p[k]
+			}
+			u := rng.Float64() * zsum
+			level := s[1] - 1
+			for k := s[0]; k < s[1]; k++ {
+				if u < p[k] {
+					level = k
+					break
+				}
+				u -= p[k]
+			}
+			for k := s[0]; k < s[1]; k++ {
+				v := 0.0
+				if k == level {
+					v = 1
+				}
+				if m.Scaler != nil && k < len(m.Scaler.Factor) {
+					v = (v - m.Scaler.Offset[k]) * m.Scaler.Factor[k]
+				}
+				row[k] = v
+			}
+		}
+	}
+	raw := m.toRaw(out)
+	return raw, modelio.Finite(Kind, "sampled row", raw, d)
 }
 
 // Path is an interpolation method.

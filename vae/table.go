@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/losses"
 )
 
@@ -50,6 +51,7 @@ type tableLik struct {
 	lv        []float64 // each input's Gaussian log-variance
 	logFactor []float64 // log |scale factor| of each input
 	cost      []float64 // each field's MissingCost (0 when none)
+	boolean   []bool    // inputs of boolean fields
 }
 
 // table returns the model's table likelihood, nil when its rows are
@@ -102,6 +104,10 @@ func (m *Model) table() *tableLik {
 		}
 		t.cost = make([]float64, len(enc.Fields))
 		copy(t.cost, m.MissingCost)
+		t.boolean = make([]bool, d)
+		for j, f := range t.field {
+			t.boolean[j] = t.kind[j] == tabGauss && enc.Fields[f].Type == data.Boolean
+		}
 	}
 	return t
 }

@@ -37,6 +37,7 @@ func init() {
 		"encode":      {"write the codes (embeddings) of rows", cmdEncode},
 		"sample":      {"draw samples from a VAE or GAN (CSV or PNG grid)", cmdSample},
 		"interpolate": {"decode a path between two rows' codes", cmdInterpolate},
+		"fidelity":    {"measure a VAE's or GAN's samples against held-out rows: per column, pairs, copies", cmdFidelity},
 		"inspect":     {"describe a model file and check it", cmdInspect},
 		"demo":        {"run the whole job on an invented pump fleet", cmdDemo},
 		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},

@@ -179,3 +179,31 @@ func TestTypedSamples(t *testing.T) {
 		require.Contains(t, insp, "fields", kind)
 	}
 }
+
+// quern fidelity measures a generative model's samples against held-out
+// rows, column by column and for pairs, beside the column-by-column
+// baseline, with the copy check; models that do not sample are refused
+// by name.
+func TestFidelityThroughTheCommandLine(t *testing.T) {
+	dir := t.TempDir()
+	writePayments(t, filepath.Join(dir, "tr.csv"), 300, 3)
+	writePayments(t, filepath.Join(dir, "ho.csv"), 200, 4)
+	ok(t, quern(t, dir, nil, "train", "-kind", "vae", "-data", "tr.csv", "-out", "v.qm", "-epochs", "3", "-quiet"))
+	r := ok(t, quern(t, dir, nil, "fidelity", "-model", "v.qm", "-train", "tr.csv", "-holdout", "ho.csv", "-quiet"))
+	require.Contains(t, r.stdout, "200 samples against 200 held-out rows; baseline: 200 rows drawn column by column from the 300 training rows")
+	require.Regexp(t, `(?m)^channel\s+categorical\s+TV\s+\d\.\d{4}\s+\d\.\d{4}$`, r.stdout)
+	require.Regexp(t, `(?m)^amount\s+numeric\s+KS\s+`, r.stdout)
+	require.Regexp(t, `(?m)^correlations\s+pairs\s+gap\s+`, r.stdout)
+	require.Contains(t, r.stdout, "nearest training row: median distance")
+	require.Contains(t, r.stdout, "summary: ")
+	again := ok(t, quern(t, dir, nil, "fidelity", "-model", "v.qm", "-train", "tr.csv", "-holdout", "ho.csv", "-quiet"))
+	require.Equal(t, r.stdout, again.stdout, "same seed, same figures")
+
+	ok(t, quern(t, dir, nil, "train", "-data", "tr.csv", "-out", "a.qm", "-epochs", "1", "-quiet"))
+	r = quern(t, dir, nil, "fidelity", "-model", "a.qm", "-train", "tr.csv", "-holdout", "ho.csv")
+	require.NotEqual(t, 0, r.code)
+	require.Contains(t, r.stderr, "a generative model (a VAE or a GAN)")
+	r = quern(t, dir, nil, "fidelity", "-model", "v.qm", "-train", "tr.csv")
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, "-holdout is required")
+}

@@ -23,6 +23,10 @@ const (
 	Payments uint64 = 0xca4d
 	// PriorSample draws a VAE's latent rows from its prior.
 	PriorSample uint64 = 0x5a
+	// ObservationDraws draws a table VAE's samples from its likelihood
+	// given the decoded latent rows (a category's level, a number's
+	// noise).
+	ObservationDraws uint64 = 0x0b5
 	// GeneratorInput draws a GAN generator's noise (and classes) when
 	// sampling.
 	GeneratorInput uint64 = 0x6e
