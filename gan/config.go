@@ -3,6 +3,7 @@ package gan
 import (
 	"errors"
 	"fmt"
+	"math"
 
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/layers"
@@ -58,6 +59,17 @@ type Config struct {
 	// all generated (PacGAN, Lin et al. 2018), a remedy for mode
 	// collapse. Batch sizes must then be multiples of Pack. Default 1.
 	Pack int
+	// Categories lists the outputs [from, to) that one-hot encode a
+	// categorical column, each two or more wide and disjoint (a table
+	// read by type: data.Encoding.CategorySpans). The generator's outputs
+	// there are logits: in training they pass through a Gumbel-softmax
+	// (Jang et al. 2017) at Temperature, a nearly one-hot vector the
+	// discriminator compares with real one-hot rows, and a sample draws
+	// one level from their softmax. Those columns are not scaled.
+	// Default none.
+	Categories [][2]int `json:",omitempty"`
+	// Temperature of the Gumbel-softmax. Default 0.5.
+	Temperature float64 `json:",omitempty"`
 	// Scaling of data columns, fitted on the training data. Default
 	// standard.
 	Scaling data.ScaleKind
@@ -99,6 +111,9 @@ func (c Config) withDefaults() Config {
 	if c.Scaling == "" {
 		c.Scaling = data.ScaleStandard
 	}
+	if c.Temperature == 0 && len(c.Categories) > 0 {
+		c.Temperature = 0.5
+	}
 	return c
 }
 
@@ -129,6 +144,14 @@ func (c Config) Validate() error {
 	}
 	if c.Classes < 0 || c.Classes == 1 {
 		return bad("%d classes, want 0 or at least 2", c.Classes)
+	}
+	if len(c.Categories) > 0 {
+		if err := data.CheckSpans(c.Categories, c.Outputs); err != nil {
+			return bad("%v", err)
+		}
+		if !(c.Temperature > 0) || math.IsInf(c.Temperature, 0) {
+			return bad("Gumbel-softmax temperature %v, want > 0", c.Temperature)
+		}
 	}
 	if c.Pack < 1 {
 		return bad("pack %d, want at least 1", c.Pack)

@@ -2,6 +2,7 @@ package gan
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 
 	"github.com/quernlab/quern/internal/scratch"
@@ -27,7 +28,7 @@ func newWork() *work {
 // models.
 func (m *Model) GenerateInto(dst []float32, n int, seed uint64, class int) ([]float32, error) {
 	c := m.cfg
-	if c.Precision != layers.Float32 {
+	if c.Precision != layers.Float32 || len(c.Categories) > 0 {
 		r, err := m.Generate(n, seed, class)
 		if err != nil {
 			return nil, err
@@ -90,7 +91,7 @@ func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
 	if err := m.checkGenerate(n, class); err != nil {
 		return nil, err
 	}
-	if c.Precision == layers.Float32 {
+	if c.Precision == layers.Float32 && len(c.Categories) == 0 {
 		return m.GenerateInto(nil, n, seed, class)
 	}
 	rng := rand.New(rand.NewPCG(seed, stream.GeneratorInput))
@@ -118,10 +119,48 @@ func (m *Model) Generate(n int, seed uint64, class int) ([]float32, error) {
 	for i, v := range out {
 		res[i] = float32(v)
 	}
+	m.drawLevels(res, n, seed)
 	if m.Scaler != nil {
 		m.Scaler.InvertRows(res)
 	}
 	return res, nil
+}
+
+// drawLevels replaces each category's logits in generated rows by one
+// level drawn from their softmax, as one-hot inputs (the Gumbel-max
+// draw: the level with the largest logit plus Gumbel noise), from a
+// generator seeded by seed.
+func (m *Model) drawLevels(out []float32, n int, seed uint64) {
+	cats, d := m.cfg.Categories, m.cfg.Outputs
+	if len(cats) == 0 {
+		return
+	}
+	rng := rand.New(rand.NewPCG(seed, stream.ObservationDraws))
+	for r := 0; r < n; r++ {
+		row := out[r*d : (r+1)*d]
+		for _, s := range cats {
+			best, bestV := s[0], math.Inf(-1)
+			for k := s[0]; k < s[1]; k++ {
+				v := float64(row[k]) + gumbel(rng)
+				if v > bestV {
+					best, bestV = k, v
+				}
+			}
+			for k := s[0]; k < s[1]; k++ {
+				row[k] = 0
+			}
+			row[best] = 1
+		}
+	}
+}
+
+// gumbel draws from the standard Gumbel distribution, -log(-log U).
+func gumbel(rng *rand.Rand) float64 {
+	u := rng.Float64()
+	for u == 0 {
+		u = rng.Float64()
+	}
+	return -math.Log(-math.Log(u))
 }
 
 // Sample draws n rows (raw units) from noise seeded by seed; a conditional

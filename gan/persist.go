@@ -32,7 +32,13 @@ func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
 	if m.SpectralU != nil {
 		extra = append(extra, modelfile.Tensor{Name: SpectralScaleName, Rows: 1, Cols: len(m.SpectralScale), F64: append([]float64(nil), m.SpectralScale...)})
 	}
-	return modelio.File(Kind, meta{m.cfg, m.Fitted, prov}, m.Params(), extra...)
+	f, err := modelio.File(Kind, meta{m.cfg, m.Fitted, prov}, m.Params(), extra...)
+	if err == nil && len(m.cfg.Categories) > 0 {
+		// builds that predate categories would write their logits as
+		// samples: they refuse version 2
+		f.Version = 2
+	}
+	return f, err
 }
 
 // The loader's view of the metadata.

@@ -37,6 +37,9 @@ type ganRecipe struct {
 
 	real, realLabels, noiseIn, fakeLabels *engine.Input
 	sigma                                 []*engine.Input
+	// gumbel holds the Gumbel noise of the categories' Gumbel-softmax
+	// (nil without categories)
+	gumbel *engine.Input
 
 	dPhase, gPhase, evalPhase *engine.Phase
 	dMove, gMove              *move
@@ -213,6 +216,18 @@ func (r *ganRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 	if err != nil {
 		return nil, nil, err
 	}
+	if s := r.m.Scaler; s != nil && len(c.Categories) > 0 {
+		// the categories' levels stay 0/1, as the generator's softmax
+		// makes them
+		for _, sp := range c.Categories {
+			for j := sp[0]; j < sp[1] && j < len(s.Offset); j++ {
+				s.Offset[j], s.Factor[j] = 0, 1
+			}
+		}
+	}
+	if len(c.Categories) > 0 && r.gumbel == nil {
+		r.gumbel = engine.NewInput("gumbel")
+	}
 	if r.m.Columns == nil {
 		r.m.Columns, r.m.Image, r.m.Encoding = trainSet.Columns, trainSet.Image, trainSet.Encoding
 	}
@@ -268,7 +283,38 @@ func (r *ganRecipe) generate(g *engine.Graph, n int) (fake, fakeY *engine.Node) 
 		fakeY = g.Input(r.fakeLabels, n, r.c.Classes)
 		z = g.Concat(z, fakeY)
 	}
-	return g.MLP(r.m.Generator, z, nil), fakeY
+	out := g.MLP(r.m.Generator, z, nil)
+	if r.gumbel != nil {
+		out = r.gumbelSoftmax(g, out, g.Input(r.gumbel, n, r.c.Outputs))
+	}
+	return out, fakeY
+}
+
+// gumbelSoftmax passes each category's outputs, plus Gumbel noise,
+// through a softmax at the configured temperature (Jang et al. 2017);
+// the other columns pass as they are.
+func (r *ganRecipe) gumbelSoftmax(g *engine.Graph, out, noise *engine.Node) *engine.Node {
+	var res *engine.Node
+	join := func(p *engine.Node) {
+		if res == nil {
+			res = p
+		} else {
+			res = g.Concat(res, p)
+		}
+	}
+	at := 0
+	for _, s := range r.c.Categories {
+		if s[0] > at {
+			join(g.Slice(out, at, s[0]))
+		}
+		logits := g.Scale(g.Add(g.Slice(out, s[0], s[1]), g.Slice(noise, s[0], s[1])), 1/r.c.Temperature)
+		join(g.Exp(g.LogSoftmax(logits)))
+		at = s[1]
+	}
+	if at < r.c.Outputs {
+		join(g.Slice(out, at, r.c.Outputs))
+	}
+	return res
 }
 
 func (r *ganRecipe) buildD(g *engine.Graph, n int) (*engine.Node, []*engine.Node) {
@@ -309,6 +355,15 @@ func (r *ganRecipe) buildG(g *engine.Graph, n int) (*engine.Node, []*engine.Node
 // spectral scales.
 func (r *ganRecipe) fillCommon(p *engine.Program, n int, rng *rand.Rand) {
 	setInput(p, r.noiseIn, func(int) float64 { return rng.NormFloat64() })
+	if r.gumbel != nil && p.Has(r.gumbel) {
+		setInput(p, r.gumbel, func(int) float64 {
+			u := rng.Float64()
+			for u == 0 {
+				u = rng.Float64()
+			}
+			return -math.Log(-math.Log(u))
+		})
+	}
 	if k := r.c.Classes; k > 0 {
 		if cap(r.labels) < n {
 			r.labels = make([]int, n)

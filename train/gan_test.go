@@ -278,3 +278,70 @@ func TestConditionalSamplesLandInTheirClass(t *testing.T) {
 	_, err = m.Generate(1, 1, 4)
 	require.Error(t, err)
 }
+
+// A GAN of a table with a category trains its levels through a
+// Gumbel-softmax and samples them as categories: each row one level (0
+// or 1 in every level's column, the category's columns left unscaled),
+// the same rows for the same seed, and after a model file the same again;
+// the generator's soft levels in training sum to 1 per row.
+func TestGANCategories(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 5))
+	n := 600
+	x := make([]float32, 0, n*4)
+	for range n {
+		k := rng.IntN(3)
+		row := []float32{float32(2*k) + float32(0.3*rng.NormFloat64()), 0, 0, 0}
+		row[1+k] = 1
+		x = append(x, row...)
+	}
+	d, err := data.New(x, n, 4)
+	require.NoError(t, err)
+	cats := [][2]int{{1, 4}}
+	m, err := gan.New(gan.Config{Outputs: 4, Noise: 4, GenHidden: []int{16}, DiscHidden: []int{16}, Categories: cats, Seed: 2})
+	require.NoError(t, err)
+	_, err = gan.New(gan.Config{Outputs: 4, Categories: [][2]int{{3, 5}}})
+	require.ErrorIs(t, err, gan.ErrConfig)
+	h := fit(t, m, d, nil, Settings{Epochs: 3, BatchSize: 50})
+	require.NotEmpty(t, h.Epochs)
+	for j := 1; j < 4; j++ {
+		require.Equal(t, 0.0, m.Scaler.Offset[j])
+		require.Equal(t, 1.0, m.Scaler.Factor[j])
+	}
+	s, err := m.Sample(200, 9)
+	require.NoError(t, err)
+	for r := range 200 {
+		row := s[r*4 : (r+1)*4]
+		require.Equal(t, float32(1), row[1]+row[2]+row[3], "row %d", r)
+		for _, v := range row[1:] {
+			require.True(t, v == 0 || v == 1, "row %d: %v", r, row)
+		}
+	}
+	again, err := m.GenerateInto(nil, 200, 9, -1)
+	require.NoError(t, err)
+	require.Equal(t, s, again)
+	path := t.TempDir() + "/g.qm"
+	require.NoError(t, m.Save(path, nil))
+	back, err := gan.Load(path)
+	require.NoError(t, err)
+	require.Equal(t, cats, back.Config().Categories)
+	fromFile, err := back.Sample(200, 9)
+	require.NoError(t, err)
+	require.Equal(t, s, fromFile)
+
+	// the training graph's soft levels
+	st, err := Settings{BatchSize: 50}.resolve(gan.Kind)
+	require.NoError(t, err)
+	r, err := newGANRecipe(m, st, rand.New(rand.NewPCG(1, 1)), nil)
+	require.NoError(t, err)
+	_, _, err = r.prepare(d, nil)
+	require.NoError(t, err)
+	g := engine.NewGraph(layers.Float32)
+	fake, _ := r.generate(g, 8)
+	prog, err := g.Compile(g.Sum(g.Slice(fake, 1, 4)), engine.CompileOptions{})
+	require.NoError(t, err)
+	defer prog.Close()
+	r.fillCommon(prog, 8, rand.New(rand.NewPCG(3, 3)))
+	v, err := prog.Run(engine.RunOptions{})
+	require.NoError(t, err)
+	require.InDelta(t, 8, v, 1e-4, "8 rows of soft levels summing to 1")
+}

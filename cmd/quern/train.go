@@ -705,6 +705,11 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 		return usage(m, obj, err)
 	case gan.Kind:
 		c := gan.Config{Outputs: d.Cols, Noise: o.noiseDim, GenHidden: hidden, DiscHidden: hidden, Activation: act, Scaling: scaling, Seed: o.seed, Pack: o.pack}
+		if d.Encoding != nil {
+			// categories as categories: a Gumbel-softmax in training, a
+			// level drawn in sampling
+			c.Categories = d.Encoding.CategorySpans()
+		}
 		obj := train.Adversarial{DiscSteps: o.discSteps}
 		if image {
 			c.GenOutput = layers.Sigmoid
