@@ -51,6 +51,9 @@ type Dataset struct {
 	// identifier or a time and so left out of the features, which and
 	// why (a type given for the column reads it instead).
 	LeftOut []string
+	// Stray says, for each column of numbers a typed reading found a few
+	// texts in, that those cells were read as missing.
+	Stray []string
 
 	// stats are each column's range, gathered while a typed reading
 	// parsed the numbers (nil otherwise)

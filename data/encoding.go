@@ -30,6 +30,19 @@ var FieldTypes = []FieldType{Numeric, Integer, Boolean, Categorical}
 // CSVConfig.Missing is nil, besides the empty cell (which always does).
 var DefaultMissing = []string{"NA", "N/A", "NaN", "nan", "?"}
 
+// strayShare: a column of numbers whose texts are at most one cell in
+// strayShare is read as numbers, its texts as missing cells (common
+// practice, no source: a stray "null" or "-" in a column of amounts).
+const strayShare = 20
+
+// plural is n and the noun, with an s unless n is 1.
+func plural(n int, noun string) string {
+	if n == 1 {
+		return "1 " + noun
+	}
+	return fmt.Sprintf("%d %ss", n, noun)
+}
+
 // DefaultMaxLevels caps a categorical column's distinct values when
 // CSVConfig.MaxLevels is 0: more are likely an identifier, not a category.
 const DefaultMaxLevels = 1000
@@ -429,13 +442,14 @@ func classify(s string) (float64, int) {
 // decide chooses the field for a surveyed column (want: a type the user
 // gave, "" to infer). It fails, naming the column, when the column
 // cannot be read as wanted.
-func (c *columnSurvey) decide(name, file string, col int, want FieldType, maxLevels int) (Field, error) {
+func (c *columnSurvey) decide(name, file string, col int, want FieldType, maxLevels int) (Field, string, error) {
 	f := Field{Name: name, Missing: c.missing, Indicator: c.missing > 0}
 	observed := c.cells - c.missing
 	if observed == 0 {
-		return f, &ParseError{File: file, Column: col, Name: name, Msg: "every cell is missing: nothing to learn from (leave the column out with -columns)"}
+		return f, "", &ParseError{File: file, Column: col, Name: name, Msg: "every cell is missing: nothing to learn from (leave the column out with -columns)"}
 	}
 	texts := observed - c.numbers - c.ranged
+	var note string
 	if want == "" {
 		switch {
 		case texts == 0 && c.integral:
@@ -444,6 +458,18 @@ func (c *columnSurvey) decide(name, file string, col int, want FieldType, maxLev
 			want = Numeric
 		case c.numbers == 0 && c.ranged == 0 && booleanPair(c.texts) != nil:
 			want = Boolean
+		case c.numbers > 0 && texts*strayShare <= observed && c.ranged == 0:
+			// numbers with a stray text or two (null, -, n/a): the
+			// texts are missing cells, and said so
+			want = Numeric
+			if c.integral {
+				want = Integer
+			}
+			f.Missing += texts
+			f.Indicator = true
+			note = fmt.Sprintf("column %q: %s of %d (such as %q, line %d) %s not a number: read as missing (-types %s=categorical reads the column as categories instead)",
+				name, plural(texts, "cell"), observed, c.firstText, c.firstTextLine, map[bool]string{true: "is", false: "are"}[texts == 1], name)
+			texts = 0
 		default:
 			want = Categorical
 		}
@@ -451,24 +477,24 @@ func (c *columnSurvey) decide(name, file string, col int, want FieldType, maxLev
 	switch want {
 	case Numeric, Integer:
 		if texts > 0 {
-			return f, &ParseError{File: file, Line: c.firstTextLine, Column: col, Name: name, Msg: fmt.Sprintf("%q is not a number (the column was given as %s)", c.firstText, want)}
+			return f, "", &ParseError{File: file, Line: c.firstTextLine, Column: col, Name: name, Msg: fmt.Sprintf("%q is not a number (the column was given as %s)", c.firstText, want)}
 		}
 		if c.badNumber != "" {
-			return f, &ParseError{File: file, Line: c.badLine, Column: col, Name: name, Msg: fmt.Sprintf("%q is outside the float32 range", c.badNumber)}
+			return f, "", &ParseError{File: file, Line: c.badLine, Column: col, Name: name, Msg: fmt.Sprintf("%q is outside the float32 range", c.badNumber)}
 		}
 		if want == Integer && !c.integral {
-			return f, &ParseError{File: file, Column: col, Name: name, Msg: "the column was given as integer but holds fractions"}
+			return f, "", &ParseError{File: file, Column: col, Name: name, Msg: "the column was given as integer but holds fractions"}
 		}
 		f.Type, f.Min, f.Max = want, c.min, c.max
 	case Boolean:
 		p := booleanPair(c.texts)
 		if p == nil {
-			return f, &ParseError{File: file, Column: col, Name: name, Msg: fmt.Sprintf("the column was given as boolean but holds %s (want two texts such as true/false, yes/no)", sampleTexts(c.texts))}
+			return f, "", &ParseError{File: file, Column: col, Name: name, Msg: fmt.Sprintf("the column was given as boolean but holds %s (want two texts such as true/false, yes/no)", sampleTexts(c.texts))}
 		}
 		f.Type, f.True, f.False = Boolean, p[0], p[1]
 	case Categorical:
 		if c.tooMany {
-			return f, &ParseError{File: file, Column: col, Name: name, Msg: fmt.Sprintf("more than %d distinct values: an identifier rather than a category? leave it out (-columns) or pass it through (-keep)", maxLevels)}
+			return f, "", &ParseError{File: file, Column: col, Name: name, Msg: fmt.Sprintf("more than %d distinct values: an identifier rather than a category? leave it out (-columns) or pass it through (-keep)", maxLevels)}
 		}
 		f.Type = Categorical
 		for l := range c.texts {
@@ -476,7 +502,7 @@ func (c *columnSurvey) decide(name, file string, col int, want FieldType, maxLev
 		}
 		slices.Sort(f.Levels)
 	}
-	return f, nil
+	return f, note, nil
 }
 
 // booleanPair returns the true and false texts of a column whose texts

@@ -154,7 +154,24 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	}
 	d, err = ReadCSV(strings.NewReader(mostly.String()), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)
-	require.Equal(t, []string{`column "k" left out: 25 different values in 40 cells, an identifier rather than a category (-keep k passes it through beside each row; -types k=categorical reads it as a category)`}, d.LeftOut)
+	require.Equal(t, []string{`column "k" left out: 25 different values in 40 cells, an identifier rather than a category (quern score -keep k passes it through beside the scores; -types k=categorical reads it as a category)`}, d.LeftOut)
+	// a column of numbers with one stray text is not an identifier: its
+	// numbers read as numbers, the text as a missing cell, and said so
+	var amounts strings.Builder
+	amounts.WriteString("amount,v\n")
+	for i := range 40 {
+		fmt.Fprintf(&amounts, "%d.5,%d\n", i, i%3)
+	}
+	amounts.WriteString("null,1\n")
+	d, err = ReadCSV(strings.NewReader(amounts.String()), "a.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Empty(t, d.LeftOut)
+	require.Equal(t, []string{`column "amount": 1 cell of 41 (such as "null", line 42) is not a number: read as missing (-types amount=categorical reads the column as categories instead)`}, d.Stray)
+	f := d.Encoding.Fields[0]
+	require.Equal(t, Numeric, f.Type)
+	require.True(t, f.Indicator)
+	require.Equal(t, 1, f.Missing)
+	require.Equal(t, []float32{20, 1, 1}, d.X[40*3:41*3], "the stray cell filled with the median, its indicator set")
 	// ten different texts are too few to call an identifier
 	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)

@@ -20,16 +20,18 @@ const minIdentifierRows = 20
 var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 15:04:05", "2006-01-02 15:04", "2006-01-02T15:04", "2006-01-02", "2006/01/02", "2006/01/02 15:04:05"}
 
 // notAFeature says why a column whose type is inferred is not one of a
-// model's features ("" when it is one): texts that are all dates or
-// times, more distinct texts than half the cells over minIdentifierRows
-// or more cells (an identifier), more distinct texts than maxLevels.
-func (c *columnSurvey) notAFeature(maxLevels int) string {
+// model's features ("" when it is one), for a column of texts only (a
+// column of numbers with a stray text is decide's to refuse): texts that
+// are all dates or times (times set), more distinct texts than half the
+// cells over minIdentifierRows or more cells (an identifier), more
+// distinct texts than maxLevels.
+func (c *columnSurvey) notAFeature(maxLevels int) (why string, times bool) {
 	observed := c.cells - c.missing
-	texts := observed - c.numbers - c.ranged
-	if texts == 0 {
-		return ""
+	if c.numbers > 0 || c.ranged > 0 || observed == 0 {
+		// numbers, or numbers with a stray text: decide says which
+		return "", false
 	}
-	if c.numbers == 0 && c.ranged == 0 && len(c.texts) > 0 {
+	if len(c.texts) > 0 {
 		times := true
 		for t := range c.texts {
 			if !isTime(t) {
@@ -38,21 +40,21 @@ func (c *columnSurvey) notAFeature(maxLevels int) string {
 			}
 		}
 		if times {
-			return "its cells are dates or times"
+			return "its cells are dates or times", true
 		}
 	}
 	if c.tooMany {
-		return fmt.Sprintf("more than %d distinct values, an identifier rather than a category", maxLevels)
+		return fmt.Sprintf("more than %d distinct values, an identifier rather than a category", maxLevels), false
 	}
 	if observed >= minIdentifierRows && booleanPair(c.texts) == nil {
 		switch {
 		case len(c.texts) == observed:
-			return fmt.Sprintf("each of its %d cells is different, an identifier rather than a category", observed)
+			return fmt.Sprintf("each of its %d cells is different, an identifier rather than a category", observed), false
 		case 2*len(c.texts) > observed:
-			return fmt.Sprintf("%d different values in %d cells, an identifier rather than a category", len(c.texts), observed)
+			return fmt.Sprintf("%d different values in %d cells, an identifier rather than a category", len(c.texts), observed), false
 		}
 	}
-	return ""
+	return "", false
 }
 
 func isTime(s string) bool {
@@ -127,17 +129,24 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		}
 	}
 	enc := &Encoding{Markers: markersOf(&cfg)}
-	var leftOut []string
+	var leftOut, stray []string
 	for k, c := range sv.pass.survey {
 		col := sd.Columns[k]
 		want := cfg.Types[col]
-		if why := c.notAFeature(cmpOrInt(cfg.MaxLevels, DefaultMaxLevels)); want == "" && why != "" {
-			leftOut = append(leftOut, fmt.Sprintf("column %q left out: %s (-keep %s passes it through beside each row; -types %s=categorical reads it as a category)", col, why, col, col))
+		if why, times := c.notAFeature(cmpOrInt(cfg.MaxLevels, DefaultMaxLevels)); want == "" && why != "" {
+			how := fmt.Sprintf("quern score -keep %s passes it through beside the scores", col)
+			if !times {
+				how += fmt.Sprintf("; -types %s=categorical reads it as a category", col)
+			}
+			leftOut = append(leftOut, fmt.Sprintf("column %q left out: %s (%s)", col, why, how))
 			continue
 		}
-		f, err := c.decide(col, name, sv.pass.cols[k], want, cmpOrInt(cfg.MaxLevels, DefaultMaxLevels))
+		f, note, err := c.decide(col, name, sv.pass.cols[k], want, cmpOrInt(cfg.MaxLevels, DefaultMaxLevels))
 		if err != nil {
 			return nil, err
+		}
+		if note != "" {
+			stray = append(stray, note)
 		}
 		enc.Fields = append(enc.Fields, f)
 	}
@@ -183,7 +192,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		d = nd
 	}
 	d.Notes = nil // in training rows, filled cells are the norm
-	d.LeftOut = leftOut
+	d.LeftOut, d.Stray = leftOut, stray
 	return d, nil
 }
 
@@ -260,9 +269,16 @@ func (c *columnSurvey) merge(o *columnSurvey, maxLevels int) {
 	c.ranged += o.ranged
 	c.cells += o.cells
 	c.integral = c.integral && o.integral
-	// the texts up to the cap, a sample when there are more (what
-	// notAFeature reads them for)
-	for s, n := range o.texts {
+	// the texts up to the cap, the least in sort order of each batch when
+	// there are more (what notAFeature reads them for): the same whatever
+	// the maps' order
+	keys := make([]string, 0, len(o.texts))
+	for s := range o.texts {
+		keys = append(keys, s)
+	}
+	slices.Sort(keys)
+	for _, s := range keys {
+		n := o.texts[s]
 		if c.tooMany {
 			break
 		}

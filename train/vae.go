@@ -98,7 +98,7 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		}
 	}
 	if r.trainPhase == nil {
-		if r.c.Likelihood != vae.Bernoulli {
+		if r.c.Table {
 			r.missing = missingRules(r.m.Encoding, r.m.Scaler, r.c.Inputs)
 		}
 		if len(r.c.Categories) > 0 || len(r.missing) > 0 {

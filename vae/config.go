@@ -50,6 +50,12 @@ type Config struct {
 	Linear bool
 	// Likelihood of the decoder. Default Bernoulli.
 	Likelihood Likelihood
+	// Table gives the model a table's likelihood (see table.go): for a
+	// table read by type, categories (Categories) and missing cells (the
+	// encoding's indicators) are scored as such. It needs a Gaussian
+	// likelihood; Categories set it. Default false: every input scored by
+	// Likelihood, as models written before it existed are.
+	Table bool `json:",omitempty"`
 	// Categories lists the inputs [from, to) that one-hot encode a
 	// categorical column, each two or more wide and disjoint (a table
 	// read by type: data.Encoding.CategorySpans); they need a Gaussian
@@ -94,6 +100,9 @@ func (c Config) withDefaults() Config {
 	if c.OutputVariance == 0 {
 		c.OutputVariance = 1
 	}
+	if len(c.Categories) > 0 {
+		c.Table = true
+	}
 	if c.Init == layers.InitAuto {
 		c.Init = layers.FanInUniform
 	}
@@ -129,10 +138,10 @@ func (c Config) Validate() error {
 	default:
 		return bad("unknown likelihood %q", c.Likelihood)
 	}
+	if c.Table && c.Likelihood == Bernoulli {
+		return bad("a table's likelihood (categories, missing cells) needs a Gaussian likelihood for the numbers, not bernoulli")
+	}
 	if len(c.Categories) > 0 {
-		if c.Likelihood == Bernoulli {
-			return bad("categories need a Gaussian likelihood for the other columns, not bernoulli")
-		}
 		if err := data.CheckSpans(c.Categories, c.Inputs); err != nil {
 			return bad("%v", err)
 		}

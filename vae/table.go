@@ -8,9 +8,9 @@ import (
 	"github.com/quernlab/quern/losses"
 )
 
-// A table's likelihood. A model with Categories, or one trained on a
-// table read by type whose columns had missing cells (an encoding with
-// indicators), has a row likelihood of the table's own kind:
+// A table's likelihood. A model with Config.Table (set by Categories, and
+// by the command line for a table read by type) has a row likelihood of
+// the table's own kind:
 //
 //   - a category's levels: the log-probability of the row's level under
 //     the softmax of the decoder's outputs there (a level never seen in
@@ -57,17 +57,13 @@ type tableLik struct {
 // table returns the model's table likelihood, nil when its rows are
 // scored by the plain likelihood.
 func (m *Model) table() *tableLik {
+	if !m.cfg.Table {
+		return nil
+	}
 	d := m.cfg.Inputs
 	enc := m.Encoding
 	if enc != nil && enc.Width() != d {
 		enc = nil
-	}
-	groups := 0
-	if enc != nil {
-		groups = len(enc.MissingGroups())
-	}
-	if len(m.cfg.Categories) == 0 && groups == 0 {
-		return nil
 	}
 	t := &tableLik{kind: make([]uint8, d), field: make([]int, d), spans: m.cfg.Categories,
 		half: make([]float64, d), lv: make([]float64, d), logFactor: make([]float64, d)}

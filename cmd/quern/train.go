@@ -693,9 +693,10 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 		if c.Likelihood == "" && !image {
 			c.Likelihood = vae.Gaussian // table columns are not probabilities
 		}
-		if d.Encoding != nil && c.Likelihood != vae.Bernoulli {
-			// a category's levels: a categorical likelihood
-			c.Categories = d.Encoding.CategorySpans()
+		if d.Encoding != nil && !d.Encoding.Plain() && c.Likelihood != vae.Bernoulli {
+			// a table's likelihood: a category's levels categorical,
+			// missing cells left out and charged
+			c.Table, c.Categories = true, d.Encoding.CategorySpans()
 		}
 		obj := train.Variational{Beta: o.beta, FreeBits: o.freeBits}
 		if o.warmup > 0 {
@@ -860,7 +861,7 @@ const minRows = 50
 // the inputs (an autoencoder that can copy its input).
 func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	var out []string
-	for _, s := range d.LeftOut {
+	for _, s := range append(append([]string(nil), d.LeftOut...), d.Stray...) {
 		out = append(out, "warning: "+s)
 	}
 	if n := len(d.Skipped); n > 0 {

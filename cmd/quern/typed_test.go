@@ -123,7 +123,7 @@ func TestTypedTableThroughTheCommandLine(t *testing.T) {
 
 	// an identifier column is left out, and said so
 	r = ok(t, quern(t, dir, nil, "train", "-data", "pay.csv", "-out", "m4.qm", "-epochs", "1", "-quiet"))
-	require.Contains(t, r.stderr, `warning: column "id" left out: each of its 400 cells is different, an identifier rather than a category (-keep id passes it through`)
+	require.Contains(t, r.stderr, `warning: column "id" left out: each of its 400 cells is different, an identifier rather than a category (quern score -keep id passes it through beside the scores`)
 	r = ok(t, quern(t, dir, nil, "inspect", "m4.qm"))
 	require.NotContains(t, r.stdout, "id categorical")
 
