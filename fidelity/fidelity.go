@@ -9,6 +9,7 @@ import (
 	"sort"
 
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/gan"
 )
 
 // Column is one column's fit: Statistic is "KS" (the two-sample
@@ -45,7 +46,12 @@ type Fit struct {
 	// held-out rows' and these rows' Pearson correlations, over pairs of
 	// columns of different fields.
 	CorrelationGap float64 `json:"correlation_gap"`
-	Nearest        Nearest `json:"nearest"`
+	// Frechet is the Fréchet distance between Gaussians fitted to the
+	// held-out rows and to these, in the copy check's columns (each in
+	// the training rows' standard deviations): 0 for the same mean and
+	// covariance.
+	Frechet float64 `json:"frechet"`
+	Nearest Nearest `json:"nearest"`
 }
 
 // Report is Compare's answer.
@@ -226,6 +232,7 @@ func (v *view) fit(real, syn *table, nn *nearest, realDist []float64, rng *rand.
 		fit.Columns = append(fit.Columns, c)
 	}
 	fit.CorrelationGap = v.correlationGap(real, syn)
+	fit.Frechet = nn.frechet(real, syn)
 	d := nn.distances(syn, rng)
 	q := quantile(realDist, 0.05)
 	closer := 0
@@ -424,6 +431,26 @@ func newNearest(t *table, rng *rand.Rand) *nearest {
 		}
 	}
 	return nn
+}
+
+// frechet is the Fréchet distance between Gaussians fitted to a's and
+// b's rows in nn's scaled columns (NaN when it cannot be computed).
+func (nn *nearest) frechet(a, b *table) float64 {
+	rows := func(t *table) []float32 {
+		cols, _ := t.columns()
+		out := make([]float32, 0, t.rows*len(cols))
+		for r := range t.rows {
+			for j, c := range cols {
+				out = append(out, float32((c[r]-nn.mean[j])*nn.inv[j]))
+			}
+		}
+		return out
+	}
+	d, err := gan.FrechetRows(rows(a), a.rows, rows(b), b.rows, nn.cols)
+	if err != nil {
+		return math.NaN()
+	}
+	return d
 }
 
 // distances gives (a sample of) t's rows' distances to their nearest

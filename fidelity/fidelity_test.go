@@ -105,6 +105,10 @@ func TestCompare(t *testing.T) {
 	}
 	require.Less(t, r.Synthetic.CorrelationGap, 0.05)
 	require.Greater(t, r.Baseline.CorrelationGap, 0.3, "independent columns lose x ~ y ~ kind")
+	// the Fréchet distance of like rows is sampling noise; the
+	// baseline's carries the lost covariances
+	require.Less(t, r.Synthetic.Frechet, 0.1)
+	require.Greater(t, r.Baseline.Frechet, 1.0)
 	// the share nearer than held-out rows' 5% quantile: binomial(1000,
 	// 0.05), 4.5 standard deviations either side
 	require.InDelta(t, 0.05, r.Synthetic.Nearest.Closer, 0.031)

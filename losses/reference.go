@@ -297,9 +297,16 @@ func GroupedSoftmaxCrossEntropy(x, t []float64, cols int, spans [][2]int) (float
 	if cols <= 0 || len(x)%cols != 0 || len(x) == 0 {
 		return 0, fmt.Errorf("%w: GroupedSoftmaxCrossEntropy: %d values are not rows of %d", ErrShape, len(x), cols)
 	}
+	used := make([]bool, cols)
 	for _, sp := range spans {
 		if sp[0] < 0 || sp[1] > cols || sp[1]-sp[0] < 2 {
 			return 0, fmt.Errorf("%w: GroupedSoftmaxCrossEntropy: columns [%d,%d) of %d are not a group of two or more", ErrShape, sp[0], sp[1], cols)
+		}
+		for k := sp[0]; k < sp[1]; k++ {
+			if used[k] {
+				return 0, fmt.Errorf("%w: GroupedSoftmaxCrossEntropy: column %d is in two groups", ErrShape, k)
+			}
+			used[k] = true
 		}
 	}
 	rows := len(x) / cols

@@ -33,9 +33,10 @@ func (m *Model) NegELBO(x []float32, rows int) ([]float64, error) {
 // discrepancy from its reconstruction at the posterior mean, in scaled
 // space: the binary cross-entropy for Bernoulli models, the squared error
 // over the likelihood's variance for Gaussian ones; in a table's
-// likelihood, a category's -log p of the row's level on that level's
-// input (of the least probable level for one never seen in training) and
-// nothing for a missing cell. It says which columns drove a score.
+// likelihood, in nats above each column's best: half that for a number,
+// a category's -log p of the row's level on that level's input (of the
+// least probable level for one never seen in training), nothing for a
+// missing cell. It says which columns drove a score.
 func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
 		return nil, err
@@ -79,11 +80,17 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 // it (scoring, encoding and the rest are safe for concurrent use only
 // among themselves).
 func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly.Threshold, error) {
-	if err := m.FitMissingCost(normal, rows); err != nil {
+	cost, err := m.missingCost(normal, rows)
+	if err != nil {
 		return anomaly.Threshold{}, err
 	}
+	// the threshold is set on scores under the new costs; on an error
+	// the model keeps its old costs and threshold together
+	old := m.MissingCost
+	m.MissingCost = cost
 	th, err := anomaly.CalibrateRows(m.NegELBO, normal, rows, c)
 	if err != nil {
+		m.MissingCost = old
 		return th, err
 	}
 	m.Threshold = &th

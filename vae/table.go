@@ -3,8 +3,10 @@ package vae
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/stream"
 	"github.com/quernlab/quern/losses"
 )
 
@@ -23,9 +25,9 @@ import (
 //     which marginalises it exactly (the decoder's columns are
 //     independent given z), and MissingCost charged instead: the
 //     column's mean log-likelihood on the calibration rows that have it
-//     (at the posterior mean). A row with a missing cell then scores like
-//     the same row with a typical value there: not lower for having
-//     fewer terms, and not higher for the missing cell itself (the
+//     (estimated as the score is, from the same draws). A row with a
+//     missing cell then scores, on average, like the same row with a
+//     typical value there: not lower for having fewer terms, and not higher for the missing cell itself (the
 //     indicators inform the encoder but are not scored, as in the
 //     autoencoder's distance score; training leaves them out of the
 //     likelihood too).
@@ -178,40 +180,59 @@ func rowLogLik[T float32 | float64](t *tableLik, xs, o []T, fieldLL []float64) f
 // FitMissingCost sets MissingCost from normal rows (not used for
 // training): each column with missing-cell indicators is charged, where a
 // row misses it, minus its mean log-likelihood over the rows that have
-// it, at the posterior mean. Calibrate calls it first; it changes the
-// model, like Calibrate. A model without such columns keeps none.
+// it, estimated as the score estimates it (ScoreSamples draws from the
+// score's seed). Calibrate calls it; it changes the model, like
+// Calibrate. A model without such columns keeps none; on an error the
+// model is unchanged.
 func (m *Model) FitMissingCost(x []float32, rows int) error {
-	m.MissingCost = nil
+	cost, err := m.missingCost(x, rows)
+	if err == nil {
+		m.MissingCost = cost
+	}
+	return err
+}
+
+// missingCost computes FitMissingCost's costs (nil: no column has
+// missing cells).
+func (m *Model) missingCost(x []float32, rows int) ([]float64, error) {
 	t := m.table()
-	if t == nil || t.ind == nil {
-		return nil
+	if t == nil || !slices.ContainsFunc(t.ind, func(i int) bool { return i >= 0 }) {
+		return nil, nil
 	}
 	if err := checkRows(x, rows, m.cfg.Inputs, "input"); err != nil {
-		return err
+		return nil, err
 	}
 	w := m.pool.Get()
 	defer m.pool.Put(w)
-	xs := m.scaled(x)
-	mu, _, err := m.posterior(w, xs, rows)
-	if err != nil {
-		return err
-	}
-	out, err := m.forward(&w.ws2, m.Decoder, mu, rows)
-	if err != nil {
-		return err
-	}
-	d := m.cfg.Inputs
+	d, L, S := m.cfg.Inputs, m.cfg.Latent, ScoreSamples
 	sum := make([]float64, len(t.ind))
 	n := make([]int, len(t.ind))
 	fieldLL := make([]float64, len(t.ind))
-	for r := 0; r < rows; r++ {
-		clear(fieldLL)
-		row := xs[r*d : (r+1)*d]
-		rowLogLik(t, row, out[r*d:(r+1)*d], fieldLL)
-		for f, i := range t.ind {
-			if i >= 0 && !missing(t, row, f) {
-				sum[f] += fieldLL[f]
-				n[f]++
+	const chunk = 256
+	for lo := 0; lo < rows; lo += chunk {
+		hi := min(rows, lo+chunk)
+		xr := x[lo*d : hi*d]
+		xs := m.scaled(xr)
+		mu, lv, err := m.posterior(w, xs, hi-lo)
+		if err != nil {
+			return nil, err
+		}
+		z, _ := draws(xr, mu, lv, hi-lo, L, S, stream.ScoreSeed, stream.ELBODraws)
+		out, err := m.forward(&w.ws2, m.Decoder, z, (hi-lo)*S)
+		if err != nil {
+			return nil, err
+		}
+		for r := 0; r < hi-lo; r++ {
+			clear(fieldLL)
+			row := xs[r*d : (r+1)*d]
+			for k := 0; k < S; k++ {
+				rowLogLik(t, row, out[(r*S+k)*d:(r*S+k+1)*d], fieldLL)
+			}
+			for f, i := range t.ind {
+				if i >= 0 && !missing(t, row, f) {
+					sum[f] += fieldLL[f] / float64(S)
+					n[f]++
+				}
 			}
 		}
 	}
@@ -221,12 +242,11 @@ func (m *Model) FitMissingCost(x []float32, rows int) error {
 			continue
 		}
 		if n[f] == 0 {
-			return fmt.Errorf("vae: no calibration row has column %q: its missing cells cannot be charged", m.Encoding.Fields[f].Name)
+			return nil, fmt.Errorf("vae: column %q is missing in every calibration row, so its missing cells cannot be charged: calibrate on rows that have it (hold out more rows)", m.Encoding.Fields[f].Name)
 		}
 		cost[f] = -sum[f] / float64(n[f])
 	}
-	m.MissingCost = cost
-	return nil
+	return cost, nil
 }
 
 // tableContributions writes one scaled row's contributions (see
@@ -237,7 +257,7 @@ func tableContributions(t *tableLik, xs, o, c []float64) {
 			continue
 		}
 		e := xs[j] - o[j]
-		c[j] = e * e * math.Exp(-t.lv[j])
+		c[j] = 0.5 * e * e * math.Exp(-t.lv[j])
 	}
 	for i, s := range t.spans {
 		if missing(t, xs, t.spanField[i]) {

@@ -97,6 +97,7 @@ func writeFidelity(w io.Writer, r *fidelity.Report) {
 		}
 	}
 	fmt.Fprintf(w, "%-*s  %-11s  %-4s  %9.4f  %9.4f\n", width, "correlations", "pairs", "gap", r.Synthetic.CorrelationGap, r.Baseline.CorrelationGap)
+	fmt.Fprintf(w, "%-*s  %-11s  %-4s  %9.4f  %9.4f\n", width, "all columns", "Gaussian", "FD", r.Synthetic.Frechet, r.Baseline.Frechet)
 	s, b := r.Synthetic.Nearest, r.Baseline.Nearest
 	fmt.Fprintf(w, "nearest training row: median distance %.3g for samples, %.3g for the baseline, %.3g for held-out rows; nearer than 95%% of held-out rows: %.1f%% of samples, %.1f%% of the baseline (about 5%% is like real rows); copies of training rows: %d\n",
 		s.Median, b.Median, s.Holdout, 100*s.Closer, 100*b.Closer, s.Copies)
@@ -113,5 +114,5 @@ func writeFidelity(w io.Writer, r *fidelity.Report) {
 	if len(notes) == 0 {
 		notes = append(notes, "every column fits at least as well as the baseline, the relations better, and no copying shows")
 	}
-	fmt.Fprintf(w, "summary: %s (KS: Kolmogorov-Smirnov statistic; TV: total variation distance; gap: mean absolute difference of the correlations; 0 is a perfect match)\n", strings.Join(notes, "; "))
+	fmt.Fprintf(w, "summary: %s (KS: Kolmogorov-Smirnov statistic; TV: total variation distance; gap: mean absolute difference of the correlations; FD: Fréchet distance of Gaussians fitted to the standardised columns; 0 is a perfect match)\n", strings.Join(notes, "; "))
 }

@@ -94,7 +94,9 @@ func main() {
 		for i, n := range names {
 			cells[i] = rec[n]
 		}
-		x, note, unscorable := enc.Encode(x[:0], cells)
+		var note string
+		var unscorable bool
+		x, note, unscorable = enc.Encode(x[:0], cells)
 		if unscorable {
 			fmt.Printf("%s: unscorable (%s): flagged for review\n", rec["payment_id"], note)
 			continue

@@ -13,8 +13,9 @@ import (
 // rows and groups, a scalar: for each row and each span [from, to) of
 // columns, T*LSE(x[from:to]) - sum_k t_k x_k, with T the sum of the span's
 // targets (the cross-entropy -sum_k t_k log softmax(x)_k). A span whose
-// targets are all zero adds nothing and gets no gradient: a missing
-// category. Columns outside every span take no part. The gradient is
+// targets are all zero adds nothing and gets no gradient with respect to
+// x: a missing category. Columns outside every span take no part. The
+// gradient is
 // p_k*T - t_k with respect to x (p the span's softmax) and -log p_k with
 // respect to t. The forward run leaves the log-softmax of each span in a
 // buffer shared with both gradient operations.
