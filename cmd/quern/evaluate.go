@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"path/filepath"
+	"sort"
 	"strconv"
 	"strings"
 	"time"
@@ -194,6 +195,11 @@ func cmdEvaluate(e *env, args []string) error {
 				{Name: "flagged anomalous / missed / flagged normal / passed normal", Value: fmt.Sprintf("%d / %d / %d / %d", c.TP, c.FN, c.FP, c.TN)},
 			},
 			Figures: []report.Figure{{File: "curves.png", Caption: "Left: recall against false-alarm rate as the threshold falls; right: precision against recall; the dot is the model's threshold."}}}
+		top, err := topRows(sc, x, ds.Cols, scores, positive, labelOf, reportTopRows)
+		if err != nil {
+			return err
+		}
+		pg.Tables = append(pg.Tables, top)
 		if err := pg.Write(*out); err != nil {
 			return err
 		}
@@ -239,4 +245,58 @@ func ratioText(v float64, why string) string {
 		return "undefined (" + why + ")"
 	}
 	return fmt.Sprintf("%.4f", v)
+}
+
+// reportTopRows is how many of the highest-scoring rows the evaluation
+// page explains.
+const reportTopRows = 20
+
+// topRows is a table of the n highest-scoring labelled rows: each one's
+// label, score and the columns behind it with what the model expected
+// there (a category's level, a number's reconstruction) and how the row
+// stands to it.
+func topRows(sc model.Scorer, x []float32, cols int, scores []float64, positive []bool, labelOf func(int) (string, bool), n int) (report.Table, error) {
+	order := make([]int, len(scores))
+	for i := range order {
+		order[i] = i
+	}
+	sort.SliceStable(order, func(a, b int) bool { return scores[order[a]] > scores[order[b]] })
+	order = order[:min(n, len(order))]
+	var rows []float32
+	for _, i := range order {
+		rows = append(rows, x[i*cols:(i+1)*cols]...)
+	}
+	assessed, err := sc.Score(rows, len(order), 3)
+	if err != nil {
+		return report.Table{}, err
+	}
+	t := report.Table{Caption: fmt.Sprintf("The %d highest-scoring labelled rows and the columns behind each score (share of the score; what the model expected there, and how the row stands to it)", len(order)),
+		Header: []string{"labelled row", "label", "score", "flagged", "columns behind the score"}}
+	// the labelled rows' own numbers, 1-based in file order of the
+	// labelled rows
+	labels := make([]string, 0, len(positive))
+	for i := 0; len(labels) < len(positive); i++ {
+		if l, ok := labelOf(i); ok {
+			labels = append(labels, l)
+		}
+	}
+	for k, i := range order {
+		a := assessed[k]
+		var parts []string
+		for _, f := range a.Top {
+			p := fmt.Sprintf("%s %.0f%%", f.Name, 100*f.Share)
+			switch {
+			case f.Expected != "" && f.Direction != "":
+				p += fmt.Sprintf(" (expected %s, %s)", f.Expected, f.Direction)
+			case f.Expected != "":
+				p += fmt.Sprintf(" (expected %s)", f.Expected)
+			}
+			parts = append(parts, p)
+		}
+		if a.Unscorable != "" {
+			parts = []string{"unscorable: " + a.Unscorable}
+		}
+		t.Rows = append(t.Rows, []string{strconv.Itoa(i + 1), labels[i], strconv.FormatFloat(scores[i], 'g', 5, 64), strconv.FormatBool(a.Anomaly), strings.Join(parts, "; ")})
+	}
+	return t, nil
 }

@@ -191,7 +191,7 @@ func TestBadInput(t *testing.T) {
 			}
 		})
 	}
-	for _, c := range []string{"train", "score", "encode", "sample", "interpolate", "inspect", "demo", "serve", "version", "evaluate"} {
+	for _, c := range []string{"train", "score", "encode", "sample", "interpolate", "inspect", "demo", "serve", "version", "evaluate", "fidelity"} {
 		r := quern(t, dir, nil, c, "-h")
 		require.Equal(t, 0, r.code)
 		require.Equal(t, 1, strings.Count(r.stderr, "usage: quern "+c), "%s -h prints its usage once:\n%s", c, r.stderr)

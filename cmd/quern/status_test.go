@@ -355,6 +355,10 @@ func TestEvaluate(t *testing.T) {
 		_, err := os.Stat(filepath.Join(dir, f))
 		require.NoError(t, err, f)
 	}
+	page, err := os.ReadFile(filepath.Join(dir, "ev/index.html"))
+	require.NoError(t, err)
+	require.Contains(t, string(page), "The 20 highest-scoring labelled rows and the columns behind each score")
+	require.Regexp(t, `<td>c\d+ \d+% \(expected [-0-9.e]+, (above|below)\)`, string(page), "each top row names its columns with what was expected there")
 	after, err := os.ReadFile(filepath.Join(dir, "m.qm"))
 	require.NoError(t, err)
 	require.Equal(t, before, after, "the original model is left as it was")
