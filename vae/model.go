@@ -2,6 +2,7 @@ package vae
 
 import (
 	"fmt"
+	"sync/atomic"
 	"github.com/quernlab/quern/data"
 	"math/rand/v2"
 
@@ -43,6 +44,9 @@ type Model struct {
 	MissingCost []float64
 
 	pool scratch.Pool[work]
+	// tab caches the table likelihood (see table) with what it was read
+	// from
+	tab atomic.Pointer[tableCache]
 }
 
 // New builds an untrained model from cfg with weights drawn from cfg.Seed.

@@ -56,12 +56,47 @@ type tableLik struct {
 	boolean   []bool    // inputs of boolean fields
 }
 
+// tableCache is a built table likelihood and what it was read from.
+type tableCache struct {
+	scaler *data.Scaler
+	enc    *data.Encoding
+	cost   []float64
+	lv     []float64
+	t      *tableLik
+}
+
+// fresh reports whether c was built from m as it is now.
+func (c *tableCache) fresh(m *Model) bool {
+	if c == nil || c.scaler != m.Scaler || c.enc != m.Encoding || !slices.Equal(c.cost, m.MissingCost) {
+		return false
+	}
+	for j, v := range c.lv {
+		if m.logVarAt(j) != v {
+			return false
+		}
+	}
+	return true
+}
+
 // table returns the model's table likelihood, nil when its rows are
-// scored by the plain likelihood.
+// scored by the plain likelihood. It is built once and kept while the
+// scaler, encoding, missing-cell costs and log-variances it was read from
+// stay the same (the scaler and encoding by identity, the rest by value),
+// so inference allocates nothing for it.
 func (m *Model) table() *tableLik {
 	if !m.cfg.Table {
 		return nil
 	}
+	if c := m.tab.Load(); c.fresh(m) {
+		return c.t
+	}
+	t := m.buildTable()
+	m.tab.Store(&tableCache{scaler: m.Scaler, enc: m.Encoding, cost: slices.Clone(m.MissingCost), lv: slices.Clone(t.lv), t: t})
+	return t
+}
+
+// buildTable reads the table likelihood from the model.
+func (m *Model) buildTable() *tableLik {
 	d := m.cfg.Inputs
 	enc := m.Encoding
 	if enc != nil && enc.Width() != d {

@@ -8,6 +8,7 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/testenv"
 	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/losses"
 	"github.com/quernlab/quern/train"
@@ -200,4 +201,15 @@ func TestTableSamples(t *testing.T) {
 	}
 	tv := (math.Abs(share[0]-0.5) + math.Abs(share[1]-0.25) + math.Abs(share[2]-0.25)) / 2
 	require.Less(t, tv, 0.1, "shares %v", share)
+
+	// decoding a table model allocates nothing once warm (its table
+	// likelihood is built once)
+	codes, err := m.EncodeInto(nil, d.X[:60], 10)
+	require.NoError(t, err)
+	dec := make([]float32, 60)
+	run := func() { _, _ = m.DecodeInto(dec, codes, 10) }
+	run()
+	if !testenv.RaceBuild {
+		require.Zero(t, testing.AllocsPerRun(20, run))
+	}
 }
