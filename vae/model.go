@@ -2,9 +2,9 @@ package vae
 
 import (
 	"fmt"
-	"sync/atomic"
 	"github.com/quernlab/quern/data"
 	"math/rand/v2"
+	"sync/atomic"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/internal/scratch"
