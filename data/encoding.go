@@ -28,7 +28,7 @@ var FieldTypes = []FieldType{Numeric, Integer, Boolean, Categorical}
 
 // DefaultMissing are the texts that mark a missing cell when
 // CSVConfig.Missing is nil, besides the empty cell (which always does).
-var DefaultMissing = []string{"NA", "N/A", "NaN", "nan", "?"}
+var DefaultMissing = []string{"NA", "N/A", "NaN", "nan", "?", "null", "NULL"}
 
 // strayShare: a column of numbers whose texts are at most one cell in
 // strayShare is read as numbers, its texts as missing cells (common
@@ -324,7 +324,14 @@ func (r *cellReader) row(dst []float32, cells []string) ([]float32, string, bool
 					dst[at+j] = 1
 					observed++
 				} else {
-					notes = append(notes, fmt.Sprintf("%s: level %q not seen in training", f.Name, s))
+					note := fmt.Sprintf("%s: level %q not seen in training", f.Name, s)
+					for _, l := range f.Levels {
+						if strings.EqualFold(l, s) {
+							note += fmt.Sprintf(" (%q was: levels are told apart by case)", l)
+							break
+						}
+					}
+					notes = append(notes, note)
 				}
 			} else if !r.training {
 				notes = append(notes, f.Name+": missing")
@@ -347,6 +354,34 @@ func (r *cellReader) row(dst []float32, cells []string) ([]float32, string, bool
 		unscorable = true
 	}
 	return dst, strings.Join(notes, "; "), unscorable
+}
+
+// NoteColumns reads a row's note (RowNote.Text, or what a RowEncoder
+// says) back into the columns it names: those read as missing (an empty
+// cell or a marker, a text where a number belongs, a boolean's unknown
+// text) and, apart, those whose text was not a number, with the first
+// such text. The note's parts are "NAME: ..." joined by "; ".
+func NoteColumns(note string) (missing, notNumber []string, text []string) {
+	if note == "" {
+		return nil, nil, nil
+	}
+	for _, part := range strings.Split(note, "; ") {
+		name, rest, ok := strings.Cut(part, ": ")
+		if !ok {
+			continue
+		}
+		switch {
+		case rest == "missing" || strings.HasPrefix(rest, "missing, filled with "):
+			missing = append(missing, name)
+		case strings.HasSuffix(rest, " is not a number, read as missing"):
+			missing = append(missing, name)
+			notNumber = append(notNumber, name)
+			text = append(text, strings.TrimSuffix(rest, " is not a number, read as missing"))
+		case strings.HasSuffix(rest, ", read as missing"):
+			missing = append(missing, name)
+		}
+	}
+	return missing, notNumber, text
 }
 
 // number reads a number, integer or boolean cell; false when it is none.

@@ -162,16 +162,28 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	for i := range 40 {
 		fmt.Fprintf(&amounts, "%d.5,%d\n", i, i%3)
 	}
-	amounts.WriteString("null,1\n")
+	amounts.WriteString("-,1\n")
 	d, err = ReadCSV(strings.NewReader(amounts.String()), "a.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)
 	require.Empty(t, d.LeftOut)
-	require.Equal(t, []string{`column "amount": 1 cell of 41 (such as "null", line 42) is not a number: read as missing (-types amount=categorical reads the column as categories instead)`}, d.Stray)
+	require.Equal(t, []string{`column "amount": 1 cell of 41 (such as "-", line 42) is not a number: read as missing (-types amount=categorical reads the column as categories instead)`}, d.Stray)
 	f := d.Encoding.Fields[0]
 	require.Equal(t, Numeric, f.Type)
 	require.True(t, f.Indicator)
 	require.Equal(t, 1, f.Missing)
 	require.Equal(t, []float32{20, 1, 1}, d.X[40*3:41*3], "the stray cell filled with the median, its indicator set")
+	// numbers with a decimal comma, and dates written month or day first,
+	// are left out and said so
+	var euro strings.Builder
+	euro.WriteString("price,day,v\n")
+	for i := range 30 {
+		fmt.Fprintf(&euro, "\"%d,%d\",%d/%d/2024,%d\n", i, i%10, 1+i%12, 1+i, i%3)
+	}
+	d, err = ReadCSV(strings.NewReader(euro.String()), "e.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Len(t, d.LeftOut, 2)
+	require.Contains(t, d.LeftOut[0], `column "price" left out: its cells are numbers written with a decimal comma (such as "0,0"), which quern does not read`)
+	require.Contains(t, d.LeftOut[1], `column "day" left out: its cells are dates or times`)
 	// ten different texts are too few to call an identifier
 	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)

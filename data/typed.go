@@ -17,7 +17,10 @@ const minIdentifierRows = 20
 
 // timeLayouts are the layouts a column of dates or times is recognised
 // by: RFC 3339 and its common relatives, and ISO 8601 dates.
-var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 15:04:05", "2006-01-02 15:04", "2006-01-02T15:04", "2006-01-02", "2006/01/02", "2006/01/02 15:04:05"}
+var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 15:04:05", "2006-01-02 15:04", "2006-01-02T15:04", "2006-01-02", "2006/01/02", "2006/01/02 15:04:05",
+	// month first and day first, with or without leading zeros
+	"1/2/2006", "2/1/2006", "1/2/2006 15:04", "2/1/2006 15:04", "1/2/2006 15:04:05", "2/1/2006 15:04:05",
+	"2.1.2006", "2.1.2006 15:04", "2.1.2006 15:04:05"}
 
 // notAFeature says why a column whose type is inferred is not one of a
 // model's features ("" when it is one), for a column of texts only (a
@@ -42,6 +45,20 @@ func (c *columnSurvey) notAFeature(maxLevels int) (why string, times bool) {
 		if times {
 			return "its cells are dates or times", true
 		}
+		comma := true
+		var example string
+		for t := range c.texts {
+			if !decimalComma(t) {
+				comma = false
+				break
+			}
+			if example == "" || t < example {
+				example = t
+			}
+		}
+		if comma {
+			return fmt.Sprintf("its cells are numbers written with a decimal comma (such as %q), which quern does not read: write them with a decimal point", example), true
+		}
 	}
 	if c.tooMany {
 		return fmt.Sprintf("more than %d distinct values, an identifier rather than a category", maxLevels), false
@@ -55,6 +72,28 @@ func (c *columnSurvey) notAFeature(maxLevels int) (why string, times bool) {
 		}
 	}
 	return "", false
+}
+
+// decimalComma reports whether s is a number written with a decimal
+// comma (and, perhaps, points or spaces between thousands): 18,5 or
+// 1.234,56.
+func decimalComma(s string) bool {
+	s = strings.TrimPrefix(strings.TrimPrefix(s, "-"), "+")
+	whole, frac, ok := strings.Cut(s, ",")
+	if !ok || whole == "" || frac == "" {
+		return false
+	}
+	for _, r := range frac {
+		if r < '0' || r > '9' {
+			return false
+		}
+	}
+	for _, r := range whole {
+		if (r < '0' || r > '9') && r != '.' && r != ' ' {
+			return false
+		}
+	}
+	return true
 }
 
 func isTime(s string) bool {

@@ -18,6 +18,7 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/model"
 )
 
@@ -558,6 +559,7 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 				res[i] = anomaly.Score{Value: math.NaN(), Threshold: res[i].Threshold, Anomaly: true, Unscorable: rd.text}
 			case rd.text != "":
 				res[i].Read = rd.text
+				modelio.MarkMissing(&res[i], rd.text)
 			}
 		}
 		flagged := 0

@@ -46,7 +46,7 @@ func (d *dataFlags) registerForModel(fs *flag.FlagSet) {
 func (d *dataFlags) registerTyped(fs *flag.FlagSet) {
 	d.typed = true
 	fs.StringVar(&d.types, "types", "", "CSV column types instead of the inferred ones, `COLUMN=TYPE,...` with TYPE numeric, integer, boolean or categorical (inferred: numbers, whole numbers, two texts such as yes/no, other texts)")
-	fs.StringVar(&d.missing, "missing", "", "comma-separated texts that mark a missing CSV cell besides the empty cell (default NA,N/A,NaN,nan,?); none: only the empty cell")
+	fs.StringVar(&d.missing, "missing", "", "comma-separated texts that mark a missing CSV cell besides the empty cell (default NA,N/A,NaN,nan,?,null,NULL); none: only the empty cell")
 }
 
 func (d *dataFlags) register(fs *flag.FlagSet, required bool) {

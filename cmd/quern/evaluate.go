@@ -28,6 +28,7 @@ func cmdEvaluate(e *env, args []string) error {
 	modelPath := fs.String("model", "", "model file with anomaly scores: an autoencoder or a VAE (required)")
 	var d dataFlags
 	d.registerForModel(fs)
+	fs.Lookup("label").Usage = "CSV column holding each row's label, a number or a text (-normal names the normal ones)"
 	normal := fs.String("normal", "0", "comma-separated label values (numbers or text) of normal rows, the word empty for an empty cell; every other value is anomalous, and empty cells not named are left out")
 	out := fs.String("out", "", "folder for the ROC and precision-recall curves and a page")
 	recal := fs.String("recalibrate", "", "write a copy of the model to this file with its threshold set on the file's normal rows (no retraining)")

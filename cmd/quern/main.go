@@ -1,6 +1,6 @@
 // Command quern trains autoencoders, variational autoencoders and GANs on
 // CPU and uses them: anomaly scores, embeddings, samples, interpolations,
-// an HTTP scoring service, and a demo on an invented pump fleet.
+// an HTTP scoring service, and demos on an invented pump fleet and invented card payments.
 //
 // Run "quern help" for the commands and "quern COMMAND -h" for the flags
 // of one.
@@ -39,7 +39,7 @@ func init() {
 		"interpolate": {"decode a path between two rows' codes", cmdInterpolate},
 		"fidelity":    {"measure a VAE's or GAN's samples against held-out rows: per column, pairs, copies", cmdFidelity},
 		"inspect":     {"describe a model file and check it", cmdInspect},
-		"demo":        {"run the whole job on an invented pump fleet", cmdDemo},
+		"demo":        {"run the whole job on an invented scenario: a pump fleet, or card payments (-scenario payments)", cmdDemo},
 		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
 		"evaluate":    {"measure anomaly scores against labelled rows (ROC, precision, recall); set a threshold again", cmdEvaluate},
 		"version":     {"print the version, the Go toolchain, the build settings and the matrix kernel", cmdVersion},

@@ -890,7 +890,10 @@ func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	case rows < minRows:
 		out = append(out, fmt.Sprintf("warning: %s: too few to learn from (fewer than %d); expect scores that mean little", plural(rows, "training row"), minRows))
 	case params > 0 && rows*weightsPerRow < params && d.Image == nil:
-		advice := fmt.Sprintf("consider narrower -hidden and -latent (the default width keeps to about %d)", weightsPerRow)
+		advice := fmt.Sprintf("consider narrower -hidden and -latent (the autoencoder's default width keeps to about %d)", weightsPerRow)
+		if m.Kind() == vae.Kind {
+			advice = "consider narrower -hidden and -latent"
+		}
 		if m.Kind() == gan.Kind {
 			// a GAN's generator learning the rows would copy them
 			advice = "consider narrower -hidden, or check that samples are not copies of training rows"

@@ -207,3 +207,44 @@ func TestFidelityThroughTheCommandLine(t *testing.T) {
 	require.Equal(t, 2, r.code)
 	require.Contains(t, r.stderr, "-holdout is required")
 }
+
+// What scoring could not read is said out loud: a column whose cells are
+// mostly not numbers (a decimal comma) gets a warning beside the
+// summary, a kept column named like one of the score file's is renamed,
+// an empty cell's explanation says missing, and a level that differs from
+// a known one only by case says so.
+func TestScoreSaysWhatItCouldNotRead(t *testing.T) {
+	dir := t.TempDir()
+	writePayments(t, filepath.Join(dir, "pay.csv"), 400, 5)
+	ok(t, quern(t, dir, nil, "train", "-data", "pay.csv", "-out", "m.qm", "-epochs", "2", "-quiet"))
+	later := "id,amount,items,card_present,channel,country,status\n" +
+		"q1,\"18,5\",2,no,WEB,FR,a\n" +
+		"q2,\"19,5\",1,no,web,FR,b\n" +
+		"q3,21.5,,no,web,FR,c\n"
+	require.NoError(t, os.WriteFile(filepath.Join(dir, "later.csv"), []byte(later), 0o644))
+	r := ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", "later.csv", "-keep", "id,status", "-top", "5", "-out", "s.csv", "-quiet"))
+	require.Contains(t, r.stderr, `warning: column "amount": 2 of 3 cells are not numbers (such as "18,5"), read as missing`)
+	recs := readCSVFile(t, filepath.Join(dir, "s.csv"))
+	require.Equal(t, []string{"row", "id", "status (kept)", "score"}, recs[0][:4])
+	require.Equal(t, "status", recs[0][len(recs[0])-1])
+	require.Contains(t, recs[1][len(recs[1])-1], `channel: level "WEB" not seen in training ("web" was: levels are told apart by case)`)
+	for _, row := range recs[1:] {
+		for k := 4; k+3 < len(row)-1; k += 4 {
+			if row[k] == "amount" && row[0] != "3" {
+				require.Equal(t, "missing", row[k+3], "row %s: an unread amount is missing", row[0])
+			}
+			if row[k] == "items" && row[0] == "3" {
+				require.Equal(t, "missing", row[k+3], "row 3: an empty items cell is missing")
+			}
+		}
+	}
+}
+
+func readCSVFile(t *testing.T, path string) [][]string {
+	f, err := os.Open(path)
+	require.NoError(t, err)
+	defer f.Close()
+	recs, err := csv.NewReader(f).ReadAll()
+	require.NoError(t, err)
+	return recs
+}

@@ -11,6 +11,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -18,6 +19,7 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/report"
@@ -239,7 +241,7 @@ func cmdScore(e *env, args []string) error {
 	d.registerForModel(fs)
 	out := fs.String("out", "-", "CSV file for the scores (- for standard output)")
 	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share (its fraction of the parts of the score the row's columns add; negative parts count as none), the value the model expected (its reconstruction, kept within the training range, or a category's level) and the direction (above, below, other, missing)")
-	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp)")
+	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp); one named like a column of the score file (row, score, status, ...) is written as NAME (kept)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
@@ -282,13 +284,26 @@ func cmdScore(e *env, args []string) error {
 		return err
 	}
 	cw := csv.NewWriter(w)
-	header := append(append([]string{"row"}, ds.KeptColumns...), "score", "threshold", "anomaly")
-	nk := len(ds.KeptColumns)
+	own := []string{"row", "score", "threshold", "anomaly", "status"}
 	for k := 1; k <= *top; k++ {
-		header = append(header, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k), fmt.Sprintf("expected%d", k), fmt.Sprintf("direction%d", k))
+		own = append(own, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k), fmt.Sprintf("expected%d", k), fmt.Sprintf("direction%d", k))
 	}
+	kept := make([]string, len(ds.KeptColumns))
+	for i, k := range ds.KeptColumns {
+		kept[i] = k
+		if slices.Contains(own, k) {
+			kept[i] = k + " (kept)" // a column of the file named like one of the score file's
+		}
+	}
+	header := append(append([]string{"row"}, kept...), "score", "threshold", "anomaly")
+	nk := len(ds.KeptColumns)
+	header = append(header, own[5:]...)
 	cw.Write(append(header, "status"))
 	flagged, unscorable, noted := 0, 0, 0
+	// cells that are not numbers, per column: a column mostly unread is
+	// said out loud, not only row by row
+	unread := map[string]int{}
+	unreadText := map[string]string{}
 	notes := ds.Notes // in row order
 	rec := make([]string, 0, len(header)+1)
 	err = inChunks(st, "score", ds.Rows, func(lo, hi int) ([]anomaly.Score, error) {
@@ -314,6 +329,9 @@ func cmdScore(e *env, args []string) error {
 				value = ""
 			}
 			rec = append(rec, value, strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
+			if note != nil {
+				modelio.MarkMissing(&s, note.Text)
+			}
 			for k := 0; k < *top; k++ {
 				if k >= len(s.Top) {
 					rec = append(rec, "", "", "", "")
@@ -336,6 +354,12 @@ func cmdScore(e *env, args []string) error {
 			if note != nil {
 				status += "; read: " + note.Text
 				noted++
+				_, nn, texts := data.NoteColumns(note.Text)
+				for j, name := range nn {
+					if unread[name]++; unreadText[name] == "" {
+						unreadText[name] = texts[j]
+					}
+				}
 			}
 			cw.Write(append(rec, status))
 		}
@@ -358,6 +382,16 @@ func cmdScore(e *env, args []string) error {
 		line += fmt.Sprintf("; %s with cells filled in or levels not seen in training (the status column says which)", plural(noted, "row"))
 	}
 	fmt.Fprintln(e.stderr, line)
+	cols := make([]string, 0, len(unread))
+	for name := range unread {
+		cols = append(cols, name)
+	}
+	slices.Sort(cols)
+	for _, name := range cols {
+		if n := unread[name]; 2*n > ds.Rows {
+			fmt.Fprintf(e.stderr, "warning: column %q: %d of %d cells are not numbers (such as %s), read as missing: these rows' scores say little of that column (quern reads numbers with a decimal point; a decimal comma is not read)\n", name, n, ds.Rows, unreadText[name])
+		}
+	}
 	fmt.Fprintln(e.stderr, anomaly.Caution)
 	st.done()
 	return nil

@@ -112,3 +112,19 @@ func within(v float32, f *data.Field) float32 {
 	}
 	return v
 }
+
+// MarkMissing sets the direction of each of a score's top features that
+// the row's read note (data.NoteColumns) says was read as missing to
+// "missing": a column without a missing-cell indicator is filled in
+// unseen by the model, and its explanation would otherwise compare the
+// fill with the expectation.
+func MarkMissing(s *anomaly.Score, note string) {
+	missing, _, _ := data.NoteColumns(note)
+	for _, name := range missing {
+		for k := range s.Top {
+			if s.Top[k].Name == name {
+				s.Top[k].Direction = "missing"
+			}
+		}
+	}
+}
