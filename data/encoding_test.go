@@ -150,7 +150,7 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	var mostly strings.Builder
 	mostly.WriteString("k,v\n")
 	for i := range 40 {
-		fmt.Fprintf(&mostly, "k%d,%d\n", i%25, i)
+		fmt.Fprintf(&mostly, "k%d,%d\n", i%25, i%7)
 	}
 	d, err = ReadCSV(strings.NewReader(mostly.String()), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)
@@ -184,6 +184,16 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	require.Len(t, d.LeftOut, 2)
 	require.Contains(t, d.LeftOut[0], `column "price" left out: its cells are numbers written with a decimal comma (such as "0,0"), which quern does not read`)
 	require.Contains(t, d.LeftOut[1], `column "day" left out: its cells are dates or times`)
+	// a column of whole numbers, each once from the least to the
+	// greatest, is a row number
+	var numbered strings.Builder
+	numbered.WriteString("student,hand\n")
+	for i := range 30 {
+		fmt.Fprintf(&numbered, "%d,%s\n", 101+(i*7)%30, []string{"left", "right"}[i%2])
+	}
+	d, err = ReadCSV(strings.NewReader(numbered.String()), "n.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, []string{`column "student" left out: its values are the whole numbers 101 to 130, each once: a row number or an identifier rather than a measurement (quern score -keep student passes it through beside the scores; -types student=categorical reads it as a category)`}, d.LeftOut)
 	// ten different texts are too few to call an identifier
 	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 )
@@ -30,6 +31,12 @@ var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 
 // distinct texts than maxLevels.
 func (c *columnSurvey) notAFeature(maxLevels int) (why string, times bool) {
 	observed := c.cells - c.missing
+	if c.numbers == observed && c.integral && observed >= minIdentifierRows && c.max-c.min+1 == float64(observed) &&
+		(c.tooMany || len(c.texts) == observed) {
+		// whole numbers, each once, from the least to the greatest
+		return fmt.Sprintf("its values are the whole numbers %s to %s, each once: a row number or an identifier rather than a measurement",
+			strconv.FormatFloat(c.min, 'f', -1, 64), strconv.FormatFloat(c.max, 'f', -1, 64)), false
+	}
 	if c.numbers > 0 || c.ranged > 0 || observed == 0 {
 		// numbers, or numbers with a stray text: decide says which
 		return "", false

@@ -228,7 +228,7 @@ func Run(ctx context.Context, cfg Config) error {
 	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, "reconstruction error"); err != nil {
 		return err
 	}
-	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out week scores, healthy and faulty readings, with the threshold."})
+	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out week scores, healthy and faulty readings (each group scaled to the same area), with the threshold."})
 	codes, err := m.Encode(holdout.X, holdout.Rows)
 	if err != nil {
 		return err

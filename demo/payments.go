@@ -185,7 +185,7 @@ func runPayments(ctx context.Context, cfg Config, say func(string, ...any), phas
 	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, "distance score"); err != nil {
 		return err
 	}
-	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out month scores, normal payments and fraud, with the threshold."})
+	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out month scores, normal payments and fraud (each group scaled to the same area), with the threshold."})
 	pg.RunTime = roundDuration(time.Since(start)).String()
 	if err := pg.Write(rdir); err != nil {
 		return err

@@ -15,8 +15,9 @@ import (
 // ScoreHistogram plots the distribution of anomaly scores (log10, as
 // reconstruction errors and densities span decades) with the threshold as
 // a dashed line inside the frame; positive, when given, splits the bars
-// into known-normal and known-anomalous rows. what names the score, for
-// example "reconstruction error".
+// into known-normal and known-anomalous rows, each group scaled to area 1
+// so that a few anomalies beside many normal rows show. what names the
+// score, for example "reconstruction error".
 func ScoreHistogram(path string, scores []float64, threshold float64, positive []bool, what string) error {
 	if len(scores) == 0 {
 		return fmt.Errorf("report: no scores to plot")
@@ -65,6 +66,12 @@ func ScoreHistogram(path string, scores []float64, threshold float64, positive [
 		}
 	}
 	bins := 40
+	// normal and anomalous rows each scaled to the same area: a few
+	// anomalies beside thousands of normal rows stay visible
+	scaled := positive != nil && len(groups[0].vals) > 0 && len(groups[1].vals) > 0
+	if scaled {
+		pn.p.Y.Label.Text = "density (each group's area 1)"
+	}
 	for i, g := range groups {
 		if len(g.vals) == 0 {
 			continue
@@ -72,6 +79,9 @@ func ScoreHistogram(path string, scores []float64, threshold float64, positive [
 		h, err := plotter.NewHist(g.vals, bins)
 		if err != nil {
 			return fmt.Errorf("report: %w", err)
+		}
+		if scaled {
+			h.Normalize(1)
 		}
 		c := colourOf(2 + 3*i) // sky blue, vermillion
 		h.FillColor = color.NRGBA{c.R, c.G, c.B, 150}

@@ -572,6 +572,9 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		line += ", stopped early"
 	}
 	st.result("%s", line)
+	if enc := full.Encoding; enc != nil && !enc.Plain() {
+		st.say("fields: %s", enc.Describe())
+	}
 	for _, c := range rec.Chosen {
 		st.say("chosen: %s", c)
 	}
