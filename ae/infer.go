@@ -290,7 +290,9 @@ type Score = anomaly.Score
 const Caution = anomaly.Caution
 
 // Score scores raw rows against the model's calibrated threshold and names
-// the top features (at most top, default 3) behind each score.
+// the top features (at most top, default 3) behind each score. A row with
+// a category level never seen in training is flagged whatever its score
+// (Score.Unseen names the column).
 func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 	if m.Threshold == nil {
 		return nil, fmt.Errorf("ae: model has no threshold; calibrate it first")
@@ -330,6 +332,7 @@ func (m *Model) Score(x []float32, rows, top int) ([]Score, error) {
 		}
 	}
 	modelio.Explain(&m.Fitted, out, x, recon, cols)
+	modelio.FlagUnseen(&m.Fitted, out, x, cols)
 	return out, nil
 }
 

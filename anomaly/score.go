@@ -34,6 +34,10 @@ type Score struct {
 	// intermediate result outside the range the model can represent. Such
 	// a row is flagged (Anomaly is true), never reported as normal.
 	Unscorable string `json:"unscorable,omitempty"`
+	// Unseen, when set, names a category column whose level the model
+	// never saw in training: as surprising as a category can be, the row
+	// is flagged (Anomaly) whatever its score.
+	Unseen string `json:"unseen,omitempty"`
 	// Read, when set, says what reading the row's cells found: a missing
 	// cell filled in, a text where a number belongs, a level not seen in
 	// training (data.RowNote).

@@ -802,6 +802,34 @@ func (e *Encoding) MissingGroups() []MissingGroup {
 	return out
 }
 
+// Unseen names the first categorical field whose level in the raw input
+// row is one never seen in training (every level's input 0 while the
+// cell is not missing), "" when there is none.
+func (e *Encoding) Unseen(row []float32) string {
+	at := 0
+	for i := range e.Fields {
+		f := &e.Fields[i]
+		w := f.Width()
+		if f.Type == Categorical && at+w <= len(row) {
+			in := row[at : at+w]
+			if !(f.Indicator && in[w-1] >= 0.5) {
+				seen := false
+				for _, v := range in[:len(f.Levels)] {
+					if v >= 0.5 {
+						seen = true
+						break
+					}
+				}
+				if !seen {
+					return f.Name
+				}
+			}
+		}
+		at += w
+	}
+	return ""
+}
+
 // CategorySpans lists the inputs [from, to) of each categorical field's
 // levels, in input order (nil: none): where a model's reconstruction is a
 // softmax over a column's levels.

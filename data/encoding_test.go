@@ -201,6 +201,20 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	require.Len(t, d.Encoding.Fields[0].Levels, 10)
 }
 
+// Unseen names a category whose level inputs are all 0 while its cell is
+// not missing (by the definition: a level never seen in training).
+func TestUnseen(t *testing.T) {
+	e := &Encoding{Fields: []Field{
+		{Name: "n", Type: Numeric},
+		{Name: "c", Type: Categorical, Levels: []string{"a", "b"}, Indicator: true},
+		{Name: "d", Type: Categorical, Levels: []string{"x", "y"}},
+	}}
+	require.Equal(t, "", e.Unseen([]float32{1, 0, 1, 0, 1, 0}))
+	require.Equal(t, "", e.Unseen([]float32{1, 0, 0, 1, 0, 1}), "c missing")
+	require.Equal(t, "c", e.Unseen([]float32{1, 0, 0, 0, 0, 1}))
+	require.Equal(t, "d", e.Unseen([]float32{1, 1, 0, 0, 0, 0}))
+}
+
 // Decode turns inputs back into cells: ranges kept, integers rounded,
 // booleans and levels chosen, indicators read as missing (worked by
 // hand).

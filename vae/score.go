@@ -99,7 +99,8 @@ func (m *Model) Calibrate(normal []float32, rows int, c anomaly.Config) (anomaly
 
 // Score scores raw rows by their negative ELBO against the calibrated
 // threshold and names the top columns (at most top, default 3) by their
-// Contributions.
+// Contributions. A row with a category level never seen in training is
+// flagged whatever its score (Score.Unseen names the column).
 func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
 	if m.Threshold == nil {
 		return nil, fmt.Errorf("vae: model has no threshold; calibrate it first")
@@ -122,6 +123,7 @@ func (m *Model) Score(x []float32, rows, top int) ([]anomaly.Score, error) {
 		return nil, err
 	}
 	modelio.Explain(&m.Fitted, out, x, recon, m.cfg.Inputs)
+	modelio.FlagUnseen(&m.Fitted, out, x, m.cfg.Inputs)
 	return out, nil
 }
 

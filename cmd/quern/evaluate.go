@@ -153,6 +153,17 @@ func cmdEvaluate(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	// a row with a level never seen in training is flagged whatever its
+	// score (model Score): here it ranks as the most surprising
+	unseen := 0
+	if enc := l.model.Schema().Encoding; enc != nil && !enc.Plain() && enc.Width() == ds.Cols {
+		for i := range scores {
+			if enc.Unseen(x[i*ds.Cols:(i+1)*ds.Cols]) != "" {
+				scores[i] = math.MaxFloat64
+				unseen++
+			}
+		}
+	}
 	roc, pr, ap, err := anomaly.Curves(scores, positive)
 	if err != nil {
 		return err
@@ -173,6 +184,9 @@ func cmdEvaluate(e *env, args []string) error {
 	}
 	if skipped > 0 {
 		lines = append(lines, fmt.Sprintf("%d unlabelled rows left out", skipped))
+	}
+	if unseen > 0 {
+		lines = append(lines, fmt.Sprintf("%s with a category level never seen in training, counted as flagged and ranked first", plural(unseen, "row")))
 	}
 	st.end()
 	for _, line := range lines {

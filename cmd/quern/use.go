@@ -299,7 +299,7 @@ func cmdScore(e *env, args []string) error {
 	nk := len(ds.KeptColumns)
 	header = append(header, own[5:]...)
 	cw.Write(append(header, "status"))
-	flagged, unscorable, noted := 0, 0, 0
+	flagged, unscorable, noted, unseenRows := 0, 0, 0, 0
 	// cells that are not numbers, per column: a column mostly unread is
 	// said out loud, not only row by row
 	unread := map[string]int{}
@@ -348,8 +348,11 @@ func cmdScore(e *env, args []string) error {
 			if s.Unscorable != "" {
 				status = "unscorable: " + s.Unscorable
 				unscorable++
-			} else if s.Anomaly {
+			} else if s.Anomaly && !(s.Unseen != "" && s.Value <= s.Threshold) {
 				flagged++
+			}
+			if s.Unseen != "" {
+				unseenRows++
 			}
 			if note != nil {
 				status += "; read: " + note.Text
@@ -380,6 +383,9 @@ func cmdScore(e *env, args []string) error {
 	}
 	if noted > 0 {
 		line += fmt.Sprintf("; %s with cells filled in or levels not seen in training (the status column says which)", plural(noted, "row"))
+	}
+	if unseenRows > 0 {
+		line += fmt.Sprintf("; %s with a category level never seen in training, flagged whatever the score", plural(unseenRows, "row"))
 	}
 	fmt.Fprintln(e.stderr, line)
 	cols := make([]string, 0, len(unread))

@@ -128,3 +128,18 @@ func MarkMissing(s *anomaly.Score, note string) {
 		}
 	}
 }
+
+// FlagUnseen flags each scored row (raw rows x of cols inputs) that holds
+// a category level never seen in training (data.Encoding.Unseen): such a
+// row is as surprising as a category can be, whatever its score.
+func FlagUnseen(f *data.Fitted, scores []anomaly.Score, x []float32, cols int) {
+	enc := f.Encoding
+	if enc == nil || enc.Plain() || enc.Width() != cols {
+		return
+	}
+	for r := range scores {
+		if name := enc.Unseen(x[r*cols : (r+1)*cols]); name != "" {
+			scores[r].Unseen, scores[r].Anomaly = name, true
+		}
+	}
+}
