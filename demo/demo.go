@@ -113,24 +113,8 @@ func Run(ctx context.Context, cfg Config) error {
 		return err
 	}
 	trainSet.Labels, calib.Labels = nil, nil
-	phase("train")
-	m, err := ae.New(ae.Config{Inputs: 6, Hidden: []int{32, 16}, Latent: 3, Activation: layers.Tanh, Seed: cfg.Seed})
-	if err != nil {
-		return err
-	}
-	t, err := train.New(m, train.Settings{Epochs: epochs, BatchSize: 64, Optimizer: train.Optimizer{Rate: 3e-3}, Callbacks: cfg.Callbacks})
-	if err != nil {
-		return err
-	}
-	h, err := t.Run(ctx, trainSet, calib)
-	if err != nil {
-		return err
-	}
-	phase("calibrate")
-	if err := m.FitProfile(trainSet.X, trainSet.Rows); err != nil {
-		return err
-	}
-	th, err := m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01})
+	m, t, h, th, err := fitDetector(ctx, ae.Config{Inputs: 6, Hidden: []int{32, 16}, Latent: 3, Activation: layers.Tanh, Seed: cfg.Seed},
+		train.Settings{Epochs: epochs, BatchSize: 64, Optimizer: train.Optimizer{Rate: 3e-3}, Callbacks: cfg.Callbacks}, trainSet, calib, phase)
 	if err != nil {
 		return err
 	}
@@ -243,6 +227,33 @@ func Run(ctx context.Context, cfg Config) error {
 	}
 	say("Wrote %s (model), %s, and the report %s in %s.", modelPath, filepath.Join(cfg.Out, "holdout-scores.csv"), filepath.Join(rdir, "index.html"), roundDuration(time.Since(start)))
 	return nil
+}
+
+// fitDetector trains an autoencoder of c with s on the training rows,
+// stopping by the calibration rows, fits its score profile on the
+// training rows and sets its threshold for a 1% false-alarm rate on the
+// calibration rows, telling phase as it goes (train, calibrate).
+func fitDetector(ctx context.Context, c ae.Config, s train.Settings, trainSet, calib *data.Dataset, phase func(string)) (*ae.Model, *train.Trainer, *train.History, anomaly.Threshold, error) {
+	var th anomaly.Threshold
+	phase("train")
+	m, err := ae.New(c)
+	if err != nil {
+		return nil, nil, nil, th, err
+	}
+	t, err := train.New(m, s)
+	if err != nil {
+		return nil, nil, nil, th, err
+	}
+	h, err := t.Run(ctx, trainSet, calib)
+	if err != nil {
+		return nil, nil, nil, th, err
+	}
+	phase("calibrate")
+	if err := m.FitProfile(trainSet.X, trainSet.Rows); err != nil {
+		return nil, nil, nil, th, err
+	}
+	th, err = m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01})
+	return m, t, h, th, err
 }
 
 func btoi(b bool) int {

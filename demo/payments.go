@@ -63,24 +63,8 @@ func runPayments(ctx context.Context, cfg Config, say func(string, ...any), phas
 	if err != nil {
 		return err
 	}
-	phase("train")
-	m, err := ae.New(ae.Config{Inputs: history.Cols, Hidden: []int{32}, Latent: 6, Seed: cfg.Seed, Categories: history.Encoding.CategorySpans()})
-	if err != nil {
-		return err
-	}
-	t, err := train.New(m, train.Settings{Epochs: epochs, Patience: 8, BatchSize: 128, Optimizer: train.Optimizer{Rate: 3e-3}, Callbacks: cfg.Callbacks})
-	if err != nil {
-		return err
-	}
-	h, err := t.Run(ctx, trainSet, calib)
-	if err != nil {
-		return err
-	}
-	phase("calibrate")
-	if err := m.FitProfile(trainSet.X, trainSet.Rows); err != nil {
-		return err
-	}
-	th, err := m.Calibrate(calib.X, calib.Rows, anomaly.Config{FalseAlarm: 0.01})
+	m, t, h, th, err := fitDetector(ctx, ae.Config{Inputs: history.Cols, Hidden: []int{32}, Latent: 6, Seed: cfg.Seed, Categories: history.Encoding.CategorySpans()},
+		train.Settings{Epochs: epochs, Patience: 8, BatchSize: 128, Optimizer: train.Optimizer{Rate: 3e-3}, Callbacks: cfg.Callbacks}, trainSet, calib, phase)
 	if err != nil {
 		return err
 	}
