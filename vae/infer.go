@@ -325,6 +325,11 @@ func scaledZero(s *data.Scaler, j int) float64 {
 
 // sampleTable is Sample for a table likelihood t.
 func (m *Model) sampleTable(t *tableLik, n int, seed uint64) ([]float32, error) {
+	return m.sampleTableWith(t, n, seed, m.Marginals)
+}
+
+// sampleTableWith is sampleTable with the marginal maps mg (nil: none).
+func (m *Model) sampleTableWith(t *tableLik, n int, seed uint64, mg *Marginals) ([]float32, error) {
 	z := m.SampleLatent(n, seed)
 	zz := make([]float64, len(z))
 	for i, v := range z {
@@ -349,6 +354,9 @@ func (m *Model) sampleTable(t *tableLik, n int, seed uint64) ([]float32, error) 
 				if s := m.Scaler; s != nil && j < len(s.Factor) {
 					pt = pt/s.Factor[j] + s.Offset[j]
 				}
+				if mg != nil && j < len(mg.Shift) && mg.Shift[j] != 0 {
+					pt = shiftProbability(pt, mg.Shift[j])
+				}
 				if rng.Float64() < pt {
 					v = 1
 				}
@@ -360,9 +368,20 @@ func (m *Model) sampleTable(t *tableLik, n int, seed uint64) ([]float32, error) 
 				row[j] += math.Exp(0.5*t.lv[j]) * rng.NormFloat64()
 			case k == tabIndicator:
 				row[j] = scaledZero(m.Scaler, j)
+				if mg != nil && mg.Missing != nil && rng.Float64() < mg.Missing[j] {
+					row[j] = 1
+					if s := m.Scaler; s != nil && j < len(s.Factor) {
+						row[j] = (1 - s.Offset[j]) * s.Factor[j]
+					}
+				}
 			}
 		}
 		for _, s := range t.spans {
+			if mg != nil && len(mg.Shift) == d {
+				for k := s[0]; k < s[1]; k++ {
+					row[k] += mg.Shift[k]
+				}
+			}
 			mx := math.Inf(-1)
 			for k := s[0]; k < s[1]; k++ {
 				mx = math.Max(mx, row[k])
@@ -394,6 +413,9 @@ func (m *Model) sampleTable(t *tableLik, n int, seed uint64) ([]float32, error) 
 		}
 	}
 	raw := m.toRaw(out)
+	if mg != nil {
+		mg.mapNumbers(raw, d)
+	}
 	return raw, modelio.Finite(Kind, "sampled row", raw, d)
 }
 

@@ -42,6 +42,9 @@ type Model struct {
 	// columns costs a row's likelihood, in nats (see FitMissingCost and
 	// the table likelihood in table.go); nil: nothing.
 	MissingCost []float64
+	// Marginals, when fitted (FitMarginals), maps a table model's samples
+	// onto the training rows' distribution of each column; nil: none.
+	Marginals *Marginals
 
 	pool scratch.Pool[work]
 	// tab caches the table likelihood (see table) with what it was read

@@ -18,6 +18,7 @@ type meta struct {
 	Threshold *anomaly.Threshold `json:"threshold,omitempty"`
 	// MissingCost is the model's, per encoding field
 	MissingCost []float64             `json:"missing_cost,omitempty"`
+	Marginals   *Marginals            `json:"marginals,omitempty"`
 	Provenance  *modelfile.Provenance `json:"provenance,omitempty"`
 }
 
@@ -30,6 +31,12 @@ func (md *meta) Apply(v *Model, _ *modelfile.File) error {
 	v.Fitted = md.Fitted
 	v.Threshold = md.Threshold
 	v.MissingCost = md.MissingCost
+	if md.Marginals != nil {
+		if err := md.Marginals.check(v.cfg.Inputs); err != nil {
+			return err
+		}
+		v.Marginals = md.Marginals
+	}
 	if md.MissingCost != nil && (md.Encoding == nil || len(md.MissingCost) != len(md.Encoding.Fields)) {
 		return fmt.Errorf("vae: %d missing-cell costs for an encoding of %d columns", len(md.MissingCost), fieldCount(md.Encoding))
 	}
@@ -54,7 +61,7 @@ func resolve(c Config) (Config, modelio.Spec, error) {
 // File converts the model to a model file, with prov (may be nil) as its
 // provenance section.
 func (m *Model) File(prov *modelfile.Provenance) (*modelfile.File, error) {
-	f, err := modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.MissingCost, prov}, m.Params())
+	f, err := modelio.File(Kind, meta{m.cfg, m.Fitted, m.Threshold, m.MissingCost, m.Marginals, prov}, m.Params())
 	if err == nil && m.table() != nil {
 		// builds that predate the table likelihood would score its rows
 		// by a Gaussian throughout: they refuse version 2

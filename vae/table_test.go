@@ -3,11 +3,13 @@ package vae_test
 import (
 	"fmt"
 	"math"
+	"path/filepath"
 	"strings"
 	"testing"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/fidelity"
 	"github.com/quernlab/quern/internal/testenv"
 	"github.com/quernlab/quern/internal/trainenv"
 	"github.com/quernlab/quern/losses"
@@ -213,3 +215,74 @@ func TestTableSamples(t *testing.T) {
 		require.Zero(t, testing.AllocsPerRun(20, run))
 	}
 }
+
+// With its marginal maps fitted, a table VAE's samples have each column
+// distributed as in the training rows: the amount's Kolmogorov-Smirnov
+// statistic against the training amounts and the category's total
+// variation distance from the training shares below 0.05 for 4000
+// samples (the statistics of two such samples of 4000 and 900 from one
+// distribution rarely pass 0.05; common practice, no source), missing
+// amounts as often as in training (10%, within 0.02), and the maps
+// survive a model file (the same samples after).
+func TestMarginals(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("amount,kind,flag\n")
+	for i := range 900 {
+		k := []string{"a", "a", "b", "c"}[i%4]
+		amount := fmt.Sprintf("%.3f", math.Exp(float64(i%4)+math.Sin(float64(i))))
+		if i%10 == 0 {
+			amount = ""
+		}
+		fmt.Fprintf(&b, "%s,%s,%s\n", amount, k, map[bool]string{true: "yes", false: "no"}[k == "a"])
+	}
+	d, err := data.ReadCSV(strings.NewReader(b.String()), "t.csv", data.CSVConfig{Typed: true})
+	require.NoError(t, err)
+	m, err := vae.New(vae.Config{Inputs: d.Cols, Hidden: []int{16}, Latent: 2, Likelihood: vae.GaussianLearned, Categories: d.Encoding.CategorySpans(), Seed: 3})
+	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 20, BatchSize: 64, Optimizer: train.Optimizer{Rate: 3e-3}})
+	require.NoError(t, m.FitMarginals(d.X, d.Rows))
+	n := 4000
+	s, err := m.Sample(n, 11)
+	require.NoError(t, err)
+	var real, synth []float64
+	var shareReal, shareSynth [3]float64
+	for r := range d.Rows {
+		row := d.Row(r)
+		if row[1] < 0.5 {
+			real = append(real, float64(row[0]))
+		}
+		for k := range 3 {
+			shareReal[k] += float64(row[2+k]) / float64(d.Rows)
+		}
+	}
+	missing := 0
+	for r := range n {
+		row := s[r*6 : (r+1)*6]
+		if row[1] >= 0.5 {
+			missing++
+		} else {
+			synth = append(synth, float64(row[0]))
+		}
+		for k := range 3 {
+			shareSynth[k] += float64(row[2+k]) / float64(n)
+		}
+	}
+	require.Less(t, fidelityKS(real, synth), 0.05)
+	var tv float64
+	for k := range 3 {
+		tv += math.Abs(shareReal[k]-shareSynth[k]) / 2
+	}
+	require.Less(t, tv, 0.05, "%v against %v", shareSynth, shareReal)
+	require.InDelta(t, 0.1, float64(missing)/float64(n), 0.02)
+
+	path := filepath.Join(t.TempDir(), "m.qm")
+	require.NoError(t, m.Save(path, nil))
+	back, err := vae.Load(path)
+	require.NoError(t, err)
+	again, err := back.Sample(n, 11)
+	require.NoError(t, err)
+	require.Equal(t, s, again)
+}
+
+// fidelityKS is the two-sample Kolmogorov-Smirnov statistic.
+func fidelityKS(a, b []float64) float64 { return fidelity.KS(a, b) }

@@ -108,7 +108,7 @@ func writeFidelity(w io.Writer, r *fidelity.Report) {
 	if r.Synthetic.CorrelationGap >= r.Baseline.CorrelationGap {
 		notes = append(notes, "the samples keep the relations between columns no better than independent columns do")
 	}
-	if s.Closer > 0.1 || s.Copies > 0 {
+	if s.Closer > 0.1 || float64(s.Copies) > 0.01*float64(r.SyntheticRows) {
 		notes = append(notes, "samples sit nearer the training rows than real rows do: the model may be copying them")
 	}
 	if len(notes) == 0 {

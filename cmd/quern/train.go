@@ -543,6 +543,14 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 			th = &got
 		}
 	}
+	if v, ok := m.(*vae.Model); ok && v.Config().Table && trainSet != nil && trainSet.Rows >= 2 {
+		// samples with each column distributed as in the training rows
+		st.begin("marginals", func() string { return fmt.Sprintf("%d training rows", trainSet.Rows) })
+		if err := v.FitMarginals(trainSet.X, trainSet.Rows); err != nil {
+			return err
+		}
+		st.end()
+	}
 	st.begin("write", nil)
 	f, err := t.File(prov)
 	if err == nil {
