@@ -37,8 +37,8 @@ type Marginals struct {
 // model's own distributions, and MarginalQuantiles how many quantiles of
 // each number it keeps.
 const (
-	MarginalSamples   = 20000
-	MarginalQuantiles = 201
+	MarginalSamples   = 50000
+	MarginalQuantiles = 1001
 )
 
 // marginalRounds is how many times FitMarginals draws and shifts the
