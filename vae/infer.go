@@ -325,11 +325,13 @@ func scaledZero(s *data.Scaler, j int) float64 {
 
 // sampleTable is Sample for a table likelihood t.
 func (m *Model) sampleTable(t *tableLik, n int, seed uint64) ([]float32, error) {
-	return m.sampleTableWith(t, n, seed, m.Marginals)
+	return m.sampleTableWith(t, n, seed, m.Marginals, false)
 }
 
-// sampleTableWith is sampleTable with the marginal maps mg (nil: none).
-func (m *Model) sampleTableWith(t *tableLik, n int, seed uint64, mg *Marginals) ([]float32, error) {
+// sampleTableWith is sampleTable with the marginal maps mg (nil: none);
+// with probs, a category's levels and a boolean hold their probabilities
+// instead of a draw (for FitMarginals' shares, without the draws' noise).
+func (m *Model) sampleTableWith(t *tableLik, n int, seed uint64, mg *Marginals, probs bool) ([]float32, error) {
 	z := m.SampleLatent(n, seed)
 	zz := make([]float64, len(z))
 	for i, v := range z {
@@ -359,6 +361,9 @@ func (m *Model) sampleTableWith(t *tableLik, n int, seed uint64, mg *Marginals) 
 				}
 				if rng.Float64() < pt {
 					v = 1
+				}
+				if probs {
+					v = pt
 				}
 				if s := m.Scaler; s != nil && j < len(s.Factor) {
 					v = (v - s.Offset[j]) * s.Factor[j]
@@ -404,6 +409,9 @@ func (m *Model) sampleTableWith(t *tableLik, n int, seed uint64, mg *Marginals) 
 				v := 0.0
 				if k == level {
 					v = 1
+				}
+				if probs {
+					v = p[k] / zsum
 				}
 				if m.Scaler != nil && k < len(m.Scaler.Factor) {
 					v = (v - m.Scaler.Offset[k]) * m.Scaler.Factor[k]

@@ -128,7 +128,8 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		g.Missing[j] /= float64(rows)
 	}
 	for round := 0; round < marginalRounds; round++ {
-		s, err := m.sampleTableWith(t, MarginalSamples, 0x3a9, g)
+		// the shares from the levels' probabilities, not from draws
+		s, err := m.sampleTableWith(t, MarginalSamples, 0x3a9, g, true)
 		if err != nil {
 			return err
 		}
@@ -138,9 +139,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 			}
 			var got float64
 			for r := 0; r < MarginalSamples; r++ {
-				if s[r*d+j] >= 0.5 {
-					got++
-				}
+				got += float64(s[r*d+j])
 			}
 			p := clampShare(want[j]/count[j], count[j])
 			q := clampShare(got/MarginalSamples, MarginalSamples)
@@ -152,7 +151,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		}
 	}
 	// numbers: the model's quantiles under the shifts, the training rows'
-	s, err := m.sampleTableWith(t, MarginalSamples, 0x3a9, g)
+	s, err := m.sampleTableWith(t, MarginalSamples, 0x3a9, g, false)
 	if err != nil {
 		return err
 	}
