@@ -154,6 +154,16 @@ func gaussElemsShared[N Node](g Graph[N], x, mean, logvar N) N {
 	return g.Scale(g.Add(g.Shift(g.Mul(sq, g.Exp(g.Neg(s))), Log2Pi), s), 0.5)
 }
 
+// GraphBernoulliNLLMasked is the binary cross-entropy of targets y under
+// logits x, softplus(x) - x y, over the elements where mask is 1, summed
+// over each row's columns and averaged over rows (a table's booleans; the
+// unmasked form is GraphBernoulliNLL).
+func GraphBernoulliNLLMasked[N Node](g Graph[N], x, y, mask N) N {
+	same(g, "BernoulliNLLMasked", x, y)
+	same(g, "BernoulliNLLMasked", x, mask)
+	return g.Scale(g.Sum(g.Mul(mask, g.Sub(g.Softplus(x), g.Mul(x, y)))), 1/float64(x.Rows()))
+}
+
 // GraphGaussianNLLMasked is a Gaussian negative log-likelihood over the
 // elements where mask is 1 (0 elsewhere: a missing cell, a column of
 // another likelihood), summed over each row's columns and averaged over

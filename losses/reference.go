@@ -99,6 +99,24 @@ func GaussianNLL(x, mu, logvar []float64) (float64, error) {
 	return s / float64(len(x)), nil
 }
 
+// BernoulliNLLMasked is the sum of mask * BCEWithLogitsElem(x, y) over
+// all elements divided by rows.
+func BernoulliNLLMasked(x, y, mask []float64, rows int) (float64, error) {
+	for _, o := range [][]float64{y, mask} {
+		if err := sameLen("BernoulliNLLMasked", len(x), len(o)); err != nil {
+			return 0, err
+		}
+	}
+	if rows <= 0 || len(x)%rows != 0 {
+		return 0, fmt.Errorf("%w: BernoulliNLLMasked: %d values are not %d rows", ErrShape, len(x), rows)
+	}
+	var s float64
+	for i, xi := range x {
+		s += mask[i] * BCEWithLogitsElem(xi, y[i])
+	}
+	return s / float64(rows), nil
+}
+
 // GaussianNLLMasked is the sum of mask * GaussianNLLElem(x, mu, logvar)
 // over all elements divided by rows: the negative log-likelihood of the
 // elements where mask is 1, summed over a row's columns, averaged over

@@ -31,8 +31,12 @@ type vaeRecipe struct {
 	// inCat marks the categories' levels and the missing-cell
 	// indicators: inputs the Gaussian leaves out
 	inCat []bool
-	// isLevel marks the categories' levels
+	// isLevel marks the categories' levels and the booleans (the inputs
+	// the cat input holds 0/1 targets for), isBool the booleans, whose
+	// Bernoulli terms boolMask says where to take
 	isLevel               []bool
+	isBool                []bool
+	boolMask              *engine.Input
 	trainPhase, evalPhase *engine.Phase
 	step                  *move
 	metric                []Metric
@@ -98,10 +102,19 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		}
 	}
 	if r.trainPhase == nil {
+		hasBool := false
 		if r.c.Table {
 			r.missing = missingRules(r.m.Encoding, r.m.Scaler, r.c.Inputs)
+			if enc := r.m.Encoding; enc != nil && enc.Width() == r.c.Inputs {
+				r.isBool = make([]bool, r.c.Inputs)
+				for j, f := range enc.Owners() {
+					if enc.Fields[f].Type == data.Boolean && !enc.Indicators()[j] {
+						r.isBool[j], hasBool = true, true
+					}
+				}
+			}
 		}
-		if len(r.c.Categories) > 0 || len(r.missing) > 0 {
+		if len(r.c.Categories) > 0 || len(r.missing) > 0 || hasBool {
 			r.mask = engine.NewInput("mask")
 			r.inCat = make([]bool, r.c.Inputs)
 			for _, sp := range r.c.Categories {
@@ -112,16 +125,25 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 			for _, m := range r.missing {
 				r.inCat[m.indicator] = true
 			}
+			for j, b := range r.isBool {
+				r.inCat[j] = r.inCat[j] || b
+			}
 		}
-		if len(r.c.Categories) > 0 {
+		if len(r.c.Categories) > 0 || hasBool {
 			r.isLevel = make([]bool, r.c.Inputs)
 			for _, sp := range r.c.Categories {
 				for j := sp[0]; j < sp[1]; j++ {
 					r.isLevel[j] = true
 				}
 			}
+			for j, b := range r.isBool {
+				r.isLevel[j] = r.isLevel[j] || b
+			}
 			r.cat = engine.NewInput("categories")
 			r.catHalf = scaledHalf(r.m.Scaler, r.c.Inputs)
+		}
+		if hasBool {
+			r.boolMask = engine.NewInput("booleans")
 		}
 		r.trainPhase = engine.NewPhase(r.c.Precision, true, r.build(true))
 		r.evalPhase = engine.NewPhase(r.c.Precision, false, r.build(false))
@@ -145,8 +167,16 @@ func (r *vaeRecipe) reconstruction(g *engine.Graph, out, x *engine.Node) *engine
 			lv, variance = out, r.c.OutputVariance
 		}
 		nll := losses.GraphGaussianNLLMasked(g, x, out, lv, g.Input(r.mask, n, r.c.Inputs), variance)
+		var cat *engine.Node
 		if r.cat != nil {
-			nll = g.Add(nll, losses.GraphGroupedSoftmaxCE(g, out, g.Input(r.cat, n, r.c.Inputs), r.c.Categories))
+			cat = g.Input(r.cat, n, r.c.Inputs)
+		}
+		if len(r.c.Categories) > 0 {
+			nll = g.Add(nll, losses.GraphGroupedSoftmaxCE(g, out, cat, r.c.Categories))
+		}
+		if r.boolMask != nil {
+			// a boolean's Bernoulli: the decoder's output its log-odds
+			nll = g.Add(nll, losses.GraphBernoulliNLLMasked(g, out, cat, g.Input(r.boolMask, n, r.c.Inputs)))
 		}
 		return nll
 	}
@@ -201,18 +231,30 @@ func (r *vaeRecipe) fill(p *engine.Program, x []float32, rng *rand.Rand, beta fl
 				return 0
 			})
 		}
-		setInput(p, r.mask, func(i int) float64 {
-			row, j := i/d, i%d
-			if r.inCat[j] {
-				return 0
-			}
+		missingAt := func(row, j int) bool {
 			for _, m := range r.missing {
 				if j >= m.from && j < m.to && x[row*d+m.indicator] > m.above {
-					return 0
+					return true
 				}
+			}
+			return false
+		}
+		setInput(p, r.mask, func(i int) float64 {
+			row, j := i/d, i%d
+			if r.inCat[j] || missingAt(row, j) {
+				return 0
 			}
 			return 1
 		})
+		if r.boolMask != nil && p.Has(r.boolMask) {
+			setInput(p, r.boolMask, func(i int) float64 {
+				row, j := i/d, i%d
+				if r.isBool[j] && !missingAt(row, j) {
+					return 1
+				}
+				return 0
+			})
+		}
 	}
 	if r.c.Precision == layers.Float64 {
 		x64 := p.F64(r.x)

@@ -212,10 +212,26 @@ func (m *Model) decodeMean(w *work, z []float64, rows int) ([]float64, error) {
 }
 
 // categoryMeans replaces each category's logits in decoded rows (scaled
-// space) by its levels' probabilities, scaled like the inputs.
+// space) by its levels' probabilities and a table model's booleans'
+// log-odds by their probabilities, scaled like the inputs.
 func categoryMeans[T float32 | float64](m *Model, out []T) {
 	cats, d := m.cfg.Categories, m.cfg.Inputs
 	s := m.Scaler
+	if t := m.table(); t != nil {
+		// a boolean's log-odds: its probability, scaled
+		for j, k := range t.kind {
+			if k != tabBool {
+				continue
+			}
+			for r := 0; r+d <= len(out); r += d {
+				p := 1 / (1 + math.Exp(-float64(out[r+j])))
+				if s != nil && j < len(s.Factor) {
+					p = (p - s.Offset[j]) * s.Factor[j]
+				}
+				out[r+j] = T(p)
+			}
+		}
+	}
 	if t := m.table(); t != nil && t.ind != nil {
 		// a table likelihood leaves the indicators out: their outputs
 		// are untrained, and a decoded row has no missing cell
@@ -350,15 +366,13 @@ func (m *Model) sampleTableWith(t *tableLik, n int, seed uint64, mg *Marginals, 
 		row := out[r*d : (r+1)*d]
 		for j, k := range t.kind {
 			switch {
-			case k == tabGauss && t.boolean != nil && t.boolean[j]:
-				// a boolean: true with its decoded mean's probability
-				pt, v := row[j], 0.0
-				if s := m.Scaler; s != nil && j < len(s.Factor) {
-					pt = pt/s.Factor[j] + s.Offset[j]
+			case k == tabBool:
+				// a boolean: true with the probability its log-odds give
+				l := row[j]
+				if mg != nil && j < len(mg.Shift) {
+					l += mg.Shift[j]
 				}
-				if mg != nil && j < len(mg.Shift) && mg.Shift[j] != 0 {
-					pt = shiftProbability(pt, mg.Shift[j])
-				}
+				pt, v := 1/(1+math.Exp(-l)), 0.0
 				if rng.Float64() < pt {
 					v = 1
 				}

@@ -103,7 +103,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 	count := make([]float64, d)
 	for r := 0; r < rows; r++ {
 		for j, k := range t.kind {
-			if missing(r, j) || (k != tabLevel && (t.boolean == nil || !t.boolean[j])) {
+			if missing(r, j) || (k != tabLevel && k != tabBool) {
 				continue
 			}
 			count[j]++
@@ -112,7 +112,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 			}
 		}
 	}
-	isBool := func(j int) bool { return t.boolean != nil && t.boolean[j] }
+	isBool := func(j int) bool { return t.kind[j] == tabBool }
 	for j, k := range t.kind {
 		if k != tabIndicator {
 			continue
@@ -156,7 +156,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		return err
 	}
 	for j, k := range t.kind {
-		if k != tabGauss || isBool(j) {
+		if k != tabGauss {
 			continue
 		}
 		var tr, mo []float64
@@ -236,11 +236,4 @@ func mapQuantile(v float64, a, b []float64) float64 {
 		f = (v - lo) / (hi - lo)
 	}
 	return b[k-1] + f*(b[k]-b[k-1])
-}
-
-// shiftProbability adds shift to p's log-odds.
-func shiftProbability(p, shift float64) float64 {
-	p = math.Min(math.Max(p, 1e-12), 1-1e-12)
-	l := math.Log(p/(1-p)) + shift
-	return 1 / (1 + math.Exp(-l))
 }

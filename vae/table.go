@@ -18,6 +18,7 @@ import (
 //     the softmax of the decoder's outputs there (a level never seen in
 //     training gets the least probable level's: as surprising as the
 //     model allows for that column);
+//   - a boolean: Bernoulli, the decoder's output its log-odds;
 //   - every other input but the missing-cell indicators: the Gaussian
 //     of the model's likelihood, with the scaler's Jacobian for raw
 //     units;
@@ -37,6 +38,7 @@ const (
 	tabGauss = iota
 	tabLevel
 	tabIndicator
+	tabBool
 )
 
 // tableLik is a model's table likelihood, read from its configuration,
@@ -53,7 +55,6 @@ type tableLik struct {
 	lv        []float64 // each input's Gaussian log-variance
 	logFactor []float64 // log |scale factor| of each input
 	cost      []float64 // each field's MissingCost (0 when none)
-	boolean   []bool    // inputs of boolean fields
 }
 
 // tableCache is a built table likelihood and what it was read from.
@@ -137,12 +138,21 @@ func (m *Model) buildTable() *tableLik {
 		}
 		t.cost = make([]float64, len(enc.Fields))
 		copy(t.cost, m.MissingCost)
-		t.boolean = make([]bool, d)
 		for j, f := range t.field {
-			t.boolean[j] = t.kind[j] == tabGauss && enc.Fields[f].Type == data.Boolean
+			if t.kind[j] == tabGauss && enc.Fields[f].Type == data.Boolean {
+				t.kind[j] = tabBool
+			}
 		}
 	}
 	return t
+}
+
+// bit is a boolean input's value, 0 or 1, in the scaled row xs.
+func bit[T float32 | float64](t *tableLik, xs []T, j int) float64 {
+	if float64(xs[j]) > t.half[j] {
+		return 1
+	}
+	return 0
 }
 
 // missing reports whether field f's cell is missing in the scaled row xs.
@@ -160,14 +170,20 @@ func missing[T float32 | float64](t *tableLik, xs []T, f int) bool {
 func rowLogLik[T float32 | float64](t *tableLik, xs, o []T, fieldLL []float64) float64 {
 	var ll float64
 	for j, k := range t.kind {
-		if k != tabGauss {
+		if k != tabGauss && k != tabBool {
 			continue
 		}
 		f := t.field[j]
 		if missing(t, xs, f) {
 			continue
 		}
-		term := t.logFactor[j] - losses.GaussianNLLElem(float64(xs[j]), float64(o[j]), t.lv[j])
+		var term float64
+		if k == tabBool {
+			// a boolean: Bernoulli, the decoder's output its log-odds
+			term = -losses.BCEWithLogitsElem(float64(o[j]), bit(t, xs, j))
+		} else {
+			term = t.logFactor[j] - losses.GaussianNLLElem(float64(xs[j]), float64(o[j]), t.lv[j])
+		}
 		ll += term
 		if fieldLL != nil && f >= 0 {
 			fieldLL[f] += term
@@ -288,7 +304,11 @@ func (m *Model) missingCost(x []float32, rows int) ([]float64, error) {
 // Contributions) into c.
 func tableContributions(t *tableLik, xs, o, c []float64) {
 	for j, k := range t.kind {
-		if k != tabGauss || missing(t, xs, t.field[j]) {
+		if (k != tabGauss && k != tabBool) || missing(t, xs, t.field[j]) {
+			continue
+		}
+		if k == tabBool {
+			c[j] = losses.BCEWithLogitsElem(o[j], bit(t, xs, j))
 			continue
 		}
 		e := xs[j] - o[j]

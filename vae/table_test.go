@@ -286,3 +286,25 @@ func TestMarginals(t *testing.T) {
 
 // fidelityKS is the two-sample Kolmogorov-Smirnov statistic.
 func fidelityKS(a, b []float64) float64 { return fidelity.KS(a, b) }
+
+// A boolean in a table's likelihood is Bernoulli, the decoder's output its
+// log-odds: log p = -BCEWithLogits(o, bit), by definition.
+func TestTableBooleanIsBernoulli(t *testing.T) {
+	d, err := data.ReadCSV(strings.NewReader("x,b\n1.5,yes\n2.5,no\n3,yes\n"), "b.csv", data.CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, data.Boolean, d.Encoding.Fields[1].Type)
+	m, err := vae.New(vae.Config{Inputs: 2, Latent: 1, Likelihood: vae.GaussianLearned, Table: true, Seed: 1})
+	require.NoError(t, err)
+	m.Encoding = d.Encoding
+	m.Scaler = &data.Scaler{Kind: data.ScaleStandard, Offset: []float64{2, 0.6}, Factor: []float64{2, 1.5}}
+	copy(m.LogVar.F32(), []float32{-0.5, 0.3})
+	o := []float64{0.2, 1.3}
+	for _, raw := range [][2]float64{{2.5, 1}, {1.5, 0}} {
+		xs := []float64{(raw[0] - 2) * 2, (raw[1] - 0.6) * 1.5}
+		want := math.Log(2) - losses.GaussianNLLElem(xs[0], o[0], -0.5) - losses.BCEWithLogitsElem(o[1], raw[1])
+		require.InDelta(t, want, m.RowLogLik(xs, o), 1e-6)
+	}
+	rec, err := m.Decode([]float32{0.3}, 1)
+	require.NoError(t, err)
+	require.True(t, rec[1] > 0 && rec[1] < 1, "a boolean decodes to its probability, %v", rec[1])
+}
