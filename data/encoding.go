@@ -384,6 +384,18 @@ func NoteColumns(note string) (missing, notNumber []string, text []string) {
 	return missing, notNumber, text
 }
 
+// NoteUnseen names the first column a row's note says holds a level not
+// seen in training, "" when none.
+func NoteUnseen(note string) string {
+	for _, part := range strings.Split(note, "; ") {
+		name, rest, ok := strings.Cut(part, ": ")
+		if ok && strings.HasPrefix(rest, "level ") && strings.Contains(rest, " not seen in training") {
+			return name
+		}
+	}
+	return ""
+}
+
 // number reads a number, integer or boolean cell; false when it is none.
 func (r *cellReader) number(f *Field, s string) (float32, bool) {
 	if f.Type == Boolean {
@@ -802,17 +814,20 @@ func (e *Encoding) MissingGroups() []MissingGroup {
 	return out
 }
 
-// Unseen names the first categorical field whose level in the raw input
-// row is one never seen in training (every level's input 0 while the
-// cell is not missing), "" when there is none.
+// Unseen names the first categorical field with a missing-cell
+// indicator whose level in the raw input row is one never seen in
+// training (every level's input 0 while the indicator says the cell is
+// not missing), "" when there is none. Without an indicator a missing
+// cell and an unseen level look alike in the inputs: the reading's note
+// tells them apart (NoteUnseen).
 func (e *Encoding) Unseen(row []float32) string {
 	at := 0
 	for i := range e.Fields {
 		f := &e.Fields[i]
 		w := f.Width()
-		if f.Type == Categorical && at+w <= len(row) {
+		if f.Type == Categorical && f.Indicator && at+w <= len(row) {
 			in := row[at : at+w]
-			if !(f.Indicator && in[w-1] >= 0.5) {
+			if in[w-1] < 0.5 {
 				seen := false
 				for _, v := range in[:len(f.Levels)] {
 					if v >= 0.5 {

@@ -201,8 +201,9 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	require.Len(t, d.Encoding.Fields[0].Levels, 10)
 }
 
-// Unseen names a category whose level inputs are all 0 while its cell is
-// not missing (by the definition: a level never seen in training).
+// Unseen names a category whose level inputs are all 0 while its
+// indicator says the cell is not missing (by the definition: a level
+// never seen in training); without an indicator the note says which.
 func TestUnseen(t *testing.T) {
 	e := &Encoding{Fields: []Field{
 		{Name: "n", Type: Numeric},
@@ -212,7 +213,11 @@ func TestUnseen(t *testing.T) {
 	require.Equal(t, "", e.Unseen([]float32{1, 0, 1, 0, 1, 0}))
 	require.Equal(t, "", e.Unseen([]float32{1, 0, 0, 1, 0, 1}), "c missing")
 	require.Equal(t, "c", e.Unseen([]float32{1, 0, 0, 0, 0, 1}))
-	require.Equal(t, "d", e.Unseen([]float32{1, 1, 0, 0, 0, 0}))
+	// without an indicator an empty level is missing or unseen: the
+	// inputs cannot tell, the note can
+	require.Equal(t, "", e.Unseen([]float32{1, 1, 0, 0, 0, 0}))
+	require.Equal(t, "d", NoteUnseen(`n: missing, filled with 2; d: level "z" not seen in training`))
+	require.Equal(t, "", NoteUnseen("d: missing"))
 }
 
 // Decode turns inputs back into cells: ranges kept, integers rounded,

@@ -24,11 +24,13 @@ var timeLayouts = []string{time.RFC3339Nano, "2006-01-02T15:04:05", "2006-01-02 
 	"2.1.2006", "2.1.2006 15:04", "2.1.2006 15:04:05"}
 
 // notAFeature says why a column whose type is inferred is not one of a
-// model's features ("" when it is one), for a column of texts only (a
-// column of numbers with a stray text is decide's to refuse): texts that
-// are all dates or times (times set), more distinct texts than half the
-// cells over minIdentifierRows or more cells (an identifier), more
-// distinct texts than maxLevels.
+// model's features ("" when it is one): a column of whole numbers that
+// holds each number from its least to its greatest once (a row number);
+// and, for a column of texts only (a column of numbers with a stray text
+// is decide's), texts that are all dates or times (times set), numbers
+// written with a decimal comma (times set: no -types advice), more
+// distinct texts than half the cells over minIdentifierRows or more cells
+// (an identifier), more distinct texts than maxLevels.
 func (c *columnSurvey) notAFeature(maxLevels int) (why string, times bool) {
 	observed := c.cells - c.missing
 	if c.numbers == observed && c.integral && observed >= minIdentifierRows && c.max-c.min+1 == float64(observed) &&

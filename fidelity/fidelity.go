@@ -35,8 +35,9 @@ type Nearest struct {
 	// the held-out rows' 5% quantile: about 0.05 for rows drawn like real
 	// ones, near 1 for copies.
 	Closer float64
-	// Copies counts synthetic rows that equal a training row.
-	Copies int
+	// Copies counts the measured synthetic rows that equal a training
+	// row, of Measured (at most MaxNearest, an even sample of them).
+	Copies, Measured int
 }
 
 // Fit is the figures of one set of rows against the held-out rows.
@@ -245,6 +246,7 @@ func (v *view) fit(real, syn *table, nn *nearest, realDist []float64, rng *rand.
 		}
 	}
 	fit.Nearest.Median, fit.Nearest.Holdout = quantile(d, 0.5), quantile(realDist, 0.5)
+	fit.Nearest.Measured = len(d)
 	fit.Nearest.Closer = float64(closer) / float64(len(d))
 	return fit
 }

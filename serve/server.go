@@ -560,6 +560,9 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request) {
 			case rd.text != "":
 				res[i].Read = rd.text
 				modelio.MarkMissing(&res[i], rd.text)
+				if name := data.NoteUnseen(rd.text); name != "" && res[i].Unseen == "" {
+					res[i].Unseen, res[i].Anomaly = name, true
+				}
 			}
 		}
 		flagged := 0

@@ -105,7 +105,7 @@ func (r *vaeRecipe) prepare(trainSet, valSet *data.Dataset) (*data.Dataset, *dat
 		hasBool := false
 		if r.c.Table {
 			r.missing = missingRules(r.m.Encoding, r.m.Scaler, r.c.Inputs)
-			if enc := r.m.Encoding; enc != nil && enc.Width() == r.c.Inputs {
+			if enc := r.m.Encoding; enc != nil && enc.Width() == r.c.Inputs && r.c.Booleans == vae.Bernoulli {
 				r.isBool = make([]bool, r.c.Inputs)
 				for j, f := range enc.Owners() {
 					if enc.Fields[f].Type == data.Boolean && !enc.Indicators()[j] {

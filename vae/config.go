@@ -56,6 +56,11 @@ type Config struct {
 	// likelihood; Categories set it. Default false: every input scored by
 	// Likelihood, as models written before it existed are.
 	Table bool `json:",omitempty"`
+	// Booleans is a table likelihood's model of a boolean column:
+	// Bernoulli (the default with Table: the decoder's output its
+	// log-odds) or Gaussian (like a number, as table models written before
+	// booleans were Bernoulli did; their files read so).
+	Booleans Likelihood `json:",omitempty"`
 	// Categories lists the inputs [from, to) that one-hot encode a
 	// categorical column, each two or more wide and disjoint (a table
 	// read by type: data.Encoding.CategorySpans); they need a Gaussian
@@ -103,6 +108,9 @@ func (c Config) withDefaults() Config {
 	if len(c.Categories) > 0 {
 		c.Table = true
 	}
+	if c.Table && c.Booleans == "" {
+		c.Booleans = Bernoulli
+	}
 	if c.Init == layers.InitAuto {
 		c.Init = layers.FanInUniform
 	}
@@ -137,6 +145,9 @@ func (c Config) Validate() error {
 	case Bernoulli, Gaussian, GaussianLearned, GaussianShared:
 	default:
 		return bad("unknown likelihood %q", c.Likelihood)
+	}
+	if c.Booleans != "" && c.Booleans != Bernoulli && c.Booleans != Gaussian {
+		return bad("booleans %q: want bernoulli or gaussian", c.Booleans)
 	}
 	if c.Table && c.Likelihood == Bernoulli {
 		return bad("a table's likelihood (categories, missing cells) needs a Gaussian likelihood for the numbers, not bernoulli")
@@ -205,8 +216,15 @@ func (c *Config) UnmarshalJSON(b []byte) error {
 	}
 	// encoding/json matches keys without regard to case, and so must
 	// this test of whether the key is there
-	if !slices.ContainsFunc(slices.Collect(maps.Keys(keys)), func(k string) bool { return strings.EqualFold(k, "Init") }) {
+	has := func(name string) bool {
+		return slices.ContainsFunc(slices.Collect(maps.Keys(keys)), func(k string) bool { return strings.EqualFold(k, name) })
+	}
+	if !has("Init") {
 		p.Init = layers.HeGlorot
+	}
+	if p.Table && !has("Booleans") {
+		// a table model from before booleans were Bernoulli
+		p.Booleans = Gaussian
 	}
 	*c = Config(p)
 	return nil

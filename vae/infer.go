@@ -319,8 +319,11 @@ func (m *Model) SampleLatent(n int, seed uint64) []float32 {
 // Sample draws n rows from the model: z from the prior, then the decoder's
 // mean, in raw units; for a model with a table likelihood (see table.go),
 // a row drawn from the likelihood given z instead: a level of each
-// category from its softmax, each number its mean plus the likelihood's
-// noise, no missing cell. The same seed gives the same samples.
+// category from its softmax, a boolean true with its probability, each
+// number its mean plus the likelihood's noise, no missing cell; with
+// Marginals, the levels' and booleans' log-odds shifted, each number
+// mapped onto the training rows' quantiles and cells missing at the
+// training rows' rates. The same seed gives the same samples.
 func (m *Model) Sample(n int, seed uint64) ([]float32, error) {
 	if n < 0 {
 		return nil, fmt.Errorf("vae: sample count %d", n)

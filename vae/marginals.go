@@ -41,6 +41,10 @@ const (
 	MarginalQuantiles = 1001
 )
 
+// marginalSeed seeds FitMarginals' draws (one block of rows after
+// another from marginalSeed, marginalSeed+1, ...).
+const marginalSeed uint64 = 0x3a9
+
 // marginalRounds is how many times FitMarginals draws and shifts the
 // categories' logits (the shares move with each shift's effect through
 // the softmax).
@@ -49,7 +53,7 @@ const marginalRounds = 10
 // check reports a Marginals that does not fit inputs wide rows.
 func (g *Marginals) check(inputs int) error {
 	if len(g.Model) != inputs || len(g.Train) != inputs || len(g.Shift) != inputs || (g.Missing != nil && len(g.Missing) != inputs) {
-		return fmt.Errorf("vae: marginal maps for %d, %d and %d inputs, want %d", len(g.Model), len(g.Train), len(g.Shift), inputs)
+		return fmt.Errorf("vae: marginal maps for %d, %d, %d and %d inputs, want %d", len(g.Model), len(g.Train), len(g.Shift), len(g.Missing), inputs)
 	}
 	for j := range g.Model {
 		a, b := g.Model[j], g.Train[j]
@@ -127,9 +131,33 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		}
 		g.Missing[j] /= float64(rows)
 	}
+	// the samples are drawn a block of rows at a time (memory bounded by
+	// the block, whatever MarginalSamples), each block from its own seed
+	block := max(16, min(2048, (1<<20)/d))
+	forSamples := func(probs bool, fn func(s []float32, n int)) error {
+		for b, lo := 0, 0; lo < MarginalSamples; b, lo = b+1, lo+block {
+			n := min(block, MarginalSamples-lo)
+			s, err := m.sampleTableWith(t, n, marginalSeed+uint64(b), g, probs)
+			if err != nil {
+				return err
+			}
+			fn(s, n)
+		}
+		return nil
+	}
+	got := make([]float64, d)
 	for round := 0; round < marginalRounds; round++ {
 		// the shares from the levels' probabilities, not from draws
-		s, err := m.sampleTableWith(t, MarginalSamples, 0x3a9, g, true)
+		clear(got)
+		err := forSamples(true, func(s []float32, n int) {
+			for r := 0; r < n; r++ {
+				for j, k := range t.kind {
+					if k == tabLevel || k == tabBool {
+						got[j] += float64(s[r*d+j])
+					}
+				}
+			}
+		})
 		if err != nil {
 			return err
 		}
@@ -137,12 +165,8 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 			if count[j] == 0 || (k != tabLevel && !isBool(j)) {
 				continue
 			}
-			var got float64
-			for r := 0; r < MarginalSamples; r++ {
-				got += float64(s[r*d+j])
-			}
 			p := clampShare(want[j]/count[j], count[j])
-			q := clampShare(got/MarginalSamples, MarginalSamples)
+			q := clampShare(got[j]/MarginalSamples, MarginalSamples)
 			if k == tabLevel {
 				g.Shift[j] += math.Log(p / q)
 			} else {
@@ -151,7 +175,17 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		}
 	}
 	// numbers: the model's quantiles under the shifts, the training rows'
-	s, err := m.sampleTableWith(t, MarginalSamples, 0x3a9, g, false)
+	mo := make([][]float64, d)
+	err := forSamples(false, func(s []float32, n int) {
+		for j, k := range t.kind {
+			if k != tabGauss {
+				continue
+			}
+			for r := 0; r < n; r++ {
+				mo[j] = append(mo[j], float64(s[r*d+j]))
+			}
+		}
+	})
 	if err != nil {
 		return err
 	}
@@ -159,7 +193,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		if k != tabGauss {
 			continue
 		}
-		var tr, mo []float64
+		var tr []float64
 		for r := 0; r < rows; r++ {
 			if !missing(r, j) {
 				tr = append(tr, float64(x[r*d+j]))
@@ -168,10 +202,7 @@ func (m *Model) FitMarginals(x []float32, rows int) error {
 		if len(tr) < 2 {
 			continue
 		}
-		for r := 0; r < MarginalSamples; r++ {
-			mo = append(mo, float64(s[r*d+j]))
-		}
-		g.Model[j], g.Train[j] = quantiles(mo), quantiles(tr)
+		g.Model[j], g.Train[j] = quantiles(mo[j]), quantiles(tr)
 	}
 	if err := g.check(d); err != nil {
 		return err
@@ -222,6 +253,9 @@ func (g *Marginals) mapNumbers(raw []float32, d int) {
 // mapQuantile sends v from the distribution with quantiles a to the one
 // with quantiles b (same probabilities).
 func mapQuantile(v float64, a, b []float64) float64 {
+	if !finiteNum(v) {
+		return v // not a number the map can place: said by the caller's check
+	}
 	n := len(a)
 	if v <= a[0] {
 		return b[0]

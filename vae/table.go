@@ -139,7 +139,7 @@ func (m *Model) buildTable() *tableLik {
 		t.cost = make([]float64, len(enc.Fields))
 		copy(t.cost, m.MissingCost)
 		for j, f := range t.field {
-			if t.kind[j] == tabGauss && enc.Fields[f].Type == data.Boolean {
+			if t.kind[j] == tabGauss && enc.Fields[f].Type == data.Boolean && m.cfg.Booleans == Bernoulli {
 				t.kind[j] = tabBool
 			}
 		}

@@ -12,6 +12,7 @@ import (
 	"github.com/quernlab/quern/fidelity"
 	"github.com/quernlab/quern/internal/testenv"
 	"github.com/quernlab/quern/internal/trainenv"
+	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/losses"
 	"github.com/quernlab/quern/train"
 	"github.com/quernlab/quern/vae"
@@ -274,6 +275,28 @@ func TestMarginals(t *testing.T) {
 	}
 	require.Less(t, tv, 0.05, "%v against %v", shareSynth, shareReal)
 	require.InDelta(t, 0.1, float64(missing)/float64(n), 0.02)
+	// the shifts are what matches the shares: without them, the level
+	// and boolean shares drift (the tolerance is the binomial noise of
+	// 4000 draws, about 4 standard deviations)
+	flags := 0.0
+	for r := range n {
+		flags += float64(s[r*6+5]) / float64(n)
+	}
+	require.InDelta(t, 0.5, flags, 0.035, "the boolean's share")
+	shifts := m.Marginals.Shift
+	m.Marginals.Shift = make([]float64, len(shifts))
+	unshifted, err := m.Sample(n, 11)
+	require.NoError(t, err)
+	m.Marginals.Shift = shifts
+	var drift float64
+	for k := range 3 {
+		var share float64
+		for r := range n {
+			share += float64(unshifted[r*6+2+k]) / float64(n)
+		}
+		drift += math.Abs(share-shareReal[k]) / 2
+	}
+	require.Greater(t, drift, tv, "the shifts bring the shares closer (%v unshifted against %v)", drift, tv)
 
 	path := filepath.Join(t.TempDir(), "m.qm")
 	require.NoError(t, m.Save(path, nil))
@@ -306,5 +329,7 @@ func TestTableBooleanIsBernoulli(t *testing.T) {
 	}
 	rec, err := m.Decode([]float32{0.3}, 1)
 	require.NoError(t, err)
-	require.True(t, rec[1] > 0 && rec[1] < 1, "a boolean decodes to its probability, %v", rec[1])
+	out, err := layers.Run(m.Decoder, []float32{0.3}, 1, &layers.Workspace{}, nil)
+	require.NoError(t, err)
+	require.InDelta(t, 1/(1+math.Exp(-float64(out[1]))), float64(rec[1]), 1e-6, "a boolean decodes to its probability")
 }

@@ -264,4 +264,16 @@ func TestConfigInitKey(t *testing.T) {
 		require.NoError(t, json.Unmarshal([]byte(c.json), &cfg), c.json)
 		require.Equal(t, c.want, cfg.Init, c.json)
 	}
+	// a table model's file from before booleans were Bernoulli reads as
+	// Gaussian booleans; one written now says Bernoulli
+	var old vae.Config
+	require.NoError(t, json.Unmarshal([]byte(`{"Inputs":4,"Table":true,"Likelihood":"gaussian_learned"}`), &old))
+	require.Equal(t, vae.Gaussian, old.Booleans)
+	m, err := vae.New(vae.Config{Inputs: 4, Table: true, Likelihood: vae.GaussianLearned})
+	require.NoError(t, err)
+	b, err := json.Marshal(m.Config())
+	require.NoError(t, err)
+	var now vae.Config
+	require.NoError(t, json.Unmarshal(b, &now))
+	require.Equal(t, vae.Bernoulli, now.Booleans)
 }

@@ -92,9 +92,16 @@ func cmdEvaluate(e *env, args []string) error {
 	if textLabel == "" && ds.Labels == nil {
 		return fmt.Errorf("%s: no labels were read", d.path)
 	}
+	// rows with a level never seen in training, by what reading them said
+	unseenRow := map[int]bool{}
+	for _, n := range ds.Notes {
+		if data.NoteUnseen(n.Text) != "" {
+			unseenRow[n.Row] = true
+		}
+	}
 	// the labelled rows, in file order
 	var x []float32
-	var positive []bool
+	var positive, unseenAt []bool
 	skipped := 0
 	for i := 0; i < ds.Rows; i++ {
 		lab, ok := labelOf(i)
@@ -104,6 +111,7 @@ func cmdEvaluate(e *env, args []string) error {
 		}
 		x = append(x, ds.Row(i)...)
 		positive = append(positive, !normals[lab])
+		unseenAt = append(unseenAt, unseenRow[i])
 	}
 	n := len(positive)
 	np := 0
@@ -156,23 +164,25 @@ func cmdEvaluate(e *env, args []string) error {
 	// a row with a level never seen in training is flagged whatever its
 	// score (model Score): here it ranks as the most surprising
 	unseen := 0
-	if enc := l.model.Schema().Encoding; enc != nil && !enc.Plain() && enc.Width() == ds.Cols {
-		for i := range scores {
-			if enc.Unseen(x[i*ds.Cols:(i+1)*ds.Cols]) != "" {
-				scores[i] = math.MaxFloat64
-				unseen++
+	ranked := scores
+	for i, u := range unseenAt {
+		if u {
+			if unseen == 0 {
+				ranked = append([]float64(nil), scores...)
 			}
+			ranked[i] = math.MaxFloat64
+			unseen++
 		}
 	}
-	roc, pr, ap, err := anomaly.Curves(scores, positive)
+	roc, pr, ap, err := anomaly.Curves(ranked, positive)
 	if err != nil {
 		return err
 	}
-	auc, err := anomaly.ROCAUC(scores, positive)
+	auc, err := anomaly.ROCAUC(ranked, positive)
 	if err != nil {
 		return err
 	}
-	c, err := anomaly.CountsAt(scores, positive, th.Value)
+	c, err := anomaly.CountsAt(ranked, positive, th.Value)
 	if err != nil {
 		return err
 	}
@@ -210,7 +220,7 @@ func cmdEvaluate(e *env, args []string) error {
 				{Name: "flagged anomalous / missed / flagged normal / passed normal", Value: fmt.Sprintf("%d / %d / %d / %d", c.TP, c.FN, c.FP, c.TN)},
 			},
 			Figures: []report.Figure{{File: "curves.png", Caption: "Left: recall against false-alarm rate as the threshold falls; right: precision against recall; the dot is the model's threshold."}}}
-		top, err := topRows(sc, x, ds.Cols, scores, positive, labelOf, reportTopRows)
+		top, err := topRows(sc, x, ds.Cols, scores, ranked, unseenAt, positive, labelOf, reportTopRows)
 		if err != nil {
 			return err
 		}
@@ -266,16 +276,17 @@ func ratioText(v float64, why string) string {
 // page explains.
 const reportTopRows = 20
 
-// topRows is a table of the n highest-scoring labelled rows: each one's
+// topRows is a table of the n highest-ranked labelled rows (by ranked:
+// the scores, a row with a level never seen in training first): each one's
 // label, score and the columns behind it with what the model expected
 // there (a category's level, a number's reconstruction) and how the row
 // stands to it.
-func topRows(sc model.Scorer, x []float32, cols int, scores []float64, positive []bool, labelOf func(int) (string, bool), n int) (report.Table, error) {
+func topRows(sc model.Scorer, x []float32, cols int, scores, ranked []float64, unseen, positive []bool, labelOf func(int) (string, bool), n int) (report.Table, error) {
 	order := make([]int, len(scores))
 	for i := range order {
 		order[i] = i
 	}
-	sort.SliceStable(order, func(a, b int) bool { return scores[order[a]] > scores[order[b]] })
+	sort.SliceStable(order, func(a, b int) bool { return ranked[order[a]] > ranked[order[b]] })
 	order = order[:min(n, len(order))]
 	var rows []float32
 	for _, i := range order {
@@ -311,7 +322,12 @@ func topRows(sc model.Scorer, x []float32, cols int, scores []float64, positive 
 		if a.Unscorable != "" {
 			parts = []string{"unscorable: " + a.Unscorable}
 		}
-		t.Rows = append(t.Rows, []string{strconv.Itoa(i + 1), labels[i], strconv.FormatFloat(scores[i], 'g', 5, 64), strconv.FormatBool(a.Anomaly), strings.Join(parts, "; ")})
+		flagged := a.Anomaly
+		if unseen[i] {
+			parts = append([]string{"a level never seen in training"}, parts...)
+			flagged = true
+		}
+		t.Rows = append(t.Rows, []string{strconv.Itoa(i + 1), labels[i], strconv.FormatFloat(scores[i], 'g', 5, 64), strconv.FormatBool(flagged), strings.Join(parts, "; ")})
 	}
 	return t, nil
 }

@@ -99,8 +99,8 @@ func writeFidelity(w io.Writer, r *fidelity.Report) {
 	fmt.Fprintf(w, "%-*s  %-11s  %-4s  %9.4f  %9.4f\n", width, "correlations", "pairs", "gap", r.Synthetic.CorrelationGap, r.Baseline.CorrelationGap)
 	fmt.Fprintf(w, "%-*s  %-11s  %-4s  %9.4f  %9.4f\n", width, "all columns", "Gaussian", "FD", r.Synthetic.Frechet, r.Baseline.Frechet)
 	s, b := r.Synthetic.Nearest, r.Baseline.Nearest
-	fmt.Fprintf(w, "nearest training row: median distance %.3g for samples, %.3g for the baseline, %.3g for held-out rows; nearer than 95%% of held-out rows: %.1f%% of samples, %.1f%% of the baseline (about 5%% is like real rows); copies of training rows: %d\n",
-		s.Median, b.Median, s.Holdout, 100*s.Closer, 100*b.Closer, s.Copies)
+	fmt.Fprintf(w, "nearest training row: median distance %.3g for samples, %.3g for the baseline, %.3g for held-out rows; nearer than 95%% of held-out rows: %.1f%% of samples, %.1f%% of the baseline (about 5%% is like real rows); copies of training rows: %d of the %d samples measured\n",
+		s.Median, b.Median, s.Holdout, 100*s.Closer, 100*b.Closer, s.Copies, s.Measured)
 	var notes []string
 	if worse > 0 {
 		notes = append(notes, fmt.Sprintf("%s fit worse than the baseline's", plural(worse, "column")))
@@ -108,7 +108,7 @@ func writeFidelity(w io.Writer, r *fidelity.Report) {
 	if r.Synthetic.CorrelationGap >= r.Baseline.CorrelationGap {
 		notes = append(notes, "the samples keep the relations between columns no better than independent columns do")
 	}
-	if s.Closer > 0.1 || float64(s.Copies) > 0.01*float64(r.SyntheticRows) {
+	if s.Closer > 0.1 || float64(s.Copies) > 0.01*float64(s.Measured) {
 		notes = append(notes, "samples sit nearer the training rows than real rows do: the model may be copying them")
 	}
 	if len(notes) == 0 {

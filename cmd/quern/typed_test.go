@@ -222,24 +222,32 @@ func TestScoreSaysWhatItCouldNotRead(t *testing.T) {
 	later := "id,amount,items,card_present,channel,country,status\n" +
 		"q1,\"18,5\",2,no,WEB,FR,a\n" +
 		"q2,\"19,5\",1,no,web,FR,b\n" +
-		"q3,21.5,,no,web,FR,c\n"
+		"q3,21.5,,no,web,FR,c\n" +
+		"q4,\"30,5\",1,yes,,FR,d\n"
 	require.NoError(t, os.WriteFile(filepath.Join(dir, "later.csv"), []byte(later), 0o644))
 	r := ok(t, quern(t, dir, nil, "score", "-model", "m.qm", "-data", "later.csv", "-keep", "id,status", "-top", "5", "-out", "s.csv", "-quiet"))
-	require.Contains(t, r.stderr, `warning: column "amount": 2 of 3 cells are not numbers (such as "18,5"), read as missing`)
+	require.Contains(t, r.stderr, `warning: column "amount": 3 of 4 cells are not numbers (such as "18,5"), read as missing`)
+	// an empty channel (a column that had no missing cell in training) is
+	// missing, not a level never seen: only WEB counts
+	require.Contains(t, r.stderr, "1 row with a category level never seen in training, flagged whatever the score")
 	recs := readCSVFile(t, filepath.Join(dir, "s.csv"))
 	require.Equal(t, []string{"row", "id", "status (kept)", "score"}, recs[0][:4])
 	require.Equal(t, "status", recs[0][len(recs[0])-1])
 	require.Contains(t, recs[1][len(recs[1])-1], `channel: level "WEB" not seen in training ("web" was: levels are told apart by case)`)
+	checked := 0
 	for _, row := range recs[1:] {
-		for k := 4; k+3 < len(row)-1; k += 4 {
+		for k := 6; k+3 < len(row)-1; k += 4 { // feature1 after row, id, status (kept), score, threshold, anomaly
 			if row[k] == "amount" && row[0] != "3" {
 				require.Equal(t, "missing", row[k+3], "row %s: an unread amount is missing", row[0])
+				checked++
 			}
-			if row[k] == "items" && row[0] == "3" {
-				require.Equal(t, "missing", row[k+3], "row 3: an empty items cell is missing")
+			if (row[k] == "items" && row[0] == "3") || (row[k] == "channel" && row[0] == "4") {
+				require.Equal(t, "missing", row[k+3], "row %s: an empty cell is missing", row[0])
+				checked++
 			}
 		}
 	}
+	require.Equal(t, 5, checked, "every missing cell is among the top 5 columns and was checked")
 }
 
 func readCSVFile(t *testing.T, path string) [][]string {

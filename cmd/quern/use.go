@@ -331,6 +331,9 @@ func cmdScore(e *env, args []string) error {
 			rec = append(rec, value, strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			if note != nil {
 				modelio.MarkMissing(&s, note.Text)
+				if name := data.NoteUnseen(note.Text); name != "" && s.Unseen == "" {
+					s.Unseen, s.Anomaly = name, true
+				}
 			}
 			for k := 0; k < *top; k++ {
 				if k >= len(s.Top) {
