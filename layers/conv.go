@@ -1,0 +1,177 @@
+package layers
+
+import (
+	"fmt"
+)
+
+// ConvShape is a 2-D convolution's geometry over image rows stored
+// channels last (a row holds H x W x C values, the layout of quern's image
+// rows): OutC filters of KH x KW x C, moved Stride pixels at a time over
+// the image padded with Pad zeros on every side. A filter's weights are a
+// row of KH x KW x C values in that order, so the weights are an
+// OutC x (KH*KW*C) matrix, and an output row holds OH x OW x OutC values.
+type ConvShape struct {
+	H, W, C      int
+	OutC, KH, KW int
+	Stride, Pad  int
+}
+
+// Check reports a geometry that makes no output or has a zero size.
+func (s ConvShape) Check() error {
+	if s.H <= 0 || s.W <= 0 || s.C <= 0 || s.OutC <= 0 || s.KH <= 0 || s.KW <= 0 || s.Stride <= 0 || s.Pad < 0 {
+		return fmt.Errorf("layers: convolution %+v: sizes must be positive (padding 0 or more)", s)
+	}
+	if oh, ow := s.Out(); oh <= 0 || ow <= 0 {
+		return fmt.Errorf("layers: a %dx%d kernel does not fit a %dx%d image with padding %d", s.KH, s.KW, s.H, s.W, s.Pad)
+	}
+	return nil
+}
+
+// Out is the output's height and width.
+func (s ConvShape) Out() (oh, ow int) {
+	return (s.H+2*s.Pad-s.KH)/s.Stride + 1, (s.W+2*s.Pad-s.KW)/s.Stride + 1
+}
+
+// K is a filter's length, KH*KW*C.
+func (s ConvShape) K() int { return s.KH * s.KW * s.C }
+
+// InWidth and OutWidth are an input and an output row's lengths.
+func (s ConvShape) InWidth() int { return s.H * s.W * s.C }
+
+func (s ConvShape) OutWidth() int {
+	oh, ow := s.Out()
+	return oh * ow * s.OutC
+}
+
+// Im2Col writes the patches of n image rows x into cols, one row of K()
+// values per output position (n*OH*OW rows), zeros where a patch reaches
+// into the padding, and returns it (grown if too short).
+func Im2Col[T float32 | float64](cols, x []T, n int, s ConvShape) []T {
+	oh, ow := s.Out()
+	k := s.K()
+	need := n * oh * ow * k
+	if cap(cols) < need {
+		cols = make([]T, need)
+	}
+	cols = cols[:need]
+	in := s.InWidth()
+	at := 0
+	for img := 0; img < n; img++ {
+		im := x[img*in : (img+1)*in]
+		for oy := 0; oy < oh; oy++ {
+			for ox := 0; ox < ow; ox++ {
+				for ky := 0; ky < s.KH; ky++ {
+					y := oy*s.Stride - s.Pad + ky
+					for kx := 0; kx < s.KW; kx++ {
+						xx := ox*s.Stride - s.Pad + kx
+						dst := cols[at : at+s.C]
+						at += s.C
+						if y < 0 || y >= s.H || xx < 0 || xx >= s.W {
+							clear(dst)
+							continue
+						}
+						copy(dst, im[(y*s.W+xx)*s.C:(y*s.W+xx+1)*s.C])
+					}
+				}
+			}
+		}
+	}
+	return cols
+}
+
+// Col2Im adds the patch rows of dcols (as Im2Col lays them out) back into
+// the n image rows dx, which it clears first: the gradient of Im2Col.
+func Col2Im[T float32 | float64](dx, dcols []T, n int, s ConvShape) {
+	oh, ow := s.Out()
+	in := s.InWidth()
+	clear(dx[:n*in])
+	at := 0
+	for img := 0; img < n; img++ {
+		im := dx[img*in : (img+1)*in]
+		for oy := 0; oy < oh; oy++ {
+			for ox := 0; ox < ow; ox++ {
+				for ky := 0; ky < s.KH; ky++ {
+					y := oy*s.Stride - s.Pad + ky
+					for kx := 0; kx < s.KW; kx++ {
+						xx := ox*s.Stride - s.Pad + kx
+						src := dcols[at : at+s.C]
+						at += s.C
+						if y < 0 || y >= s.H || xx < 0 || xx >= s.W {
+							continue
+						}
+						dst := im[(y*s.W+xx)*s.C : (y*s.W+xx+1)*s.C]
+						for c, v := range src {
+							dst[c] += v
+						}
+					}
+				}
+			}
+		}
+	}
+}
+
+// ConvForward computes n output rows of the convolution of image rows x
+// with weights w (OutC x K) and bias b (OutC) into out (grown if too
+// short), using cols as the patch buffer; it returns both buffers. The
+// sums run in T, over the patch in order, for every precision and thread
+// count the same.
+func ConvForward[T float32 | float64](out, cols, x, w, b []T, n int, s ConvShape) ([]T, []T) {
+	cols = Im2Col(cols, x, n, s)
+	oh, ow := s.Out()
+	pos, k := n*oh*ow, s.K()
+	if cap(out) < pos*s.OutC {
+		out = make([]T, pos*s.OutC)
+	}
+	out = out[:pos*s.OutC]
+	for p := 0; p < pos; p++ {
+		patch := cols[p*k : (p+1)*k]
+		o := out[p*s.OutC : (p+1)*s.OutC]
+		for f := 0; f < s.OutC; f++ {
+			wf := w[f*k : (f+1)*k]
+			var acc T
+			for i, v := range patch {
+				acc += v * wf[i]
+			}
+			o[f] = acc + b[f]
+		}
+	}
+	return out, cols
+}
+
+// ConvBackward computes the gradients of a loss with respect to the
+// input rows (dx), the weights (dw) and the bias (db), given its
+// gradient g with respect to the n output rows, the patches cols of the
+// forward pass (Im2Col of x) and the weights w; dcols is a buffer of
+// cols' size (grown if too short) and is returned.
+func ConvBackward[T float32 | float64](dx, dw, db, dcols, g, cols, w []T, n int, s ConvShape) []T {
+	oh, ow := s.Out()
+	pos, k := n*oh*ow, s.K()
+	if cap(dcols) < pos*k {
+		dcols = make([]T, pos*k)
+	}
+	dcols = dcols[:pos*k]
+	clear(dw[:s.OutC*k])
+	clear(db[:s.OutC])
+	for p := 0; p < pos; p++ {
+		gp := g[p*s.OutC : (p+1)*s.OutC]
+		patch := cols[p*k : (p+1)*k]
+		dpatch := dcols[p*k : (p+1)*k]
+		clear(dpatch)
+		for f, gv := range gp {
+			if gv == 0 {
+				continue
+			}
+			db[f] += gv
+			wf := w[f*k : (f+1)*k]
+			dwf := dw[f*k : (f+1)*k]
+			for i := range patch {
+				dwf[i] += gv * patch[i]
+				dpatch[i] += gv * wf[i]
+			}
+		}
+	}
+	if dx != nil {
+		Col2Im(dx, dcols, n, s)
+	}
+	return dcols
+}

@@ -1,0 +1,101 @@
+package layers
+
+import (
+	"encoding/json"
+	"math"
+	"os"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+type convCase struct {
+	Name                    string
+	N, C, H, W, OC, KH, KW  int
+	Stride, Pad, OH, OW     int
+	X, Weight, Bias, Out, G []float64
+	DX, DWeight, DBias      []float64
+	Source                  string
+}
+
+func loadConvGolden(t *testing.T) []convCase {
+	b, err := os.ReadFile("../testdata/conv/golden.json")
+	require.NoError(t, err)
+	var g struct {
+		Cases []struct {
+			Name                                        string
+			N, C, H, W, Oc, Kh, Kw, Stride, Pad, Oh, Ow int
+			X, Weight, Bias, Out, G, Dx, Dweight, Dbias []float64
+			Source                                      string
+		}
+	}
+	require.NoError(t, json.Unmarshal(b, &g))
+	var out []convCase
+	for _, c := range g.Cases {
+		out = append(out, convCase{c.Name, c.N, c.C, c.H, c.W, c.Oc, c.Kh, c.Kw, c.Stride, c.Pad, c.Oh, c.Ow,
+			c.X, c.Weight, c.Bias, c.Out, c.G, c.Dx, c.Dweight, c.Dbias, c.Source})
+	}
+	require.NotEmpty(t, out)
+	return out
+}
+
+// The convolution and its gradients against torch.nn.functional.conv2d and
+// torch.autograd (testdata/conv/make_golden.py): odd sizes, stride 2,
+// padding, several channels, a non-square kernel. float64 to 1e-12
+// (relative to the largest value); float32 forward to 1e-5.
+func TestConvGolden(t *testing.T) {
+	for _, c := range loadConvGolden(t) {
+		t.Run(c.Name, func(t *testing.T) {
+			s := ConvShape{H: c.H, W: c.W, C: c.C, OutC: c.OC, KH: c.KH, KW: c.KW, Stride: c.Stride, Pad: c.Pad}
+			require.NoError(t, s.Check())
+			oh, ow := s.Out()
+			require.Equal(t, [2]int{c.OH, c.OW}, [2]int{oh, ow})
+			out, cols := ConvForward(nil, nil, c.X, c.Weight, c.Bias, c.N, s)
+			near(t, c.Out, out, 1e-12, "output vs "+c.Source)
+			dx := make([]float64, len(c.X))
+			dw := make([]float64, len(c.Weight))
+			db := make([]float64, len(c.Bias))
+			ConvBackward(dx, dw, db, nil, c.G, cols, c.Weight, c.N, s)
+			near(t, c.DX, dx, 1e-12, "input gradient")
+			near(t, c.DWeight, dw, 1e-12, "weight gradient")
+			near(t, c.DBias, db, 1e-12, "bias gradient")
+
+			x32, w32, b32 := to32s(c.X), to32s(c.Weight), to32s(c.Bias)
+			o32, _ := ConvForward(nil, nil, x32, w32, b32, c.N, s)
+			got := make([]float64, len(o32))
+			for i, v := range o32 {
+				got[i] = float64(v)
+			}
+			near(t, c.Out, got, 1e-5, "float32 output")
+		})
+	}
+}
+
+func to32s(v []float64) []float32 {
+	out := make([]float32, len(v))
+	for i, x := range v {
+		out[i] = float32(x)
+	}
+	return out
+}
+
+// near checks every value within tol times the largest magnitude of want.
+func near(t *testing.T, want, got []float64, tol float64, what string) {
+	t.Helper()
+	require.Len(t, got, len(want), what)
+	scale := 1.0
+	for _, v := range want {
+		scale = math.Max(scale, math.Abs(v))
+	}
+	for i := range want {
+		require.InDelta(t, want[i], got[i], tol*scale, "%s: element %d", what, i)
+	}
+}
+
+// A kernel that does not fit, and zero sizes, are refused by Check.
+func TestConvShapeCheck(t *testing.T) {
+	require.Error(t, ConvShape{H: 2, W: 2, C: 1, OutC: 1, KH: 3, KW: 3, Stride: 1}.Check())
+	require.Error(t, ConvShape{H: 4, W: 4, C: 0, OutC: 1, KH: 3, KW: 3, Stride: 1}.Check())
+	require.Error(t, ConvShape{H: 4, W: 4, C: 1, OutC: 1, KH: 3, KW: 3, Stride: 0}.Check())
+	require.NoError(t, ConvShape{H: 2, W: 2, C: 1, OutC: 1, KH: 3, KW: 3, Stride: 1, Pad: 1}.Check())
+}
