@@ -1,0 +1,196 @@
+package engine
+
+import (
+	"fmt"
+
+	"github.com/quernlab/quern/layers"
+	G "gorgonia.org/gorgonia"
+	"gorgonia.org/tensor"
+)
+
+// convOp is a 2-D convolution of image rows x (n x H*W*C, channels last)
+// with filters w (OutC x KH*KW*C) and a bias b (1 x OutC), one fused
+// operation: n x OH*OW*OutC, computed by layers.ConvForward (the
+// graph-free path's own function, so the two agree bit for bit). The
+// forward run keeps its patches for the gradient operations.
+type convOp struct {
+	opBase
+	s    layers.ConvShape
+	side *convSide
+}
+
+// convSide holds the forward's patches and the gradients, computed once
+// per backward pass by whichever gradient operation runs first.
+type convSide struct {
+	cols32, dcols32, dx32, dw32, db32 []float32
+	cols64, dcols64, dx64, dw64, db64 []float64
+	n                                 int
+	forward, backward                 int // runs counted, to tell a stale gradient
+}
+
+// convGradOp is the gradient of a convOp with respect to its input which
+// (0: x, 1: w, 2: b); its inputs are x, w, the upstream gradient and the
+// forward's output (which orders it after the forward run).
+type convGradOp struct {
+	opBase
+	s     layers.ConvShape
+	side  *convSide
+	which int
+}
+
+func (op convOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	x, err := shape2(in, 0)
+	if err != nil {
+		return nil, err
+	}
+	return tensor.Shape{x[0], op.s.OutWidth()}, nil
+}
+
+func (op convOp) Do(in ...G.Value) (G.Value, error) {
+	t, err := denseMixed(in, 3)
+	if err != nil {
+		return nil, err
+	}
+	n, _ := dims(t[0])
+	out := op.out(nil, t[0].Dtype(), n, op.s.OutWidth())
+	sd := op.side
+	switch t[0].Dtype() {
+	case tensor.Float32:
+		_, sd.cols32 = layers.ConvForward(f32(out), sd.cols32, f32(t[0]), f32(t[1]), f32(t[2]), n, op.s)
+	case tensor.Float64:
+		_, sd.cols64 = layers.ConvForward(f64(out), sd.cols64, f64(t[0]), f64(t[1]), f64(t[2]), n, op.s)
+	default:
+		return nil, fmt.Errorf("engine: convolution of %v", t[0].Dtype())
+	}
+	sd.n = n
+	sd.forward++
+	return out, nil
+}
+
+func (op convOp) SymDiff(in G.Nodes, output, grad *G.Node) (G.Nodes, error) {
+	var gs G.Nodes
+	for which, name := range []string{"ConvGradX", "ConvGradW", "ConvGradB"} {
+		g, err := G.ApplyOp(convGradOp{fused(name+"["+op.name+"]", "ttttt", firstInputShape), op.s, op.side, which}, in[0], in[1], grad, output)
+		if err != nil {
+			return nil, err
+		}
+		gs = append(gs, g)
+	}
+	return gs, nil
+}
+
+func (op convGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
+	switch op.which {
+	case 0:
+		return firstShape(in)
+	case 1:
+		s, err := shape2(in, 1)
+		if err != nil {
+			return nil, err
+		}
+		return s.Clone(), nil
+	}
+	return tensor.Shape{1, op.s.OutC}, nil
+}
+
+func (op convGradOp) Do(in ...G.Value) (G.Value, error) {
+	t, err := denseMixed(in, 4)
+	if err != nil {
+		return nil, err
+	}
+	sd := op.side
+	if sd.forward == 0 {
+		return nil, fmt.Errorf("engine: convolution gradient before its forward run")
+	}
+	n := sd.n
+	s := op.s
+	k := s.K()
+	if sd.backward != sd.forward {
+		// the first gradient operation of this pass computes all three
+		switch t[0].Dtype() {
+		case tensor.Float32:
+			sd.dx32, sd.dw32, sd.db32 = grow32(sd.dx32, n*s.InWidth()), grow32(sd.dw32, s.OutC*k), grow32(sd.db32, s.OutC)
+			sd.dcols32 = layers.ConvBackward(sd.dx32, sd.dw32, sd.db32, sd.dcols32, f32(t[2]), sd.cols32, f32(t[1]), n, s)
+		case tensor.Float64:
+			sd.dx64, sd.dw64, sd.db64 = grow64(sd.dx64, n*s.InWidth()), grow64(sd.dw64, s.OutC*k), grow64(sd.db64, s.OutC)
+			sd.dcols64 = layers.ConvBackward(sd.dx64, sd.dw64, sd.db64, sd.dcols64, f64(t[2]), sd.cols64, f64(t[1]), n, s)
+		default:
+			return nil, fmt.Errorf("engine: convolution gradient of %v", t[0].Dtype())
+		}
+		sd.backward = sd.forward
+	}
+	var rows, cols int
+	switch op.which {
+	case 0:
+		rows, cols = n, s.InWidth()
+	case 1:
+		rows, cols = s.OutC, k
+	default:
+		rows, cols = 1, s.OutC
+	}
+	out := op.out(nil, t[0].Dtype(), rows, cols)
+	switch t[0].Dtype() {
+	case tensor.Float32:
+		copy(f32(out), [][]float32{sd.dx32, sd.dw32, sd.db32}[op.which])
+	case tensor.Float64:
+		copy(f64(out), [][]float64{sd.dx64, sd.dw64, sd.db64}[op.which])
+	}
+	return out, nil
+}
+
+// denseMixed is denseArgs for inputs of one element type and any sizes.
+func denseMixed(in []G.Value, n int) ([4]*tensor.Dense, error) {
+	var out [4]*tensor.Dense
+	if len(in) != n || n > len(out) {
+		return out, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
+	}
+	for i, v := range in {
+		d, ok := v.(*tensor.Dense)
+		if !ok {
+			return out, fmt.Errorf("engine: fused operation input %d is %T", i, v)
+		}
+		if i > 0 && d.Dtype() != out[0].Dtype() {
+			return out, fmt.Errorf("engine: fused operation inputs of types %v and %v", out[0].Dtype(), d.Dtype())
+		}
+		out[i] = d
+	}
+	return out, nil
+}
+
+func grow32(s []float32, n int) []float32 {
+	if cap(s) < n {
+		return make([]float32, n)
+	}
+	return s[:n]
+}
+
+func grow64(s []float64, n int) []float64 {
+	if cap(s) < n {
+		return make([]float64, n)
+	}
+	return s[:n]
+}
+
+// Conv2D is the 2-D convolution of image rows x (n x H*W*C, channels
+// last) with filters w (OutC x KH*KW*C) and bias b (1 x OutC) of the
+// geometry s, one fused operation with its gradients: n x OH*OW*OutC.
+func (gr *Graph) Conv2D(x, w, b *Node, s layers.ConvShape) *Node {
+	if !gr.ok(x, w, b) {
+		return &Node{g: gr}
+	}
+	if err := s.Check(); err != nil {
+		return gr.fail("conv2d", err)
+	}
+	switch {
+	case x.cols != s.InWidth():
+		return gr.fail("conv2d", fmt.Errorf("rows of %d values for %dx%dx%d images", x.cols, s.H, s.W, s.C))
+	case w.rows != s.OutC || w.cols != s.K():
+		return gr.fail("conv2d", fmt.Errorf("filters %dx%d, want %dx%d", w.rows, w.cols, s.OutC, s.K()))
+	case b.rows != 1 || b.cols != s.OutC:
+		return gr.fail("conv2d", fmt.Errorf("bias %dx%d, want 1x%d", b.rows, b.cols, s.OutC))
+	}
+	name := fmt.Sprintf("Conv2D[%dx%dx%d,%d,%dx%d,s%d,p%d]", s.H, s.W, s.C, s.OutC, s.KH, s.KW, s.Stride, s.Pad)
+	op := convOp{fused(name, "tttt", firstInputShape), s, &convSide{}}
+	n, err := G.ApplyOp(op, x.n, w.n, b.n)
+	return gr.wrap("conv2d", n, err, x.rows, s.OutWidth())
+}
