@@ -175,3 +175,106 @@ func ConvBackward[T float32 | float64](dx, dw, db, dcols, g, cols, w []T, n int,
 	}
 	return dcols
 }
+
+// The transposed convolution (a fractionally strided convolution, the
+// gradient of a convolution with respect to its input) maps an image of
+// H x W x Cin to one of OH x OW x Cout, each input pixel spreading a
+// KH x KW x Cout patch of its filters' weights, Stride pixels apart. It
+// is described by the convolution it transposes: ConvShape{H: OH, W: OW,
+// C: Cout, OutC: Cin, ...}, whose Out() is the transposed one's input
+// size (H, W). Its weights are Cin x (KH*KW*Cout), a row per input
+// channel; its bias has Cout values.
+
+// TransposedShape is the ConvShape a transposed convolution of an
+// h x w x cin image to cout channels with a kh x kw kernel, stride and
+// padding describes itself by, with outPad extra rows and columns at the
+// bottom and right (0 <= outPad < stride), as in
+// (h-1)*stride - 2*pad + kh + outPad output rows.
+func TransposedShape(h, w, cin, cout, kh, kw, stride, pad, outPad int) (ConvShape, error) {
+	if outPad < 0 || (stride > 0 && outPad >= stride) {
+		return ConvShape{}, fmt.Errorf("layers: output padding %d, want 0 to stride-1 (%d)", outPad, stride-1)
+	}
+	s := ConvShape{H: (h-1)*stride - 2*pad + kh + outPad, W: (w-1)*stride - 2*pad + kw + outPad, C: cout, OutC: cin, KH: kh, KW: kw, Stride: stride, Pad: pad}
+	if err := s.Check(); err != nil {
+		return s, err
+	}
+	if oh, ow := s.Out(); oh != h || ow != w {
+		return s, fmt.Errorf("layers: a transposed convolution of %dx%d with kernel %dx%d, stride %d and padding %d gives no whole output", h, w, kh, kw, stride, pad)
+	}
+	return s, nil
+}
+
+// ConvTransposeForward computes n output rows (OH*OW*Cout each, s.H x
+// s.W x s.C) of the transposed convolution of rows x (s.Out() x s.OutC
+// each) with weights w (s.OutC x s.K()) and bias b (s.C), into out (grown
+// if too short), using cols as the patch buffer; it returns both.
+func ConvTransposeForward[T float32 | float64](out, cols, x, w, b []T, n int, s ConvShape) ([]T, []T) {
+	oh, ow := s.Out()
+	pos, k := n*oh*ow, s.K()
+	if cap(cols) < pos*k {
+		cols = make([]T, pos*k)
+	}
+	cols = cols[:pos*k]
+	for p := 0; p < pos; p++ {
+		xp := x[p*s.OutC : (p+1)*s.OutC]
+		cp := cols[p*k : (p+1)*k]
+		clear(cp)
+		for ci, v := range xp {
+			if v == 0 {
+				continue
+			}
+			wr := w[ci*k : (ci+1)*k]
+			for i := range cp {
+				cp[i] += v * wr[i]
+			}
+		}
+	}
+	in := s.InWidth()
+	if cap(out) < n*in {
+		out = make([]T, n*in)
+	}
+	out = out[:n*in]
+	Col2Im(out, cols, n, s)
+	for i := range out {
+		out[i] += b[i%s.C]
+	}
+	return out, cols
+}
+
+// ConvTransposeBackward computes the gradients of a loss with respect to
+// the transposed convolution's input rows (dx), weights (dw) and bias
+// (db), given its gradient g with respect to the n output rows, the
+// input x and the weights w; gcols is a buffer (grown if too short) and
+// is returned.
+func ConvTransposeBackward[T float32 | float64](dx, dw, db, gcols, g, x, w []T, n int, s ConvShape) []T {
+	gcols = Im2Col(gcols, g, n, s)
+	oh, ow := s.Out()
+	pos, k := n*oh*ow, s.K()
+	clear(dw[:s.OutC*k])
+	clear(db[:s.C])
+	for i, v := range g[:n*s.InWidth()] {
+		db[i%s.C] += v
+	}
+	for p := 0; p < pos; p++ {
+		gp := gcols[p*k : (p+1)*k]
+		xp := x[p*s.OutC : (p+1)*s.OutC]
+		var dxp []T
+		if dx != nil {
+			dxp = dx[p*s.OutC : (p+1)*s.OutC]
+		}
+		for ci := 0; ci < s.OutC; ci++ {
+			wr := w[ci*k : (ci+1)*k]
+			dwr := dw[ci*k : (ci+1)*k]
+			var acc T
+			xv := xp[ci]
+			for i, gv := range gp {
+				acc += gv * wr[i]
+				dwr[i] += xv * gv
+			}
+			if dxp != nil {
+				dxp[ci] = acc
+			}
+		}
+	}
+	return gcols
+}

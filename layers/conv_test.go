@@ -18,9 +18,13 @@ type convCase struct {
 	Source                  string
 }
 
-func loadConvGolden(t *testing.T) []convCase {
+func loadConvGolden(t *testing.T) []convCase { return loadConvCases(t, "cases") }
+
+func loadConvCases(t *testing.T, key string) []convCase {
 	b, err := os.ReadFile("../testdata/conv/golden.json")
 	require.NoError(t, err)
+	var raw map[string]json.RawMessage
+	require.NoError(t, json.Unmarshal(b, &raw))
 	var g struct {
 		Cases []struct {
 			Name                                        string
@@ -29,7 +33,7 @@ func loadConvGolden(t *testing.T) []convCase {
 			Source                                      string
 		}
 	}
-	require.NoError(t, json.Unmarshal(b, &g))
+	require.NoError(t, json.Unmarshal([]byte(`{"cases":`+string(raw[key])+`}`), &g))
 	var out []convCase
 	for _, c := range g.Cases {
 		out = append(out, convCase{c.Name, c.N, c.C, c.H, c.W, c.Oc, c.Kh, c.Kw, c.Stride, c.Pad, c.Oh, c.Ow,
@@ -98,4 +102,30 @@ func TestConvShapeCheck(t *testing.T) {
 	require.Error(t, ConvShape{H: 4, W: 4, C: 0, OutC: 1, KH: 3, KW: 3, Stride: 1}.Check())
 	require.Error(t, ConvShape{H: 4, W: 4, C: 1, OutC: 1, KH: 3, KW: 3, Stride: 0}.Check())
 	require.NoError(t, ConvShape{H: 2, W: 2, C: 1, OutC: 1, KH: 3, KW: 3, Stride: 1, Pad: 1}.Check())
+}
+
+// The transposed convolution and its gradients against
+// torch.nn.functional.conv_transpose2d and torch.autograd (stride 2 with
+// output padding, a 2x3 kernel, a 4x4 kernel with padding), to 1e-12 in
+// float64 relative to the largest value.
+func TestConvTransposeGolden(t *testing.T) {
+	for _, c := range loadConvCases(t, "transposed") {
+		t.Run(c.Name, func(t *testing.T) {
+			opad := c.OH - ((c.H-1)*c.Stride - 2*c.Pad + c.KH)
+			s, err := TransposedShape(c.H, c.W, c.C, c.OC, c.KH, c.KW, c.Stride, c.Pad, opad)
+			require.NoError(t, err)
+			require.Equal(t, [2]int{c.OH, c.OW}, [2]int{s.H, s.W})
+			out, _ := ConvTransposeForward(nil, nil, c.X, c.Weight, c.Bias, c.N, s)
+			near(t, c.Out, out, 1e-12, "output vs "+c.Source)
+			dx := make([]float64, len(c.X))
+			dw := make([]float64, len(c.Weight))
+			db := make([]float64, len(c.Bias))
+			ConvTransposeBackward(dx, dw, db, nil, c.G, c.X, c.Weight, c.N, s)
+			near(t, c.DX, dx, 1e-12, "input gradient")
+			near(t, c.DWeight, dw, 1e-12, "weight gradient")
+			near(t, c.DBias, db, 1e-12, "bias gradient")
+		})
+	}
+	_, err := TransposedShape(4, 4, 1, 1, 3, 3, 2, 1, 2)
+	require.ErrorContains(t, err, "output padding 2")
 }
