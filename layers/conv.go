@@ -2,6 +2,9 @@ package layers
 
 import (
 	"fmt"
+
+	"github.com/quernlab/quern/internal/kernel/gemm"
+	"gonum.org/v1/gonum/blas"
 )
 
 // ConvShape is a 2-D convolution's geometry over image rows stored
@@ -112,9 +115,9 @@ func Col2Im[T float32 | float64](dx, dcols []T, n int, s ConvShape) {
 
 // ConvForward computes n output rows of the convolution of image rows x
 // with weights w (OutC x K) and bias b (OutC) into out (grown if too
-// short), using cols as the patch buffer; it returns both buffers. The
-// sums run in T, over the patch in order, for every precision and thread
-// count the same.
+// short), using cols as the patch buffer; it returns both buffers.
+// float32 runs on the project's matrix product (internal/kernel/gemm, the
+// same at any thread count), float64 (for gradient checks) in plain loops.
 func ConvForward[T float32 | float64](out, cols, x, w, b []T, n int, s ConvShape) ([]T, []T) {
 	cols = Im2Col(cols, x, n, s)
 	oh, ow := s.Out()
@@ -123,6 +126,19 @@ func ConvForward[T float32 | float64](out, cols, x, w, b []T, n int, s ConvShape
 		out = make([]T, pos*s.OutC)
 	}
 	out = out[:pos*s.OutC]
+	if c32, ok := any(cols).([]float32); ok {
+		// float32: the project's matrix product, patches x filters^T,
+		// then the bias
+		o32, w32, b32 := any(out).([]float32), any(w).([]float32), any(b).([]float32)
+		gemm.Sgemm(blas.NoTrans, blas.Trans, pos, s.OutC, k, 1, c32, k, w32, k, 0, o32, s.OutC)
+		for p := 0; p < pos; p++ {
+			o := o32[p*s.OutC : (p+1)*s.OutC]
+			for f := range o {
+				o[f] += b32[f]
+			}
+		}
+		return out, cols
+	}
 	for p := 0; p < pos; p++ {
 		patch := cols[p*k : (p+1)*k]
 		o := out[p*s.OutC : (p+1)*s.OutC]
@@ -152,6 +168,21 @@ func ConvBackward[T float32 | float64](dx, dw, db, dcols, g, cols, w []T, n int,
 	dcols = dcols[:pos*k]
 	clear(dw[:s.OutC*k])
 	clear(db[:s.OutC])
+	if g32, ok := any(g).([]float32); ok {
+		// float32: dw = g^T patches, dpatches = g w, by the matrix product
+		c32, w32 := any(cols).([]float32), any(w).([]float32)
+		gemm.Sgemm(blas.Trans, blas.NoTrans, s.OutC, k, pos, 1, g32, s.OutC, c32, k, 0, any(dw).([]float32), k)
+		gemm.Sgemm(blas.NoTrans, blas.NoTrans, pos, k, s.OutC, 1, g32, s.OutC, w32, k, 0, any(dcols).([]float32), k)
+		for p := 0; p < pos; p++ {
+			for f, gv := range g[p*s.OutC : (p+1)*s.OutC] {
+				db[f] += gv
+			}
+		}
+		if dx != nil {
+			Col2Im(dx, dcols, n, s)
+		}
+		return dcols
+	}
 	for p := 0; p < pos; p++ {
 		gp := g[p*s.OutC : (p+1)*s.OutC]
 		patch := cols[p*k : (p+1)*k]
@@ -215,8 +246,29 @@ func ConvTransposeForward[T float32 | float64](out, cols, x, w, b []T, n int, s 
 		cols = make([]T, pos*k)
 	}
 	cols = cols[:pos*k]
+	if x32, ok := any(x).([]float32); ok {
+		// float32: patches = inputs x weights, by the matrix product
+		gemm.Sgemm(blas.NoTrans, blas.NoTrans, pos, k, s.OutC, 1, x32, s.OutC, any(w).([]float32), k, 0, any(cols).([]float32), k)
+	} else {
+		transposePatches(cols, x, w, pos, k, s.OutC)
+	}
+	in := s.InWidth()
+	if cap(out) < n*in {
+		out = make([]T, n*in)
+	}
+	out = out[:n*in]
+	Col2Im(out, cols, n, s)
+	for i := range out {
+		out[i] += b[i%s.C]
+	}
+	return out, cols
+}
+
+// transposePatches is cols = x w for pos rows of cin inputs and k
+// patch values.
+func transposePatches[T float32 | float64](cols, x, w []T, pos, k, cin int) {
 	for p := 0; p < pos; p++ {
-		xp := x[p*s.OutC : (p+1)*s.OutC]
+		xp := x[p*cin : (p+1)*cin]
 		cp := cols[p*k : (p+1)*k]
 		clear(cp)
 		for ci, v := range xp {
@@ -229,16 +281,6 @@ func ConvTransposeForward[T float32 | float64](out, cols, x, w, b []T, n int, s 
 			}
 		}
 	}
-	in := s.InWidth()
-	if cap(out) < n*in {
-		out = make([]T, n*in)
-	}
-	out = out[:n*in]
-	Col2Im(out, cols, n, s)
-	for i := range out {
-		out[i] += b[i%s.C]
-	}
-	return out, cols
 }
 
 // ConvTransposeBackward computes the gradients of a loss with respect to
@@ -254,6 +296,15 @@ func ConvTransposeBackward[T float32 | float64](dx, dw, db, gcols, g, x, w []T, 
 	clear(db[:s.C])
 	for i, v := range g[:n*s.InWidth()] {
 		db[i%s.C] += v
+	}
+	if gc32, ok := any(gcols).([]float32); ok {
+		// float32: dw = x^T gpatches, dx = gpatches w^T
+		x32, w32 := any(x).([]float32), any(w).([]float32)
+		gemm.Sgemm(blas.Trans, blas.NoTrans, s.OutC, k, pos, 1, x32, s.OutC, gc32, k, 0, any(dw).([]float32), k)
+		if dx != nil {
+			gemm.Sgemm(blas.NoTrans, blas.Trans, pos, s.OutC, k, 1, gc32, k, w32, k, 0, any(dx).([]float32), s.OutC)
+		}
+		return gcols
 	}
 	for p := 0; p < pos; p++ {
 		gp := gcols[p*k : (p+1)*k]

@@ -71,8 +71,23 @@ func TestConvGolden(t *testing.T) {
 				got[i] = float64(v)
 			}
 			near(t, c.Out, got, 1e-5, "float32 output")
+			// float32 gradients, on the matrix product: 1e-4
+			dx32, dw32, db32 := make([]float32, len(c.X)), make([]float32, len(c.Weight)), make([]float32, len(c.Bias))
+			_, cols32 := ConvForward(nil, nil, x32, w32, b32, c.N, s)
+			ConvBackward(dx32, dw32, db32, nil, to32s(c.G), cols32, w32, c.N, s)
+			near(t, c.DX, to64s(dx32), 1e-4, "float32 input gradient")
+			near(t, c.DWeight, to64s(dw32), 1e-4, "float32 weight gradient")
+			near(t, c.DBias, to64s(db32), 1e-4, "float32 bias gradient")
 		})
 	}
+}
+
+func to64s(v []float32) []float64 {
+	out := make([]float64, len(v))
+	for i, x := range v {
+		out[i] = float64(x)
+	}
+	return out
 }
 
 func to32s(v []float64) []float32 {
@@ -124,8 +139,52 @@ func TestConvTransposeGolden(t *testing.T) {
 			near(t, c.DX, dx, 1e-12, "input gradient")
 			near(t, c.DWeight, dw, 1e-12, "weight gradient")
 			near(t, c.DBias, db, 1e-12, "bias gradient")
+			x32, w32, b32 := to32s(c.X), to32s(c.Weight), to32s(c.Bias)
+			o32, _ := ConvTransposeForward(nil, nil, x32, w32, b32, c.N, s)
+			near(t, c.Out, to64s(o32), 1e-5, "float32 output")
+			dx32, dw32, db32 := make([]float32, len(c.X)), make([]float32, len(c.Weight)), make([]float32, len(c.Bias))
+			ConvTransposeBackward(dx32, dw32, db32, nil, to32s(c.G), x32, w32, c.N, s)
+			near(t, c.DX, to64s(dx32), 1e-4, "float32 input gradient")
+			near(t, c.DWeight, to64s(dw32), 1e-4, "float32 weight gradient")
+			near(t, c.DBias, to64s(db32), 1e-4, "float32 bias gradient")
 		})
 	}
 	_, err := TransposedShape(4, 4, 1, 1, 3, 3, 2, 1, 2)
 	require.ErrorContains(t, err, "output padding 2")
+}
+
+// The encoder half of the convolutional VAE step at batch 128:
+// 28x28x1 to 14x14x32 to 7x7x64 (3x3, stride 2, padding 1), forward and
+// backward, float32 (go test -bench Conv ./layers).
+func BenchmarkConvEncoder(b *testing.B) {
+	s1 := ConvShape{H: 28, W: 28, C: 1, OutC: 32, KH: 3, KW: 3, Stride: 2, Pad: 1}
+	s2 := ConvShape{H: 14, W: 14, C: 32, OutC: 64, KH: 3, KW: 3, Stride: 2, Pad: 1}
+	n := 128
+	x := make([]float32, n*s1.InWidth())
+	for i := range x {
+		x[i] = float32(i%17) / 17
+	}
+	w1, b1 := make([]float32, s1.OutC*s1.K()), make([]float32, s1.OutC)
+	w2, b2 := make([]float32, s2.OutC*s2.K()), make([]float32, s2.OutC)
+	for i := range w1 {
+		w1[i] = float32(i%7-3) / 10
+	}
+	for i := range w2 {
+		w2[i] = float32(i%5-2) / 10
+	}
+	var h1, c1, h2, c2, d1, d2, dc1, dc2 []float32
+	dw1, db1, dw2, db2 := make([]float32, len(w1)), make([]float32, len(b1)), make([]float32, len(w2)), make([]float32, len(b2))
+	dh1 := make([]float32, n*s2.InWidth())
+	b.ResetTimer()
+	for range b.N {
+		h1, c1 = ConvForward(h1, c1, x, w1, b1, n, s1)
+		h2, c2 = ConvForward(h2, c2, h1, w2, b2, n, s2)
+		if d2 == nil {
+			d2 = make([]float32, len(h2))
+			d1 = make([]float32, len(x))
+		}
+		copy(d2, h2)
+		dc2 = ConvBackward(dh1, dw2, db2, dc2, d2, c2, w2, n, s2)
+		dc1 = ConvBackward(d1, dw1, db1, dc1, dh1, c1, w1, n, s1)
+	}
 }
