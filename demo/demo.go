@@ -209,7 +209,7 @@ func Run(ctx context.Context, cfg Config) error {
 		return err
 	}
 	pg.Figures = append(pg.Figures, report.Figure{File: "curves.png", Caption: "Reconstruction error per epoch: training readings, solid; held-out healthy readings, dashed; the dotted line marks the best epoch."})
-	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, "reconstruction error"); err != nil {
+	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, m.ScoreName()); err != nil {
 		return err
 	}
 	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out week scores, healthy and faulty readings (each group scaled to the same area), with the threshold."})

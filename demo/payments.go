@@ -166,7 +166,7 @@ func runPayments(ctx context.Context, cfg Config, say func(string, ...any), phas
 		return err
 	}
 	pg.Figures = append(pg.Figures, report.Figure{File: "curves.png", Caption: "Reconstruction loss per epoch: training payments, solid; held-out payments, dashed; the dotted line marks the best epoch."})
-	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, "distance score"); err != nil {
+	if err := report.ScoreHistogram(filepath.Join(rdir, "scores.png"), values, th.Value, positive, m.ScoreName()); err != nil {
 		return err
 	}
 	pg.Figures = append(pg.Figures, report.Figure{File: "scores.png", Caption: "Hold-out month scores, normal payments and fraud (each group scaled to the same area), with the threshold."})
