@@ -74,7 +74,7 @@ func (op convOp) biasWidth() int {
 }
 
 func (op convOp) Do(in ...G.Value) (G.Value, error) {
-	t, err := denseMixed(in, 3)
+	t, err := tensors(in, 3)
 	if err != nil {
 		return nil, err
 	}
@@ -125,7 +125,7 @@ func (op convGradOp) InferShape(in ...G.DimSizer) (tensor.Shape, error) {
 }
 
 func (op convGradOp) Do(in ...G.Value) (G.Value, error) {
-	t, err := denseMixed(in, 4)
+	t, err := tensors(in, 4)
 	if err != nil {
 		return nil, err
 	}
@@ -175,25 +175,6 @@ func (op convGradOp) Do(in ...G.Value) (G.Value, error) {
 		copy(f32(out), [][]float32{sd.dx32, sd.dw32, sd.db32}[op.which])
 	case tensor.Float64:
 		copy(f64(out), [][]float64{sd.dx64, sd.dw64, sd.db64}[op.which])
-	}
-	return out, nil
-}
-
-// denseMixed is denseArgs for inputs of one element type and any sizes.
-func denseMixed(in []G.Value, n int) ([4]*tensor.Dense, error) {
-	var out [4]*tensor.Dense
-	if len(in) != n || n > len(out) {
-		return out, fmt.Errorf("engine: fused operation wants %d inputs, got %d", n, len(in))
-	}
-	for i, v := range in {
-		d, ok := v.(*tensor.Dense)
-		if !ok {
-			return out, fmt.Errorf("engine: fused operation input %d is %T", i, v)
-		}
-		if i > 0 && d.Dtype() != out[0].Dtype() {
-			return out, fmt.Errorf("engine: fused operation inputs of types %v and %v", out[0].Dtype(), d.Dtype())
-		}
-		out[i] = d
 	}
 	return out, nil
 }
