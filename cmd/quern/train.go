@@ -576,7 +576,11 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	tl, vl := h.Loss(len(h.Epochs))
 	line := fmt.Sprintf("wrote %s: %s, %d epochs, final training loss %.6g", out, kindPhrase(m.Kind()), len(h.Epochs), tl)
 	if valSet != nil {
-		line += fmt.Sprintf(", validation loss %.6g (best epoch %d)", vl, h.BestEpoch)
+		if ts := t.Settings(); ts.Patience > 0 && !ts.KeepLast {
+			line += fmt.Sprintf(", validation loss %.6g (best epoch %d, whose weights are kept)", vl, h.BestEpoch)
+		} else {
+			line += fmt.Sprintf(", validation loss %.6g (lowest at epoch %d; the last epoch's weights are kept)", vl, h.BestEpoch)
+		}
 	}
 	if h.StoppedEarly {
 		line += ", stopped early"
