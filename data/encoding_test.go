@@ -194,6 +194,20 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	d, err = ReadCSV(strings.NewReader(numbered.String()), "n.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)
 	require.Equal(t, []string{`column "student" left out: its values are the whole numbers 101 to 130, each once: a row number or an identifier rather than a measurement (quern score -keep student passes it through beside the scores; -types student=categorical reads it as a category)`}, d.LeftOut)
+	// a table of numbers too: its row-number column is left out, the
+	// others kept in order
+	var nums strings.Builder
+	nums.WriteString("rowid,a,b\n")
+	for i := range 30 {
+		fmt.Fprintf(&nums, "%d,%d,%d.5\n", 1000+(i*11)%30, i%4, i)
+	}
+	d, err = ReadCSV(strings.NewReader(nums.String()), "r.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	require.Equal(t, []string{"a", "b"}, d.Encoding.Names())
+	require.Equal(t, []string{"a", "b"}, d.Columns)
+	require.Equal(t, 2, d.Cols)
+	require.Equal(t, []float32{1, 1.5}, d.X[2:4])
+	require.Equal(t, []string{`column "rowid" left out: its values are the whole numbers 1000 to 1029, each once: a row number or an identifier rather than a measurement (quern score -keep rowid passes it through beside the scores)`}, d.LeftOut)
 	// ten different texts are too few to call an identifier
 	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)

@@ -158,7 +158,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		var pe *ParseError
 		if err == nil {
 			d.Encoding = plainEncoding(d, markersOf(&cfg))
-			return d, nil
+			return leaveOutRowNumbers(d), nil
 		}
 		if !errors.As(err, &pe) || !pe.text {
 			return nil, err
@@ -392,4 +392,66 @@ func (s *columnStats) merge(o *columnStats) {
 		s.lo[j], s.hi[j] = min(s.lo[j], o.lo[j]), max(s.hi[j], o.hi[j])
 		s.whole[j] = s.whole[j] && o.whole[j]
 	}
+}
+
+// leaveOutRowNumbers leaves out of a table of numbers each whole-number
+// column that holds every number from its least to its greatest once (a
+// row number: minIdentifierRows rows or more), as a typed reading of a
+// table with texts does (notAFeature), and says so in LeftOut.
+func leaveOutRowNumbers(d *Dataset) *Dataset {
+	e := d.Encoding
+	if d.Rows < minIdentifierRows || e == nil || len(e.Fields) != d.Cols || d.Cols < 2 {
+		return d
+	}
+	var drop []int
+	seen := make([]bool, d.Rows)
+	for j := range e.Fields {
+		f := &e.Fields[j]
+		if f.Type != Integer || f.Max-f.Min+1 != float64(d.Rows) {
+			continue
+		}
+		clear(seen)
+		once := true
+		for r := 0; r < d.Rows && once; r++ {
+			k := int(float64(d.X[r*d.Cols+j]) - f.Min)
+			if k < 0 || k >= d.Rows || seen[k] {
+				once = false
+				break
+			}
+			seen[k] = true
+		}
+		if once {
+			drop = append(drop, j)
+		}
+	}
+	if len(drop) == 0 || len(drop) == d.Cols {
+		return d
+	}
+	keep := make([]int, 0, d.Cols-len(drop))
+	for j := range d.Cols {
+		if !slices.Contains(drop, j) {
+			keep = append(keep, j)
+		}
+	}
+	x := make([]float32, d.Rows*len(keep))
+	for r := range d.Rows {
+		row := d.X[r*d.Cols : (r+1)*d.Cols]
+		for i, j := range keep {
+			x[r*len(keep)+i] = row[j]
+		}
+	}
+	nd := *d
+	nd.X, nd.Cols, nd.stats = x, len(keep), nil
+	nd.Columns = make([]string, len(keep))
+	fields := make([]Field, len(keep))
+	for i, j := range keep {
+		nd.Columns[i], fields[i] = d.Columns[j], e.Fields[j]
+	}
+	nd.Encoding = &Encoding{Fields: fields, Markers: e.Markers}
+	for _, j := range drop {
+		f := &e.Fields[j]
+		nd.LeftOut = append(nd.LeftOut, fmt.Sprintf("column %q left out: its values are the whole numbers %s to %s, each once: a row number or an identifier rather than a measurement (quern score -keep %s passes it through beside the scores)",
+			f.Name, strconv.FormatFloat(f.Min, 'f', -1, 64), strconv.FormatFloat(f.Max, 'f', -1, 64), f.Name))
+	}
+	return &nd
 }
