@@ -231,6 +231,7 @@ func TestScoreSaysWhatItCouldNotRead(t *testing.T) {
 	// missing, not a level never seen: only WEB counts
 	require.Contains(t, r.stderr, "1 row with a category level never seen in training, flagged whatever the score")
 	recs := readCSVFile(t, filepath.Join(dir, "s.csv"))
+	require.Equal(t, "true", recs[1][5], "the row with a level never seen (WEB, a column without missing cells in training) is flagged in the file too")
 	require.Equal(t, []string{"row", "id", "status (kept)", "score"}, recs[0][:4])
 	require.Equal(t, "status", recs[0][len(recs[0])-1])
 	require.Contains(t, recs[1][len(recs[1])-1], `channel: level "WEB" not seen in training ("web" was: levels are told apart by case)`)

@@ -328,13 +328,13 @@ func cmdScore(e *env, args []string) error {
 			if s.Unscorable != "" {
 				value = ""
 			}
-			rec = append(rec, value, strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			if note != nil {
 				modelio.MarkMissing(&s, note.Text)
 				if name := data.NoteUnseen(note.Text); name != "" && s.Unseen == "" {
 					s.Unseen, s.Anomaly = name, true
 				}
 			}
+			rec = append(rec, value, strconv.FormatFloat(s.Threshold, 'g', 8, 64), strconv.FormatBool(s.Anomaly))
 			for k := 0; k < *top; k++ {
 				if k >= len(s.Top) {
 					rec = append(rec, "", "", "", "")
