@@ -32,6 +32,16 @@ type dataFlags struct {
 	missing string
 	// a model's encoding to read a CSV by (loadFor)
 	enc *data.Encoding
+	// phase names the status line's loading phase ("" : load)
+	phase string
+}
+
+// loadPhase is the name of the loading phase.
+func (d *dataFlags) loadPhase() string {
+	if d.phase != "" {
+		return d.phase
+	}
+	return "load"
 }
 
 // registerForModel adds the data flags of a command that reads rows for
@@ -220,7 +230,7 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 	if d.path == "-" {
 		// standard input: CSV, plain or gzip
 		if st != nil {
-			st.begin("load", func() string { return "standard input" })
+			st.begin(d.loadPhase(), func() string { return "standard input" })
 			defer st.end()
 		}
 		ds, err := data.ReadCSVStream(os.Stdin, "standard input", csvCfg)
@@ -247,7 +257,7 @@ func (d *dataFlags) load(st *status) (*data.Dataset, data.Format, error) {
 			done, total = dn, tt
 			mu.Unlock()
 		}
-		st.begin("load", loadDetail(d.path, &done, &total, &mu))
+		st.begin(d.loadPhase(), loadDetail(d.path, &done, &total, &mu))
 		defer st.end()
 	}
 	ds, f, err := data.Load(d.path, cfg)

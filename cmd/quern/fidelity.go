@@ -44,7 +44,7 @@ func cmdFidelity(e *env, args []string) error {
 	}
 	sets := map[string]*data.Dataset{}
 	for _, f := range []struct{ flag, path string }{{"-train", *trainPath}, {"-holdout", *holdPath}} {
-		d := dataFlags{path: f.path}
+		d := dataFlags{path: f.path, phase: "load " + f.flag[1:]}
 		ds, err := l.loadRows(&d, st)
 		if err != nil {
 			return err
