@@ -51,8 +51,10 @@ type Dataset struct {
 	// identifier or a time and so left out of the features, which and
 	// why (a type given for the column reads it instead).
 	LeftOut []string
-	// Stray says, for each column of numbers a typed reading found a few
-	// texts in, that those cells were read as missing.
+	// Stray says what a typed reading doubted but did anyway: the few
+	// texts in a column of numbers read as missing cells, a column named
+	// in the column list that looks like an identifier or a time read as
+	// asked.
 	Stray []string
 
 	// stats are each column's range, gathered while a typed reading

@@ -208,6 +208,16 @@ func TestIdentifiersAndTimesLeftOut(t *testing.T) {
 	require.Equal(t, 2, d.Cols)
 	require.Equal(t, []float32{1, 1.5}, d.X[2:4])
 	require.Equal(t, []string{`column "rowid" left out: its values are the whole numbers 1000 to 1029, each once: a row number or an identifier rather than a measurement (quern score -keep rowid passes it through beside the scores)`}, d.LeftOut)
+	// a column the user names is read as asked, the doubt said
+	d, err = ReadCSV(strings.NewReader(nums.String()), "r.csv", CSVConfig{Typed: true, Columns: []string{"rowid", "a"}})
+	require.NoError(t, err)
+	require.Equal(t, []string{"rowid", "a"}, d.Encoding.Names())
+	require.Empty(t, d.LeftOut)
+	require.Equal(t, []string{`column "rowid": its values are the whole numbers 1000 to 1029, each once: a row number or an identifier rather than a measurement; read as a feature, as the column list asks`}, d.Stray)
+	d, err = ReadCSV(strings.NewReader(b.String()), "p.csv", CSVConfig{Typed: true, Columns: []string{"when", "shop"}})
+	require.NoError(t, err)
+	require.Equal(t, []string{"when", "shop"}, d.Encoding.Names())
+	require.Contains(t, d.Stray[0], `column "when": its cells are dates or times; read as a feature, as the column list asks`)
 	// ten different texts are too few to call an identifier
 	d, err = ReadCSV(strings.NewReader("k,v\na,1\nb,2\nc,3\nd,4\ne,5\nf,6\ng,7\nh,8\ni,9\nj,10\n"), "k.csv", CSVConfig{Typed: true})
 	require.NoError(t, err)

@@ -158,7 +158,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		var pe *ParseError
 		if err == nil {
 			d.Encoding = plainEncoding(d, markersOf(&cfg))
-			return leaveOutRowNumbers(d), nil
+			return leaveOutRowNumbers(d, cfg.Columns != nil), nil
 		}
 		if !errors.As(err, &pe) || !pe.text {
 			return nil, err
@@ -181,7 +181,13 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 	for k, c := range sv.pass.survey {
 		col := sd.Columns[k]
 		want := cfg.Types[col]
-		if why, times := c.notAFeature(cmpOrInt(cfg.MaxLevels, DefaultMaxLevels)); want == "" && why != "" {
+		why, times := c.notAFeature(cmpOrInt(cfg.MaxLevels, DefaultMaxLevels))
+		if want == "" && why != "" && cfg.Columns != nil {
+			// named by the user: read as asked, and said
+			stray = append(stray, fmt.Sprintf("column %q: %s; read as a feature, as the column list asks", col, why))
+			why = ""
+		}
+		if want == "" && why != "" {
 			how := fmt.Sprintf("quern score -keep %s passes it through beside the scores", col)
 			if !times {
 				how += fmt.Sprintf("; -types %s=categorical reads it as a category", col)
@@ -397,8 +403,9 @@ func (s *columnStats) merge(o *columnStats) {
 // leaveOutRowNumbers leaves out of a table of numbers each whole-number
 // column that holds every number from its least to its greatest once (a
 // row number: minIdentifierRows rows or more), as a typed reading of a
-// table with texts does (notAFeature), and says so in LeftOut.
-func leaveOutRowNumbers(d *Dataset) *Dataset {
+// table with texts does (notAFeature), and says so in LeftOut; columns
+// the user named (named) are kept and the doubt said in Stray.
+func leaveOutRowNumbers(d *Dataset, named bool) *Dataset {
 	e := d.Encoding
 	if d.Rows < minIdentifierRows || e == nil || len(e.Fields) != d.Cols || d.Cols < 2 {
 		return d
@@ -425,6 +432,15 @@ func leaveOutRowNumbers(d *Dataset) *Dataset {
 		}
 	}
 	if len(drop) == 0 || len(drop) == d.Cols {
+		return d
+	}
+	if named {
+		// the columns the user named are read as asked, and said
+		for _, j := range drop {
+			f := &e.Fields[j]
+			d.Stray = append(d.Stray, fmt.Sprintf("column %q: its values are the whole numbers %s to %s, each once: a row number or an identifier rather than a measurement; read as a feature, as the column list asks",
+				f.Name, strconv.FormatFloat(f.Min, 'f', -1, 64), strconv.FormatFloat(f.Max, 'f', -1, 64)))
+		}
 		return d
 	}
 	keep := make([]int, 0, d.Cols-len(drop))
