@@ -244,6 +244,26 @@ func TestUnseen(t *testing.T) {
 	require.Equal(t, "", NoteUnseen("d: missing"))
 }
 
+// A number column holding an integer's extreme (or a run of nines) far
+// beyond its other values is named: a code for a missing value, not a
+// measurement; an ordinary wide column is not.
+func TestSentinels(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("pulse,wide\n")
+	for i := range 40 {
+		pulse := fmt.Sprint(60 + i%30)
+		if i%13 == 0 {
+			pulse = "-2147483648"
+		}
+		fmt.Fprintf(&b, "%s,%d\n", pulse, i*i*1000)
+	}
+	d, err := ReadCSV(strings.NewReader(b.String()), "s.csv", CSVConfig{Typed: true})
+	require.NoError(t, err)
+	got := d.Sentinels()
+	require.Len(t, got, 1)
+	require.Contains(t, got[0], `column "pulse": 4 rows hold -2147483648, far outside its other values`)
+}
+
 // Decode turns inputs back into cells: ranges kept, integers rounded,
 // booleans and levels chosen, indicators read as missing (worked by
 // hand).

@@ -471,3 +471,75 @@ func leaveOutRowNumbers(d *Dataset, named bool) *Dataset {
 	}
 	return &nd
 }
+
+// sentinels are numbers that records often hold for "no value": the
+// extremes of 16- and 32-bit integers and runs of nines.
+var sentinels = []float64{-2147483648, 2147483647, -32768, 32767, 65535, 4294967295,
+	-9999, 9999, -99999, 99999, -999999, 999999, 9999999, -999, 999}
+
+// Sentinels names each number column holding a sentinel value (see
+// sentinels) far outside its other values (beyond ten interquartile
+// ranges of its quartiles): most likely a code for a missing value,
+// which a model would read as a real, extreme number.
+func (d *Dataset) Sentinels() []string {
+	if d.Image != nil || d.Rows < 4 {
+		return nil
+	}
+	type col struct {
+		j    int
+		name string
+	}
+	var cols []col
+	if e := d.Encoding; e != nil && e.Width() == d.Cols {
+		at := 0
+		for _, f := range e.Fields {
+			if f.Type == Numeric || f.Type == Integer {
+				cols = append(cols, col{at, f.Name})
+			}
+			at += f.Width()
+		}
+	} else {
+		for j := range d.Cols {
+			name := fmt.Sprintf("column %d", j+1)
+			if j < len(d.Columns) && d.Columns[j] != "" {
+				name = d.Columns[j]
+			}
+			cols = append(cols, col{j, name})
+		}
+	}
+	var out []string
+	step := max(1, d.Rows/fillSample)
+	vals := make([]float64, 0, min(d.Rows, fillSample+1))
+	for _, c := range cols {
+		vals = vals[:0]
+		for r := 0; r < d.Rows; r += step {
+			vals = append(vals, float64(d.X[r*d.Cols+c.j]))
+		}
+		slices.Sort(vals)
+		q1, q3 := vals[len(vals)/4], vals[(3*len(vals))/4]
+		iqr := q3 - q1
+		for _, s := range sentinels {
+			if (iqr > 0 && s >= q1-10*iqr && s <= q3+10*iqr) || (iqr == 0 && s == q1) {
+				continue
+			}
+			n := 0
+			for r := range d.Rows {
+				if float64(d.X[r*d.Cols+c.j]) == s {
+					n++
+				}
+			}
+			if n > 0 {
+				out = append(out, fmt.Sprintf("column %q: %s hold %s, far outside its other values (quartiles %s and %s): a code for a missing value? -missing with %s among its texts reads it as missing",
+					c.name, pluralRows(n), strconv.FormatFloat(s, 'f', -1, 64), strconv.FormatFloat(q1, 'g', 6, 64), strconv.FormatFloat(q3, 'g', 6, 64), strconv.FormatFloat(s, 'f', -1, 64)))
+			}
+		}
+	}
+	return out
+}
+
+func pluralRows(n int) string {
+	if n == 1 {
+		return "1 row"
+	}
+	return fmt.Sprintf("%d rows", n)
+}

@@ -882,7 +882,7 @@ const minRows = 50
 // the inputs (an autoencoder that can copy its input).
 func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 	var out []string
-	for _, s := range append(append([]string(nil), d.LeftOut...), d.Stray...) {
+	for _, s := range append(append(append([]string(nil), d.LeftOut...), d.Stray...), d.Sentinels()...) {
 		out = append(out, "warning: "+s)
 	}
 	if n := len(d.Skipped); n > 0 {
