@@ -262,6 +262,24 @@ func TestSentinels(t *testing.T) {
 	got := d.Sentinels()
 	require.Len(t, got, 1)
 	require.Contains(t, got[0], `column "pulse": 4 rows hold -2147483648, far outside its other values`)
+	// given as a marker, the sentinel is a missing cell, in a table of
+	// numbers too (the numbers' own pass would read it as a number)
+	d, err = ReadCSV(strings.NewReader(b.String()), "s.csv", CSVConfig{Typed: true, Missing: []string{"-2147483648"}})
+	require.NoError(t, err)
+	require.Equal(t, 4, d.Encoding.Fields[0].Missing)
+	require.True(t, d.Encoding.Fields[0].Indicator)
+	require.Empty(t, d.Sentinels())
+	later, err := ReadCSV(strings.NewReader("pulse,wide\n-2147483648,5\n"), "l.csv", CSVConfig{Encoding: d.Encoding})
+	require.NoError(t, err)
+	require.Contains(t, later.Notes[0].Text, "pulse: missing, filled with")
+	// a number marker no training cell held still marks a later one
+	clean, err := ReadCSV(strings.NewReader("a,b\n1,2\n3,4\n5,7\n"), "c.csv", CSVConfig{Typed: true, Missing: []string{"-9999"}})
+	require.NoError(t, err)
+	require.True(t, clean.Encoding.Plain())
+	later, err = ReadCSV(strings.NewReader("a,b\n-9999,2\n"), "l.csv", CSVConfig{Encoding: clean.Encoding})
+	require.NoError(t, err)
+	require.Len(t, later.Notes, 1)
+	require.Contains(t, later.Notes[0].Text, "a: missing, filled with")
 }
 
 // Decode turns inputs back into cells: ranges kept, integers rounded,

@@ -127,7 +127,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 		if err := cfg.Encoding.Check(); err != nil {
 			return nil, err
 		}
-		if cfg.Encoding.Plain() && !cfg.NoHeader {
+		if cfg.Encoding.Plain() && !cfg.NoHeader && !numberMarker(cfg.Encoding.Markers) {
 			// a table of numbers: the numbers' own pass, and the
 			// encoding's only when a cell is not a number
 			num := cfg
@@ -153,7 +153,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 	if cfg.MaxLevels < 0 {
 		return nil, fmt.Errorf("%w: MaxLevels %d", ErrConfig, cfg.MaxLevels)
 	}
-	if len(cfg.Types) == 0 {
+	if len(cfg.Types) == 0 && !numberMarker(markersOf(&cfg)) {
 		d, err := read(cfg)
 		var pe *ParseError
 		if err == nil {
@@ -248,6 +248,18 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 	d.Notes = nil // in training rows, filled cells are the norm
 	d.LeftOut, d.Stray = leftOut, stray
 	return d, nil
+}
+
+// numberMarker reports whether a missing-cell marker reads as a number
+// (a sentinel such as -9999): the numbers' own pass would take it for
+// one, so the reading goes by the survey, which sees markers first.
+func numberMarker(markers []string) bool {
+	for _, m := range markers {
+		if _, kind := classify(m); kind == cellNumber {
+			return true
+		}
+	}
+	return false
 }
 
 // markersOf is cfg's missing-cell markers.
