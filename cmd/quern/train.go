@@ -398,7 +398,23 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 		return err
 	}
 	if prov, err := modelfile.ProvenanceOf(f); err == nil && prov != nil && prov.DataFingerprint != "" && prov.DataFingerprint != full.Fingerprint() {
-		return fmt.Errorf("%s differs from the data the checkpoint was trained on (fingerprint %.12s..., now %.12s...)", d.path, prov.DataFingerprint, full.Fingerprint())
+		why := ""
+		if sm, ok := t.Model().(interface{ Schema() data.Schema }); ok {
+			// the same file read differently: say which columns
+			var gone []string
+			for _, c := range sm.Schema().Columns {
+				if !slices.Contains(full.Columns, c) {
+					gone = append(gone, c)
+				}
+			}
+			if len(gone) > 0 {
+				why = fmt.Sprintf("; the checkpoint's inputs %s are not read now", strings.Join(gone, ", "))
+				if len(full.LeftOut) > 0 {
+					why += " (" + strings.Join(full.LeftOut, "; ") + ")"
+				}
+			}
+		}
+		return fmt.Errorf("%s differs from the data the checkpoint was trained on (fingerprint %.12s..., now %.12s...)%s", d.path, prov.DataFingerprint, full.Fingerprint(), why)
 	}
 	checkpoint := ""
 	if rec.Every > 0 {
