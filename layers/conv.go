@@ -24,7 +24,7 @@ func (s ConvShape) Check() error {
 	if s.H <= 0 || s.W <= 0 || s.C <= 0 || s.OutC <= 0 || s.KH <= 0 || s.KW <= 0 || s.Stride <= 0 || s.Pad < 0 {
 		return fmt.Errorf("layers: convolution %+v: sizes must be positive (padding 0 or more)", s)
 	}
-	if oh, ow := s.Out(); oh <= 0 || ow <= 0 {
+	if oh, ow := s.Out(); oh <= 0 || ow <= 0 || s.H+2*s.Pad < s.KH || s.W+2*s.Pad < s.KW {
 		return fmt.Errorf("layers: a %dx%d kernel does not fit a %dx%d image with padding %d", s.KH, s.KW, s.H, s.W, s.Pad)
 	}
 	return nil

@@ -3,6 +3,7 @@ package layers
 import (
 	"encoding/json"
 	"math"
+	"math/rand/v2"
 	"os"
 	"testing"
 
@@ -186,5 +187,52 @@ func BenchmarkConvEncoder(b *testing.B) {
 		copy(d2, h2)
 		dc2 = ConvBackward(dh1, dw2, db2, dc2, d2, c2, w2, n, s2)
 		dc1 = ConvBackward(d1, dw1, db1, dc1, dh1, c1, w1, n, s1)
+	}
+}
+
+// A ConvPlan's networks: the shapes a loader checks equal the parameters
+// made, a plan that does not fit is refused with the reason, and a
+// float64 network's graph-free pass equals float32's within rounding.
+func TestConvPlanNetworks(t *testing.T) {
+	for _, out := range []bool{false, true} {
+		plan := ConvPlan{Image: [3]int{28, 28, 1}, Channels: []int{32, 64}, Out: out}
+		widths := []int{784, 16}
+		if out {
+			widths = []int{16, 784}
+		}
+		cfg := MLPConfig{Name: "net", Widths: widths, Conv: &plan}
+		m, err := NewMLP(cfg, rand.New(rand.NewPCG(1, 2)))
+		require.NoError(t, err)
+		var got []ParamShape
+		for _, p := range m.Params() {
+			r, c := p.Shape()
+			got = append(got, ParamShape{Name: p.Name(), Rows: r, Cols: c})
+		}
+		require.Equal(t, cfg.ParamShapes(), got)
+		// 28 -> 14 -> 7: the dense part meets 7x7x64 maps
+		require.Equal(t, 7*7*64, plan.InnerWidth())
+		if out {
+			require.Equal(t, "net.conv1.weight", got[2].Name)
+			require.Equal(t, []int{64, 9 * 32}, []int{got[2].Rows, got[2].Cols})
+			require.Equal(t, 1, got[len(got)-1].Cols, "last bias: one image channel")
+		} else {
+			require.Equal(t, "net.conv0.weight", got[0].Name)
+			require.Equal(t, []int{32, 9}, []int{got[0].Rows, got[0].Cols})
+		}
+	}
+	for _, tc := range []struct {
+		plan   ConvPlan
+		widths []int
+		want   string
+	}{
+		{ConvPlan{Image: [3]int{28, 28, 1}, Channels: []int{8}}, []int{780, 4}, "not the 784 of 28x28x1 images"},
+		{ConvPlan{Image: [3]int{2, 2, 1}, Channels: []int{8, 8}, Kernel: 4}, []int{4, 4}, "too small"},
+		{ConvPlan{Image: [3]int{4, 4, 1}, Channels: []int{0}}, []int{16, 4}, "0 channels"},
+		{ConvPlan{Image: [3]int{4, 0, 1}, Channels: []int{2}}, []int{16, 4}, "images of 4x0"},
+		{ConvPlan{Image: [3]int{4, 4, 1}}, []int{16, 4}, "0 convolutions"},
+	} {
+		_, err := NewMLP(MLPConfig{Widths: tc.widths, Conv: &tc.plan}, rand.New(rand.NewPCG(1, 2)))
+		require.ErrorIs(t, err, ErrConfig)
+		require.ErrorContains(t, err, tc.want)
 	}
 }

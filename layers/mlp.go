@@ -51,12 +51,25 @@ type MLPConfig struct {
 	Dropout float64
 	// Precision of the parameters. Default Float32.
 	Precision Precision
+	// Conv, when set, puts convolutions at the network's image end (see
+	// ConvPlan); Widths still run from the network's input to its
+	// output, the image end's width being the image's H*W*C. The
+	// convolutions' activation is Hidden, but for the last transposed
+	// one of an image-output network, which takes Output. Default none.
+	Conv *ConvPlan
 }
 
-// MLP is a multi-layer perceptron: a chain of Dense layers.
+// MLP is a feed-forward network: a chain of Dense layers, with
+// convolutions before them (Front, for an image input) or transposed
+// convolutions after them (Back, for an image output) when it was built
+// with a ConvPlan.
 type MLP struct {
 	Name   string
+	Front  []*Conv
 	Layers []*Dense
+	Back   []*Conv
+	// Plan is the ConvPlan the network was built with (nil for none).
+	Plan *ConvPlan
 }
 
 // Bounds on the networks this package builds, checked before anything is
@@ -91,6 +104,11 @@ func (c MLPConfig) withDefaults() MLPConfig {
 	if c.LeakySlope == 0 {
 		c.LeakySlope = 0.01
 	}
+	if c.Conv != nil {
+		p := c.Conv.withDefaults()
+		p.Channels = append([]int(nil), p.Channels...)
+		c.Conv = &p
+	}
 	return c
 }
 
@@ -108,8 +126,14 @@ func (c MLPConfig) Validate() error {
 		if w <= 0 || w > MaxWidth {
 			return fmt.Errorf("%w: MLP %q width %d is %d, want 1..%d", ErrConfig, c.Name, i, w, MaxWidth)
 		}
-		if i > 0 {
-			params += (c.Widths[i-1] + 1) * w
+	}
+	if c.Conv != nil {
+		if err := c.validateConv(); err != nil {
+			return err
+		}
+	} else {
+		for i := 1; i < len(c.Widths); i++ {
+			params += (c.Widths[i-1] + 1) * c.Widths[i]
 			if params > MaxParams {
 				return fmt.Errorf("%w: MLP %q has over %d parameters", ErrConfig, c.Name, MaxParams)
 			}
@@ -143,13 +167,20 @@ func NewMLP(cfg MLPConfig, rng *rand.Rand) (*MLP, error) {
 	if rng == nil {
 		return nil, fmt.Errorf("%w: MLP %q needs a random generator", ErrConfig, cfg.Name)
 	}
-	m := &MLP{Name: cfg.Name}
-	n := len(cfg.Widths) - 1
+	m := &MLP{Name: cfg.Name, Plan: cfg.Conv}
+	if p := cfg.Conv; p != nil && !p.Out {
+		m.Front = newConvs(cfg.Name, *p, cfg.Hidden, cfg.Hidden, cfg.LeakySlope, cfg.Precision, rng)
+	}
+	widths := cfg.denseWidths()
+	n := len(widths) - 1
 	for i := 0; i < n; i++ {
-		in, out := cfg.Widths[i], cfg.Widths[i+1]
+		in, out := widths[i], widths[i+1]
 		act, drop := cfg.Hidden, cfg.Dropout
 		if i == n-1 {
 			act, drop = cfg.Output, 0
+			if cfg.Conv != nil && cfg.Conv.Out {
+				act = cfg.Hidden
+			}
 		}
 		d := &Dense{
 			In: in, Out: out, Act: act, Slope: cfg.LeakySlope, Dropout: drop,
@@ -173,23 +204,42 @@ func NewMLP(cfg MLPConfig, rng *rand.Rand) (*MLP, error) {
 		}
 		m.Layers = append(m.Layers, d)
 	}
+	if p := cfg.Conv; p != nil && p.Out {
+		m.Back = newConvs(cfg.Name, *p, cfg.Hidden, cfg.Output, cfg.LeakySlope, cfg.Precision, rng)
+	}
 	return m, nil
 }
 
 // In is the input width.
-func (m *MLP) In() int { return m.Layers[0].In }
+func (m *MLP) In() int {
+	if len(m.Front) > 0 {
+		return m.Front[0].In()
+	}
+	return m.Layers[0].In
+}
 
 // Out is the output width.
-func (m *MLP) Out() int { return m.Layers[len(m.Layers)-1].Out }
+func (m *MLP) Out() int {
+	if len(m.Back) > 0 {
+		return m.Back[len(m.Back)-1].Out()
+	}
+	return m.Layers[len(m.Layers)-1].Out
+}
 
 // Precision is the precision of the MLP's parameters.
 func (m *MLP) Precision() Precision { return m.Layers[0].W.prec }
 
 // Params lists every parameter in layer order (weight then bias).
 func (m *MLP) Params() []*Param {
-	ps := make([]*Param, 0, 2*len(m.Layers))
+	ps := make([]*Param, 0, 2*(len(m.Front)+len(m.Layers)+len(m.Back)))
+	for _, c := range m.Front {
+		ps = append(ps, c.W, c.B)
+	}
 	for _, d := range m.Layers {
 		ps = append(ps, d.W, d.B)
+	}
+	for _, c := range m.Back {
+		ps = append(ps, c.W, c.B)
 	}
 	return ps
 }
@@ -206,6 +256,9 @@ func (m *MLP) Freeze(f bool) {
 type Workspace struct {
 	a32, b32 []float32
 	a64, b64 []float64
+	// patches of the convolutions
+	cols32 []float32
+	cols64 []float64
 	fin      finish32
 	// inputs converted to the network's precision (Run)
 	in32 []float32
@@ -232,16 +285,26 @@ func (m *MLP) Forward32(x []float32, rows int, ws *Workspace) ([]float32, error)
 	if rows < 0 || len(x) != rows*m.In() {
 		return nil, fmt.Errorf("layers: MLP %q: input has %d values, want %d rows x %d", m.Name, len(x), rows, m.In())
 	}
-	cur := x
-	for i, d := range m.Layers {
-		var dst []float32
-		if i%2 == 0 {
-			ws.a32 = grow(ws.a32, rows*d.Out)
-			dst = ws.a32
-		} else {
-			ws.b32 = grow(ws.b32, rows*d.Out)
-			dst = ws.b32
+	cur, step := x, 0
+	// next is the ping-pong buffer the next layer writes
+	next := func(n int) []float32 {
+		step++
+		if step%2 == 1 {
+			ws.a32 = grow(ws.a32, n)
+			return ws.a32
 		}
+		ws.b32 = grow(ws.b32, n)
+		return ws.b32
+	}
+	for _, c := range m.Front {
+		dst := next(rows * c.Out())
+		if rows > 0 {
+			dst = convForward32(c, dst, cur, rows, ws)
+		}
+		cur = dst
+	}
+	for _, d := range m.Layers {
+		dst := next(rows * d.Out)
 		if rows > 0 {
 			// the training graphs' matrix product; the bias and the
 			// activation go on each block as it is finished
@@ -249,6 +312,13 @@ func (m *MLP) Forward32(x []float32, rows int, ws *Workspace) ([]float32, error)
 			f.c, f.b, f.ldc, f.act, f.slope = dst, d.B.v32, d.Out, d.Act, float32(d.Slope)
 			gemm.SgemmThen(blas.NoTrans, blas.NoTrans, rows, d.Out, d.In, 1, cur, d.In, d.W.v32, d.Out, 0, dst, d.Out, f)
 			f.c, f.b = nil, nil
+		}
+		cur = dst
+	}
+	for _, c := range m.Back {
+		dst := next(rows * c.Out())
+		if rows > 0 {
+			dst = convForward32(c, dst, cur, rows, ws)
 		}
 		cur = dst
 	}
@@ -284,18 +354,34 @@ func (m *MLP) Forward64(x []float64, rows int, ws *Workspace) ([]float64, error)
 	if rows < 0 || len(x) != rows*m.In() {
 		return nil, fmt.Errorf("layers: MLP %q: input has %d values, want %d rows x %d", m.Name, len(x), rows, m.In())
 	}
-	cur := x
-	for i, d := range m.Layers {
-		var dst []float64
-		if i%2 == 0 {
-			ws.a64 = grow(ws.a64, rows*d.Out)
-			dst = ws.a64
-		} else {
-			ws.b64 = grow(ws.b64, rows*d.Out)
-			dst = ws.b64
+	cur, step := x, 0
+	next := func(n int) []float64 {
+		step++
+		if step%2 == 1 {
+			ws.a64 = grow(ws.a64, n)
+			return ws.a64
 		}
+		ws.b64 = grow(ws.b64, n)
+		return ws.b64
+	}
+	for _, c := range m.Front {
+		dst := next(rows * c.Out())
+		if rows > 0 {
+			dst = convForward64(c, dst, cur, rows, ws)
+		}
+		cur = dst
+	}
+	for _, d := range m.Layers {
+		dst := next(rows * d.Out)
 		affine(dst, cur, d.W.v64, d.B.v64, rows, d.In, d.Out)
 		applyInPlace64(d.Act, dst, d.Slope)
+		cur = dst
+	}
+	for _, c := range m.Back {
+		dst := next(rows * c.Out())
+		if rows > 0 {
+			dst = convForward64(c, dst, cur, rows, ws)
+		}
 		cur = dst
 	}
 	return cur, nil

@@ -66,13 +66,27 @@ type ParamShape struct {
 // widths, in Params order, without making them: a loader checks a file's
 // tensors against it before allocating anything.
 func MLPShapes(name string, widths []int) []ParamShape {
+	return MLPConfig{Name: name, Widths: widths}.ParamShapes()
+}
+
+// ParamShapes lists the parameters NewMLP makes for c, in Params order,
+// without making them (nothing for a plan that does not fit).
+func (c MLPConfig) ParamShapes() []ParamShape {
 	var s []ParamShape
+	c = c.withDefaults()
+	if c.Conv != nil && !c.Conv.Out {
+		s = append(s, c.Conv.paramShapes(c.Name)...)
+	}
+	widths := c.denseWidths()
 	if len(widths) > MaxLayers+2 {
 		widths = widths[:MaxLayers+2] // a longer list is refused anyway
 	}
 	for i := 0; i+1 < len(widths); i++ {
-		s = append(s, ParamShape{fmt.Sprintf("%s.%d.weight", name, i), widths[i], widths[i+1]},
-			ParamShape{fmt.Sprintf("%s.%d.bias", name, i), 1, widths[i+1]})
+		s = append(s, ParamShape{fmt.Sprintf("%s.%d.weight", c.Name, i), widths[i], widths[i+1]},
+			ParamShape{fmt.Sprintf("%s.%d.bias", c.Name, i), 1, widths[i+1]})
+	}
+	if c.Conv != nil && c.Conv.Out {
+		s = append(s, c.Conv.paramShapes(c.Name)...)
 	}
 	return s
 }

@@ -508,6 +508,9 @@ func (gr *Graph) Dense(d *layers.Dense, x, mask *Node) *Node {
 // each step; dropout may be nil (no masks: inference and evaluation).
 func (gr *Graph) MLP(m *layers.MLP, x *Node, dropout []*Input) *Node {
 	h := x
+	for _, c := range m.Front {
+		h = gr.ConvLayer(c, h, nil)
+	}
 	for i, d := range m.Layers {
 		var mask *Node
 		if i < len(dropout) && dropout[i] != nil {
@@ -515,7 +518,27 @@ func (gr *Graph) MLP(m *layers.MLP, x *Node, dropout []*Input) *Node {
 		}
 		h = gr.Dense(d, h, mask)
 	}
+	for _, c := range m.Back {
+		h = gr.ConvLayer(c, h, nil)
+	}
 	return h
+}
+
+// ConvLayer applies a convolution layer, or a transposed one, and its
+// activation. scale, when not nil, is a 1 x 1 node the weights are
+// multiplied by first (spectral normalisation).
+func (gr *Graph) ConvLayer(c *layers.Conv, x, scale *Node) *Node {
+	w := gr.Param(c.W)
+	if scale != nil {
+		w = gr.Mul(scale, w)
+	}
+	var h *Node
+	if c.Transposed {
+		h = gr.ConvTranspose2D(x, w, gr.Param(c.B), c.Shape)
+	} else {
+		h = gr.Conv2D(x, w, gr.Param(c.B), c.Shape)
+	}
+	return gr.Activate(h, c.Act, c.Slope)
 }
 
 // DropoutInputs makes one mask input for each layer of m that has a
