@@ -259,7 +259,7 @@ type Workspace struct {
 	// patches of the convolutions
 	cols32 []float32
 	cols64 []float64
-	fin      finish32
+	fin    finish32
 	// inputs converted to the network's precision (Run)
 	in32 []float32
 	in64 []float64
