@@ -54,6 +54,16 @@ type Config struct {
 	// softmax cross-entropy there, the squared error elsewhere. Default
 	// none.
 	Categories [][2]int `json:",omitempty"`
+	// Image is the height, width and channels of the image rows the
+	// model reads (channels last), which Channels needs.
+	Image []int `json:",omitempty"`
+	// Channels lists the output channels of stride-2 convolutions that
+	// read the image before the encoder's dense layers, from the image
+	// inward; the decoder ends with their transposes (layers.ConvPlan).
+	// Default none: dense layers only.
+	Channels []int `json:",omitempty"`
+	// Kernel is the side of the convolutions' square kernels. Default 3.
+	Kernel int `json:",omitempty"`
 	// Classes > 0 adds a classification head on the code with that many
 	// classes (trained on the rows that have a label).
 	Classes int
@@ -130,6 +140,17 @@ func (c Config) Validate() error {
 	default:
 		return bad("unknown reconstruction loss %q (want mse or bce)", c.Loss)
 	}
+	if len(c.Channels) > 0 {
+		if len(c.Categories) > 0 {
+			return bad("convolutions read images, not a table with categories")
+		}
+		if _, err := layers.ImagePlan(c.Image, c.Channels, c.Kernel, false); err != nil {
+			return bad("%v", err)
+		}
+		if w := c.Image[0] * c.Image[1] * c.Image[2]; w != c.Inputs {
+			return bad("images of %dx%dx%d are %d values, not the %d inputs", c.Image[0], c.Image[1], c.Image[2], w, c.Inputs)
+		}
+	}
 	if len(c.Categories) > 0 {
 		if c.Loss != MSE {
 			return bad("categories need the mse loss, not %s", c.Loss)
@@ -156,22 +177,23 @@ func (c Config) Validate() error {
 	if !c.Activation.Concrete() || !c.CodeActivation.Concrete() {
 		return bad("unknown activation")
 	}
+	if err := c.net("encoder").Validate(); err != nil {
+		return bad("%v", err)
+	}
+	if err := c.net("decoder").Validate(); err != nil {
+		return bad("%v", err)
+	}
 	if c.Encoder != nil {
-		want := c.encoderWidths()
-		if len(c.Encoder.Layers) != len(want)-1 {
-			return bad("reused encoder has %d layers, want %d", len(c.Encoder.Layers), len(want)-1)
+		want := c.net("encoder").ParamShapes()
+		got := c.Encoder.Params()
+		if len(got) != len(want) {
+			return bad("reused encoder has %d parameters, want %d", len(got), len(want))
 		}
-		for i, d := range c.Encoder.Layers {
-			if d.In != want[i] || d.Out != want[i+1] {
-				return bad("reused encoder layer %d is %dx%d, want %dx%d", i, d.In, d.Out, want[i], want[i+1])
+		for i, p := range got {
+			if r, k := p.Shape(); r != want[i].Rows || k != want[i].Cols {
+				return bad("reused encoder's %s is %dx%d, want %dx%d", want[i].Name, r, k, want[i].Rows, want[i].Cols)
 			}
 		}
-	}
-	if err := layers.CheckWidths("encoder", c.encoderWidths()); err != nil {
-		return bad("%v", err)
-	}
-	if err := layers.CheckWidths("decoder", c.decoderWidths()); err != nil {
-		return bad("%v", err)
 	}
 	if c.Classes > 0 {
 		if err := layers.CheckWidths("head", c.headWidths()); err != nil {
@@ -194,6 +216,21 @@ func (c Config) decoderWidths() []int {
 		d[i] = e[len(e)-1-i]
 	}
 	return d
+}
+
+// net is the encoder's or the decoder's layers.MLPConfig (defaults filled
+// in; the caller sets nothing else).
+func (c Config) net(name string) layers.MLPConfig {
+	cfg := layers.MLPConfig{Name: name, Hidden: c.Activation, LinearHidden: c.Linear, LeakySlope: c.LeakySlope, Precision: c.Precision}
+	out := name == "decoder"
+	if out {
+		cfg.Widths, cfg.Output = c.decoderWidths(), layers.Identity
+	} else {
+		cfg.Widths, cfg.Output = c.encoderWidths(), c.CodeActivation
+	}
+	cfg.Conv, _ = layers.ImagePlan(c.Image, c.Channels, c.Kernel, out)
+	cfg.Dropout = c.Dropout
+	return cfg
 }
 
 func (c Config) headWidths() []int {

@@ -48,13 +48,11 @@ func New(cfg Config) (*Model, error) {
 	initRNG := rand.New(rand.NewPCG(cfg.Seed, stream.Init))
 	m := &Model{cfg: cfg}
 	var err error
-	m.Encoder, err = layers.NewMLP(layers.MLPConfig{Name: "encoder", Widths: cfg.encoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear,
-		Output: cfg.CodeActivation, LeakySlope: cfg.LeakySlope, Dropout: cfg.Dropout, Precision: cfg.Precision}, initRNG)
+	m.Encoder, err = layers.NewMLP(cfg.net("encoder"), initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("ae: %w", err)
 	}
-	m.Decoder, err = layers.NewMLP(layers.MLPConfig{Name: "decoder", Widths: cfg.decoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear,
-		Output: layers.Identity, LeakySlope: cfg.LeakySlope, Dropout: cfg.Dropout, Precision: cfg.Precision}, initRNG)
+	m.Decoder, err = layers.NewMLP(cfg.net("decoder"), initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("ae: %w", err)
 	}
@@ -78,7 +76,7 @@ func New(cfg Config) (*Model, error) {
 
 // paramShapes lists the parameters New makes for cfg (defaults filled in).
 func (c Config) paramShapes() []layers.ParamShape {
-	s := append(layers.MLPShapes("encoder", c.encoderWidths()), layers.MLPShapes("decoder", c.decoderWidths())...)
+	s := append(c.net("encoder").ParamShapes(), c.net("decoder").ParamShapes()...)
 	if c.Classes > 0 {
 		s = append(s, layers.MLPShapes("head", c.headWidths())...)
 	}

@@ -70,6 +70,18 @@ type Config struct {
 	Categories [][2]int `json:",omitempty"`
 	// Temperature of the Gumbel-softmax. Default 0.5.
 	Temperature float64 `json:",omitempty"`
+	// Image is the height, width and channels of the image rows the
+	// model makes (channels last), which Channels needs.
+	Image []int `json:",omitempty"`
+	// Channels lists the output channels of stride-2 convolutions that
+	// read the image before the discriminator's dense layers, from the
+	// image inward; the generator ends with their transposes
+	// (layers.ConvPlan). A discriminator with convolutions sees one
+	// unlabelled image at a time: it needs Pack 1 and no Classes.
+	// Default none: dense layers only.
+	Channels []int `json:",omitempty"`
+	// Kernel is the side of the convolutions' square kernels. Default 3.
+	Kernel int `json:",omitempty"`
 	// Scaling of data columns, fitted on the training data. Default
 	// standard.
 	Scaling data.ScaleKind
@@ -165,13 +177,41 @@ func (c Config) Validate() error {
 	if !c.Precision.Valid() || !c.Activation.Concrete() || !c.GenOutput.Concrete() {
 		return bad("unknown precision or activation")
 	}
-	if err := layers.CheckWidths("generator", c.generatorWidths()); err != nil {
+	if len(c.Channels) > 0 {
+		switch {
+		case len(c.Categories) > 0:
+			return bad("convolutions make images, not a table with categories")
+		case c.Pack > 1:
+			return bad("a discriminator with convolutions sees one image at a time: pack %d needs dense layers only", c.Pack)
+		case c.Classes > 0:
+			return bad("a discriminator with convolutions takes no class labels (%d classes): use dense layers for a conditional GAN", c.Classes)
+		}
+		if _, err := layers.ImagePlan(c.Image, c.Channels, c.Kernel, false); err != nil {
+			return bad("%v", err)
+		}
+		if w := c.Image[0] * c.Image[1] * c.Image[2]; w != c.Outputs {
+			return bad("images of %dx%dx%d are %d values, not the %d outputs", c.Image[0], c.Image[1], c.Image[2], w, c.Outputs)
+		}
+	}
+	if err := c.net("generator").Validate(); err != nil {
 		return bad("%v", err)
 	}
-	if err := layers.CheckWidths("discriminator", c.discriminatorWidths()); err != nil {
+	if err := c.net("discriminator").Validate(); err != nil {
 		return bad("%v", err)
 	}
 	return nil
+}
+
+// net is the generator's or the discriminator's layers.MLPConfig
+// (defaults filled in).
+func (c Config) net(name string) layers.MLPConfig {
+	cfg := layers.MLPConfig{Name: name, Widths: c.discriminatorWidths(), Hidden: c.Activation, LeakySlope: c.LeakySlope, Precision: c.Precision}
+	gen := name == "generator"
+	if gen {
+		cfg.Widths, cfg.Output = c.generatorWidths(), c.GenOutput
+	}
+	cfg.Conv, _ = layers.ImagePlan(c.Image, c.Channels, c.Kernel, gen)
+	return cfg
 }
 
 func (c Config) generatorWidths() []int {

@@ -204,7 +204,19 @@ func (m *Model) Discriminate(x []float32, rows int, labels []int) ([]float64, er
 	}
 	// apply the discriminator layer by layer with spectral scaling
 	h, n := in, rows/c.Pack
+	convs := m.Discriminator.Front
+	for l, cv := range convs {
+		w, b := cv.W.Values(), cv.B.Values()
+		for i := range w {
+			w[i] *= m.SpectralScale[l]
+		}
+		h, _ = layers.ConvForward(nil, nil, h, w, b, rows, cv.Shape)
+		for i, v := range h {
+			h[i] = cv.Act.Eval(v, cv.Slope)
+		}
+	}
 	for l, d := range m.Discriminator.Layers {
+		l += len(convs)
 		out := make([]float64, n*d.Out)
 		for r := 0; r < n; r++ {
 			for j := 0; j < d.Out; j++ {

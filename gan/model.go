@@ -35,7 +35,8 @@ type Model struct {
 	SpectralScale []float64
 
 	pool   scratch.Pool[work]
-	powerV []float64 // PowerIteration's scratch vector
+	powerV []float64       // PowerIteration's scratch vector
+	specW  []*layers.Param // spectralWeights
 }
 
 // New builds an untrained model with weights drawn from cfg.Seed.
@@ -47,21 +48,29 @@ func New(cfg Config) (*Model, error) {
 	initRNG := rand.New(rand.NewPCG(cfg.Seed, stream.Init))
 	m := &Model{cfg: cfg, pool: scratch.Pool[work]{New: newWork}}
 	var err error
-	m.Generator, err = layers.NewMLP(layers.MLPConfig{Name: "generator", Widths: cfg.generatorWidths(), Hidden: cfg.Activation, LeakySlope: cfg.LeakySlope, Output: cfg.GenOutput, Precision: cfg.Precision}, initRNG)
+	m.Generator, err = layers.NewMLP(cfg.net("generator"), initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("gan: %w", err)
 	}
-	m.Discriminator, err = layers.NewMLP(layers.MLPConfig{Name: "discriminator", Widths: cfg.discriminatorWidths(), Hidden: cfg.Activation, LeakySlope: cfg.LeakySlope, Precision: cfg.Precision}, initRNG)
+	m.Discriminator, err = layers.NewMLP(cfg.net("discriminator"), initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("gan: %w", err)
 	}
-	m.SpectralScale = make([]float64, len(m.Discriminator.Layers))
+	for _, c := range m.Discriminator.Front {
+		m.specW = append(m.specW, c.W)
+	}
+	for _, d := range m.Discriminator.Layers {
+		m.specW = append(m.specW, d.W)
+	}
+	ws := m.spectralWeights()
+	m.SpectralScale = make([]float64, len(ws))
 	for i := range m.SpectralScale {
 		m.SpectralScale[i] = 1
 	}
 	if cfg.SpectralNorm {
-		for _, d := range m.Discriminator.Layers {
-			u := make([]float64, d.Out)
+		for _, w := range ws {
+			_, cols := w.Shape()
+			u := make([]float64, cols)
 			for i := range u {
 				u[i] = initRNG.NormFloat64()
 			}
@@ -73,8 +82,12 @@ func New(cfg Config) (*Model, error) {
 }
 
 func (c Config) paramShapes() []layers.ParamShape {
-	return append(layers.MLPShapes("generator", c.generatorWidths()), layers.MLPShapes("discriminator", c.discriminatorWidths())...)
+	return append(c.net("generator").ParamShapes(), c.net("discriminator").ParamShapes()...)
 }
+
+// spectralWeights lists the discriminator's weights in the order of
+// SpectralU and SpectralScale: its convolutions', then its dense layers'.
+func (m *Model) spectralWeights() []*layers.Param { return m.specW }
 
 // Config returns the configuration with defaults filled in.
 func (m *Model) Config() Config { return m.cfg }
@@ -100,24 +113,27 @@ func (m *Model) Networks() []*layers.MLP { return []*layers.MLP{m.Generator, m.D
 // operation: it changes the model, so it must not run while other
 // goroutines sample or score with it.
 func (m *Model) PowerIteration() {
-	for l, d := range m.Discriminator.Layers {
+	for l, w := range m.spectralWeights() {
 		u := m.SpectralU[l]
-		w := d.W // In x Out; the layer computes x W
-		m.powerV = scratch.Grow(m.powerV, d.In)
+		// a dense layer's weights are In x Out (the layer computes x W), a
+		// convolution's OutC x K: either way the matrix whose largest
+		// singular value is sought, of rows x cols
+		rows, cols := w.Shape()
+		m.powerV = scratch.Grow(m.powerV, rows)
 		v := m.powerV
-		for i := 0; i < d.In; i++ {
+		for i := 0; i < rows; i++ {
 			var s float64
-			for j := 0; j < d.Out; j++ {
-				s += w.At(i*d.Out+j) * u[j]
+			for j := 0; j < cols; j++ {
+				s += w.At(i*cols+j) * u[j]
 			}
 			v[i] = s
 		}
 		normalise(v)
 		var sigma float64
-		for j := 0; j < d.Out; j++ {
+		for j := 0; j < cols; j++ {
 			var s float64
-			for i := 0; i < d.In; i++ {
-				s += w.At(i*d.Out+j) * v[i]
+			for i := 0; i < rows; i++ {
+				s += w.At(i*cols+j) * v[i]
 			}
 			u[j] = s
 		}

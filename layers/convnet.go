@@ -257,3 +257,20 @@ func convForward64(c *Conv, dst, x []float64, rows int, ws *Workspace) []float64
 	applyInPlace64(c.Act, dst, c.Slope)
 	return dst
 }
+
+// ImagePlan is the ConvPlan of a model's settings: nil without channels,
+// an error naming the problem when the channels have no image shape of
+// three positive sizes. out says the image is the network's output.
+func ImagePlan(image, channels []int, kernel int, out bool) (*ConvPlan, error) {
+	if len(channels) == 0 {
+		return nil, nil
+	}
+	if len(image) != 3 || image[0] <= 0 || image[1] <= 0 || image[2] <= 0 {
+		return nil, fmt.Errorf("%w: convolutions need image rows of a height, width and channels, got %v", ErrConfig, image)
+	}
+	p := &ConvPlan{Image: [3]int{image[0], image[1], image[2]}, Channels: channels, Kernel: kernel, Out: out}
+	if _, err := p.Shapes(); err != nil {
+		return nil, err
+	}
+	return p, nil
+}

@@ -87,7 +87,7 @@ func newGANRecipe(m *gan.Model, s Settings, noise *rand.Rand, warn func(Warning)
 	r := &ganRecipe{m: m, c: c, obj: obj, noise: noise, genOpt: genOpt, discOpt: discOpt, warn: warn, warned: map[string]int{},
 		real: engine.NewInput("real"), realLabels: engine.NewInput("real_labels"), noiseIn: engine.NewInput("noise"), fakeLabels: engine.NewInput("fake_labels")}
 	if c.SpectralNorm {
-		for l := range m.Discriminator.Layers {
+		for l := range len(m.Discriminator.Front) + len(m.Discriminator.Layers) {
 			r.sigma = append(r.sigma, engine.NewInput(fmt.Sprintf("invsigma.%d", l)))
 		}
 	}
@@ -261,6 +261,14 @@ func (r *ganRecipe) sigmaInputs(g *engine.Graph) []*engine.Node {
 func (r *ganRecipe) discriminate(g *engine.Graph, x, y *engine.Node, sig []*engine.Node) *engine.Node {
 	c := r.c
 	h := x
+	convs := r.m.Discriminator.Front
+	for l, cv := range convs {
+		var scale *engine.Node
+		if sig != nil {
+			scale = sig[l]
+		}
+		h = g.ConvLayer(cv, h, scale)
+	}
 	if y != nil {
 		h = g.Concat(x, y)
 	}
@@ -270,7 +278,7 @@ func (r *ganRecipe) discriminate(g *engine.Graph, x, y *engine.Node, sig []*engi
 	for l, d := range r.m.Discriminator.Layers {
 		w := g.Param(d.W)
 		if sig != nil {
-			w = g.Mul(sig[l], w)
+			w = g.Mul(sig[len(convs)+l], w)
 		}
 		h = g.AffineAct(h, w, g.Param(d.B), d.Act, d.Slope)
 	}

@@ -73,6 +73,11 @@ func TestTrainStepAllocatesNothing(t *testing.T) {
 		// update) and several discriminator steps per generator step
 		{"wgan", mustNew(gan.New(gan.Config{Outputs: 30, Noise: 8, GenHidden: []int{16}, DiscHidden: []int{16}, Critic: gan.Wasserstein,
 			Scaling: data.ScaleNone, Seed: 1})), 30},
+		// convolutions and their transposes (9x8 images of 2 channels)
+		{"conv-ae", mustNew(ae.New(ae.Config{Inputs: 144, Image: []int{9, 8, 2}, Channels: []int{4, 6}, Hidden: []int{}, Latent: 3, Scaling: data.ScaleNone, Seed: 1})), 144},
+		{"conv-vae", mustNew(vae.New(vae.Config{Inputs: 144, Image: []int{9, 8, 2}, Channels: []int{4, 6}, Hidden: []int{}, Latent: 3, Seed: 1})), 144},
+		{"conv-wgan", mustNew(gan.New(gan.Config{Outputs: 144, Image: []int{9, 8, 2}, Channels: []int{4, 6}, Noise: 8, GenHidden: []int{}, DiscHidden: []int{},
+			Critic: gan.Wasserstein, Scaling: data.ScaleNone, Seed: 1})), 144},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			step := stepRig(t, c.m, c.width, 32)

@@ -69,6 +69,17 @@ type Config struct {
 	// under their softmax there (a categorical distribution), the
 	// Gaussian elsewhere. Default none.
 	Categories [][2]int `json:",omitempty"`
+	// Image is the height, width and channels of the image rows the
+	// model reads (channels last), which Channels needs.
+	Image []int `json:",omitempty"`
+	// Channels lists the output channels of stride-2 convolutions that
+	// read the image before the encoder's dense layers, from the image
+	// inward; the decoder ends with their transposes (layers.ConvPlan).
+	// Their weights are drawn He normal (Glorot uniform for a linear
+	// model) whatever Init says. Default none: dense layers only.
+	Channels []int `json:",omitempty"`
+	// Kernel is the side of the convolutions' square kernels. Default 3.
+	Kernel int `json:",omitempty"`
 	// OutputVariance of the fixed Gaussian likelihood. Default 1.
 	OutputVariance float64
 	// Scaling of inputs, fitted on the training data. Default none for
@@ -169,13 +180,36 @@ func (c Config) Validate() error {
 	if !c.Precision.Valid() || !c.Activation.Concrete() {
 		return bad("unknown precision or activation")
 	}
-	if err := layers.CheckWidths("encoder", c.encoderWidths()); err != nil {
+	if len(c.Channels) > 0 {
+		if c.Table {
+			return bad("convolutions read images, not a table")
+		}
+		if _, err := layers.ImagePlan(c.Image, c.Channels, c.Kernel, false); err != nil {
+			return bad("%v", err)
+		}
+		if w := c.Image[0] * c.Image[1] * c.Image[2]; w != c.Inputs {
+			return bad("images of %dx%dx%d are %d values, not the %d inputs", c.Image[0], c.Image[1], c.Image[2], w, c.Inputs)
+		}
+	}
+	if err := c.net("encoder").Validate(); err != nil {
 		return bad("%v", err)
 	}
-	if err := layers.CheckWidths("decoder", c.decoderWidths()); err != nil {
+	if err := c.net("decoder").Validate(); err != nil {
 		return bad("%v", err)
 	}
 	return nil
+}
+
+// net is the encoder's or the decoder's layers.MLPConfig (defaults filled
+// in).
+func (c Config) net(name string) layers.MLPConfig {
+	out := name == "decoder"
+	cfg := layers.MLPConfig{Name: name, Widths: c.encoderWidths(), Hidden: c.Activation, LinearHidden: c.Linear, Precision: c.Precision, Init: c.Init}
+	if out {
+		cfg.Widths = c.decoderWidths()
+	}
+	cfg.Conv, _ = layers.ImagePlan(c.Image, c.Channels, c.Kernel, out)
+	return cfg
 }
 
 func (c Config) encoderWidths() []int {

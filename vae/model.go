@@ -61,11 +61,11 @@ func New(cfg Config) (*Model, error) {
 	initRNG := rand.New(rand.NewPCG(cfg.Seed, stream.Init))
 	m := &Model{cfg: cfg, pool: scratch.Pool[work]{New: newWork}}
 	var err error
-	m.Encoder, err = layers.NewMLP(layers.MLPConfig{Name: "encoder", Widths: cfg.encoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear, Precision: cfg.Precision, Init: cfg.Init}, initRNG)
+	m.Encoder, err = layers.NewMLP(cfg.net("encoder"), initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("vae: %w", err)
 	}
-	m.Decoder, err = layers.NewMLP(layers.MLPConfig{Name: "decoder", Widths: cfg.decoderWidths(), Hidden: cfg.Activation, LinearHidden: cfg.Linear, Precision: cfg.Precision, Init: cfg.Init}, initRNG)
+	m.Decoder, err = layers.NewMLP(cfg.net("decoder"), initRNG)
 	if err != nil {
 		return nil, fmt.Errorf("vae: %w", err)
 	}
@@ -76,7 +76,7 @@ func New(cfg Config) (*Model, error) {
 }
 
 func (c Config) paramShapes() []layers.ParamShape {
-	s := append(layers.MLPShapes("encoder", c.encoderWidths()), layers.MLPShapes("decoder", c.decoderWidths())...)
+	s := append(c.net("encoder").ParamShapes(), c.net("decoder").ParamShapes()...)
 	if r, k := c.logVarShape(); r > 0 {
 		s = append(s, layers.ParamShape{Name: LogVarName, Rows: r, Cols: k})
 	}
