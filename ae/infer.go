@@ -10,6 +10,7 @@ import (
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/internal/scratch"
 	"github.com/quernlab/quern/layers"
+	"github.com/quernlab/quern/losses"
 
 	"github.com/chewxy/math32"
 )
@@ -211,6 +212,24 @@ func (m *Model) ContributionsInto(dst []float64, x []float32, rows int) ([]float
 		dst[i] = m.elemError(in[i], out[i])
 	}
 	return dst, nil
+}
+
+// Departures is Contributions less what each value would cost if the
+// decoder gave it back exactly: for a BCE model (images, by default) the
+// binary cross-entropy less the grey level's own entropy
+// (losses.BinaryEntropy), so that a grey pixel given back exactly counts
+// for nothing; for other models it is Contributions.
+func (m *Model) Departures(x []float32, rows int) ([]float64, error) {
+	c, err := m.Contributions(x, rows)
+	if err != nil || m.cfg.Loss != BCE || m.Profile != nil {
+		return c, err
+	}
+	w := m.pool.Get()
+	defer m.pool.Put(w)
+	for i, v := range m.scaled(w, x) {
+		c[i] = max(c[i]-losses.BinaryEntropy(float64(v)), 0)
+	}
+	return c, nil
 }
 
 // elemError is one value's reconstruction error: the squared error, or

@@ -50,3 +50,16 @@ func ReparamNLLElem(eps, logvar float64) float64 { return 0.5 * (Log2Pi + logvar
 func KLStdNormalElem(mu, logvar float64) float64 {
 	return -0.5 * (1 + logvar - mu*mu - math.Exp(logvar))
 }
+
+// BinaryEntropy is the entropy of a Bernoulli distribution of mean y in
+// [0, 1], -(y log y + (1-y) log(1-y)) nats (0 at 0 and 1, log 2 at one
+// half): the least BCEWithLogitsElem(x, y) can be over x, reached at
+// sigmoid(x) = y. A grey level's cross-entropy less it is the
+// Kullback-Leibler divergence of the model's Bernoulli from the level's.
+// Outside [0, 1] it is 0.
+func BinaryEntropy(y float64) float64 {
+	if !(y > 0 && y < 1) {
+		return 0
+	}
+	return -(y*math.Log(y) + (1-y)*math.Log1p(-y))
+}

@@ -89,3 +89,20 @@ func TestErrors(t *testing.T) {
 	require.NoError(t, err)
 	require.True(t, math.IsInf(kl, 1))
 }
+
+// BinaryEntropy is the least binary cross-entropy over the logit, reached
+// at the logit of the level itself (Gibbs' inequality), log 2 at one half
+// and 0 at the ends (textbook values, from memory).
+func TestBinaryEntropyIsTheCrossEntropyFloor(t *testing.T) {
+	require.InDelta(t, math.Ln2, BinaryEntropy(0.5), 1e-15)
+	require.Zero(t, BinaryEntropy(0))
+	require.Zero(t, BinaryEntropy(1))
+	for _, y := range []float64{0.01, 0.2, 0.5, 0.73, 0.999} {
+		at := math.Log(y / (1 - y))
+		h := BinaryEntropy(y)
+		require.InDelta(t, h, BCEWithLogitsElem(at, y), 1e-12, "y=%v", y)
+		for _, d := range []float64{-1, -0.1, 0.1, 1} {
+			require.Greater(t, BCEWithLogitsElem(at+d, y), h, "y=%v, logit moved by %v", y, d)
+		}
+	}
+}

@@ -49,6 +49,17 @@ type ScoreNamer interface {
 	ScoreName() string
 }
 
+// Explainer returns, for each row and each value the model reads, that
+// value's part in the row's score (rows x Width; larger: more unlike the
+// training data): per pixel for images.
+type Explainer interface {
+	Contributions(x []float32, rows int) ([]float64, error)
+	// Departures is Contributions less what each value would cost if the
+	// model gave it back exactly (a grey level's entropy under a
+	// Bernoulli likelihood): what a heat map shows.
+	Departures(x []float32, rows int) ([]float64, error)
+}
+
 // Profiler fits what a Scorer's score knows of normal rows beyond the
 // weights (ae.Profile) to the training rows; Calibrate after it. A model
 // whose score takes no profile returns an error wrapping

@@ -163,3 +163,49 @@ func outputsOf(t *testing.T, m any, d *data.Dataset) [][]float32 {
 	require.NotEmpty(t, out)
 	return out
 }
+
+// A bright square pasted on an image is where its heat map burns: the
+// departures (model.Explainer) of the square's pixels average over five
+// times the rest's, for a convolutional autoencoder and VAE trained on
+// discs.
+func TestDeparturesFindAPastedSquare(t *testing.T) {
+	d := blobs(512, 3)
+	test := blobs(8, 4)
+	inside := func(y, x int) bool { return y >= 6 && y < 9 && x >= 0 && x < 3 }
+	for i := 0; i < test.Rows; i++ {
+		for y := 0; y < 10; y++ {
+			for x := 0; x < 9; x++ {
+				if inside(y, x) {
+					test.X[i*90+y*9+x] = 1
+				}
+			}
+		}
+	}
+	for _, c := range convCases[:2] {
+		t.Run(c.name, func(t *testing.T) {
+			tr, err := train.New(c.build(), train.Settings{Epochs: 30, BatchSize: 32})
+			require.NoError(t, err)
+			_, err = tr.Run(context.Background(), d, nil)
+			require.NoError(t, err)
+			ex := tr.Model().(model.Explainer)
+			dep, err := ex.Departures(test.X, test.Rows)
+			require.NoError(t, err)
+			var in, out float64
+			var nIn, nOut int
+			for i := 0; i < test.Rows; i++ {
+				for y := 0; y < 10; y++ {
+					for x := 0; x < 9; x++ {
+						v := dep[i*90+y*9+x]
+						require.GreaterOrEqual(t, v, 0.0)
+						if inside(y, x) {
+							in, nIn = in+v, nIn+1
+						} else {
+							out, nOut = out+v, nOut+1
+						}
+					}
+				}
+			}
+			require.Greater(t, in/float64(nIn), 5*out/float64(nOut), "mean departure inside the square against outside")
+		})
+	}
+}

@@ -72,6 +72,25 @@ func (m *Model) Contributions(x []float32, rows int) ([]float64, error) {
 	return c, nil
 }
 
+// Departures is Contributions less what each value would cost if the
+// decoder gave it back exactly: for a Bernoulli model the binary
+// cross-entropy less the grey level's own entropy
+// (losses.BinaryEntropy), the Kullback-Leibler divergence of the
+// decoder's Bernoulli from the level's, which is 0 for a value given back
+// exactly; a mid-grey pixel costs its entropy however well it is
+// reconstructed, and a heat map of Contributions would glow wherever an
+// image is grey. For other likelihoods it is Contributions.
+func (m *Model) Departures(x []float32, rows int) ([]float64, error) {
+	c, err := m.Contributions(x, rows)
+	if err != nil || m.cfg.Likelihood != Bernoulli || m.table() != nil {
+		return c, err
+	}
+	for i, v := range m.scaled(x) {
+		c[i] = max(c[i]-losses.BinaryEntropy(v), 0)
+	}
+	return c, nil
+}
+
 // Calibrate sets the model's threshold on the negative ELBO of held-out
 // normal rows (not used for training) and returns it; for a model with
 // missing-cell indicators it first fits MissingCost on the same rows.

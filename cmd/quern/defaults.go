@@ -88,7 +88,7 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, rowsWhat string, s
 				reason = fmt.Sprintf("the rows have no variance (%s scaling), so the narrowest code", kind)
 			}
 		}
-		if !set["hidden"] {
+		if !set["hidden"] && o.channels == "" {
 			// a network no wider than its code within weightsPerRow
 			// parameters per row
 			most := 1
@@ -102,7 +102,13 @@ func (o *trainOpts) chooseDefaults(d *data.Dataset, rows int, rowsWhat string, s
 		}
 		why = append(why, fmt.Sprintf("code width %d: %s (-latent sets it)", o.latent, reason))
 	}
-	if coded && !set["hidden"] {
+	if coded && !set["hidden"] && o.channels != "" {
+		// the convolutions' feature maps go straight to the code, and
+		// back
+		o.hidden = "none"
+		why = append(why, "hidden layers: none, the convolutions' innermost maps meet the code directly (-hidden adds dense layers between them)")
+	}
+	if coded && !set["hidden"] && o.channels == "" {
 		h := min(max(hiddenPerInput*d.Cols, minDefaultHidden, 2*o.latent), maxDefaultHidden)
 		h = (h + 7) / 8 * 8
 		line := fmt.Sprintf("%d per input column, between %d and %d, rounded up to a multiple of 8", hiddenPerInput, minDefaultHidden, maxDefaultHidden)

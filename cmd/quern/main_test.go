@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"fmt"
+	"image/png"
 	"net/http"
 	"os"
 	"os/exec"
@@ -127,6 +128,57 @@ func TestImageModels(t *testing.T) {
 	ok(t, quern(t, dir, nil, "sample", "-model", "g.qm", "-n", "4", "-out", "g.png"))
 	r := ok(t, quern(t, dir, nil, "inspect", "g.qm"))
 	require.Contains(t, r.stdout, "generator")
+}
+
+// Convolutional models through the command line: each kind trains with
+// -channels, inspect shows the convolutions, score writes heat maps of
+// the flagged images (two panels side by side), and encode, sample and
+// interpolate work as for dense models.
+func TestConvModels(t *testing.T) {
+	dir := t.TempDir()
+	r := ok(t, quern(t, dir, nil, "train", "-kind", "vae", "-data", fmImages, "-out", "v.qm", "-epochs", "2", "-channels", "8,16", "-latent", "4", "-false-alarm", "0.05"))
+	require.Contains(t, r.stderr, "hidden layers: none, the convolutions' innermost maps meet the code directly")
+	r = ok(t, quern(t, dir, nil, "inspect", "v.qm"))
+	require.Contains(t, r.stdout, "encoder     28x28x1->14x14x8 conv 3x3 relu, 14x14x8->7x7x16 conv 3x3 relu, 784->8 identity")
+	require.Contains(t, r.stdout, "decoder     4->784 relu, 7x7x16->14x14x8 transposed conv 3x3 relu, 14x14x8->28x28x1 transposed conv 3x3 identity")
+	r = ok(t, quern(t, dir, nil, "score", "-model", "v.qm", "-data", fmImages, "-out", "s.csv", "-heatmaps", "heat"))
+	require.Regexp(t, `wrote [1-9][0-9]* heat maps? in heat`, r.stderr)
+	maps, err := filepath.Glob(filepath.Join(dir, "heat", "row-*.png"))
+	require.NoError(t, err)
+	require.NotEmpty(t, maps)
+	f, err := os.Open(maps[0])
+	require.NoError(t, err)
+	cfg, err := png.DecodeConfig(f)
+	f.Close()
+	require.NoError(t, err)
+	require.Equal(t, 2*28*4+3*2, cfg.Width, "image and heat map side by side, 4 times their size")
+	ok(t, quern(t, dir, nil, "encode", "-model", "v.qm", "-data", fmImages, "-out", "z.csv"))
+	ok(t, quern(t, dir, nil, "sample", "-model", "v.qm", "-n", "8", "-out", "s.png"))
+	ok(t, quern(t, dir, nil, "interpolate", "-model", "v.qm", "-data", fmImages, "-steps", "4", "-out", "i.png"))
+	ok(t, quern(t, dir, nil, "train", "-kind", "ae", "-data", fmImages, "-out", "a.qm", "-epochs", "1", "-channels", "4", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "a.qm", "-data", fmImages, "-out", "sa.csv", "-heatmaps", "heat-ae"))
+	ok(t, quern(t, dir, nil, "train", "-kind", "gan", "-data", fmImages, "-out", "g.qm", "-epochs", "1", "-channels", "4,8", "-quiet"))
+	r = ok(t, quern(t, dir, nil, "inspect", "g.qm"))
+	require.Contains(t, r.stdout, "14x14x4->28x28x1 transposed conv 3x3 sigmoid")
+	ok(t, quern(t, dir, nil, "sample", "-model", "g.qm", "-n", "4", "-out", "g.png"))
+
+	ok(t, quern(t, dir, nil, "train", "-data", bc, "-no-header", "-skip", "1", "-out", "t.qm", "-epochs", "1", "-quiet"))
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"train", "-data", bc, "-no-header", "-skip", "1", "-out", "m.qm", "-channels", "8"}, "-channels: convolutions read images (a folder of PNG files or an idx file), and " + bc + " is a table"},
+		{[]string{"train", "-data", fmImages, "-out", "m.qm", "-channels", "8,x"}, `-channels: "x" is not a positive width`},
+		{[]string{"train", "-data", fmImages, "-out", "m.qm", "-channels", "8", "-kernel", "99"}, "-kernel 99: want a side of 1 to 64"},
+		{[]string{"train", "-kind", "gan", "-data", fmImages, "-out", "m.qm", "-channels", "8", "-pack", "2"}, "pack 2 needs dense layers only"},
+		{[]string{"score", "-model", "t.qm", "-data", bc, "-no-header", "-skip", "1", "-out", "x.csv", "-heatmaps", "h"}, "-heatmaps draws images, and " + bc + " holds a table"},
+		{[]string{"score", "-model", "a.qm", "-data", dir, "-out", "x.csv", "-heatmaps", dir}, "is the -data folder"},
+	} {
+		r := quern(t, dir, nil, c.args...)
+		require.NotEqual(t, 0, r.code, "%v", c.args)
+		require.Contains(t, r.stderr, c.want, "%v", c.args)
+		require.NotContains(t, r.stderr, "goroutine")
+	}
 }
 
 // Bad input gives a one-line error naming the problem and a non-zero exit,

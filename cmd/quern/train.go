@@ -33,6 +33,8 @@ type trainOpts struct {
 	data       dataFlags
 	out        string
 	hidden     string
+	channels   string
+	kernel     int
 	latent     int
 	epochs     int
 	batch      int
@@ -76,7 +78,9 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	o.data.register(fs, true)
 	o.data.registerTyped(fs)
 	fs.StringVar(&o.out, "out", "", "model file to write (required, except when resuming CHECKPOINT.ckpt)")
-	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths (default: ae and vae one layer, 2 per input column within 16..256, narrower on small tables to keep about 4 weights per training row; gan the model's)")
+	fs.StringVar(&o.hidden, "hidden", "", "comma-separated hidden layer widths, or none (default: ae and vae one layer, 2 per input column within 16..256, narrower on small tables to keep about 4 weights per training row, none after -channels; gan the model's)")
+	fs.StringVar(&o.channels, "channels", "", "images: comma-separated output channels of stride-2 convolutions, from the image inward (for example 32,64); encoders and discriminators read the image through them, decoders and generators end with their transposes (default none: dense layers only)")
+	fs.IntVar(&o.kernel, "kernel", 0, "side of the -channels convolutions' square kernels (default 3)")
 	fs.IntVar(&o.latent, "latent", 0, "code / latent width (default: ae and vae the principal components for 90% of the variance, at most 64; gan none)")
 	fs.IntVar(&o.epochs, "epochs", 0, "training epochs (when resuming: the run's new total); default: ae and vae about 10000 steps with early stopping, gan 20")
 	fs.IntVar(&o.batch, "batch", 64, "mini-batch size")
@@ -282,6 +286,8 @@ func (o *trainOpts) checkNumbers() error {
 		return usagef("-patience %d: want 0 (no early stopping) or more", o.patience)
 	case o.latent < 0:
 		return usagef("-latent %d: want at least 1 (or 0 for the model's default)", o.latent)
+	case o.kernel < 0 || o.kernel > 64:
+		return usagef("-kernel %d: want a side of 1 to 64 (or 0 for the default 3)", o.kernel)
 	case o.rate < 0 || math.IsNaN(o.rate) || math.IsInf(o.rate, 0):
 		return usagef("-rate %v: want a positive learning rate (or 0 for the kind's default)", o.rate)
 	case o.beta < 0 || math.IsNaN(o.beta) || math.IsInf(o.beta, 0):
@@ -648,12 +654,24 @@ func kindPhrase(kind string) string {
 
 // build makes the model the flags describe and its objective.
 func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error) {
-	hidden, err := parseInts(o.hidden, "hidden")
+	var hidden []int
+	if strings.TrimSpace(o.hidden) != "none" {
+		h, err := parseInts(o.hidden, "hidden")
+		if err != nil {
+			return nil, nil, err
+		}
+		if o.hidden != "" {
+			hidden = h
+		}
+	} else {
+		hidden = []int{}
+	}
+	channels, err := parseInts(o.channels, "channels")
 	if err != nil {
 		return nil, nil, err
 	}
-	if o.hidden == "" {
-		hidden = nil
+	if len(channels) > 0 && d.Image == nil {
+		return nil, nil, usagef("-channels: convolutions read images (a folder of PNG files or an idx file), and %s is a table", o.data.path)
 	}
 	var act layers.Activation
 	if o.activation != "" {
@@ -672,6 +690,9 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 	switch o.kind {
 	case ae.Kind:
 		c := ae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Scaling: scaling, Seed: o.seed, Loss: ae.Reconstruction(o.loss)}
+		if len(channels) > 0 {
+			c.Image, c.Channels, c.Kernel = d.Image, channels, o.kernel
+		}
 		var obj train.Reconstruction
 		if image {
 			if c.Loss == "" {
@@ -723,6 +744,9 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 	case vae.Kind:
 		c := vae.Config{Inputs: d.Cols, Hidden: hidden, Latent: o.latent, Activation: act, Scaling: scaling, Seed: o.seed,
 			Likelihood: vae.Likelihood(o.likelihood)}
+		if len(channels) > 0 {
+			c.Image, c.Channels, c.Kernel = d.Image, channels, o.kernel
+		}
 		if c.Likelihood == "" && !image {
 			// table columns are not probabilities; a variance learned per
 			// column beat a fixed one on the open panel (bench/panel.sh with
@@ -743,6 +767,9 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 		return usage(m, obj, err)
 	case gan.Kind:
 		c := gan.Config{Outputs: d.Cols, Noise: o.noiseDim, GenHidden: hidden, DiscHidden: hidden, Activation: act, Scaling: scaling, Seed: o.seed, Pack: o.pack}
+		if len(channels) > 0 {
+			c.Image, c.Channels, c.Kernel = d.Image, channels, o.kernel
+		}
 		if d.Encoding != nil {
 			// categories as categories: a Gumbel-softmax in training, a
 			// level drawn in sampling

@@ -6,6 +6,7 @@ import (
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
+	"github.com/quernlab/quern/layers"
 	"io"
 	"math"
 	"os"
@@ -243,11 +244,15 @@ func cmdScore(e *env, args []string) error {
 	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share (its fraction of the parts of the score the row's columns add; negative parts count as none), the value the model expected (its reconstruction, kept within the training range, or a category's level) and the direction (above, below, other, missing)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp); one named like a column of the score file (row, score, status, ...) is written as NAME (kept)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
+	heat := fs.String("heatmaps", "", "images: folder (made if need be) for a PNG of each flagged image, row-N.png, with the map of its pixels' parts in the score to its right (beyond what each would cost if given back exactly), white for none to dark red for the image's largest")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
 	if *top < 0 {
 		return usagef("-top %d: want 0 or more", *top)
+	}
+	if *heat != "" && sameFile(*heat, d.path) {
+		return usagef("-heatmaps %s is the -data folder: no command writes among its own input", *heat)
 	}
 	st := newStatus(e.stderr, *quiet)
 	defer st.end() // an error return leaves no phase drawn or ticking
@@ -269,6 +274,21 @@ func cmdScore(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	var explainer model.Explainer
+	if *heat != "" {
+		img := ds.Image
+		if len(img) != 3 {
+			return usagef("-heatmaps draws images, and %s holds a table", d.path)
+		}
+		var ok bool
+		if explainer, ok = sc.(model.Explainer); !ok {
+			return l.cannot("score -heatmaps", "a model that explains its scores pixel by pixel")
+		}
+		if err := os.MkdirAll(*heat, 0o755); err != nil {
+			return fmt.Errorf("-heatmaps: %w", err)
+		}
+	}
+	heatWritten := 0
 	if l.trainedOn(ds) {
 		st.warn("warning: %s holds the rows the model was trained on: their scores are in-sample, lower than new rows' would be, so fewer rows are flagged than the expected false-alarm rate; score rows the model has not seen to check the threshold", d.path)
 	}
@@ -370,7 +390,15 @@ func cmdScore(e *env, args []string) error {
 			cw.Write(append(rec, status))
 		}
 		cw.Flush()
-		return cw.Error()
+		if err := cw.Error(); err != nil {
+			return err
+		}
+		if explainer != nil {
+			n, err := writeHeatMaps(*heat, explainer, ds, lo, scores)
+			heatWritten += n
+			return err
+		}
+		return nil
 	})
 	if err != nil {
 		return err
@@ -391,6 +419,9 @@ func cmdScore(e *env, args []string) error {
 		line += fmt.Sprintf("; %s with a category level never seen in training, flagged whatever the score", plural(unseenRows, "row"))
 	}
 	fmt.Fprintln(e.stderr, line)
+	if explainer != nil {
+		fmt.Fprintf(e.stderr, "wrote %s in %s: each flagged image with its pixels' parts in the score (white none, dark red the image's largest)\n", plural(heatWritten, "heat map"), *heat)
+	}
 	cols := make([]string, 0, len(unread))
 	for name := range unread {
 		cols = append(cols, name)
@@ -635,8 +666,24 @@ func cmdInspect(e *env, args []string) error {
 	}
 	for _, n := range m.Networks() {
 		var parts []string
+		conv := func(c *layers.Conv) {
+			s := c.Shape
+			oh, ow := s.Out()
+			from, to := fmt.Sprintf("%dx%dx%d", s.H, s.W, s.C), fmt.Sprintf("%dx%dx%d", oh, ow, s.OutC)
+			what := "conv"
+			if c.Transposed {
+				from, to, what = to, from, "transposed conv"
+			}
+			parts = append(parts, fmt.Sprintf("%s->%s %s %dx%d %s", from, to, what, s.KH, s.KW, c.Act))
+		}
+		for _, c := range n.Front {
+			conv(c)
+		}
 		for _, d := range n.Layers {
 			parts = append(parts, fmt.Sprintf("%d->%d %s", d.In, d.Out, d.Act))
+		}
+		for _, c := range n.Back {
+			conv(c)
 		}
 		fmt.Fprintf(w, "%-11s %s\n", n.Name, strings.Join(parts, ", "))
 	}
@@ -765,4 +812,35 @@ func snake(name string) string {
 		b.WriteRune(r)
 	}
 	return b.String()
+}
+
+// writeHeatMaps writes a heat map (report.HeatMap) of each flagged image
+// among scores, the scores of ds's rows from lo on, into dir as
+// row-N.png, and returns how many it wrote.
+func writeHeatMaps(dir string, ex model.Explainer, ds *data.Dataset, lo int, scores []anomaly.Score) (int, error) {
+	h, w, c := ds.Image[0], ds.Image[1], ds.Image[2]
+	var rows []int
+	for i, s := range scores {
+		if s.Anomaly && s.Unscorable == "" {
+			rows = append(rows, lo+i)
+		}
+	}
+	if len(rows) == 0 {
+		return 0, nil
+	}
+	x := make([]float32, 0, len(rows)*ds.Cols)
+	for _, r := range rows {
+		x = append(x, ds.X[r*ds.Cols:(r+1)*ds.Cols]...)
+	}
+	contrib, err := ex.Departures(x, len(rows))
+	if err != nil {
+		return 0, err
+	}
+	for k, r := range rows {
+		path := filepath.Join(dir, fmt.Sprintf("row-%d.png", r+1))
+		if _, err := report.HeatMap(path, x[k*ds.Cols:(k+1)*ds.Cols], contrib[k*ds.Cols:(k+1)*ds.Cols], h, w, c, 4, 0); err != nil {
+			return k, fmt.Errorf("-heatmaps: %w", err)
+		}
+	}
+	return len(rows), nil
 }

@@ -5,10 +5,17 @@
 //	go run ./examples/fashion-gan                  # the committed 2000-image subset
 //	go run ./examples/fashion-gan -train DIR/train-images-idx3-ubyte.gz -test DIR/t10k-images-idx3-ubyte.gz
 //	go run ./examples/fashion-gan -short           # a quick pass for CI
+//	go run ./examples/fashion-gan -channels 32,64  # convolutions (see below)
 //
 // scripts/fetch-data.sh fetches the full set. For scale the program also
 // reports the distance of real training images (a floor) and of uniform
 // noise images (a ceiling) to the same test images.
+//
+// With -channels the discriminator reads the images through stride-2
+// convolutions of those channels and the generator ends with their
+// transposes, its noise going straight to the innermost feature maps
+// (dense layers only between the convolutions and the output or the
+// noise: none).
 package main
 
 import (
@@ -19,6 +26,8 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strconv"
+	"strings"
 	"time"
 
 	"github.com/quernlab/quern/ae"
@@ -35,7 +44,16 @@ func main() {
 	epochs := flag.Int("epochs", 100, "GAN training epochs")
 	out := flag.String("out", "fashion-gan-out", "output folder")
 	short := flag.Bool("short", false, "small networks and 1 epoch")
+	channels := flag.String("channels", "", "comma-separated channels of the convolutions, from the image inward (for example 32,64; default none: dense layers)")
 	flag.Parse()
+	var chans []int
+	for _, f := range strings.FieldsFunc(*channels, func(r rune) bool { return r == ',' }) {
+		c, err := strconv.Atoi(strings.TrimSpace(f))
+		if err != nil || c <= 0 {
+			log.Fatalf("fashion-gan: -channels: %q is not a positive number of channels", f)
+		}
+		chans = append(chans, c)
+	}
 	start := time.Now()
 	tr, err := data.LoadIDX(*trainPath, data.IDXConfig{})
 	if err != nil {
@@ -65,9 +83,14 @@ func main() {
 		log.Fatal(err)
 	}
 	et.Release()
-	// the GAN: 64-256-512-784 generator, 784-512-256-1 discriminator
-	m, err := gan.New(gan.Config{Outputs: 784, Noise: 64, GenHidden: gh, DiscHidden: dh, Activation: layers.LeakyReLU, LeakySlope: 0.2,
-		GenOutput: layers.Sigmoid, Scaling: data.ScaleNone, Seed: 1})
+	// the GAN: 64-256-512-784 generator, 784-512-256-1 discriminator, or
+	// convolutions
+	cfg := gan.Config{Outputs: 784, Noise: 64, GenHidden: gh, DiscHidden: dh, Activation: layers.LeakyReLU, LeakySlope: 0.2,
+		GenOutput: layers.Sigmoid, Scaling: data.ScaleNone, Seed: 1}
+	if len(chans) > 0 {
+		cfg.Image, cfg.Channels, cfg.GenHidden, cfg.DiscHidden = tr.Image, chans, []int{}, []int{}
+	}
+	m, err := gan.New(cfg)
 	if err != nil {
 		log.Fatal(err)
 	}
