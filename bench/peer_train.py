@@ -127,6 +127,40 @@ def tiny_step():
 
 timed("tiny", tiny_step, 32, flops([16, 8, 2, 8, 16]), 2000)
 
+# convolutional VAE on 28x28 grey images: 3x3 stride-2 convolutions of 32
+# and 64 channels (padding 1, ReLU), a linear layer to 16 means and 16
+# log-variances, a linear layer back to 64x7x7 (ReLU) and the transposed
+# convolutions (output padding 1), BCE on logits + KL, batch 128
+cenc = torch.nn.Sequential(
+    torch.nn.Conv2d(1, 32, 3, stride=2, padding=1), torch.nn.ReLU(),
+    torch.nn.Conv2d(32, 64, 3, stride=2, padding=1), torch.nn.ReLU(),
+    torch.nn.Flatten(), torch.nn.Linear(64 * 7 * 7, 32))
+cdec = torch.nn.Sequential(
+    torch.nn.Linear(16, 64 * 7 * 7), torch.nn.ReLU(), torch.nn.Unflatten(1, (64, 7, 7)),
+    torch.nn.ConvTranspose2d(64, 32, 3, stride=2, padding=1, output_padding=1), torch.nn.ReLU(),
+    torch.nn.ConvTranspose2d(32, 1, 3, stride=2, padding=1, output_padding=1))
+opt = torch.optim.Adam(list(cenc.parameters()) + list(cdec.parameters()), lr=1e-3)
+x = torch.rand(128, 1, 28, 28)
+
+
+def conv_vae_step():
+    h = cenc(x)
+    mu, lv = h[:, :16], h[:, 16:]
+    z = mu + torch.exp(0.5 * lv) * torch.randn_like(mu)
+    rec = F.binary_cross_entropy_with_logits(cdec(z), x, reduction="sum") / 128
+    kl = -0.5 * torch.sum(1 + lv - mu * mu - lv.exp()) / 128
+    opt.zero_grad()
+    (rec + kl).backward()
+    opt.step()
+
+
+# flops per sample as train.BenchmarkTrainStepConvVAE counts them: 6 per
+# weight use (2 fewer for the first convolution, fed with data), 6 per
+# dense weight
+uses = [14 * 14 * 32 * 9, 7 * 7 * 64 * 9 * 32, 7 * 7 * 64 * 9 * 32, 14 * 14 * 32 * 9]
+conv_flops = 6 * sum(uses) - 2 * uses[0] + 6 * (3136 * 32 + 16 * 3136)
+timed("convvae", conv_vae_step, 128, conv_flops, 20)
+
 a, b = torch.rand(1024, 1024), torch.rand(1024, 1024)
 for _ in range(3):
     a @ b

@@ -32,6 +32,7 @@ for th in 1 2; do
 		ours "$th" train.test TrainStepVAE784
 		ours "$th" train.test 'TrainStep(AE784|Tiny)'
 		ours "$th" train.test TrainStepGAN784
+		ours "$th" train.test TrainStepConvVAE
 		ours "$th" engine.test 'Sgemm1024$'
 	} > "$tmp/ours$th.txt"
 	/usr/bin/time -f "rss_kb %M" env LD_LIBRARY_PATH="$ob" OPENBLAS_NUM_THREADS="$th" OMP_NUM_THREADS="$th" /usr/bin/python3 bench/peer_train.py "$th" > "$tmp/peer$th.txt" 2>&1
@@ -44,7 +45,7 @@ metric() { # file benchmark unit: the largest value over the runs
 }
 printf '%-8s %3s %14s %14s %8s %10s %10s %14s %8s\n' shape thr quern_samp/s peer_samp/s ratio quern_GF/s peer_GF/s peer512_samp/s ratio512
 for th in 1 2; do
-	for s in vae784:TrainStepVAE784 ae784:TrainStepAE784 gan784:TrainStepGAN784 tiny:TrainStepTiny; do
+	for s in vae784:TrainStepVAE784 ae784:TrainStepAE784 gan784:TrainStepGAN784 tiny:TrainStepTiny convvae:TrainStepConvVAE; do
 		name=${s%%:*}; bench=${s#*:}
 		q=$(metric "$tmp/ours$th.txt" "$bench" samples/s); qg=$(metric "$tmp/ours$th.txt" "$bench" GFLOP/s)
 		p=$(awk -v n="$name" '$1==n {print $2}' "$tmp/peer$th.txt"); pg=$(awk -v n="$name" '$1==n {print $3}' "$tmp/peer$th.txt")

@@ -162,3 +162,32 @@ func BenchmarkTrainStepGAN784(b *testing.B) {
 		LeakySlope: 0.2, GenOutput: layers.Tanh, Scaling: data.ScaleNone, Seed: 1}))
 	benchStep(b, m, 784, 64, 8*weights(m.Generator)+16*weights(m.Discriminator))
 }
+
+// convFlops is 2 multiply-adds' flops per weight use of m's convolutions
+// for one sample: forward, weight gradient and input gradient (6 per
+// use), less the input gradient of a first convolution fed with data.
+func convFlops(nets ...*layers.MLP) float64 {
+	var f float64
+	for _, n := range nets {
+		for i, c := range append(append([]*layers.Conv(nil), n.Front...), n.Back...) {
+			oh, ow := c.Shape.Out()
+			uses := float64(oh * ow * c.Shape.OutC * c.Shape.K())
+			f += 6 * uses
+			if i == 0 && len(n.Front) > 0 {
+				f -= 2 * uses
+			}
+		}
+	}
+	return f
+}
+
+// BenchmarkTrainStepConvVAE times one training step of the reference
+// convolutional VAE: 28x28 grey images, two stride-2 3x3 convolutions of
+// 32 and 64 channels (ReLU), a dense layer to the 16 means and 16
+// log-variances, a dense layer back to 7x7x64 and the two transposed
+// convolutions, BCE on logits plus the closed-form KL, Adam, batch 128
+// (bench/peer_train.py's convvae).
+func BenchmarkTrainStepConvVAE(b *testing.B) {
+	m := mustNew(vae.New(vae.Config{Inputs: 784, Image: []int{28, 28, 1}, Channels: []int{32, 64}, Hidden: []int{}, Latent: 16, Seed: 1}))
+	benchStep(b, m, 784, 128, convFlops(m.Encoder, m.Decoder)+6*weights(m.Encoder, m.Decoder))
+}
