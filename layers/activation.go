@@ -181,3 +181,63 @@ func (a *Activation) UnmarshalText(b []byte) error {
 	*a = v
 	return nil
 }
+
+// ApplyActivation applies a to every value of v in place with the
+// graph-free passes' own functions; the training graph's fused
+// convolutions call it too, so that the two agree bit for bit.
+func ApplyActivation[T float32 | float64](a Activation, v []T, slope float64) {
+	switch v := any(v).(type) {
+	case []float32:
+		applyInPlace32(a, v, float32(slope))
+	case []float64:
+		applyInPlace64(a, v, slope)
+	}
+}
+
+// ActivationGrad multiplies each gradient g[i] in place by the
+// derivative of a where it gave out[i]: every activation here has a
+// derivative that its output determines (leaky ReLU and ReLU by the
+// output's sign: in float32 -0, which the vector pass gives below zero,
+// takes the slope, in float64 ReLU's 0 has derivative 0 as in Deriv; tanh
+// 1-out^2; sigmoid out(1-out); ELU 1 above zero and out+1 below; softplus
+// 1-exp(-out)).
+func ActivationGrad[T float32 | float64](a Activation, g, out []T, slope float64) {
+	out = out[:len(g)]
+	switch a {
+	case Identity:
+		return
+	case ReLU, LeakyReLU:
+		if a == ReLU {
+			slope = 0
+		}
+		if g32, ok := any(g).([]float32); ok {
+			vec.ApplyLeaky(g32, any(out).([]float32), g32, float32(slope))
+			return
+		}
+		// float64 passes (Eval) give +0 below zero for ReLU and keep
+		// x at 0 for leaky ReLU: its derivative there is 1
+		for i, o := range out {
+			if o < 0 || (a == ReLU && o == 0) {
+				g[i] *= T(slope)
+			}
+		}
+	case Tanh:
+		for i, o := range out {
+			g[i] *= 1 - o*o
+		}
+	case Sigmoid:
+		for i, o := range out {
+			g[i] *= o * (1 - o)
+		}
+	case ELU:
+		for i, o := range out {
+			if o <= 0 {
+				g[i] *= o + 1
+			}
+		}
+	case Softplus:
+		for i, o := range out {
+			g[i] *= T(-math.Expm1(-float64(o)))
+		}
+	}
+}

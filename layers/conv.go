@@ -4,6 +4,7 @@ import (
 	"fmt"
 
 	"github.com/quernlab/quern/internal/kernel/gemm"
+	"github.com/quernlab/quern/internal/kernel/vec"
 	"gonum.org/v1/gonum/blas"
 )
 
@@ -48,7 +49,8 @@ func (s ConvShape) OutWidth() int {
 
 // Im2Col writes the patches of n image rows x into cols, one row of K()
 // values per output position (n*OH*OW rows), zeros where a patch reaches
-// into the padding, and returns it (grown if too short).
+// into the padding, and returns it (grown if too short). A kernel row's
+// pixels lie side by side in the image, so each is one copy.
 func Im2Col[T float32 | float64](cols, x []T, n int, s ConvShape) []T {
 	oh, ow := s.Out()
 	k := s.K()
@@ -58,23 +60,28 @@ func Im2Col[T float32 | float64](cols, x []T, n int, s ConvShape) []T {
 	}
 	cols = cols[:need]
 	in := s.InWidth()
+	run := s.KW * s.C
 	at := 0
 	for img := 0; img < n; img++ {
 		im := x[img*in : (img+1)*in]
 		for oy := 0; oy < oh; oy++ {
 			for ox := 0; ox < ow; ox++ {
+				x0 := ox*s.Stride - s.Pad
+				lo, hi := max(x0, 0), min(x0+s.KW, s.W)
 				for ky := 0; ky < s.KH; ky++ {
 					y := oy*s.Stride - s.Pad + ky
-					for kx := 0; kx < s.KW; kx++ {
-						xx := ox*s.Stride - s.Pad + kx
-						dst := cols[at : at+s.C]
-						at += s.C
-						if y < 0 || y >= s.H || xx < 0 || xx >= s.W {
-							clear(dst)
-							continue
-						}
-						copy(dst, im[(y*s.W+xx)*s.C:(y*s.W+xx+1)*s.C])
+					dst := cols[at : at+run]
+					at += run
+					if y < 0 || y >= s.H || lo >= hi {
+						clear(dst)
+						continue
 					}
+					// zeros left and right of the image, the pixels between
+					left := (lo - x0) * s.C
+					clear(dst[:left])
+					row := (y * s.W) * s.C
+					m := copy(dst[left:], im[row+lo*s.C:row+hi*s.C])
+					clear(dst[left+m:])
 				}
 			}
 		}
@@ -84,32 +91,45 @@ func Im2Col[T float32 | float64](cols, x []T, n int, s ConvShape) []T {
 
 // Col2Im adds the patch rows of dcols (as Im2Col lays them out) back into
 // the n image rows dx, which it clears first: the gradient of Im2Col.
+// Each pixel receives its patches' values in the same order whatever the
+// build (float32 runs add eight at a time on amd64, one rounding each).
 func Col2Im[T float32 | float64](dx, dcols []T, n int, s ConvShape) {
 	oh, ow := s.Out()
 	in := s.InWidth()
 	clear(dx[:n*in])
+	run := s.KW * s.C
 	at := 0
 	for img := 0; img < n; img++ {
 		im := dx[img*in : (img+1)*in]
 		for oy := 0; oy < oh; oy++ {
 			for ox := 0; ox < ow; ox++ {
+				x0 := ox*s.Stride - s.Pad
+				lo, hi := max(x0, 0), min(x0+s.KW, s.W)
 				for ky := 0; ky < s.KH; ky++ {
 					y := oy*s.Stride - s.Pad + ky
-					for kx := 0; kx < s.KW; kx++ {
-						xx := ox*s.Stride - s.Pad + kx
-						src := dcols[at : at+s.C]
-						at += s.C
-						if y < 0 || y >= s.H || xx < 0 || xx >= s.W {
-							continue
-						}
-						dst := im[(y*s.W+xx)*s.C : (y*s.W+xx+1)*s.C]
-						for c, v := range src {
-							dst[c] += v
-						}
+					src := dcols[at : at+run]
+					at += run
+					if y < 0 || y >= s.H || lo >= hi {
+						continue
 					}
+					src = src[(lo-x0)*s.C : (hi-x0)*s.C]
+					row := (y * s.W) * s.C
+					addRun(im[row+lo*s.C:row+hi*s.C], src)
 				}
 			}
 		}
+	}
+}
+
+// addRun adds src into dst element by element.
+func addRun[T float32 | float64](dst, src []T) {
+	done := 0
+	if d32, ok := any(dst).([]float32); ok {
+		done = vec.Add(d32, any(src).([]float32))
+	}
+	src = src[:len(dst)]
+	for i := done; i < len(dst); i++ {
+		dst[i] += src[i]
 	}
 }
 
@@ -158,52 +178,78 @@ func ConvForward[T float32 | float64](out, cols, x, w, b []T, n int, s ConvShape
 // input rows (dx), the weights (dw) and the bias (db), given its
 // gradient g with respect to the n output rows, the patches cols of the
 // forward pass (Im2Col of x) and the weights w; dcols is a buffer of
-// cols' size (grown if too short) and is returned.
+// cols' size (grown if too short) and is returned. It is
+// ConvFilterGrad and, when dx is not nil, ConvInputGrad.
 func ConvBackward[T float32 | float64](dx, dw, db, dcols, g, cols, w []T, n int, s ConvShape) []T {
+	ConvFilterGrad(dw, db, g, cols, n, s)
+	if dx != nil {
+		dcols = ConvInputGrad(dx, dcols, g, w, n, s)
+	}
+	return dcols
+}
+
+// ConvFilterGrad computes the gradients of a loss with respect to a
+// convolution's weights (dw, OutC x K) and bias (db), given its gradient
+// g with respect to the n output rows and the forward's patches cols.
+func ConvFilterGrad[T float32 | float64](dw, db, g, cols []T, n int, s ConvShape) {
+	oh, ow := s.Out()
+	pos, k := n*oh*ow, s.K()
+	clear(dw[:s.OutC*k])
+	clear(db[:s.OutC])
+	if g32, ok := any(g).([]float32); ok {
+		// dw = g^T patches, by the matrix product
+		gemm.Sgemm(blas.Trans, blas.NoTrans, s.OutC, k, pos, 1, g32, s.OutC, any(cols).([]float32), k, 0, any(dw).([]float32), k)
+	}
+	for p := 0; p < pos; p++ {
+		gp := g[p*s.OutC : (p+1)*s.OutC]
+		for f, gv := range gp {
+			db[f] += gv
+		}
+		if _, ok := any(g).([]float32); ok {
+			continue
+		}
+		patch := cols[p*k : (p+1)*k]
+		for f, gv := range gp {
+			if gv == 0 {
+				continue
+			}
+			dwf := dw[f*k : (f+1)*k]
+			for i, v := range patch {
+				dwf[i] += gv * v
+			}
+		}
+	}
+}
+
+// ConvInputGrad computes the gradient of a loss with respect to a
+// convolution's n input rows (dx), given its gradient g with respect to
+// the output rows and the weights w; dcols is a patch buffer (grown if
+// too short) and is returned.
+func ConvInputGrad[T float32 | float64](dx, dcols, g, w []T, n int, s ConvShape) []T {
 	oh, ow := s.Out()
 	pos, k := n*oh*ow, s.K()
 	if cap(dcols) < pos*k {
 		dcols = make([]T, pos*k)
 	}
 	dcols = dcols[:pos*k]
-	clear(dw[:s.OutC*k])
-	clear(db[:s.OutC])
 	if g32, ok := any(g).([]float32); ok {
-		// float32: dw = g^T patches, dpatches = g w, by the matrix product
-		c32, w32 := any(cols).([]float32), any(w).([]float32)
-		gemm.Sgemm(blas.Trans, blas.NoTrans, s.OutC, k, pos, 1, g32, s.OutC, c32, k, 0, any(dw).([]float32), k)
-		gemm.Sgemm(blas.NoTrans, blas.NoTrans, pos, k, s.OutC, 1, g32, s.OutC, w32, k, 0, any(dcols).([]float32), k)
+		// dpatches = g w, by the matrix product
+		gemm.Sgemm(blas.NoTrans, blas.NoTrans, pos, k, s.OutC, 1, g32, s.OutC, any(w).([]float32), k, 0, any(dcols).([]float32), k)
+	} else {
 		for p := 0; p < pos; p++ {
+			dpatch := dcols[p*k : (p+1)*k]
+			clear(dpatch)
 			for f, gv := range g[p*s.OutC : (p+1)*s.OutC] {
-				db[f] += gv
-			}
-		}
-		if dx != nil {
-			Col2Im(dx, dcols, n, s)
-		}
-		return dcols
-	}
-	for p := 0; p < pos; p++ {
-		gp := g[p*s.OutC : (p+1)*s.OutC]
-		patch := cols[p*k : (p+1)*k]
-		dpatch := dcols[p*k : (p+1)*k]
-		clear(dpatch)
-		for f, gv := range gp {
-			if gv == 0 {
-				continue
-			}
-			db[f] += gv
-			wf := w[f*k : (f+1)*k]
-			dwf := dw[f*k : (f+1)*k]
-			for i := range patch {
-				dwf[i] += gv * patch[i]
-				dpatch[i] += gv * wf[i]
+				if gv == 0 {
+					continue
+				}
+				for i, wv := range w[f*k : (f+1)*k] {
+					dpatch[i] += gv * wv
+				}
 			}
 		}
 	}
-	if dx != nil {
-		Col2Im(dx, dcols, n, s)
-	}
+	Col2Im(dx, dcols, n, s)
 	return dcols
 }
 
@@ -287,9 +333,22 @@ func transposePatches[T float32 | float64](cols, x, w []T, pos, k, cin int) {
 // the transposed convolution's input rows (dx), weights (dw) and bias
 // (db), given its gradient g with respect to the n output rows, the
 // input x and the weights w; gcols is a buffer (grown if too short) and
-// is returned.
+// is returned. It is Im2Col of g, ConvTransposeFilterGrad and, when dx
+// is not nil, ConvTransposeInputGrad.
 func ConvTransposeBackward[T float32 | float64](dx, dw, db, gcols, g, x, w []T, n int, s ConvShape) []T {
 	gcols = Im2Col(gcols, g, n, s)
+	ConvTransposeFilterGrad(dw, db, gcols, g, x, n, s)
+	if dx != nil {
+		ConvTransposeInputGrad(dx, gcols, w, n, s)
+	}
+	return gcols
+}
+
+// ConvTransposeFilterGrad computes the gradients of a loss with respect
+// to a transposed convolution's weights (dw) and bias (db), given its
+// gradient g with respect to the n output rows, gcols = Im2Col of g, and
+// the input x.
+func ConvTransposeFilterGrad[T float32 | float64](dw, db, gcols, g, x []T, n int, s ConvShape) {
 	oh, ow := s.Out()
 	pos, k := n*oh*ow, s.K()
 	clear(dw[:s.OutC*k])
@@ -298,34 +357,41 @@ func ConvTransposeBackward[T float32 | float64](dx, dw, db, gcols, g, x, w []T, 
 		db[i%s.C] += v
 	}
 	if gc32, ok := any(gcols).([]float32); ok {
-		// float32: dw = x^T gpatches, dx = gpatches w^T
-		x32, w32 := any(x).([]float32), any(w).([]float32)
-		gemm.Sgemm(blas.Trans, blas.NoTrans, s.OutC, k, pos, 1, x32, s.OutC, gc32, k, 0, any(dw).([]float32), k)
-		if dx != nil {
-			gemm.Sgemm(blas.NoTrans, blas.Trans, pos, s.OutC, k, 1, gc32, k, w32, k, 0, any(dx).([]float32), s.OutC)
-		}
-		return gcols
+		// dw = x^T gpatches
+		gemm.Sgemm(blas.Trans, blas.NoTrans, s.OutC, k, pos, 1, any(x).([]float32), s.OutC, gc32, k, 0, any(dw).([]float32), k)
+		return
 	}
 	for p := 0; p < pos; p++ {
 		gp := gcols[p*k : (p+1)*k]
-		xp := x[p*s.OutC : (p+1)*s.OutC]
-		var dxp []T
-		if dx != nil {
-			dxp = dx[p*s.OutC : (p+1)*s.OutC]
-		}
-		for ci := 0; ci < s.OutC; ci++ {
-			wr := w[ci*k : (ci+1)*k]
+		for ci, xv := range x[p*s.OutC : (p+1)*s.OutC] {
 			dwr := dw[ci*k : (ci+1)*k]
-			var acc T
-			xv := xp[ci]
 			for i, gv := range gp {
-				acc += gv * wr[i]
 				dwr[i] += xv * gv
-			}
-			if dxp != nil {
-				dxp[ci] = acc
 			}
 		}
 	}
-	return gcols
+}
+
+// ConvTransposeInputGrad computes the gradient of a loss with respect to
+// a transposed convolution's n input rows (dx), given gcols = Im2Col of
+// its gradient with respect to the output rows and the weights w.
+func ConvTransposeInputGrad[T float32 | float64](dx, gcols, w []T, n int, s ConvShape) {
+	oh, ow := s.Out()
+	pos, k := n*oh*ow, s.K()
+	if gc32, ok := any(gcols).([]float32); ok {
+		// dx = gpatches w^T
+		gemm.Sgemm(blas.NoTrans, blas.Trans, pos, s.OutC, k, 1, gc32, k, any(w).([]float32), k, 0, any(dx).([]float32), s.OutC)
+		return
+	}
+	for p := 0; p < pos; p++ {
+		gp := gcols[p*k : (p+1)*k]
+		dxp := dx[p*s.OutC : (p+1)*s.OutC]
+		for ci := range dxp {
+			var acc T
+			for i, gv := range gp {
+				acc += gv * w[ci*k+i]
+			}
+			dxp[ci] = acc
+		}
+	}
 }

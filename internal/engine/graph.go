@@ -525,20 +525,17 @@ func (gr *Graph) MLP(m *layers.MLP, x *Node, dropout []*Input) *Node {
 }
 
 // ConvLayer applies a convolution layer, or a transposed one, and its
-// activation. scale, when not nil, is a 1 x 1 node the weights are
+// activation, one fused operation. scale, when not nil, is a 1 x 1 node the weights are
 // multiplied by first (spectral normalisation).
 func (gr *Graph) ConvLayer(c *layers.Conv, x, scale *Node) *Node {
 	w := gr.Param(c.W)
 	if scale != nil {
 		w = gr.Mul(scale, w)
 	}
-	var h *Node
-	if c.Transposed {
-		h = gr.ConvTranspose2D(x, w, gr.Param(c.B), c.Shape)
-	} else {
-		h = gr.Conv2D(x, w, gr.Param(c.B), c.Shape)
+	if !c.Act.Concrete() {
+		return gr.fail("conv", fmt.Errorf("unknown activation %v", c.Act))
 	}
-	return gr.Activate(h, c.Act, c.Slope)
+	return gr.conv(x, w, gr.Param(c.B), c.Shape, c.Transposed, c.Act, c.Slope)
 }
 
 // DropoutInputs makes one mask input for each layer of m that has a
