@@ -527,3 +527,34 @@ func TestTypedRecords(t *testing.T) {
 	require.Equal(t, 400, code)
 	require.Contains(t, v["error"], `"amount" is [1]`)
 }
+
+// A convolutional VAE serves as a dense one does: the server needs no
+// change for a new shape of network. Images are rows of pixels; scores,
+// encodings and samples come back, the same for the same request.
+func TestConvolutionalModel(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "c.qm")
+	d, err := data.LoadIDX("../testdata/fashion-mnist/t10k-images-idx3-ubyte-first500.gz", data.IDXConfig{})
+	require.NoError(t, err)
+	m, err := vae.New(vae.Config{Inputs: 784, Image: d.Image, Channels: []int{4, 8}, Hidden: []int{}, Latent: 3, Seed: 1})
+	require.NoError(t, err)
+	trainenv.Fit(t, m, d, nil, train.Settings{Epochs: 1})
+	_, err = m.Calibrate(d.X, d.Rows, anomaly.Config{FalseAlarm: 0.05})
+	require.NoError(t, err)
+	require.NoError(t, m.Save(path, nil))
+	l := start(t, Config{ModelPath: path})
+	c := &http.Client{Timeout: 5 * time.Second}
+	code, v := post(t, c, l.url+"/v1/score", rowsBody(d, 0, 3))
+	require.Equal(t, 200, code, "%v", v)
+	require.Len(t, v["results"], 3)
+	want, err := m.NegELBO(d.X[:3*784], 3)
+	require.NoError(t, err)
+	for i, r := range v["results"].([]any) {
+		require.InDelta(t, want[i], r.(map[string]any)["score"].(float64), 1e-9*want[i])
+	}
+	code, a := post(t, c, l.url+"/v1/sample", []byte(`{"count": 2, "seed": 7}`))
+	require.Equal(t, 200, code)
+	_, b := post(t, c, l.url+"/v1/sample", []byte(`{"count": 2, "seed": 7}`))
+	require.Equal(t, a, b)
+	require.Len(t, a["rows"].([]any)[0], 784)
+}

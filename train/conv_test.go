@@ -3,9 +3,14 @@ package train_test
 import (
 	"bytes"
 	"context"
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"encoding/json"
 	"errors"
 	"math"
 	"math/rand/v2"
+	"os"
 	"runtime"
 	"testing"
 
@@ -208,4 +213,62 @@ func TestDeparturesFindAPastedSquare(t *testing.T) {
 			require.Greater(t, in/float64(nIn), 5*out/float64(nOut), "mean departure inside the square against outside")
 		})
 	}
+}
+
+// convGolden is testdata/conv/training.json: for each case of convCases
+// trained 4 epochs on blobs, the SHA-256 of its parameters' values (each
+// float's bits, little-endian, in Params order) and its history.
+type convGolden struct {
+	Source string                    `json:"source"`
+	Cases  map[string]convGoldenCase `json:"cases"`
+}
+
+type convGoldenCase struct {
+	Weights string              `json:"weights_sha256"`
+	Epochs  []train.EpochRecord `json:"epochs"`
+}
+
+const convGoldenPath = "../testdata/conv/training.json"
+
+// Training with convolutions stays bitwise what it was when
+// testdata/conv/training.json was written (go test ./train -run
+// TestConvTrainingGolden -update rewrites it, after a change meant to
+// alter the weights: say which in the commit): a change in the kernels'
+// order of sums, the initialisation or the streams shows here.
+func TestConvTrainingGolden(t *testing.T) {
+	ownProduct(t)
+	d, va := blobs(96, 1), blobs(32, 2)
+	got := convGolden{Source: "go test ./train -run TestConvTrainingGolden -update (Go computes it: blobs(96, 1) and blobs(32, 2), 4 epochs of batch 16)", Cases: map[string]convGoldenCase{}}
+	for _, c := range convCases {
+		m := c.build()
+		tr, err := train.New(m, train.Settings{Epochs: 4, BatchSize: 16})
+		require.NoError(t, err)
+		h, err := tr.Run(context.Background(), d, va)
+		require.NoError(t, err)
+		sum := sha256.New()
+		for _, p := range m.(interface{ Params() []*layers.Param }).Params() {
+			for _, v := range p.F32() {
+				binary.Write(sum, binary.LittleEndian, math.Float32bits(v))
+			}
+			for _, v := range p.F64() {
+				binary.Write(sum, binary.LittleEndian, math.Float64bits(v))
+			}
+		}
+		got.Cases[c.name] = convGoldenCase{Weights: hex.EncodeToString(sum.Sum(nil)), Epochs: h.Epochs}
+	}
+	if *update {
+		b, err := json.MarshalIndent(got, "", " ")
+		require.NoError(t, err)
+		require.NoError(t, os.WriteFile(convGoldenPath, append(b, '\n'), 0o644))
+		return
+	}
+	b, err := os.ReadFile(convGoldenPath)
+	require.NoError(t, err)
+	var want convGolden
+	require.NoError(t, json.Unmarshal(b, &want))
+	for name, w := range want.Cases {
+		require.Equal(t, w.Weights, got.Cases[name].Weights, "%s: weights", name)
+		require.Equal(t, w.Epochs, got.Cases[name].Epochs, "%s: history", name)
+	}
+	require.Len(t, want.Cases, len(convCases))
 }

@@ -136,8 +136,13 @@ func TestImageModels(t *testing.T) {
 // interpolate work as for dense models.
 func TestConvModels(t *testing.T) {
 	dir := t.TempDir()
-	r := ok(t, quern(t, dir, nil, "train", "-kind", "vae", "-data", fmImages, "-out", "v.qm", "-epochs", "2", "-channels", "8,16", "-latent", "4", "-false-alarm", "0.05"))
+	r := ok(t, quern(t, dir, nil, "train", "-kind", "vae", "-data", fmImages, "-out", "v.qm", "-epochs", "2", "-channels", "8,16", "-latent", "4", "-false-alarm", "0.05", "-report", "rep"))
 	require.Contains(t, r.stderr, "hidden layers: none, the convolutions' innermost maps meet the code directly")
+	for _, f := range []string{"rep/index.html", "rep/samples.png", "rep/latent.png"} {
+		st, err := os.Stat(filepath.Join(dir, f))
+		require.NoError(t, err, f)
+		require.Greater(t, st.Size(), int64(100), f)
+	}
 	r = ok(t, quern(t, dir, nil, "inspect", "v.qm"))
 	require.Contains(t, r.stdout, "encoder     28x28x1->14x14x8 conv 3x3 relu, 14x14x8->7x7x16 conv 3x3 relu, 784->8 identity")
 	require.Contains(t, r.stdout, "decoder     4->784 relu, 7x7x16->14x14x8 transposed conv 3x3 relu, 14x14x8->28x28x1 transposed conv 3x3 identity")
