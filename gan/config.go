@@ -187,7 +187,7 @@ func (c Config) Validate() error {
 			return bad("a discriminator with convolutions takes no class labels (%d classes): use dense layers for a conditional GAN", c.Classes)
 		}
 		if _, err := layers.ImagePlan(c.Image, c.Channels, c.Kernel, false); err != nil {
-			return bad("%v", err)
+			return fmt.Errorf("%w: %w", ErrConfig, err)
 		}
 		if w := c.Image[0] * c.Image[1] * c.Image[2]; w != c.Outputs {
 			return bad("images of %dx%dx%d are %d values, not the %d outputs", c.Image[0], c.Image[1], c.Image[2], w, c.Outputs)

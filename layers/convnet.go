@@ -33,6 +33,27 @@ type ConvPlan struct {
 	Out bool
 }
 
+// PlanError is a ConvPlan that cannot be built, in the plan's own terms:
+// Conv is the convolution at fault (1-based from the image end; 0 for
+// the plan as a whole). It wraps ErrConfig.
+type PlanError struct {
+	Conv int
+	Msg  string
+}
+
+func (e *PlanError) Error() string {
+	if e.Conv > 0 {
+		return fmt.Sprintf("layers: convolution %d: %s", e.Conv, e.Msg)
+	}
+	return "layers: " + e.Msg
+}
+
+func (e *PlanError) Unwrap() error { return ErrConfig }
+
+func planErr(conv int, format string, args ...any) error {
+	return &PlanError{conv, fmt.Sprintf(format, args...)}
+}
+
 // convStride is the stride of every convolution of a ConvPlan.
 const convStride = 2
 
@@ -49,31 +70,31 @@ func (p ConvPlan) Shapes() ([]ConvShape, error) {
 	p = p.withDefaults()
 	h, w, c := p.Image[0], p.Image[1], p.Image[2]
 	if h <= 0 || w <= 0 || c <= 0 {
-		return nil, fmt.Errorf("%w: convolutions over images of %dx%d with %d channels", ErrConfig, h, w, c)
+		return nil, planErr(0, "convolutions over images of %dx%d with %d channels", h, w, c)
 	}
 	if int64(h)*int64(w)*int64(c) > MaxWidth {
-		return nil, fmt.Errorf("%w: images of %dx%dx%d have over %d values", ErrConfig, h, w, c, MaxWidth)
+		return nil, planErr(0, "images of %dx%dx%d have over %d values", h, w, c, MaxWidth)
 	}
 	if len(p.Channels) == 0 || len(p.Channels) > MaxLayers {
-		return nil, fmt.Errorf("%w: %d convolutions, want 1 to %d", ErrConfig, len(p.Channels), MaxLayers)
+		return nil, planErr(0, "%d convolutions, want 1 to %d", len(p.Channels), MaxLayers)
 	}
 	if p.Kernel < 1 || p.Kernel > 64 {
-		return nil, fmt.Errorf("%w: kernel side %d, want 1 to 64", ErrConfig, p.Kernel)
+		return nil, planErr(0, "kernel side %d, want 1 to 64", p.Kernel)
 	}
 	shapes := make([]ConvShape, 0, len(p.Channels))
 	params := int64(0)
 	for i, oc := range p.Channels {
 		if oc <= 0 || oc > MaxWidth {
-			return nil, fmt.Errorf("%w: convolution %d has %d channels, want 1 to %d", ErrConfig, i+1, oc, MaxWidth)
+			return nil, planErr(i+1, "%d channels, want 1 to %d", oc, MaxWidth)
 		}
 		s := ConvShape{H: h, W: w, C: c, OutC: oc, KH: p.Kernel, KW: p.Kernel, Stride: convStride, Pad: (p.Kernel - 1) / 2}
 		if err := s.Check(); err != nil {
-			return nil, fmt.Errorf("%w: convolution %d: a %dx%d image is too small for another stride-2 convolution", ErrConfig, i+1, h, w)
+			return nil, planErr(i+1, "its %dx%d input is too small for a %dx%d kernel at stride 2", h, w, p.Kernel, p.Kernel)
 		}
 		params += int64(s.OutC)*int64(s.K()) + int64(max(s.OutC, s.C))
 		oh, ow := s.Out()
 		if params > MaxParams || int64(oh)*int64(ow)*int64(oc) > MaxWidth {
-			return nil, fmt.Errorf("%w: convolution %d makes the network too large", ErrConfig, i+1)
+			return nil, planErr(i+1, "makes the network too large (over %d parameters, or over %d values in a feature map)", MaxParams, MaxWidth)
 		}
 		shapes = append(shapes, s)
 		h, w, c = oh, ow, oc
@@ -266,7 +287,7 @@ func ImagePlan(image, channels []int, kernel int, out bool) (*ConvPlan, error) {
 		return nil, nil
 	}
 	if len(image) != 3 || image[0] <= 0 || image[1] <= 0 || image[2] <= 0 {
-		return nil, fmt.Errorf("%w: convolutions need image rows of a height, width and channels, got %v", ErrConfig, image)
+		return nil, planErr(0, "convolutions need image rows of a height, width and channels, got %v", image)
 	}
 	p := &ConvPlan{Image: [3]int{image[0], image[1], image[2]}, Channels: channels, Kernel: kernel, Out: out}
 	if _, err := p.Shapes(); err != nil {

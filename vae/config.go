@@ -185,7 +185,7 @@ func (c Config) Validate() error {
 			return bad("convolutions read images, not a table")
 		}
 		if _, err := layers.ImagePlan(c.Image, c.Channels, c.Kernel, false); err != nil {
-			return bad("%v", err)
+			return fmt.Errorf("%w: %w", ErrConfig, err)
 		}
 		if w := c.Image[0] * c.Image[1] * c.Image[2]; w != c.Inputs {
 			return bad("images of %dx%dx%d are %d values, not the %d inputs", c.Image[0], c.Image[1], c.Image[2], w, c.Inputs)

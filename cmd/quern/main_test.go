@@ -175,6 +175,8 @@ func TestConvModels(t *testing.T) {
 		{[]string{"train", "-data", bc, "-no-header", "-skip", "1", "-out", "m.qm", "-channels", "8"}, "-channels: convolutions read images (a folder of PNG files or an idx file), and " + bc + " is a table"},
 		{[]string{"train", "-data", fmImages, "-out", "m.qm", "-channels", "8,x"}, `-channels: "x" is not a positive width`},
 		{[]string{"train", "-data", fmImages, "-out", "m.qm", "-channels", "8", "-kernel", "99"}, "-kernel 99: want a side of 1 to 64"},
+		{[]string{"train", "-data", fmImages, "-out", "m.qm", "-channels", "100000,100000"}, "-channels 100000,100000 -kernel 3 on 28x28x1 images: convolution 2: makes the network too large"},
+		{[]string{"train", "-data", fmImages, "-out", "m.qm", "-channels", "8,8,8,8,8,8", "-kernel", "2"}, "convolution 5: its 1x1 input is too small for a 2x2 kernel at stride 2"},
 		{[]string{"train", "-kind", "gan", "-data", fmImages, "-out", "m.qm", "-channels", "8", "-pack", "2"}, "pack 2 needs dense layers only"},
 		{[]string{"score", "-model", "t.qm", "-data", bc, "-no-header", "-skip", "1", "-out", "x.csv", "-heatmaps", "h"}, "-heatmaps draws images, and " + bc + " holds a table"},
 		{[]string{"score", "-model", "a.qm", "-data", dir, "-out", "x.csv", "-heatmaps", dir}, "is the -data folder"},

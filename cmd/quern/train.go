@@ -682,6 +682,15 @@ func (o *trainOpts) build(d *data.Dataset) (train.Model, train.Objective, error)
 	image := d.Image != nil
 	scaling := data.ScaleKind(o.scaling)
 	usage := func(m train.Model, obj train.Objective, err error) (train.Model, train.Objective, error) {
+		var pe *layers.PlanError
+		if errors.As(err, &pe) {
+			// in the flags' words
+			msg, k := strings.TrimPrefix(pe.Error(), "layers: "), o.kernel
+			if k == 0 {
+				k = 3 // the default
+			}
+			return nil, nil, usagef("-channels %s -kernel %d on %dx%dx%d images: %s", o.channels, k, d.Image[0], d.Image[1], d.Image[2], msg)
+		}
 		if err != nil {
 			return nil, nil, usageError{err.Error()}
 		}
