@@ -24,28 +24,12 @@ func ImageGrid(path string, rows []float32, h, w, c, cols, zoom int) error {
 	for i := range img.Pix {
 		img.Pix[i] = 255
 	}
-	q := func(v float32) uint8 {
-		if !(v > 0) {
-			return 0
-		}
-		if v >= 1 {
-			return 255
-		}
-		return uint8(v*255 + 0.5)
-	}
 	for k := 0; k < n; k++ {
 		ox, oy := pad+(k%cols)*(w*zoom+pad), pad+(k/cols)*(h*zoom+pad)
 		im := rows[k*size : (k+1)*size]
 		for y := 0; y < h; y++ {
 			for x := 0; x < w; x++ {
-				var col color.RGBA
-				if c == 1 {
-					g := q(im[y*w+x])
-					col = color.RGBA{g, g, g, 255}
-				} else {
-					b := (y*w + x) * 3
-					col = color.RGBA{q(im[b]), q(im[b+1]), q(im[b+2]), 255}
-				}
+				col := pixel(im, y*w+x, c)
 				for dy := 0; dy < zoom; dy++ {
 					for dx := 0; dx < zoom; dx++ {
 						img.SetRGBA(ox+x*zoom+dx, oy+y*zoom+dy, col)
@@ -63,6 +47,25 @@ func ImageGrid(path string, rows []float32, h, w, c, cols, zoom int) error {
 		return fmt.Errorf("report: %w", err)
 	}
 	return f.Close()
+}
+
+// pixel is the colour of pixel p of an image of c channels (1: grey, 3:
+// red, green, blue) whose values are in [0, 1].
+func pixel(im []float32, p, c int) color.RGBA {
+	q := func(v float32) uint8 {
+		if !(v > 0) {
+			return 0
+		}
+		if v >= 1 {
+			return 255
+		}
+		return uint8(v*255 + 0.5)
+	}
+	if c == 1 {
+		g := q(im[p])
+		return color.RGBA{g, g, g, 255}
+	}
+	return color.RGBA{q(im[p*3]), q(im[p*3+1]), q(im[p*3+2]), 255}
 }
 
 // FirstTwo keeps the first two columns of rows of width w (a zero second
@@ -111,14 +114,14 @@ func HeatMap(path string, img []float32, contrib []float64, h, w, c, zoom int, s
 		return 0, fmt.Errorf("report: %d values and %d contributions are not an image of %dx%dx%d", len(img), len(contrib), h, w, c)
 	}
 	zoom = max(zoom, 1)
-	pixel := make([]float64, h*w)
+	part := make([]float64, h*w)
 	largest := 0.0
-	for p := range pixel {
+	for p := range part {
 		for k := 0; k < c; k++ {
-			pixel[p] += contrib[p*c+k]
+			part[p] += contrib[p*c+k]
 		}
-		if pixel[p] > largest {
-			largest = pixel[p]
+		if part[p] > largest {
+			largest = part[p]
 		}
 	}
 	if scale <= 0 {
@@ -129,28 +132,12 @@ func HeatMap(path string, img []float32, contrib []float64, h, w, c, zoom int, s
 	for i := range out.Pix {
 		out.Pix[i] = 255
 	}
-	q := func(v float32) uint8 {
-		if !(v > 0) {
-			return 0
-		}
-		if v >= 1 {
-			return 255
-		}
-		return uint8(v*255 + 0.5)
-	}
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
-			var left color.RGBA
-			if c == 1 {
-				g := q(img[y*w+x])
-				left = color.RGBA{g, g, g, 255}
-			} else {
-				b := (y*w + x) * 3
-				left = color.RGBA{q(img[b]), q(img[b+1]), q(img[b+2]), 255}
-			}
+			left := pixel(img, y*w+x, c)
 			right := heatColour(0)
 			if scale > 0 {
-				right = heatColour(pixel[y*w+x] / scale)
+				right = heatColour(part[y*w+x] / scale)
 			}
 			for dy := 0; dy < zoom; dy++ {
 				for dx := 0; dx < zoom; dx++ {
