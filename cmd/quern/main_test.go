@@ -167,6 +167,18 @@ func TestConvModels(t *testing.T) {
 	require.Contains(t, r.stdout, "14x14x4->28x28x1 transposed conv 3x3 sigmoid")
 	ok(t, quern(t, dir, nil, "sample", "-model", "g.qm", "-n", "4", "-out", "g.png"))
 
+	// a folder of PNG images as well as an idx file
+	imgs := filepath.Join(dir, "imgs")
+	require.NoError(t, os.Mkdir(imgs, 0o755))
+	fm, err := data.LoadIDX(fmImages, data.IDXConfig{})
+	require.NoError(t, err)
+	for i := 0; i < 24; i++ {
+		require.NoError(t, data.WritePNG(filepath.Join(imgs, fmt.Sprintf("img%03d.png", i)), fm.Row(i), 28, 28, 1))
+	}
+	ok(t, quern(t, dir, nil, "train", "-kind", "ae", "-data", imgs, "-out", "p.qm", "-epochs", "1", "-channels", "4", "-batch", "8", "-quiet"))
+	r = ok(t, quern(t, dir, nil, "inspect", "p.qm"))
+	require.Contains(t, r.stdout, "28x28x1->14x14x4 conv 3x3")
+
 	ok(t, quern(t, dir, nil, "train", "-data", bc, "-no-header", "-skip", "1", "-out", "t.qm", "-epochs", "1", "-quiet"))
 	for _, c := range []struct {
 		args []string
