@@ -257,23 +257,47 @@ func newConvs(name string, p ConvPlan, hidden, last Activation, slope float64, p
 	return convs
 }
 
-// convForward runs one convolution layer on rows of x into dst (grown if
-// too short) with ws's patch buffer, and applies its activation.
+// maxPatchValues bounds the patch buffer of a graph-free pass: rows go
+// through a convolution in blocks whose patches fit it (4 MiB in
+// float32), so that scoring many rows at once, or many draws of each, does
+// not hold every row's patches. Common practice, no source.
+const maxPatchValues = 1 << 20
+
+// convBlock is how many rows of c go through at once in a graph-free pass.
+func convBlock(c *Conv) int {
+	oh, ow := c.Shape.Out()
+	return max(1, maxPatchValues/(oh*ow*c.Shape.K()))
+}
+
+// convForward32 runs one convolution layer on rows of x into dst (rows x
+// c.Out() values), block by block with ws's patch buffer, and applies its
+// activation. Each output value is the same dot product whatever the
+// blocks, so the result is the training graph's bit for bit.
 func convForward32(c *Conv, dst, x []float32, rows int, ws *Workspace) []float32 {
-	if c.Transposed {
-		dst, ws.cols32 = ConvTransposeForward(dst, ws.cols32, x, c.W.v32, c.B.v32, rows, c.Shape)
-	} else {
-		dst, ws.cols32 = ConvForward(dst, ws.cols32, x, c.W.v32, c.B.v32, rows, c.Shape)
+	in, out, blk := c.In(), c.Out(), convBlock(c)
+	for r := 0; r < rows; r += blk {
+		n := min(blk, rows-r)
+		d, xs := dst[r*out:(r+n)*out], x[r*in:(r+n)*in]
+		if c.Transposed {
+			_, ws.cols32 = ConvTransposeForward(d, ws.cols32, xs, c.W.v32, c.B.v32, n, c.Shape)
+		} else {
+			_, ws.cols32 = ConvForward(d, ws.cols32, xs, c.W.v32, c.B.v32, n, c.Shape)
+		}
 	}
 	applyInPlace32(c.Act, dst, float32(c.Slope))
 	return dst
 }
 
 func convForward64(c *Conv, dst, x []float64, rows int, ws *Workspace) []float64 {
-	if c.Transposed {
-		dst, ws.cols64 = ConvTransposeForward(dst, ws.cols64, x, c.W.v64, c.B.v64, rows, c.Shape)
-	} else {
-		dst, ws.cols64 = ConvForward(dst, ws.cols64, x, c.W.v64, c.B.v64, rows, c.Shape)
+	in, out, blk := c.In(), c.Out(), convBlock(c)
+	for r := 0; r < rows; r += blk {
+		n := min(blk, rows-r)
+		d, xs := dst[r*out:(r+n)*out], x[r*in:(r+n)*in]
+		if c.Transposed {
+			_, ws.cols64 = ConvTransposeForward(d, ws.cols64, xs, c.W.v64, c.B.v64, n, c.Shape)
+		} else {
+			_, ws.cols64 = ConvForward(d, ws.cols64, xs, c.W.v64, c.B.v64, n, c.Shape)
+		}
 	}
 	applyInPlace64(c.Act, dst, c.Slope)
 	return dst
