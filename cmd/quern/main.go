@@ -42,6 +42,7 @@ func init() {
 		"demo":        {"run the whole job on an invented scenario: a pump fleet, or card payments (-scenario payments)", cmdDemo},
 		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
 		"evaluate":    {"measure anomaly scores against labelled rows (ROC, precision, recall); set a threshold again", cmdEvaluate},
+		"merge":       {"assemble a fleet from the folders of its shards (quern train -group COLUMN -shard I/N)", cmdMerge},
 		"version":     {"print the version, the Go toolchain, the build settings and the matrix kernel", cmdVersion},
 	}
 }

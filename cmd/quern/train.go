@@ -70,6 +70,14 @@ type trainOpts struct {
 	report     string
 	watch      string
 	quiet      bool
+	// fleets (-group)
+	group   string
+	minRows int
+	shared  int
+	shard   string
+	// settings are the flags given that shape the models (fleets record
+	// them: shards must agree)
+	settings []string
 }
 
 func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
@@ -116,6 +124,10 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.StringVar(&o.report, "report", "", "folder for the PNG figures and HTML report")
 	fs.StringVar(&o.watch, "watch", "", "serve a live page of the run at `ADDR` (host:port, or a port on loopback; 0 picks a free port)")
 	fs.BoolVar(&o.quiet, "quiet", false, "no progress output")
+	fs.StringVar(&o.group, "group", "", "train a fleet: one model per value of this CSV `COLUMN` (each with its own scaling and threshold, seeded from -seed and the value), side by side on the cores; -out names the fleet's folder")
+	fs.IntVar(&o.minRows, "min-rows", defaultMinGroupRows, "-group: the fewest rows a group needs for a model of its own; smaller groups are scored by the shared model")
+	fs.IntVar(&o.shared, "shared", defaultSharedRows, "-group: rows drawn (seeded) from all groups to train the shared model, which scores small groups and groups not seen in training (0: no shared model; their rows are refused)")
+	fs.StringVar(&o.shard, "shard", "", "-group: train only shard `I/N` of the fleet (I from 0), for an array job; quern merge assembles the shards' folders into the fleet")
 	return fs
 }
 
@@ -153,8 +165,17 @@ func cmdTrain(e *env, args []string) error {
 		return err
 	}
 	set := map[string]bool{}
-	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	o.settings = []string{}
+	fs.Visit(func(f *flag.Flag) {
+		set[f.Name] = true
+		if !nonSettings[f.Name] {
+			o.settings = append(o.settings, "-"+f.Name+"="+f.Value.String())
+		}
+	})
 	if o.resume != "" {
+		if o.group != "" {
+			return usagef("-group with -resume: a fleet is not resumed; train it again (each member is the same model for the same seed)")
+		}
 		return resumeTrain(e, o, set)
 	}
 	if o.out == "" {
@@ -166,6 +187,13 @@ func cmdTrain(e *env, args []string) error {
 	if err := o.checkNumbers(); err != nil {
 		return err
 	}
+	if o.group != "" {
+		if err := o.checkFleet(set); err != nil {
+			return err
+		}
+	} else if set["min-rows"] || set["shared"] || set["shard"] {
+		return usagef("-min-rows, -shared and -shard are for fleets: give -group COLUMN")
+	}
 	if o.every > 0 && o.checkpoint == "" {
 		o.checkpoint = o.out + ".ckpt"
 	}
@@ -173,6 +201,9 @@ func cmdTrain(e *env, args []string) error {
 		return err
 	}
 	for flagName, p := range map[string]string{"-out": o.out, "-checkpoint": o.checkpoint} {
+		if o.group != "" {
+			break // a fleet's folder, checked by checkFleet
+		}
 		if p != "" {
 			if err := writable(p, flagName); err != nil {
 				return err
@@ -199,6 +230,18 @@ func cmdTrain(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	if o.group != "" {
+		return trainFleet(e, st, &o, set, full, format)
+	}
+	_, err = trainLoaded(e, st, &o, set, full, format, o.out, o.checkpoint, o.report, o.watch)
+	return err
+}
+
+// trainLoaded trains, calibrates and writes one model of the loaded rows
+// full, as the flags say: the whole of a train command once its data are
+// read, or one member of a fleet.
+func trainLoaded(e *env, st *status, o *trainOpts, set map[string]bool, full *data.Dataset, format data.Format, out, checkpoint, report, watchAt string) (*outcome, error) {
+	score := cmp.Or(o.score, scoreDistance)
 	folds := o.folds
 	if !set["folds"] {
 		folds = 0
@@ -215,12 +258,12 @@ func cmdTrain(e *env, args []string) error {
 	}
 	why, err := o.chooseDefaults(full, fitRows, rowsWhat, set)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Score: score, Every: o.every, Chosen: why}
 	m, obj, err := o.build(full)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	warnVal := o.val
 	if folds > 0 {
@@ -240,10 +283,10 @@ func cmdTrain(e *env, args []string) error {
 				fs.Patience = 0 // and the default patience
 			}
 		}
-		cf, err := crossFit(ctx, st, &o, full, fs, folds, o.seed, anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm})
+		cf, err := crossFit(ctx, st, o, full, fs, folds, o.seed, anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm})
 		stop()
 		if err != nil {
-			return err
+			return nil, err
 		}
 		rec.CrossFit, rec.Validation = cf, 0
 		batches := max(1, (full.Rows+o.batch-1)/o.batch)
@@ -263,13 +306,13 @@ func cmdTrain(e *env, args []string) error {
 		rec.Chosen = slices.DeleteFunc(rec.Chosen, func(c string) bool { return strings.HasPrefix(c, "length:") })
 	}
 	if s.Patience > 0 && o.val == 0 {
-		return usagef("-patience needs a validation split (-val > 0)")
+		return nil, usagef("-patience needs a validation split (-val > 0)")
 	}
 	t, err := train.New(m, s)
 	if err != nil {
-		return usageError{err.Error()}
+		return nil, usageError{err.Error()}
 	}
-	return runTraining(e, st, t, full, format, rec, o.out, o.checkpoint, o.report, o.watch)
+	return runTraining(e, st, t, full, format, rec, out, checkpoint, report, watchAt)
 }
 
 func (o *trainOpts) checkNumbers() error {
@@ -426,13 +469,21 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 	if rec.Every > 0 {
 		checkpoint = o.resume
 	}
-	return runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report, o.watch)
+	_, err = runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report, o.watch)
+	return err
+}
+
+// outcome is what a run gives its caller beside the file it wrote.
+type outcome struct {
+	h   *train.History
+	th  *anomaly.Threshold
+	val bool // validation rows were held out
 }
 
 // runTraining splits the data, trains (writing checkpoints), calibrates
 // the threshold of a model that has one, and writes the model file and
 // the report, each a phase of st.
-func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report, watchAt string) (err error) {
+func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report, watchAt string) (res *outcome, err error) {
 	prov := &modelfile.Provenance{DataFile: rec.Data.Path, DataFormat: string(format), DataFingerprint: full.Fingerprint(), DataRows: full.Rows}
 	trainSet, valSet := full, (*data.Dataset)(nil)
 	if rec.Validation > 0 {
@@ -441,11 +492,11 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		// (full is left shuffled; its fingerprint is already taken)
 		trainSet, valSet, err = full.SplitInPlace(rec.Validation, rand.New(rand.NewPCG(rec.SplitSeed, stream.Split)))
 		if err != nil {
-			return fmt.Errorf("-val %v: %w", rec.Validation, err)
+			return nil, fmt.Errorf("-val %v: %w", rec.Validation, err)
 		}
 	}
 	if t.Settings().Patience > 0 && valSet == nil {
-		return usagef("-patience needs a validation split (-val > 0)")
+		return nil, usagef("-patience needs a validation split (-val > 0)")
 	}
 	var s train.Callbacks
 	saves := 0
@@ -456,7 +507,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	var lv *live
 	if watchAt != "" {
 		if lv, err = startLive(st, watchAt, fmt.Sprintf("%s on %s", kindPhrase(t.Model().(model.Model).Kind()), filepath.Base(rec.Data.Path))); err != nil {
-			return err
+			return nil, err
 		}
 		lv.val, lv.image, lv.seed, lv.fa = valSet, full.Image, rec.SplitSeed, rec.FalseAlarm
 		defer func() {
@@ -501,9 +552,9 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	st.end()
 	if err != nil {
 		if errors.Is(err, context.Canceled) {
-			return fmt.Errorf("interrupted; the last checkpoint (if any) can be resumed with -resume")
+			return nil, fmt.Errorf("interrupted; the last checkpoint (if any) can be resumed with -resume")
 		}
-		return err
+		return nil, err
 	}
 	m := t.Model().(model.Model)
 	scoreLine := ""
@@ -512,13 +563,13 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		rf, ok := m.(residualFitter)
 		ts, ok2 := m.(thresholdSetter)
 		if !ok || !ok2 {
-			return fmt.Errorf("the checkpoint records a cross-fit, but a %s model cannot take one", m.Kind())
+			return nil, fmt.Errorf("the checkpoint records a cross-fit, but a %s model cannot take one", m.Kind())
 		}
 		st.begin("profile", func() string { return fmt.Sprintf("%d training rows", trainSet.Rows) })
 		err := rf.FitProfileWith(trainSet.X, trainSet.Rows, ae.ProfileSettings{Residual: cf.Residual, InputOnly: cf.InputOnly})
 		st.end()
 		if err != nil {
-			return err
+			return nil, err
 		}
 		scoreLine = profileLine(m)
 		if cf.ThresholdNote != "" {
@@ -542,7 +593,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		}
 		st.end()
 		if err != nil && !errors.Is(err, anomaly.ErrNoProfile) {
-			return err
+			return nil, err
 		}
 		if err == nil {
 			scoreLine = profileLine(m)
@@ -560,7 +611,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		}
 		st.end()
 		if err != nil {
-			fmt.Fprintf(e.stderr, "no threshold set: %v\n", err)
+			st.warn("no threshold set: %v", err)
 		} else {
 			th = &got
 		}
@@ -581,17 +632,17 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		err = f.SetSection(commandSection, rec)
 	}
 	if err != nil {
-		return err
+		return nil, err
 	}
 	if err := modelfile.Write(out, f); err != nil {
-		return err
+		return nil, err
 	}
 	st.end()
 	if report != "" {
 		st.begin("report", nil)
 		info.th = th
 		if err := writeTrainReport(report, m, t.Settings(), rec, h, full, valSet, info); err != nil {
-			return err
+			return nil, err
 		}
 		st.end()
 	}
@@ -628,7 +679,7 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 		st.say("report: %s", filepath.Join(report, "index.html"))
 	}
 	st.done()
-	return nil
+	return &outcome{h: h, th: th, val: valSet != nil}, nil
 }
 
 // profileLine says in the closing lines what a model's score is.
@@ -933,6 +984,12 @@ const minRows = 50
 // model's parameters), columns that never change, and a code as wide as
 // the inputs (an autoencoder that can copy its input).
 func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
+	return append(dataWarnings(d), modelWarnings(m, d, val)...)
+}
+
+// dataWarnings are trainWarnings' lines about how the file was read:
+// columns left out or doubted, sentinel values, rows skipped.
+func dataWarnings(d *data.Dataset) []string {
 	var out []string
 	for _, s := range append(append(append([]string(nil), d.LeftOut...), d.Stray...), d.Sentinels()...) {
 		out = append(out, "warning: "+s)
@@ -948,6 +1005,13 @@ func trainWarnings(m train.Model, d *data.Dataset, val float64) []string {
 		}
 		out = append(out, fmt.Sprintf("warning: %s left out: no observed cell (line %s%s)", plural(n, "training row"), strings.Join(lines, ", "), more))
 	}
+	return out
+}
+
+// modelWarnings are trainWarnings' lines about the model's shape for
+// these rows.
+func modelWarnings(m train.Model, d *data.Dataset, val float64) []string {
+	var out []string
 	rows := d.Rows - int(math.Round(val*float64(d.Rows)))
 	params := 0
 	if p, ok := m.(interface{ Params() []*layers.Param }); ok {

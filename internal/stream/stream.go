@@ -34,6 +34,10 @@ const (
 	// VAE's ELBO and importance-weighted bound.
 	ELBODraws uint64 = 0xe1
 	IWAEDraws uint64 = 0x1e
+	// Group derives each fleet member's seed from the run's seed and the
+	// group's name (xor its FNV-1a hash), so that a member is the same
+	// model whichever shard or process trains it.
+	Group uint64 = 0x6a0c
 )
 
 // ScoreSeed is the seed of a VAE's density score: its draws come from

@@ -1,0 +1,488 @@
+package main
+
+import (
+	"bytes"
+	"cmp"
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"runtime"
+	"slices"
+	"strconv"
+	"strings"
+	"sync"
+	"sync/atomic"
+
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/fleet"
+	"github.com/quernlab/quern/internal/stream"
+	"github.com/quernlab/quern/report"
+)
+
+// Fleet defaults (common practice, no source: below about a hundred
+// rows a group's own scaler, validation split and threshold quantile
+// rest on too little; twenty thousand rows make a population model of
+// the kind a single model is trained on).
+const (
+	defaultMinGroupRows = 100
+	defaultSharedRows   = 20000
+)
+
+// nonSettings are the train flags that do not change a fleet's models:
+// where things are written or read from, and what is printed.
+var nonSettings = map[string]bool{"out": true, "shard": true, "quiet": true, "report": true, "data": true, "watch": true, "limit": true}
+
+// checkFleet validates the fleet flags before any work and prepares the
+// read: the group column kept as text beside each row, not an input.
+func (o *trainOpts) checkFleet(set map[string]bool) error {
+	for _, f := range []string{"every", "checkpoint", "watch"} {
+		if set[f] {
+			return usagef("-%s is not for fleets (-group): a fleet's models train side by side and are written once each", f)
+		}
+	}
+	switch {
+	case o.minRows < 2:
+		return usagef("-min-rows %d: want at least 2", o.minRows)
+	case o.shared < 0:
+		return usagef("-shared %d: want 0 (no shared model) or a number of rows", o.shared)
+	case o.group == o.data.label:
+		return usagef("-group %s is also -label: the group column picks a model and cannot be its labels", o.group)
+	case slices.Contains(splitList(o.data.columns), o.group):
+		return usagef("-group %s is also in -columns: the group column picks a row's model and is not one of its inputs", o.group)
+	}
+	if o.shard != "" {
+		if _, err := fleet.ParseShard(o.shard); err != nil {
+			return usagef("-shard %v", err)
+		}
+	}
+	if st, err := os.Stat(o.out); err == nil && !st.IsDir() {
+		return usagef("-out %s is a file; with -group it names the fleet's folder", o.out)
+	}
+	if err := os.MkdirAll(o.out, 0o755); err != nil {
+		return fmt.Errorf("-out %s: cannot make the fleet's folder: %v", o.out, errText(err))
+	}
+	if err := writable(filepath.Join(o.out, fleet.IndexFile), "-out"); err != nil {
+		return err
+	}
+	o.data.keep, o.data.exclude = o.group, o.group
+	return nil
+}
+
+// errText is an error without the path an os error repeats.
+func errText(err error) string {
+	var pe *os.PathError
+	if errors.As(err, &pe) {
+		return pe.Err.Error()
+	}
+	return err.Error()
+}
+
+// fleetJob is one model of a fleet to train.
+type fleetJob struct {
+	group string // "" for the shared model
+	d     *data.Dataset
+	file  string
+	res   fleet.Member
+	err   error
+}
+
+// trainFleet trains one model per value of the -group column (the
+// shard's share of them), and the shared model in shard 0, side by side
+// on the cores, and writes the fleet's index (or, for a shard, its part).
+func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *data.Dataset, format data.Format) error {
+	if format != data.FormatCSV {
+		return usagef("-group %s: fleets are trained from a CSV file with a group column; %s is %s", o.group, o.data.path, format)
+	}
+	col := slices.Index(full.KeptColumns, o.group)
+	if col < 0 {
+		return fmt.Errorf("%s: no column %s to group by", o.data.path, o.group)
+	}
+	sh := fleet.All
+	if o.shard != "" {
+		sh, _ = fleet.ParseShard(o.shard) // checked in checkFleet
+	}
+	for _, w := range dataWarnings(full) {
+		st.warn("%s", w)
+	}
+	ix := fleet.Index{Format: fleet.FormatName, Version: fleet.Version, GroupColumn: o.group, Kind: o.kind, Seed: o.seed,
+		Settings: o.settings, Data: fleet.Data{Path: o.data.path, Fingerprint: full.Fingerprint(), Rows: full.Rows}, MinRows: o.minRows}
+	keys := make([]string, full.Rows)
+	w := len(full.KeptColumns)
+	for i := range keys {
+		keys[i] = full.Kept[i*w+col]
+	}
+	groups, ungrouped, err := full.GroupBy(keys)
+	if err != nil {
+		return err
+	}
+	keys = nil
+	counts := make(map[string]int, len(groups))
+	byKey := make(map[string]*data.Dataset, len(groups))
+	for _, g := range groups {
+		counts[g.Key], byKey[g.Key] = g.Data.Rows, g.Data
+	}
+	members, fallback, err := fleet.Plan(counts, o.minRows)
+	if err != nil {
+		return err
+	}
+	ix.Fallback, ix.Ungrouped = fallback, ungrouped
+	var jobs []*fleetJob
+	sharedSeed := fleet.SeedFor(o.seed, "")
+	if o.shared > 0 && sh.Index == 0 && full.Rows > 0 {
+		// a seeded draw from every row, grouped or not, in the grouped
+		// order (which does not depend on the file's order of groups)
+		n := min(o.shared, full.Rows)
+		idx := rand.New(rand.NewPCG(sharedSeed, stream.Split)).Perm(full.Rows)[:n]
+		slices.Sort(idx)
+		jobs = append(jobs, &fleetJob{d: full.Subset(idx), file: fleet.SharedFile})
+	}
+	for k, g := range members {
+		if sh.Owns(k) {
+			jobs = append(jobs, &fleetJob{group: g, d: byKey[g], file: fleet.FileName(g)})
+		}
+	}
+	if len(members) == 0 && o.shared == 0 {
+		return fmt.Errorf("%s: no group of %s has %d rows or more (-min-rows), and -shared 0 asks for no shared model: nothing to train", o.data.path, o.group, o.minRows)
+	}
+	if o.shared == 0 && (len(fallback) > 0 || ungrouped > 0) {
+		st.warn("warning: -shared 0: %s with fewer than %d rows and %s with no %s have no model; quern serve refuses their rows", plural(len(fallback), "group"), o.minRows, plural(ungrouped, "row"), o.group)
+	}
+	var done atomic.Int64
+	st.begin("train fleet", func() string {
+		return fmt.Sprintf("%d of %d models trained", done.Load(), len(jobs))
+	})
+	var failed atomic.Bool
+	next := make(chan *fleetJob)
+	var wg sync.WaitGroup
+	for range max(1, min(runtime.GOMAXPROCS(0), len(jobs))) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for j := range next {
+				if failed.Load() {
+					continue
+				}
+				seed := fleet.SeedFor(o.seed, j.group)
+				j.res, j.err = trainMember(e, *o, set, j.d, format, filepath.Join(o.out, j.file), seed)
+				j.res.Group = j.group
+				if j.err != nil {
+					failed.Store(true)
+				}
+				done.Add(1)
+			}
+		}()
+	}
+	for _, j := range jobs {
+		next <- j
+	}
+	close(next)
+	wg.Wait()
+	st.end()
+	part := fleet.Part{Shard: sh, Groups: len(members), Index: ix}
+	part.Index.Members = []fleet.Member{}
+	for _, j := range jobs {
+		if j.err != nil {
+			what := "the shared model"
+			if j.group != "" {
+				what = fmt.Sprintf("%s %s", o.group, j.group)
+			}
+			return fmt.Errorf("%s (%s): %w", what, plural(j.d.Rows, "row"), j.err)
+		}
+		if j.file == fleet.SharedFile {
+			m := j.res
+			m.Group = ""
+			part.Index.Shared = &m
+		} else {
+			part.Index.Members = append(part.Index.Members, j.res)
+		}
+	}
+	if sh.Of == 1 {
+		merged, err := fleet.Merge([]fleet.Part{part})
+		if err != nil {
+			return err
+		}
+		st.begin("write", nil)
+		if err := fleet.WriteIndex(o.out, merged); err != nil {
+			return err
+		}
+		st.end()
+		ix = *merged
+	} else {
+		st.begin("write", nil)
+		if err := fleet.WritePart(o.out, &part); err != nil {
+			return err
+		}
+		st.end()
+		ix = part.Index
+	}
+	if o.report != "" {
+		st.begin("report", nil)
+		if err := writeFleetReport(o.report, &ix, sh); err != nil {
+			return err
+		}
+		st.end()
+	}
+	for _, line := range fleetSummary(&ix, sh, o, len(members)) {
+		st.result("%s", line)
+	}
+	if o.report != "" {
+		st.say("report: %s", filepath.Join(o.report, "index.html"))
+	}
+	st.done()
+	return nil
+}
+
+// trainMember trains one model of a fleet with the run's flags and its
+// own seed, quietly: what training would print is kept as the member's
+// warnings.
+func trainMember(e *env, o trainOpts, set map[string]bool, d *data.Dataset, format data.Format, path string, seed uint64) (fleet.Member, error) {
+	var buf bytes.Buffer
+	st := newStatus(&buf, true)
+	o.seed = seed
+	res, err := trainLoaded(e, st, &o, set, d, format, path, "", "", "")
+	st.end()
+	if err != nil {
+		return fleet.Member{}, err
+	}
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return fleet.Member{}, err
+	}
+	m := fleet.Member{File: filepath.Base(path), SHA256: fleet.Hash(b), Rows: d.Rows, Epochs: len(res.h.Epochs)}
+	if res.val && len(res.h.Epochs) > 0 {
+		_, vl := res.h.Loss(len(res.h.Epochs))
+		m.ValidationLoss = &vl
+	}
+	if res.th != nil {
+		v := res.th.Value
+		m.Threshold = &v
+	}
+	for _, line := range strings.Split(buf.String(), "\n") {
+		if w, ok := strings.CutPrefix(line, "warning: "); ok {
+			m.Warnings = append(m.Warnings, w)
+		} else if strings.HasPrefix(line, "no threshold") {
+			m.Warnings = append(m.Warnings, line)
+		}
+	}
+	return m, nil
+}
+
+// spread is the lowest, median and highest of a member figure, with the
+// groups of the extremes.
+type spread struct {
+	n                int
+	lo, mid, hi      float64
+	loGroup, hiGroup string
+}
+
+func spreadOf(ms []fleet.Member, get func(fleet.Member) *float64) spread {
+	type gv struct {
+		g string
+		v float64
+	}
+	var vs []gv
+	for _, m := range ms {
+		if p := get(m); p != nil {
+			vs = append(vs, gv{m.Group, *p})
+		}
+	}
+	if len(vs) == 0 {
+		return spread{}
+	}
+	slices.SortStableFunc(vs, func(a, b gv) int { return cmp.Compare(a.v, b.v) })
+	mid := vs[len(vs)/2].v
+	if len(vs)%2 == 0 {
+		mid = (vs[len(vs)/2-1].v + mid) / 2
+	}
+	return spread{len(vs), vs[0].v, mid, vs[len(vs)-1].v, vs[0].g, vs[len(vs)-1].g}
+}
+
+// in says the spread with the extremes' groups named by column.
+func (s spread) in(column string) string {
+	return fmt.Sprintf("lowest %.4g (%s %s), median %.4g, highest %.4g (%s %s)", s.lo, column, s.loGroup, s.mid, s.hi, column, s.hiGroup)
+}
+
+func valLoss(m fleet.Member) *float64   { return m.ValidationLoss }
+func threshold(m fleet.Member) *float64 { return m.Threshold }
+func rowsOf(m fleet.Member) *float64    { v := float64(m.Rows); return &v }
+
+// fleetSummary is the closing lines of a fleet's (or a shard's) run.
+func fleetSummary(ix *fleet.Index, sh fleet.Shard, o *trainOpts, planned int) []string {
+	var out []string
+	shared := ""
+	if ix.Shared != nil {
+		shared = fmt.Sprintf(", and a shared model on %s drawn from all groups", plural(ix.Shared.Rows, "row"))
+	}
+	if sh.Of == 1 {
+		out = append(out, fmt.Sprintf("wrote the fleet %s: %d models, one per %s, each %s%s", filepath.Join(o.out, fleet.IndexFile), len(ix.Members), ix.GroupColumn, kindPhrase(ix.Kind), shared))
+	} else {
+		out = append(out, fmt.Sprintf("wrote shard %s of the fleet into %s: %d of its %d models, each %s%s (%s); when every shard has run: quern merge -out FLEET FOLDER...", sh, o.out, len(ix.Members), planned, kindPhrase(ix.Kind), shared, sh.PartFile()))
+	}
+	if len(ix.Members) > 0 {
+		out = append(out, "rows per model: "+spreadOf(ix.Members, rowsOf).in(ix.GroupColumn))
+	}
+	if s := spreadOf(ix.Members, valLoss); s.n > 0 {
+		out = append(out, "validation loss per model: "+s.in(ix.GroupColumn))
+	}
+	if s := spreadOf(ix.Members, threshold); s.n > 0 {
+		out = append(out, "threshold per model: "+s.in(ix.GroupColumn))
+	}
+	if n := len(ix.Fallback); n > 0 {
+		names := make([]string, 0, 5)
+		for _, f := range ix.Fallback[:min(n, 5)] {
+			names = append(names, fmt.Sprintf("%s (%d)", f.Group, f.Rows))
+		}
+		if n > 5 {
+			names = append(names, "...")
+		}
+		to := "scored by the shared model"
+		if ix.Shared == nil && sh.Index == 0 {
+			to = "with no model (-shared 0)"
+		} else if ix.Shared == nil {
+			to = "scored by the shared model of shard 0"
+		}
+		out = append(out, fmt.Sprintf("%s with fewer than %d rows (-min-rows), %s: %s", plural(n, "group"), ix.MinRows, to, strings.Join(names, ", ")))
+	}
+	if ix.Ungrouped > 0 {
+		out = append(out, fmt.Sprintf("%s with an empty %s: in no group's model (only in the shared model's draw)", plural(ix.Ungrouped, "row"), ix.GroupColumn))
+	}
+	warned := 0
+	var first []string
+	for _, m := range ix.Members {
+		if len(m.Warnings) > 0 {
+			warned++
+			if len(first) < 3 {
+				first = append(first, fmt.Sprintf("%s: %s", m.Group, m.Warnings[0]))
+			}
+		}
+	}
+	if warned > 0 {
+		out = append(out, fmt.Sprintf("warnings for %s (all in %s): %s", plural(warned, "model"), map[bool]string{true: fleet.IndexFile, false: sh.PartFile()}[sh.Of == 1], strings.Join(first, "; ")))
+	}
+	if ix.Kind != "gan" {
+		out = append(out, anomaly.Caution)
+	}
+	return out
+}
+
+// writeFleetReport writes a fleet's page and members.csv into dir.
+func writeFleetReport(dir string, ix *fleet.Index, sh fleet.Shard) error {
+	rows := [][]string{{"group", "file", "rows", "epochs", "validation_loss", "threshold", "warnings"}}
+	num := func(p *float64) string {
+		if p == nil {
+			return ""
+		}
+		return strconv.FormatFloat(*p, 'g', 6, 64)
+	}
+	all := ix.Members
+	if ix.Shared != nil {
+		all = append([]fleet.Member{*ix.Shared}, all...)
+	}
+	for _, m := range all {
+		g := m.Group
+		if m.File == fleet.SharedFile {
+			g = "(shared)"
+		}
+		rows = append(rows, []string{g, m.File, strconv.Itoa(m.Rows), strconv.Itoa(m.Epochs), num(m.ValidationLoss), num(m.Threshold), strings.Join(m.Warnings, "; ")})
+	}
+	var b bytes.Buffer
+	cw := csv.NewWriter(&b)
+	cw.WriteAll(rows)
+	if err := os.WriteFile(filepath.Join(dir, "members.csv"), b.Bytes(), 0o644); err != nil {
+		return fmt.Errorf("-report: %v", err)
+	}
+	// the page lists the members worst first: highest validation loss
+	table := slices.Clone(rows[1:])
+	slices.SortStableFunc(table, func(a, b []string) int {
+		va, ea := strconv.ParseFloat(a[4], 64)
+		vb, eb := strconv.ParseFloat(b[4], 64)
+		switch {
+		case ea != nil && eb != nil:
+			return 0
+		case ea != nil:
+			return 1
+		case eb != nil:
+			return -1
+		}
+		return cmp.Compare(vb, va)
+	})
+	title := fmt.Sprintf("A fleet of %d models by %s", len(ix.Members), ix.GroupColumn)
+	if sh.Of > 1 {
+		title = fmt.Sprintf("Shard %s of a fleet by %s: %d models", sh, ix.GroupColumn, len(ix.Members))
+	}
+	pg := report.Page{Title: title, Caution: anomaly.Caution,
+		Paragraphs: fleetSummary(ix, sh, &trainOpts{out: "."}, len(ix.Members))[1:],
+		Summary: []report.Setting{{Name: "kind", Value: ix.Kind}, {Name: "group column", Value: ix.GroupColumn}, {Name: "models", Value: strconv.Itoa(len(ix.Members))},
+			{Name: "rows read", Value: strconv.Itoa(ix.Data.Rows)}, {Name: "seed", Value: strconv.FormatUint(ix.Seed, 10)}},
+		Tables:   []report.Table{{Caption: "Members, highest validation loss first (all of them in members.csv)", Header: rows[0], Rows: table}},
+		Settings: []report.Setting{{Name: "training flags", Value: strings.Join(ix.Settings, " ")}, {Name: "data", Value: ix.Data.Path}, {Name: "min rows", Value: strconv.Itoa(ix.MinRows)}},
+	}
+	return pg.Write(dir)
+}
+
+func cmdMerge(e *env, args []string) error {
+	fs := newFlags(e, "merge", "-out FLEET SHARD_FOLDER...")
+	out := fs.String("out", "", "the fleet's folder to write (required; may be one of the shards' folders)")
+	dirs, err := parse(e, fs, args, 1<<20)
+	if err != nil {
+		return err
+	}
+	if *out == "" {
+		return usagef("-out is required")
+	}
+	if len(dirs) == 0 {
+		return usagef("name the shards' folders (each holds a part-I-of-N.json beside its model files)")
+	}
+	parts, from, err := fleet.ReadParts(dirs...)
+	if err != nil {
+		return err
+	}
+	ix, err := fleet.Merge(parts)
+	if err != nil {
+		return err
+	}
+	if err := os.MkdirAll(*out, 0o755); err != nil {
+		return fmt.Errorf("-out %s: %v", *out, errText(err))
+	}
+	// every model file comes from the folder of the part that names it,
+	// checked against its hash, and is copied when that is not -out
+	where := map[string]string{}
+	for i, p := range parts {
+		for _, m := range p.Index.Members {
+			where[m.File] = from[i]
+		}
+		if p.Index.Shared != nil {
+			where[p.Index.Shared.File] = from[i]
+		}
+	}
+	all := ix.Members
+	if ix.Shared != nil {
+		all = append([]fleet.Member{*ix.Shared}, all...)
+	}
+	copied := 0
+	for _, m := range all {
+		src := filepath.Join(where[m.File], m.File)
+		b, err := os.ReadFile(src)
+		if err != nil {
+			return fmt.Errorf("%s: %v (its shard's part names it)", src, errText(err))
+		}
+		if h := fleet.Hash(b); h != m.SHA256 {
+			return fmt.Errorf("%s: its SHA-256 is %.12s..., its shard's part says %.12s... (changed since the shard ran; run the shard again)", src, h, m.SHA256)
+		}
+		if !sameFile(where[m.File], *out) {
+			if err := fleet.WriteFile(filepath.Join(*out, m.File), b); err != nil {
+				return err
+			}
+			copied++
+		}
+	}
+	if err := fleet.WriteIndex(*out, ix); err != nil {
+		return err
+	}
+	fmt.Fprintf(e.stderr, "wrote the fleet %s: %d models by %s from %s (%d model files copied)\n", filepath.Join(*out, fleet.IndexFile), len(ix.Members), ix.GroupColumn, plural(parts[0].Shard.Of, "shard"), copied)
+	return nil
+}

@@ -1,0 +1,274 @@
+package fleet
+
+import (
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"sync"
+	"sync/atomic"
+
+	"github.com/quernlab/quern/model"
+	"github.com/quernlab/quern/modelfile"
+)
+
+// maxModelBytes bounds one member file read (as model.Open does).
+const maxModelBytes = 1 << 30
+
+// Entry is one opened member: its group ("" for the shared model), its
+// record in the index, and the value the opener made of its file.
+type Entry[T any] struct {
+	Group  string
+	Member Member
+	Value  T
+}
+
+// Fleet is an opened fleet: every member's file read once, checked
+// against the index and opened. Route and Members are safe for
+// concurrent use, also while Reload runs; a request that routed before a
+// reload finishes with the model it got.
+type Fleet[T any] struct {
+	dir   string
+	open  func(path string, b []byte) (T, error)
+	state atomic.Pointer[state[T]]
+	mu    sync.Mutex // one Reload at a time
+}
+
+type state[T any] struct {
+	index   *Index
+	members map[string]*Entry[T]
+	shared  *Entry[T]
+}
+
+// Open opens the fleet in dir for inference, each member with model.Open's
+// reading of a model file.
+func Open(dir string) (*Fleet[model.Model], error) {
+	return OpenWith(dir, func(path string, b []byte) (model.Model, error) {
+		f, err := modelfile.Decode(b, path)
+		if err != nil {
+			return nil, err
+		}
+		m, err := model.FromFile(f)
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", path, err)
+		}
+		return m, nil
+	})
+}
+
+// OpenWith opens the fleet in dir with open turning each member's file
+// (its path and bytes) into a T: the HTTP server's loaded model, say.
+// Every file must match its hash in the index: a fleet whose files were
+// mixed from two runs is refused, never served.
+func OpenWith[T any](dir string, open func(path string, b []byte) (T, error)) (*Fleet[T], error) {
+	f := &Fleet[T]{dir: dir, open: open}
+	st, err := f.load(nil, "")
+	if err != nil {
+		return nil, err
+	}
+	f.state.Store(st)
+	return f, nil
+}
+
+// Dir is the fleet's folder.
+func (f *Fleet[T]) Dir() string { return f.dir }
+
+// Index is the index the open members came from.
+func (f *Fleet[T]) Index() *Index { return f.state.Load().index }
+
+// Len is the number of members (the shared model not counted).
+func (f *Fleet[T]) Len() int { return len(f.state.Load().members) }
+
+// Route returns the model for group: its own, or else the shared model
+// (shared true); ok is false when there is neither.
+func (f *Fleet[T]) Route(group string) (e *Entry[T], shared, ok bool) {
+	st := f.state.Load()
+	if e, ok := st.members[group]; ok {
+		return e, false, true
+	}
+	if st.shared != nil {
+		return st.shared, true, true
+	}
+	return nil, false, false
+}
+
+// Shared is the shared model, or nil.
+func (f *Fleet[T]) Shared() *Entry[T] { return f.state.Load().shared }
+
+// Any returns one entry (the shared model, else the first member): what
+// the fleet's members have in common, such as their kind and columns.
+func (f *Fleet[T]) Any() *Entry[T] {
+	st := f.state.Load()
+	if st.shared != nil {
+		return st.shared
+	}
+	if len(st.index.Members) > 0 {
+		return st.members[st.index.Members[0].Group]
+	}
+	return nil
+}
+
+// Reloaded says what a reload changed.
+type Reloaded struct {
+	// Opened counts the members read again (new or changed files);
+	// Kept those whose files had not changed.
+	Opened, Kept int
+	// Removed counts members no longer in the index.
+	Removed int
+}
+
+// Reload reads the index again and opens the members whose hash changed
+// (or that are new), keeping the others as they are; members the index
+// no longer names are dropped. With group set, only that member (or,
+// with group "" and shared, the shared model) is read again, the rest
+// kept as they were loaded. Anything wrong (an index that does not
+// parse, a file whose hash is not the index's, a model the opener
+// refuses) refuses the whole reload and
+// the fleet keeps serving what it had.
+func (f *Fleet[T]) Reload(group string, shared bool) (Reloaded, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	old := f.state.Load()
+	var only *string
+	if group != "" || shared {
+		only = &group
+	}
+	st, err := f.load(old, derefOr(only))
+	if err != nil {
+		return Reloaded{}, err
+	}
+	if only != nil {
+		// one member: the rest stay exactly as loaded, index included
+		next := &state[T]{index: old.index, members: old.members, shared: old.shared}
+		if shared {
+			if st.shared == nil {
+				return Reloaded{}, fmt.Errorf("%w: the index names no shared model", ErrFleet)
+			}
+			next.shared = st.shared
+		} else {
+			e, ok := st.members[group]
+			if !ok {
+				return Reloaded{}, fmt.Errorf("%w: the index has no member %q", ErrFleet, group)
+			}
+			next.members = make(map[string]*Entry[T], len(old.members))
+			for k, v := range old.members {
+				next.members[k] = v
+			}
+			next.members[group] = e
+		}
+		f.state.Store(next)
+		return Reloaded{Opened: 1, Kept: len(old.members) + btoi(old.shared != nil) - 1}, nil
+	}
+	r := Reloaded{}
+	for g, e := range st.members {
+		if o, ok := old.members[g]; ok && o == e {
+			r.Kept++
+		} else {
+			r.Opened++
+		}
+	}
+	for g := range old.members {
+		if _, ok := st.members[g]; !ok {
+			r.Removed++
+		}
+	}
+	f.state.Store(st)
+	return r, nil
+}
+
+func derefOr(p *string) string {
+	if p == nil {
+		return "\x00all"
+	}
+	return *p
+}
+
+func btoi(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+// load reads the index and opens members: all of them when old is nil;
+// else those whose hash differs from old's (only names one member, or
+// "\x00all" for every one). Unchanged members are old's entries.
+func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
+	ix, err := ReadIndex(f.dir)
+	if err != nil {
+		return nil, err
+	}
+	st := &state[T]{index: ix, members: make(map[string]*Entry[T], len(ix.Members))}
+	want := func(group string, m Member, prev *Entry[T]) bool {
+		if old == nil {
+			return true
+		}
+		if only != "\x00all" {
+			return group == only
+		}
+		return prev == nil || prev.Member.SHA256 != m.SHA256
+	}
+	for _, m := range ix.Members {
+		var prev *Entry[T]
+		if old != nil {
+			prev = old.members[m.Group]
+		}
+		if !want(m.Group, m, prev) {
+			if prev != nil {
+				st.members[m.Group] = prev
+			}
+			continue
+		}
+		e, err := f.openMember(m.Group, m)
+		if err != nil {
+			return nil, err
+		}
+		st.members[m.Group] = e
+	}
+	if ix.Shared != nil {
+		var prev *Entry[T]
+		if old != nil {
+			prev = old.shared
+		}
+		if want("", *ix.Shared, prev) {
+			if st.shared, err = f.openMember("", *ix.Shared); err != nil {
+				return nil, err
+			}
+		} else {
+			st.shared = prev
+		}
+	}
+	return st, nil
+}
+
+func (f *Fleet[T]) openMember(group string, m Member) (*Entry[T], error) {
+	path := filepath.Join(f.dir, m.File)
+	b, err := readFile(path)
+	if err != nil {
+		return nil, err
+	}
+	if h := Hash(b); h != m.SHA256 {
+		return nil, &Error{path, fmt.Sprintf("its SHA-256 is %.12s..., the index says %.12s... (a file from another run, or changed after the index was written)", h, m.SHA256)}
+	}
+	v, err := f.open(path, b)
+	if err != nil {
+		return nil, err
+	}
+	return &Entry[T]{Group: group, Member: m, Value: v}, nil
+}
+
+func readFile(path string) ([]byte, error) {
+	fh, err := os.Open(path)
+	if err != nil {
+		return nil, &Error{path, "cannot read: " + errText(err)}
+	}
+	defer fh.Close()
+	b, err := io.ReadAll(io.LimitReader(fh, maxModelBytes+1))
+	if err != nil {
+		return nil, &Error{path, "cannot read: " + errText(err)}
+	}
+	if len(b) > maxModelBytes {
+		return nil, &Error{path, fmt.Sprintf("larger than %d bytes", maxModelBytes)}
+	}
+	return b, nil
+}
