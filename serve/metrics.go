@@ -31,10 +31,15 @@ type metrics struct {
 	reloads  atomic.Uint64
 	failures atomic.Uint64
 	inflight atomic.Int64
+	// a fleet's rows by where they went ("own", "shared"), and requests
+	// refused for a group with no model
+	routedRows map[string]*atomic.Uint64
+	refused    atomic.Uint64
 }
 
 func newMetrics() *metrics {
-	return &metrics{requests: map[routeKey]uint64{}, buckets: map[string][]uint64{}, sums: map[string]float64{}, counts: map[string]uint64{}}
+	return &metrics{requests: map[routeKey]uint64{}, buckets: map[string][]uint64{}, sums: map[string]float64{}, counts: map[string]uint64{},
+		routedRows: map[string]*atomic.Uint64{routedOwn: new(atomic.Uint64), routedShared: new(atomic.Uint64)}}
 }
 
 func (m *metrics) observe(route string, code int, d time.Duration) {

@@ -11,6 +11,7 @@ import (
 	"math"
 	"net"
 	"net/http"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"sync/atomic"
@@ -18,8 +19,10 @@ import (
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/fleet"
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/model"
+	"github.com/quernlab/quern/modelfile"
 )
 
 // Loaded is the model being served: the model, the file it came from and
@@ -49,8 +52,32 @@ func LoadModel(path string) (l *Loaded, err error) {
 	if err != nil {
 		return nil, err
 	}
-	l = &Loaded{Model: m, Path: path, Loaded: time.Now()}
+	return loaded(m, path)
+}
+
+// loadBytes is LoadModel of a file already read (a fleet member, checked
+// against its hash).
+func loadBytes(path string, b []byte) (l *Loaded, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			l, err = nil, fmt.Errorf("serve: loading %s failed inside quern (please report it): %v", path, r)
+		}
+	}()
+	f, err := modelfile.Decode(b, path)
+	if err != nil {
+		return nil, err
+	}
+	m, err := model.FromFile(f)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return loaded(m, path)
+}
+
+func loaded(m model.Model, path string) (*Loaded, error) {
+	l := &Loaded{Model: m, Path: path, Loaded: time.Now()}
 	if enc := m.Schema().Encoding; enc != nil {
+		var err error
 		if l.cells, err = data.NewRowEncoder(enc); err != nil {
 			return nil, fmt.Errorf("serve: %s: %w", path, err)
 		}
@@ -60,8 +87,14 @@ func LoadModel(path string) (l *Loaded, err error) {
 
 // Config configures a Server. Zero fields mean the documented defaults.
 type Config struct {
-	// ModelPath is the model file to serve (and to reload). Required.
+	// ModelPath is the model file to serve (and to reload). It or
+	// FleetPath is required.
 	ModelPath string
+	// FleetPath is a fleet's folder (quern train -group) to serve instead
+	// of one model: each record goes to the model of its group (the
+	// fleet's group column), or the shared model for a group without
+	// one; POST /v1/groups/{group}/... names the group in the path.
+	FleetPath string
 	// Token, when set, is required as "Authorization: Bearer <token>" on
 	// every route but /healthz and /readyz.
 	Token string
@@ -90,6 +123,7 @@ type Config struct {
 type Server struct {
 	cfg      Config
 	model    atomic.Pointer[Loaded]
+	fleet    *fleet.Fleet[*Loaded] // nil: one model
 	draining atomic.Bool
 	m        *metrics
 	log      *slog.Logger
@@ -98,8 +132,8 @@ type Server struct {
 
 // New loads the model and prepares the routes.
 func New(cfg Config) (*Server, error) {
-	if cfg.ModelPath == "" {
-		return nil, errors.New("serve: ModelPath is required")
+	if (cfg.ModelPath == "") == (cfg.FleetPath == "") {
+		return nil, errors.New("serve: give ModelPath or FleetPath (one of them)")
 	}
 	if cfg.MaxBodyBytes == 0 {
 		cfg.MaxBodyBytes = 1 << 20
@@ -129,6 +163,18 @@ func New(cfg Config) (*Server, error) {
 		cfg.Logger = slog.New(slog.NewTextHandler(discard{}, nil))
 	}
 	s := &Server{cfg: cfg, m: newMetrics(), log: cfg.Logger, mux: http.NewServeMux()}
+	if cfg.FleetPath != "" {
+		f, err := fleet.OpenWith(cfg.FleetPath, loadBytes)
+		if err != nil {
+			return nil, err
+		}
+		if f.Any() == nil {
+			return nil, fmt.Errorf("serve: the fleet %s has no models", cfg.FleetPath)
+		}
+		s.fleet = f
+		s.fleetRoutes()
+		return s, nil
+	}
 	m, err := LoadModel(cfg.ModelPath)
 	if err != nil {
 		return nil, err
@@ -142,13 +188,27 @@ type discard struct{}
 
 func (discard) Write(p []byte) (int, error) { return len(p), nil }
 
-// Model returns the model being served.
-func (s *Server) Model() *Loaded { return s.model.Load() }
+// Model returns the model being served; for a fleet, one of its models
+// (the shared one, else the first member), which says what they have in
+// common: kind and columns.
+func (s *Server) Model() *Loaded {
+	if s.fleet != nil {
+		return s.fleet.Any().Value
+	}
+	return s.model.Load()
+}
+
+// Fleet returns the fleet being served, or nil.
+func (s *Server) Fleet() *fleet.Fleet[*Loaded] { return s.fleet }
 
 // Reload reads the model file again and swaps it in atomically. A bad file
 // is refused and the current model keeps serving. Requests in flight
 // finish with the model they started with.
 func (s *Server) Reload() error {
+	if s.fleet != nil {
+		_, err := s.reloadFleet("", false)
+		return err
+	}
 	m, err := LoadModel(s.cfg.ModelPath)
 	if err != nil {
 		s.m.failures.Add(1)
@@ -236,10 +296,10 @@ func writeError(w http.ResponseWriter, code int, format string, args ...any) {
 }
 
 func (s *Server) routes() {
-	s.mux.HandleFunc("/v1/score", only("POST", s.score))
-	s.mux.HandleFunc("/v1/encode", only("POST", s.encode))
-	s.mux.HandleFunc("/v1/reconstruct", only("POST", s.reconstruct))
-	s.mux.HandleFunc("/v1/sample", only("POST", s.sample))
+	s.mux.HandleFunc("/v1/score", only("POST", s.single(s.score)))
+	s.mux.HandleFunc("/v1/encode", only("POST", s.single(s.encode)))
+	s.mux.HandleFunc("/v1/reconstruct", only("POST", s.single(s.reconstruct)))
+	s.mux.HandleFunc("/v1/sample", only("POST", s.single(s.sample)))
 	s.mux.HandleFunc("/admin/reload", only("POST", func(w http.ResponseWriter, r *http.Request) {
 		if err := s.Reload(); err != nil {
 			writeError(w, http.StatusUnprocessableEntity, "reload refused, current model kept: %v", err)
@@ -248,6 +308,12 @@ func (s *Server) routes() {
 		m := s.Model()
 		writeJSON(w, http.StatusOK, map[string]string{"status": "reloaded", "kind": m.Kind()})
 	}))
+	s.common("POST /v1/score, /v1/encode, /v1/reconstruct, /v1/sample, /admin/reload")
+}
+
+// common registers the routes of every server: health, readiness,
+// metrics, and the answer to an unknown route.
+func (s *Server) common(routes string) {
 	s.mux.HandleFunc("/healthz", only("GET", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
 	}))
@@ -261,15 +327,23 @@ func (s *Server) routes() {
 			writeError(w, http.StatusServiceUnavailable, "no model loaded")
 			return
 		}
-		writeJSON(w, http.StatusOK, map[string]any{"status": "ready", "kind": m.Kind(), "inputs": m.Model.Width(), "loaded": m.Loaded.UTC().Format(time.RFC3339)})
+		v := map[string]any{"status": "ready", "kind": m.Kind(), "inputs": m.Model.Width(), "loaded": m.Loaded.UTC().Format(time.RFC3339)}
+		if s.fleet != nil {
+			ix := s.fleet.Index()
+			v["group_column"], v["models"], v["shared"] = ix.GroupColumn, s.fleet.Len(), s.fleet.Shared() != nil
+		}
+		writeJSON(w, http.StatusOK, v)
 	}))
 	s.mux.HandleFunc("/metrics", only("GET", func(w http.ResponseWriter, r *http.Request) {
 		w.Header().Set("Content-Type", "text/plain; version=0.0.4; charset=utf-8")
 		m := s.Model()
 		s.m.write(w, m.Kind(), m.Loaded)
+		if s.fleet != nil {
+			s.m.writeFleet(w, s.fleet.Len(), s.fleet.Shared() != nil)
+		}
 	}))
 	s.mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
-		writeError(w, http.StatusNotFound, "no route %s %s; routes: POST /v1/score, /v1/encode, /v1/reconstruct, /v1/sample, /admin/reload; GET /healthz, /readyz, /metrics", r.Method, r.URL.Path)
+		writeError(w, http.StatusNotFound, "no route %s %s; routes: %s; GET /healthz, /readyz, /metrics", r.Method, r.URL.Path, routes)
 	})
 }
 
@@ -367,18 +441,31 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 	if !decodeJSON(w, r, &req) {
 		return nil, nil, nil, false
 	}
+	x, reads, ok := s.readRows(w, &req, cols, names, cells, fields, nil)
+	return &req, x, reads, ok
+}
+
+// readRows is decodeRows once the body is read; nums, when not nil, are
+// the records' places in the request (0-based) for its messages.
+func (s *Server) readRows(w http.ResponseWriter, req *rowsRequest, cols int, names []string, cells *data.RowEncoder, fields []string, nums []int) ([]float32, []rowRead, bool) {
+	num := func(i int) int {
+		if nums != nil {
+			return nums[i] + 1
+		}
+		return i + 1
+	}
 	if cells != nil && req.Records != nil {
 		if req.Rows != nil {
 			writeError(w, http.StatusBadRequest, "send \"rows\" or \"records\", not both")
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		if len(req.Records) == 0 {
 			writeError(w, http.StatusBadRequest, "\"records\" is empty")
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		if len(req.Records) > s.cfg.MaxRows {
 			writeError(w, http.StatusRequestEntityTooLarge, "%d records, the limit is %d", len(req.Records), s.cfg.MaxRows)
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		x := make([]float32, 0, len(req.Records)*cols)
 		var reads []rowRead
@@ -387,13 +474,13 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 			for j, name := range fields {
 				raw, ok := rec[name]
 				if !ok {
-					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s; null marks a missing value)", i+1, name, strings.Join(fields, ", "))
-					return nil, nil, nil, false
+					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s; null marks a missing value)", num(i), name, strings.Join(fields, ", "))
+					return nil, nil, false
 				}
 				t, err := cellText(raw)
 				if err != nil {
-					writeError(w, http.StatusBadRequest, "record %d: %q is %s: %v", i+1, name, raw, err)
-					return nil, nil, nil, false
+					writeError(w, http.StatusBadRequest, "record %d: %q is %s: %v", num(i), name, raw, err)
+					return nil, nil, false
 				}
 				texts[j] = t
 			}
@@ -408,24 +495,24 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 			}
 		}
 		req.Rows = make([][]*float64, len(req.Records)) // the count
-		return &req, x, reads, true
+		return x, reads, true
 	}
 	if cells != nil && req.Rows != nil && len(fields) != cols {
 		writeError(w, http.StatusBadRequest, "the served model reads a table of %s by column name: send \"records\", objects keyed by them", strings.Join(fields, ", "))
-		return nil, nil, nil, false
+		return nil, nil, false
 	}
 	if req.Records != nil {
 		if req.Rows != nil {
 			writeError(w, http.StatusBadRequest, "send \"rows\" or \"records\", not both")
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		if len(names) != cols {
 			writeError(w, http.StatusBadRequest, "the served model's columns have no names: send \"rows\" (arrays of %d numbers)", cols)
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		if len(req.Records) > s.cfg.MaxRows {
 			writeError(w, http.StatusRequestEntityTooLarge, "%d records, the limit is %d", len(req.Records), s.cfg.MaxRows)
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		// records become rows in the model's column order
 		req.Rows = make([][]*float64, len(req.Records))
@@ -434,17 +521,17 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 			for j, name := range names {
 				raw, ok := rec[name]
 				if !ok {
-					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s)", i+1, name, strings.Join(names, ", "))
-					return nil, nil, nil, false
+					writeError(w, http.StatusBadRequest, "record %d has no %q (the model reads %s)", num(i), name, strings.Join(names, ", "))
+					return nil, nil, false
 				}
 				var v *float64
 				if err := json.Unmarshal(raw, &v); err != nil {
-					writeError(w, http.StatusBadRequest, "record %d: %q is %s, not a number", i+1, name, raw)
-					return nil, nil, nil, false
+					writeError(w, http.StatusBadRequest, "record %d: %q is %s, not a number", num(i), name, raw)
+					return nil, nil, false
 				}
 				if v == nil {
-					writeError(w, http.StatusBadRequest, "record %d: %q is null", i+1, name)
-					return nil, nil, nil, false
+					writeError(w, http.StatusBadRequest, "record %d: %q is null", num(i), name)
+					return nil, nil, false
 				}
 				row[j] = v
 			}
@@ -453,32 +540,32 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 	}
 	if len(req.Rows) == 0 {
 		writeError(w, http.StatusBadRequest, "\"rows\" is empty")
-		return nil, nil, nil, false
+		return nil, nil, false
 	}
 	if len(req.Rows) > s.cfg.MaxRows {
 		writeError(w, http.StatusRequestEntityTooLarge, "%d rows, the limit is %d", len(req.Rows), s.cfg.MaxRows)
-		return nil, nil, nil, false
+		return nil, nil, false
 	}
 	x := make([]float32, 0, len(req.Rows)*cols)
 	for i, row := range req.Rows {
 		if len(row) != cols {
 			writeError(w, http.StatusBadRequest, "row %d has %d columns, the model takes %d", i+1, len(row), cols)
-			return nil, nil, nil, false
+			return nil, nil, false
 		}
 		for j, v := range row {
 			if v == nil {
 				writeError(w, http.StatusBadRequest, "row %d column %d is null", i+1, j+1)
-				return nil, nil, nil, false
+				return nil, nil, false
 			}
 			f := float32(*v)
 			if f-f != 0 {
 				writeError(w, http.StatusBadRequest, "row %d column %d is %v, outside the float32 range", i+1, j+1, *v)
-				return nil, nil, nil, false
+				return nil, nil, false
 			}
 			x = append(x, f)
 		}
 	}
-	return &req, x, nil, true
+	return x, nil, true
 }
 
 func chunk(x []float32, rows, cols int) [][]float32 {
@@ -533,52 +620,68 @@ func (s *Server) answerRows(w http.ResponseWriter, r *http.Request, m *Loaded, f
 	writeJSON(w, http.StatusOK, v)
 }
 
-func (s *Server) score(w http.ResponseWriter, r *http.Request) {
-	m := s.Model()
-	sc, ok := capability[model.Scorer](w, m, "scoring", "a model with anomaly scores (an autoencoder or a VAE)")
+func (s *Server) score(w http.ResponseWriter, r *http.Request, m *Loaded) {
+	sc, ok := scorer(w, m)
 	if !ok {
 		return
 	}
-	if sc.Calibrated() == nil {
-		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold")
-		return
-	}
 	s.answerRows(w, r, m, func(x []float32, n int, req *rowsRequest, reads []rowRead) (any, error) {
-		top := req.Top
-		if top <= 0 {
-			top = 3
-		}
-		res, err := sc.Score(x, n, top)
+		res, err := s.scoreRows(sc, x, n, req.Top, reads)
 		if err != nil {
 			return nil, err
 		}
-		for i, rd := range reads {
-			switch {
-			case rd.unscorable && res[i].Unscorable == "":
-				// never reported as normal: flagged, with no score
-				res[i] = anomaly.Score{Value: math.NaN(), Threshold: res[i].Threshold, Anomaly: true, Unscorable: rd.text}
-			case rd.text != "":
-				res[i].Read = rd.text
-				modelio.MarkMissing(&res[i], rd.text)
-				if name := data.NoteUnseen(rd.text); name != "" && res[i].Unseen == "" {
-					res[i].Unseen, res[i].Anomaly = name, true
-				}
-			}
-		}
-		flagged := 0
-		for _, sc := range res {
-			if sc.Anomaly {
-				flagged++
-			}
-		}
-		s.m.scored.Add(uint64(len(res)))
-		s.m.flagged.Add(uint64(flagged))
 		return scoreResponse{Results: res, Caution: anomaly.Caution}, nil
 	})
 }
 
-func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
-	m := s.Model()
+// scorer returns m as a Scorer with a threshold, or answers 422.
+func scorer(w http.ResponseWriter, m *Loaded) (model.Scorer, bool) {
+	sc, ok := capability[model.Scorer](w, m, "scoring", "a model with anomaly scores (an autoencoder or a VAE)")
+	if !ok {
+		return nil, false
+	}
+	if sc.Calibrated() == nil {
+		writeError(w, http.StatusUnprocessableEntity, "the model has no threshold (%s)", filepath.Base(m.Path))
+		return nil, false
+	}
+	return sc, true
+}
+
+// scoreRows scores n rows x, marking what reading them found (reads),
+// and counts them in the metrics.
+func (s *Server) scoreRows(sc model.Scorer, x []float32, n, top int, reads []rowRead) ([]anomaly.Score, error) {
+	if top <= 0 {
+		top = 3
+	}
+	res, err := sc.Score(x, n, top)
+	if err != nil {
+		return nil, err
+	}
+	for i, rd := range reads {
+		switch {
+		case rd.unscorable && res[i].Unscorable == "":
+			// never reported as normal: flagged, with no score
+			res[i] = anomaly.Score{Value: math.NaN(), Threshold: res[i].Threshold, Anomaly: true, Unscorable: rd.text}
+		case rd.text != "":
+			res[i].Read = rd.text
+			modelio.MarkMissing(&res[i], rd.text)
+			if name := data.NoteUnseen(rd.text); name != "" && res[i].Unseen == "" {
+				res[i].Unseen, res[i].Anomaly = name, true
+			}
+		}
+	}
+	flagged := 0
+	for _, sc := range res {
+		if sc.Anomaly {
+			flagged++
+		}
+	}
+	s.m.scored.Add(uint64(len(res)))
+	s.m.flagged.Add(uint64(flagged))
+	return res, nil
+}
+
+func (s *Server) encode(w http.ResponseWriter, r *http.Request, m *Loaded) {
 	if enc, ok := capability[model.Encoder](w, m, "encoding", "a model with codes (an autoencoder or a VAE)"); ok {
 		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest, reads []rowRead) (any, error) {
 			codes, err := enc.Encode(x, n)
@@ -590,8 +693,7 @@ func (s *Server) encode(w http.ResponseWriter, r *http.Request) {
 	}
 }
 
-func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request) {
-	m := s.Model()
+func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request, m *Loaded) {
 	if rec, ok := capability[model.Reconstructor](w, m, "reconstruction", "an autoencoder or a VAE"); ok {
 		s.answerRows(w, r, m, func(x []float32, n int, _ *rowsRequest, reads []rowRead) (any, error) {
 			out, err := rec.Reconstruct(x, n)
@@ -609,8 +711,7 @@ type sampleRequest struct {
 	Class *int    `json:"class"`
 }
 
-func (s *Server) sample(w http.ResponseWriter, r *http.Request) {
-	m := s.Model()
+func (s *Server) sample(w http.ResponseWriter, r *http.Request, m *Loaded) {
 	smp, ok := capability[model.Sampler](w, m, "sampling", "a generative model (a VAE or a GAN)")
 	if !ok {
 		return

@@ -27,8 +27,9 @@ func init() {
 }
 
 func cmdServe(e *env, args []string) error {
-	fs := newFlags(e, "serve", "-model MODEL [-addr 127.0.0.1:8417] [flags]")
-	model := fs.String("model", "", "model file to serve (required); reloaded on SIGHUP or POST /admin/reload")
+	fs := newFlags(e, "serve", "-model MODEL | -fleet FOLDER [-addr 127.0.0.1:8417] [flags]")
+	model := fs.String("model", "", "model file to serve; reloaded on SIGHUP or POST /admin/reload")
+	fleetDir := fs.String("fleet", "", "a fleet's folder (quern train -group) to serve instead of one model: records go to their group's model, or the shared model; SIGHUP or POST /admin/reload opens the files that changed, POST /admin/reload?group=G one member")
 	addr := fs.String("addr", "127.0.0.1:8417", "listen address (loopback by default)")
 	tokenEnv := fs.String("token-env", "", "name of an environment variable holding a bearer token to require")
 	maxBody := fs.Int64("max-body", 1<<20, "largest request body in bytes")
@@ -41,8 +42,8 @@ func cmdServe(e *env, args []string) error {
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
-	if *model == "" {
-		return usagef("-model is required")
+	if (*model == "") == (*fleetDir == "") {
+		return usagef("give -model MODEL or -fleet FOLDER (one of them)")
 	}
 	token := ""
 	if *tokenEnv != "" {
@@ -63,7 +64,7 @@ func cmdServe(e *env, args []string) error {
 	hup := make(chan os.Signal, 1)
 	signal.Notify(hup, syscall.SIGHUP)
 	defer signal.Stop(hup)
-	s, err := serve.New(serve.Config{ModelPath: *model, Token: token, MaxBodyBytes: *maxBody, MaxRows: *maxRows,
+	s, err := serve.New(serve.Config{ModelPath: *model, FleetPath: *fleetDir, Token: token, MaxBodyBytes: *maxBody, MaxRows: *maxRows,
 		ReadTimeout: *readTO, WriteTimeout: *writeTO, IdleTimeout: *idleTO, DrainDelay: drainDelay(*drain), Logger: log})
 	if err != nil {
 		return err
@@ -77,7 +78,11 @@ func cmdServe(e *env, args []string) error {
 			s.Reload() // logged; a bad file keeps the current model
 		}
 	}()
-	log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind())
+	if f := s.Fleet(); f != nil {
+		log.Info("serving a fleet", "addr", ln.Addr().String(), "fleet", *fleetDir, "models", f.Len(), "shared", f.Shared() != nil, "group_column", f.Index().GroupColumn, "kind", s.Model().Kind())
+	} else {
+		log.Info("serving", "addr", ln.Addr().String(), "model", *model, "kind", s.Model().Kind())
+	}
 	if token == "" && !watch.Loopback(*addr) {
 		log.Warn("no bearer token: anyone who can reach this address can use the model", "addr", ln.Addr().String())
 	}
