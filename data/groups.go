@@ -3,7 +3,6 @@ package data
 import (
 	"fmt"
 	"slices"
-	"strings"
 )
 
 // Group is one group of a Dataset's rows: a view of the rows whose key is
@@ -21,26 +20,46 @@ type Group struct {
 // counted in ungrouped (they stay at the end of d). The views keep d's
 // columns, image shape and encoding, not its kept texts or notes; d's
 // own Kept and Notes are dropped, since they no longer match its rows.
-// It needs an int and a bool per row besides one row.
+// It needs two ints and a bool per row besides one row, and a map of
+// the distinct keys.
 func (d *Dataset) GroupBy(keys []string) (groups []Group, ungrouped int, err error) {
 	if len(keys) != d.Rows {
 		return nil, 0, fmt.Errorf("%w: %d group keys for %d rows", ErrConfig, len(keys), d.Rows)
 	}
-	order := make([]int, d.Rows)
-	for i := range order {
-		order[i] = i
-	}
-	// empty keys last; a stable sort keeps the file's order in a group
-	slices.SortStableFunc(order, func(a, b int) int {
-		ka, kb := keys[a], keys[b]
-		if (ka == "") != (kb == "") {
-			if ka == "" {
-				return 1
-			}
-			return -1
+	// a counting sort: each distinct key's rank among the sorted keys,
+	// then the rows placed by rank in their order (empty keys last)
+	rank := map[string]int{}
+	for _, k := range keys {
+		if _, ok := rank[k]; !ok && k != "" {
+			rank[k] = 0
 		}
-		return strings.Compare(ka, kb)
-	})
+	}
+	names := make([]string, 0, len(rank))
+	for k := range rank {
+		names = append(names, k)
+	}
+	slices.Sort(names)
+	for i, k := range names {
+		rank[k] = i
+	}
+	start := make([]int, len(names)+2)
+	ranks := make([]int32, d.Rows)
+	for i, k := range keys {
+		r := len(names) // the empty key
+		if k != "" {
+			r = rank[k]
+		}
+		ranks[i] = int32(r)
+		start[r+1]++
+	}
+	for i := 1; i < len(start); i++ {
+		start[i] += start[i-1]
+	}
+	order := make([]int, d.Rows)
+	for i, r := range ranks {
+		order[start[r]] = i
+		start[r]++
+	}
 	d.gather(order)
 	d.Kept, d.KeptColumns, d.Notes = nil, nil, nil
 	for lo := 0; lo < d.Rows; {

@@ -519,10 +519,21 @@ func (d *Dataset) Sentinels() []string {
 			cols = append(cols, col{j, name})
 		}
 	}
-	var out []string
+	// each column's candidates: the sentinels outside the range its
+	// sampled quartiles make ordinary; a value can only equal one of them
+	// when it lies outside that range too, so one pass in row order
+	// checks the few values that do
+	type check struct {
+		lo, hi float64 // values in [lo, hi] equal no candidate
+		q1, q3 float64
+		cand   []float64
+		count  []int
+	}
+	checks := make([]check, len(cols))
 	step := max(1, d.Rows/fillSample)
 	vals := make([]float64, 0, min(d.Rows, fillSample+1))
-	for _, c := range cols {
+	some := false
+	for i, c := range cols {
 		vals = vals[:0]
 		for r := 0; r < d.Rows; r += step {
 			vals = append(vals, float64(d.X[r*d.Cols+c.j]))
@@ -530,19 +541,45 @@ func (d *Dataset) Sentinels() []string {
 		slices.Sort(vals)
 		q1, q3 := vals[len(vals)/4], vals[(3*len(vals))/4]
 		iqr := q3 - q1
+		ck := check{lo: q1 - 10*iqr, hi: q3 + 10*iqr, q1: q1, q3: q3}
+		if iqr == 0 {
+			ck.lo, ck.hi = q1, q1
+		}
 		for _, s := range sentinels {
 			if (iqr > 0 && s >= q1-10*iqr && s <= q3+10*iqr) || (iqr == 0 && s == q1) {
 				continue
 			}
-			n := 0
-			for r := range d.Rows {
-				if float64(d.X[r*d.Cols+c.j]) == s {
-					n++
+			ck.cand = append(ck.cand, s)
+		}
+		ck.count = make([]int, len(ck.cand))
+		some = some || len(ck.cand) > 0
+		checks[i] = ck
+	}
+	if !some {
+		return nil
+	}
+	for r := range d.Rows {
+		row := d.X[r*d.Cols : (r+1)*d.Cols]
+		for i, c := range cols {
+			ck := &checks[i]
+			v := float64(row[c.j])
+			if v >= ck.lo && v <= ck.hi {
+				continue
+			}
+			for k, s := range ck.cand {
+				if v == s {
+					ck.count[k]++
 				}
 			}
-			if n > 0 {
+		}
+	}
+	var out []string
+	for i, c := range cols {
+		ck := &checks[i]
+		for k, s := range ck.cand {
+			if n := ck.count[k]; n > 0 {
 				out = append(out, fmt.Sprintf("column %q: %s hold %s, far outside its other values (quartiles %s and %s): a code for a missing value? -missing with %s among its texts reads it as missing",
-					c.name, pluralRows(n), strconv.FormatFloat(s, 'f', -1, 64), strconv.FormatFloat(q1, 'g', 6, 64), strconv.FormatFloat(q3, 'g', 6, 64), strconv.FormatFloat(s, 'f', -1, 64)))
+					c.name, pluralRows(n), strconv.FormatFloat(s, 'f', -1, 64), strconv.FormatFloat(ck.q1, 'g', 6, 64), strconv.FormatFloat(ck.q3, 'g', 6, 64), strconv.FormatFloat(s, 'f', -1, 64)))
 			}
 		}
 	}

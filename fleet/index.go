@@ -246,14 +246,17 @@ func WritePart(dir string, p *Part) error {
 }
 
 // WriteFile writes b to path through a temporary file in its folder,
-// renamed over path once complete: a reader sees the old file or the
-// new, never half of one.
+// synced and renamed over path once complete: a reader sees the old
+// file or the new, never half of one, and a crash loses neither.
 func WriteFile(path string, b []byte) error {
 	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
 	if err != nil {
 		return fmt.Errorf("fleet: %w", err)
 	}
 	_, err = tmp.Write(b)
+	if err == nil {
+		err = tmp.Sync()
+	}
 	if err2 := tmp.Close(); err == nil {
 		err = err2
 	}
@@ -266,6 +269,10 @@ func WriteFile(path string, b []byte) error {
 	if err != nil {
 		os.Remove(tmp.Name())
 		return fmt.Errorf("fleet: %w", err)
+	}
+	if d, err := os.Open(filepath.Dir(path)); err == nil {
+		d.Sync()
+		d.Close()
 	}
 	return nil
 }

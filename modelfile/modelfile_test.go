@@ -181,3 +181,20 @@ func FuzzDecode(f *testing.F) {
 		}
 	})
 }
+
+// WriteUnsynced writes the same bytes as Write; Sync then syncs many
+// files at once and names a missing one.
+func TestWriteUnsyncedThenSync(t *testing.T) {
+	dir := t.TempDir()
+	f := &File{Kind: "ae", Tensors: []Tensor{{Name: "w", Rows: 1, Cols: 2, F32: []float32{1, 2}}}}
+	a, b := filepath.Join(dir, "a.qm"), filepath.Join(dir, "b.qm")
+	require.NoError(t, Write(a, f))
+	require.NoError(t, WriteUnsynced(b, f))
+	ba, err := os.ReadFile(a)
+	require.NoError(t, err)
+	bb, err := os.ReadFile(b)
+	require.NoError(t, err)
+	require.Equal(t, ba, bb)
+	require.NoError(t, Sync(a, b))
+	require.Error(t, Sync(a, filepath.Join(dir, "missing.qm")))
+}

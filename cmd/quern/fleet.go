@@ -19,7 +19,9 @@ import (
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/fleet"
+	"github.com/quernlab/quern/internal/kernel/par"
 	"github.com/quernlab/quern/internal/stream"
+	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/report"
 )
 
@@ -108,6 +110,7 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	for _, w := range dataWarnings(full) {
 		st.warn("%s", w)
 	}
+	st.begin("group", nil)
 	ix := fleet.Index{Format: fleet.FormatName, Version: fleet.Version, GroupColumn: o.group, Kind: o.kind, Seed: o.seed,
 		Settings: o.settings, Data: fleet.Data{Path: o.data.path, Fingerprint: full.Fingerprint(), Rows: full.Rows}, MinRows: o.minRows}
 	keys := make([]string, full.Rows)
@@ -131,6 +134,7 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	}
 	ix.Fallback, ix.Ungrouped = fallback, ungrouped
 	var jobs []*fleetJob
+	defer st.end()
 	sharedSeed := fleet.SeedFor(o.seed, "")
 	if o.shared > 0 && sh.Index == 0 && full.Rows > 0 {
 		// a seeded draw from every row, grouped or not, in the grouped
@@ -145,12 +149,18 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 			jobs = append(jobs, &fleetJob{group: g, d: byKey[g], file: fleet.FileName(g)})
 		}
 	}
+	st.end()
 	if len(members) == 0 && o.shared == 0 {
 		return fmt.Errorf("%s: no group of %s has %d rows or more (-min-rows), and -shared 0 asks for no shared model: nothing to train", o.data.path, o.group, o.minRows)
 	}
 	if o.shared == 0 && (len(fallback) > 0 || ungrouped > 0) {
 		st.warn("warning: -shared 0: %s with fewer than %d rows and %s with no %s have no model; quern serve refuses their rows", plural(len(fallback), "group"), o.minRows, plural(ungrouped, "row"), o.group)
 	}
+	// the models train side by side, one per core: splitting each one's
+	// small products over the cores too would only make them wait on
+	// each other (the results are the same either way)
+	par.Limit(1)
+	defer par.Limit(0)
 	var done atomic.Int64
 	st.begin("train fleet", func() string {
 		return fmt.Sprintf("%d of %d models trained", done.Load(), len(jobs))
@@ -182,6 +192,18 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	close(next)
 	wg.Wait()
 	st.end()
+	if !failed.Load() {
+		// the members on disk before the index that names them
+		st.begin("sync", nil)
+		paths := make([]string, len(jobs))
+		for i, j := range jobs {
+			paths[i] = filepath.Join(o.out, j.file)
+		}
+		if err := modelfile.Sync(paths...); err != nil {
+			return err
+		}
+		st.end()
+	}
 	part := fleet.Part{Shard: sh, Groups: len(members), Index: ix}
 	part.Index.Members = []fleet.Member{}
 	for _, j := range jobs {
@@ -242,7 +264,7 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 func trainMember(e *env, o trainOpts, set map[string]bool, d *data.Dataset, format data.Format, path string, seed uint64) (fleet.Member, error) {
 	var buf bytes.Buffer
 	st := newStatus(&buf, true)
-	o.seed = seed
+	o.seed, o.member = seed, true
 	res, err := trainLoaded(e, st, &o, set, d, format, path, "", "", "")
 	st.end()
 	if err != nil {

@@ -75,6 +75,7 @@ type trainOpts struct {
 	minRows int
 	shared  int
 	shard   string
+	member  bool // training one member of a fleet
 	// settings are the flags given that shape the models (fleets record
 	// them: shards must agree)
 	settings []string
@@ -269,7 +270,13 @@ func trainLoaded(e *env, st *status, o *trainOpts, set map[string]bool, full *da
 	if folds > 0 {
 		warnVal = 0 // the final model trains on every row
 	}
-	for _, w := range trainWarnings(m, full, warnVal) {
+	warnings := trainWarnings
+	if o.member {
+		// a fleet's member: how the file was read is said once, for
+		// the fleet
+		warnings = modelWarnings
+	}
+	for _, w := range warnings(m, full, warnVal) {
 		st.warn("%s", w)
 	}
 	s := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Objective: obj,
@@ -312,7 +319,7 @@ func trainLoaded(e *env, st *status, o *trainOpts, set map[string]bool, full *da
 	if err != nil {
 		return nil, usageError{err.Error()}
 	}
-	return runTraining(e, st, t, full, format, rec, out, checkpoint, report, watchAt)
+	return runTraining(e, st, t, full, format, rec, out, checkpoint, report, watchAt, o.member)
 }
 
 func (o *trainOpts) checkNumbers() error {
@@ -469,7 +476,7 @@ func resumeTrain(e *env, o trainOpts, set map[string]bool) error {
 	if rec.Every > 0 {
 		checkpoint = o.resume
 	}
-	_, err = runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report, o.watch)
+	_, err = runTraining(e, st, t, full, format, rec, o.out, checkpoint, o.report, o.watch, false)
 	return err
 }
 
@@ -482,8 +489,9 @@ type outcome struct {
 
 // runTraining splits the data, trains (writing checkpoints), calibrates
 // the threshold of a model that has one, and writes the model file and
-// the report, each a phase of st.
-func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report, watchAt string) (res *outcome, err error) {
+// the report, each a phase of st. With unsynced the model file is not
+// synced to disk (the caller syncs it).
+func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, format data.Format, rec runRecord, out, checkpoint, report, watchAt string, unsynced bool) (res *outcome, err error) {
 	prov := &modelfile.Provenance{DataFile: rec.Data.Path, DataFormat: string(format), DataFingerprint: full.Fingerprint(), DataRows: full.Rows}
 	trainSet, valSet := full, (*data.Dataset)(nil)
 	if rec.Validation > 0 {
@@ -634,7 +642,12 @@ func runTraining(e *env, st *status, t *train.Trainer, full *data.Dataset, forma
 	if err != nil {
 		return nil, err
 	}
-	if err := modelfile.Write(out, f); err != nil {
+	write := modelfile.Write
+	if unsynced {
+		// a fleet's member: the fleet syncs its files together
+		write = modelfile.WriteUnsynced
+	}
+	if err := write(out, f); err != nil {
 		return nil, err
 	}
 	st.end()

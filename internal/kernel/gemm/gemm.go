@@ -1,7 +1,6 @@
 package gemm
 
 import (
-	"runtime"
 	"sync"
 
 	"github.com/quernlab/quern/internal/kernel/par"
@@ -137,7 +136,7 @@ func SgemmThen(tA, tB blas.Transpose, m, n, k int, alpha float32, a []float32, l
 		}
 		return
 	}
-	workers := runtime.GOMAXPROCS(0)
+	workers := par.Workers()
 	if m*n*k < parMinWork {
 		workers = 1
 	}

@@ -13,16 +13,35 @@ const MinWork = 1 << 15
 // chunksPer is the number of chunks per goroutine.
 const chunksPer = 4
 
+// limit caps Workers (0: no cap).
+var limit atomic.Int64
+
+// Limit caps the goroutines the kernels split work over at n (0 or
+// less: GOMAXPROCS, the default), for a process that runs many small
+// jobs side by side (a fleet's models) and gains nothing from splitting
+// each. Results are the same whatever the cap.
+func Limit(n int) { limit.Store(int64(max(n, 0))) }
+
+// Workers is the number of goroutines work is split over: GOMAXPROCS,
+// or the Limit below it.
+func Workers() int {
+	w := runtime.GOMAXPROCS(0)
+	if l := int(limit.Load()); l > 0 && l < w {
+		return l
+	}
+	return w
+}
+
 // Worth reports whether For would split n elements; callers on
 // allocation-free paths test it before building a closure.
-func Worth(n int) bool { return n >= MinWork && runtime.GOMAXPROCS(0) > 1 }
+func Worth(n int) bool { return n >= MinWork && Workers() > 1 }
 
 // Items calls f(i) once for each i in [0, n), on the calling goroutine
 // and up to GOMAXPROCS-1 helpers, each taking the next unclaimed item;
 // it returns when every call has returned. Callers decide whether the
 // items are worth sharing.
 func Items(n int, f func(i int)) {
-	w := min(runtime.GOMAXPROCS(0), n)
+	w := min(Workers(), n)
 	if w < 2 {
 		for i := 0; i < n; i++ {
 			f(i)
@@ -147,7 +166,7 @@ func (h *helperPool) spin() bool {
 // n is at least MinWork and more than one processor is available, and
 // returns when every call has returned.
 func For(n int, f func(lo, hi int)) {
-	w := runtime.GOMAXPROCS(0)
+	w := Workers()
 	if n < MinWork || w < 2 {
 		f(0, n)
 		return
@@ -162,7 +181,7 @@ func For(n int, f func(lo, hi int)) {
 // that per-block partial sums come out the same whatever the number of
 // goroutines.
 func Blocks(n, block int, f func(lo, hi int)) {
-	w := runtime.GOMAXPROCS(0)
+	w := Workers()
 	if n < MinWork || w < 2 || block <= 0 {
 		f(0, n)
 		return
@@ -176,7 +195,7 @@ func Blocks(n, block int, f func(lo, hi int)) {
 // concurrently; callers decide with Worth whether the work behind the n
 // items is worth it.
 func Spread(n int, f func(lo, hi int)) {
-	w := runtime.GOMAXPROCS(0)
+	w := Workers()
 	if w < 2 || n < 2 {
 		f(0, n)
 		return

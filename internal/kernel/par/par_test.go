@@ -79,3 +79,20 @@ func TestItemsCoversEveryItemOnce(t *testing.T) {
 		runtime.GOMAXPROCS(old)
 	}
 }
+
+func TestLimit(t *testing.T) {
+	defer Limit(0)
+	Limit(1)
+	if Workers() != 1 || Worth(1<<20) {
+		t.Fatalf("Limit(1): %d workers, worth splitting %v", Workers(), Worth(1<<20))
+	}
+	calls := 0
+	For(1<<20, func(lo, hi int) { calls++ }) // one goroutine: no race
+	if calls != 1 {
+		t.Fatalf("Limit(1): For split the work into %d calls", calls)
+	}
+	Limit(0)
+	if Workers() != runtime.GOMAXPROCS(0) {
+		t.Fatalf("Limit(0): %d workers, GOMAXPROCS %d", Workers(), runtime.GOMAXPROCS(0))
+	}
+}
