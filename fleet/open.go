@@ -5,6 +5,7 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"runtime"
 	"sync"
 	"sync/atomic"
 
@@ -208,7 +209,10 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 		}
 		return prev == nil || prev.Member.SHA256 != m.SHA256
 	}
-	for _, m := range ix.Members {
+	// the members to open, opened side by side on the cores (each file
+	// is read, hashed and decoded on its own)
+	var todo []int
+	for i, m := range ix.Members {
 		var prev *Entry[T]
 		if old != nil {
 			prev = old.members[m.Group]
@@ -219,11 +223,32 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 			}
 			continue
 		}
-		e, err := f.openMember(m.Group, m)
-		if err != nil {
-			return nil, err
+		todo = append(todo, i)
+	}
+	opened := make([]*Entry[T], len(todo))
+	errs := make([]error, len(todo))
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range max(1, min(runtime.GOMAXPROCS(0), len(todo))) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				k := int(next.Add(1)) - 1
+				if k >= len(todo) {
+					return
+				}
+				m := ix.Members[todo[k]]
+				opened[k], errs[k] = f.openMember(m.Group, m)
+			}
+		}()
+	}
+	wg.Wait()
+	for k, i := range todo {
+		if errs[k] != nil {
+			return nil, errs[k] // the first in the index's order
 		}
-		st.members[m.Group] = e
+		st.members[ix.Members[i].Group] = opened[k]
 	}
 	if ix.Shared != nil {
 		var prev *Entry[T]

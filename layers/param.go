@@ -52,9 +52,9 @@ func NewParam(name string, rows, cols int, prec Precision) *Param {
 	n := rows * cols
 	switch prec {
 	case Float32:
-		p.v32, p.g32 = make([]float32, n), make([]float32, n)
+		p.v32 = make([]float32, n)
 	case Float64:
-		p.v64, p.g64 = make([]float64, n), make([]float64, n)
+		p.v64 = make([]float64, n)
 	default:
 		panic(fmt.Sprintf("layers: NewParam(%q): unknown precision %d", name, prec))
 	}
@@ -79,11 +79,26 @@ func (p *Param) F32() []float32 { return p.v32 }
 // F64 is the float64 value storage (nil for a Float32 parameter).
 func (p *Param) F64() []float64 { return p.v64 }
 
-// Grad32 is the float32 gradient buffer (nil for a Float64 parameter).
-func (p *Param) Grad32() []float32 { return p.g32 }
+// Grad32 is the float32 gradient buffer (nil for a Float64 parameter),
+// made on the first call: a model that is only used, never trained,
+// holds no gradients (a server of ten thousand models saves their
+// size). Like the values, it is not for concurrent mutation: the first
+// call belongs to whoever trains the parameter.
+func (p *Param) Grad32() []float32 {
+	if p.g32 == nil && p.prec == Float32 {
+		p.g32 = make([]float32, p.Len())
+	}
+	return p.g32
+}
 
-// Grad64 is the float64 gradient buffer (nil for a Float32 parameter).
-func (p *Param) Grad64() []float64 { return p.g64 }
+// Grad64 is the float64 gradient buffer (nil for a Float32 parameter),
+// made on the first call as Grad32's is.
+func (p *Param) Grad64() []float64 {
+	if p.g64 == nil && p.prec == Float64 {
+		p.g64 = make([]float64, p.Len())
+	}
+	return p.g64
+}
 
 // Frozen reports whether the parameter is excluded from training.
 func (p *Param) Frozen() bool { return p.frozen }
@@ -112,9 +127,9 @@ func (p *Param) SetAt(i int, v float64) {
 // GradAt returns element i of the gradient as float64.
 func (p *Param) GradAt(i int) float64 {
 	if p.prec == Float32 {
-		return float64(p.g32[i])
+		return float64(p.Grad32()[i])
 	}
-	return p.g64[i]
+	return p.Grad64()[i]
 }
 
 // ZeroGrad clears the gradient buffer.

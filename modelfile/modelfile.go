@@ -311,7 +311,9 @@ func Write(path string, f *File) error {
 // WriteUnsynced is Write without waiting for the disk: the file is
 // replaced atomically, but a crash soon after may lose it. A caller that
 // writes many files (a fleet's) syncs them together afterwards (Sync),
-// which costs far less wall time than one sync after each.
+// which costs far less wall time than one sync after each, and removes
+// the leftovers of crashed writes once (RemoveStale) where Write looks
+// for its own file's each time.
 func WriteUnsynced(path string, f *File) error {
 	return write(path, f, false)
 }
@@ -359,7 +361,11 @@ const syncAtOnce = 64
 
 func write(path string, f *File, durable bool) error {
 	dir := filepath.Dir(path)
-	removeStale(dir, filepath.Base(path))
+	if durable {
+		// (a writer of many files calls RemoveStale once for the folder:
+		// each call reads the whole folder)
+		removeStale(dir, filepath.Base(path))
+	}
 	mode := os.FileMode(0o644)
 	if st, err := os.Stat(path); err == nil && st.Mode().IsRegular() {
 		mode = st.Mode().Perm()
@@ -423,6 +429,25 @@ func removeStale(dir, base string) {
 	for _, p := range old {
 		if st, err := os.Lstat(p); err == nil && st.Mode().IsRegular() && time.Since(st.ModTime()) > StaleAfter {
 			os.Remove(p)
+		}
+	}
+}
+
+// RemoveStale removes every model file's leftover temporary file in dir
+// older than StaleAfter, in one read of the folder: what Write does for
+// its one file, for a caller of WriteUnsynced that writes many.
+func RemoveStale(dir string) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return
+	}
+	for _, e := range ents {
+		n := e.Name()
+		if !strings.HasPrefix(n, ".") || !strings.Contains(n, ".tmp-") || !e.Type().IsRegular() {
+			continue
+		}
+		if st, err := e.Info(); err == nil && time.Since(st.ModTime()) > StaleAfter {
+			os.Remove(filepath.Join(dir, n))
 		}
 	}
 }

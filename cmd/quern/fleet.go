@@ -161,6 +161,7 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	// each other (the results are the same either way)
 	par.Limit(1)
 	defer par.Limit(0)
+	modelfile.RemoveStale(o.out)
 	var done atomic.Int64
 	st.begin("train fleet", func() string {
 		return fmt.Sprintf("%d of %d models trained", done.Load(), len(jobs))
