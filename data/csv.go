@@ -99,6 +99,10 @@ type CSVConfig struct {
 
 	// pass is the typed reading's pass (internal)
 	pass *typedPass
+	// emit, when set, takes each run of parsed rows in file order
+	// instead of the Dataset (a Stream's pass); the rows and values
+	// limits, which bound what is held, do not apply
+	emit func(b *csvBatch, d *Dataset) error
 }
 
 // typedPass is one pass of a typed reading: a survey of the columns, or
@@ -358,7 +362,7 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	if label >= 0 {
 		d.Labels = []int{}
 	}
-	p := &rowParser{name: name, header: header, sel: sel, keep: keep, label: label, width: width, lr: lr, size: size, pass: pass, cfg: &cfg}
+	p := &rowParser{name: name, header: header, sel: sel, keep: keep, label: label, width: width, lr: lr, size: size, pass: pass, cfg: &cfg, emit: cfg.emit}
 	var pending *csvBatch
 	if cfg.NoHeader {
 		// the first record is a row

@@ -197,6 +197,7 @@ type rowParser struct {
 	size   int64 // the text's bytes, -1 when unknown
 	pass   *typedPass
 	cfg    *CSVConfig
+	emit   func(b *csvBatch, d *Dataset) error
 }
 
 // parse parses a batch's records into its rows, stopping at the first
@@ -325,6 +326,16 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 		<-j.done
 		b := j.b
 		n := len(b.rowLines)
+		if p.emit != nil {
+			// a stream's pass: the rows go on, none is held
+			if n > 0 {
+				if err := p.emit(b, d); err != nil {
+					return err
+				}
+			}
+			d.Rows += n
+			return b.err
+		}
 		if d.Rows+n > lim.Rows {
 			k := lim.Rows - d.Rows
 			return &LimitError{File: p.name, Line: b.rowLines[k], Key: "rows", Limit: int64(lim.Rows), What: fmt.Sprintf("more than %d rows", lim.Rows)}

@@ -60,6 +60,9 @@ type Dataset struct {
 	// stats are each column's range, gathered while a typed reading
 	// parsed the numbers (nil otherwise)
 	stats *columnStats
+	// fit, when set, fits scalers instead of the rows (a Stream's
+	// Bounds: its statistics of every training row)
+	fit func(ScaleKind) (*Scaler, error)
 }
 
 // New wraps x (rows x cols, row-major) in a Dataset, checking the length and

@@ -115,7 +115,7 @@ func TestEqualDistributionsGiveLog4(t *testing.T) {
 			x[i] = float32(rng.NormFloat64())
 		}
 		scaled, _ := m.Scaler.Apply(&data.Dataset{Rows: 512, Cols: 1, X: x})
-		ms, err := l.evaluate(scaled)
+		ms, err := l.evaluate(memVal{scaled})
 		require.NoError(t, err)
 		sum += ms[0].Value
 	}

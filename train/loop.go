@@ -110,6 +110,25 @@ type loop struct {
 }
 
 func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
+	if trainSet == nil || trainSet.Rows == 0 {
+		return fmt.Errorf("%w: no training rows", ErrConfig)
+	}
+	if valSet != nil && valSet.Cols != trainSet.Cols {
+		return fmt.Errorf("%w: validation has %d columns, training %d", ErrConfig, valSet.Cols, trainSet.Cols)
+	}
+	batches, err := data.NewBatches(trainSet, data.BatchConfig{Size: l.s.BatchSize}, l.shuffle)
+	if err != nil {
+		return err
+	}
+	var val valSource
+	if valSet != nil {
+		val = memVal{valSet}
+	}
+	return l.runFrom(ctx, &memSource{b: batches, d: trainSet}, val)
+}
+
+// runFrom is run on any source of batches and validation rows.
+func (l *loop) runFrom(ctx context.Context, src rowSource, valSet valSource) error {
 	s, h, r := l.s, l.h, l.r
 	if l.mid == nil {
 		l.mid = new(bool)
@@ -117,19 +136,10 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 	if l.best == nil {
 		l.best = new([][]float64)
 	}
-	if trainSet == nil || trainSet.Rows == 0 {
-		return fmt.Errorf("%w: no training rows", ErrConfig)
-	}
-	if valSet != nil && valSet.Cols != trainSet.Cols {
-		return fmt.Errorf("%w: validation has %d columns, training %d", ErrConfig, valSet.Cols, trainSet.Cols)
-	}
 	if s.Patience > 0 && valSet == nil {
 		return fmt.Errorf("%w: early stopping needs validation rows", ErrConfig)
 	}
-	batches, err := data.NewBatches(trainSet, data.BatchConfig{Size: s.BatchSize}, l.shuffle)
-	if err != nil {
-		return err
-	}
+	defer src.close()
 	params := r.params()
 	best := *l.best
 	if best == nil && h.BestEpoch > 0 && s.Patience > 0 && !s.KeepLast {
@@ -146,9 +156,9 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 		sc = sr.rowScaler()
 	}
 	l.scaler = sc
-	rows := min(s.BatchSize, trainSet.Rows)
-	b := batch{Cols: trainSet.Cols, X: make([]float32, rows*trainSet.Cols)}
-	if trainSet.Labels != nil {
+	rows := min(s.BatchSize, src.rows())
+	b := batch{Cols: src.cols(), X: make([]float32, rows*src.cols())}
+	if src.labelled() {
 		b.Labels = make([]int, rows)
 	}
 	var bb batch // the step's rows (declared once: a step allocates nothing)
@@ -157,24 +167,33 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 	start := time.Now()
 	samples := 0
 	// the pace, and so the time left, counts only this call's steps
-	totalSteps := (s.Epochs - len(h.Epochs)) * batches.Len()
+	steps := src.len() // an epoch's
+	totalSteps := (s.Epochs - len(h.Epochs)) * steps
 	doneSteps := 0
 	var ms []Metric
 	for epoch := len(h.Epochs) + 1; epoch <= s.Epochs; epoch++ {
 		*l.mid = true
-		batches.Shuffle()
+		if err := src.epoch(); err != nil {
+			return fmt.Errorf("train: epoch %d: %w", epoch, err)
+		}
 		var sums []Metric
 		used := 0 // rows the epoch's steps trained on
-		for i := 0; i < batches.Len(); i++ {
+		for i := 0; ; i++ {
 			if err := ctx.Err(); err != nil {
 				return err
 			}
-			b.Rows = batches.Rows(i)
+			n, err := src.next(b.X, b.Labels)
+			if err != nil {
+				return fmt.Errorf("train: epoch %d step %d: %w", epoch, i+1, err)
+			}
+			if n == 0 {
+				break
+			}
+			b.Rows = n
 			var lab []int
 			if b.Labels != nil {
 				lab = b.Labels[:b.Rows]
 			}
-			batches.Gather(i, b.X[:b.Rows*b.Cols], lab)
 			if sc != nil {
 				sc.ApplyRows(b.X[:b.Rows*b.Cols])
 			}
@@ -212,11 +231,11 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 			samples += b.Rows
 			doneSteps++
 			if s.OnStep != nil {
-				s.OnStep(progress(epoch, s.Epochs, i+1, batches.Len(), ms, nil, samples, start, doneSteps, totalSteps, false))
+				s.OnStep(progress(epoch, s.Epochs, i+1, steps, ms, nil, samples, start, doneSteps, totalSteps, false))
 			}
 		}
 		if used == 0 || len(sums) == 0 {
-			return fmt.Errorf("train: epoch %d ran no step: %d training rows are fewer than one step uses", epoch, trainSet.Rows)
+			return fmt.Errorf("train: epoch %d ran no step: %d training rows are fewer than one step uses", epoch, src.rows())
 		}
 		for k := range sums {
 			sums[k].Value /= float64(used)
@@ -226,7 +245,7 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 			vm, err := l.evaluate(valSet)
 			if err != nil {
 				if errors.Is(err, engine.ErrNonFinite) {
-					return &NonFiniteError{Epoch: epoch, Step: batches.Len(), Err: fmt.Errorf("validation: %w", err)}
+					return &NonFiniteError{Epoch: epoch, Step: steps, Err: fmt.Errorf("validation: %w", err)}
 				}
 				return fmt.Errorf("train: epoch %d validation: %w", epoch, err)
 			}
@@ -248,7 +267,7 @@ func (l *loop) run(ctx context.Context, trainSet, valSet *data.Dataset) error {
 			h.sinceBest++
 		}
 		if s.OnEpoch != nil {
-			if err := s.OnEpoch(progress(epoch, s.Epochs, batches.Len(), batches.Len(), rec.Train, rec.Validation, samples, start, doneSteps, totalSteps, true), h); err != nil {
+			if err := s.OnEpoch(progress(epoch, s.Epochs, steps, steps, rec.Train, rec.Validation, samples, start, doneSteps, totalSteps, true), h); err != nil {
 				return err
 			}
 		}
@@ -298,10 +317,11 @@ func (l *loop) step(moves []*move, b *batch, clip float64) error {
 	return nil
 }
 
-// evaluate averages the recipe's evaluation metrics over d (scaled), with
-// the noise of the pass drawn from a generator seeded afresh, so that
-// repeated evaluations agree.
-func (l *loop) evaluate(d *data.Dataset) ([]Metric, error) {
+// evaluate averages the recipe's evaluation metrics over the validation
+// rows (scaled), in batches of evalBatch, with the noise of the pass
+// drawn from a generator seeded afresh, so that repeated evaluations
+// agree.
+func (l *loop) evaluate(d valSource) ([]Metric, error) {
 	if l.evalHook != nil {
 		return l.evalHook(), nil
 	}
@@ -310,23 +330,21 @@ func (l *loop) evaluate(d *data.Dataset) ([]Metric, error) {
 	sums := make([]float64, len(ev.Names))
 	var vals []float64
 	total := 0
-	for start := 0; start < d.Rows; start += evalBatch {
-		n := min(evalBatch, d.Rows-start)
+	err := d.each(func(x []float32, lab []int, n int) error {
 		if ev.Trim != nil {
 			n = ev.Trim(n)
 		}
 		if n == 0 {
-			continue
+			return nil
 		}
 		p, err := ev.Phase.Program(n)
 		if err != nil {
-			return nil, err
+			return err
 		}
-		var lab []int
-		if d.Labels != nil {
-			lab = d.Labels[start : start+n]
+		if lab != nil {
+			lab = lab[:n]
 		}
-		x := d.X[start*d.Cols : (start+n)*d.Cols]
+		x = x[:n*d.cols()]
 		if l.scaler != nil {
 			l.evalBuf = append(l.evalBuf[:0], x...)
 			l.scaler.ApplyRows(l.evalBuf)
@@ -335,22 +353,103 @@ func (l *loop) evaluate(d *data.Dataset) ([]Metric, error) {
 		ev.Fill(p, x, lab, n, rng)
 		loss, err := p.Run(engine.RunOptions{})
 		if err != nil {
-			return nil, err
+			return err
 		}
 		vals = ev.Read(p, loss, vals[:0])
 		for i, v := range vals {
 			sums[i] += v * float64(n)
 		}
 		total += n
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
 	if total == 0 {
-		return nil, fmt.Errorf("no validation batch: %d rows are too few", d.Rows)
+		return nil, fmt.Errorf("no validation batch: %d rows are too few", d.rows())
 	}
 	out := make([]Metric, len(sums))
 	for i, v := range sums {
 		out[i] = Metric{Name: ev.Names[i], Value: v / float64(total)}
 	}
 	return out, nil
+}
+
+// rowSource is where the loop takes an epoch's batches from: an
+// in-memory table (memSource) or a file streamed (streamSource).
+type rowSource interface {
+	rows() int // training rows
+	cols() int
+	labelled() bool
+	// len is the number of batches in an epoch.
+	len() int
+	// epoch starts an epoch, its rows in a new order.
+	epoch() error
+	// next writes the next batch into x and labels (each sized for a
+	// whole batch) and returns its rows; 0 when the epoch is over.
+	next(x []float32, labels []int) (int, error)
+	close()
+}
+
+// valSource gives the validation rows, evalBatch rows at a time.
+type valSource interface {
+	rows() int
+	cols() int
+	each(f func(x []float32, labels []int, rows int) error) error
+}
+
+// memSource walks a Dataset's shuffled batches.
+type memSource struct {
+	b *data.Batches
+	d *data.Dataset
+	i int
+}
+
+func (m *memSource) rows() int      { return m.d.Rows }
+func (m *memSource) cols() int      { return m.d.Cols }
+func (m *memSource) labelled() bool { return m.d.Labels != nil }
+func (m *memSource) len() int       { return m.b.Len() }
+func (m *memSource) close()         {}
+
+func (m *memSource) epoch() error {
+	m.b.Shuffle()
+	m.i = 0
+	return nil
+}
+
+func (m *memSource) next(x []float32, labels []int) (int, error) {
+	if m.i >= m.b.Len() {
+		return 0, nil
+	}
+	n := m.b.Rows(m.i)
+	var lab []int
+	if labels != nil {
+		lab = labels[:n]
+	}
+	m.b.Gather(m.i, x[:n*m.d.Cols], lab)
+	m.i++
+	return n, nil
+}
+
+// memVal is a Dataset's validation rows in order.
+type memVal struct{ d *data.Dataset }
+
+func (m memVal) rows() int { return m.d.Rows }
+func (m memVal) cols() int { return m.d.Cols }
+
+func (m memVal) each(f func(x []float32, labels []int, rows int) error) error {
+	d := m.d
+	for start := 0; start < d.Rows; start += evalBatch {
+		n := min(evalBatch, d.Rows-start)
+		var lab []int
+		if d.Labels != nil {
+			lab = d.Labels[start : start+n]
+		}
+		if err := f(d.X[start*d.Cols:(start+n)*d.Cols], lab, n); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 func progress(epoch, epochs, step, steps int, ms, val []Metric, samples int, start time.Time, done, total int, end bool) Progress {

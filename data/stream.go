@@ -1,0 +1,332 @@
+package data
+
+import (
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"slices"
+	"strings"
+
+	"github.com/quernlab/quern/internal/stream"
+)
+
+// A Stream is a CSV table of numbers (plain or gzip) too large to hold:
+// OpenStream reads it once to check every cell and to learn what training
+// needs (the rows, the split into training and validation rows, each
+// column's range, mean and spread, a seeded sample of the training rows),
+// and Each reads it again, in file order, a few mebibytes of text at a
+// time, as often as asked. Memory stays a few batches of text and their
+// rows whatever the file's size.
+//
+// Rows go to validation one by one, each with probability Validation,
+// from a generator seeded with the split seed and drawn in file order:
+// every pass splits the file the same way, and the validation rows are
+// about (not exactly) that share of them.
+type Stream struct {
+	// Path is the file.
+	Path string
+	// Cols is the number of feature columns, Columns their names.
+	Cols    int
+	Columns []string
+	// Rows counts the file's rows; TrainRows and ValRows the two parts.
+	Rows, TrainRows, ValRows int
+	// Sample is a seeded uniform sample of the training rows (at most
+	// StreamConfig.Sample of them), in file order: for choosing defaults,
+	// fitting what needs rows but not all of them, and figures.
+	Sample *Dataset
+	// Fingerprint is the SHA-256 of the rows' count, width and values in
+	// file order (Dataset.Fingerprint's content, hashed in a stream's
+	// order: a stream and a Dataset of the same rows differ in it).
+	Fingerprint string
+
+	cfg        CSVConfig
+	valFrac    float64
+	splitSeed  uint64
+	lo, hi     []float64 // the training rows' range per column
+	mean, m2   []float64 // their mean and sum of squared deviations
+	valLo, vHi []float64 // the validation rows' range
+}
+
+// StreamConfig says how to read a Stream. Zero fields mean: no
+// validation rows, split seed 0, a sample of DefaultSampleRows rows.
+type StreamConfig struct {
+	// CSV is how the file is read (Typed, Label, Keep and Encoding are
+	// not for streams: a stream reads numbers).
+	CSV CSVConfig
+	// Validation is the share of rows held out, in [0, 1).
+	Validation float64
+	// SplitSeed seeds the split and the sample.
+	SplitSeed uint64
+	// Sample is the most training rows kept in Stream.Sample.
+	Sample int
+}
+
+// DefaultSampleRows is the sample a Stream keeps by default: enough for
+// the principal components and covariances of tables hundreds of columns
+// wide, and a few MiB.
+const DefaultSampleRows = 20000
+
+// Part names the rows a pass over a Stream gives.
+type Part int
+
+const (
+	// AllRows are every row of the file.
+	AllRows Part = iota
+	// TrainRows are the rows not held out.
+	TrainRows
+	// ValRows are the held-out rows.
+	ValRows
+)
+
+// ErrStream is wrapped by the errors of a table a stream cannot read:
+// a text cell, a label column.
+var ErrStream = errors.New("data: cannot stream")
+
+// OpenStream makes a Stream's first pass over the CSV file at path.
+func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
+	c := cfg.CSV
+	switch {
+	case c.Label != "" || c.Keep != nil || c.Encoding != nil:
+		return nil, fmt.Errorf("%w: %s: a streamed table is read for its numbers only (no labels, kept columns or a model's encoding)", ErrStream, path)
+	case !(cfg.Validation >= 0 && cfg.Validation < 1):
+		return nil, fmt.Errorf("%w: validation share %v, want [0, 1)", ErrConfig, cfg.Validation)
+	case cfg.Sample < 0:
+		return nil, fmt.Errorf("%w: sample of %d rows", ErrConfig, cfg.Sample)
+	}
+	c.Typed, c.Types, c.Missing = false, nil, nil
+	s := &Stream{Path: path, cfg: c, valFrac: cfg.Validation, splitSeed: cfg.SplitSeed}
+	sample := cfg.Sample
+	if sample == 0 {
+		sample = DefaultSampleRows
+	}
+	// the sample: reservoir sampling (Vitter's algorithm R) over the
+	// training rows, with its own generator
+	pick := rand.New(rand.NewPCG(cfg.SplitSeed, stream.Sample))
+	var res []float32
+	var resLine []int
+	seen := 0
+	h := sha256.New()
+	var buf []byte
+	first := true
+	err := s.pass(AllRows, func(x []float32, val []bool, lines []int, rows int) error {
+		if first {
+			first = false
+			s.lo, s.hi = filled(s.Cols, math.Inf(1)), filled(s.Cols, math.Inf(-1))
+			s.valLo, s.vHi = filled(s.Cols, math.Inf(1)), filled(s.Cols, math.Inf(-1))
+			s.mean, s.m2 = make([]float64, s.Cols), make([]float64, s.Cols)
+			res = make([]float32, 0, min(sample, 1<<16)*s.Cols)
+		}
+		buf = buf[:0]
+		for _, v := range x {
+			buf = binary.LittleEndian.AppendUint32(buf, math.Float32bits(v))
+		}
+		h.Write(buf)
+		for r := range rows {
+			row := x[r*s.Cols : (r+1)*s.Cols]
+			s.Rows++
+			if val[r] {
+				s.ValRows++
+				for j, v := range row {
+					s.valLo[j], s.vHi[j] = math.Min(s.valLo[j], float64(v)), math.Max(s.vHi[j], float64(v))
+				}
+				continue
+			}
+			s.TrainRows++
+			n := float64(s.TrainRows)
+			for j, v := range row {
+				f := float64(v)
+				s.lo[j], s.hi[j] = math.Min(s.lo[j], f), math.Max(s.hi[j], f)
+				// Welford's running mean and squared deviations
+				d := f - s.mean[j]
+				s.mean[j] += d / n
+				s.m2[j] += d * (f - s.mean[j])
+			}
+			seen++
+			switch {
+			case seen <= sample:
+				res = append(res, row...)
+				resLine = append(resLine, lines[r])
+			default:
+				if k := pick.IntN(seen); k < sample {
+					copy(res[k*s.Cols:(k+1)*s.Cols], row)
+					resLine[k] = lines[r]
+				}
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	if s.TrainRows == 0 {
+		return nil, &ParseError{File: path, Msg: fmt.Sprintf("no training rows among the %d (validation share %v)", s.Rows, cfg.Validation)}
+	}
+	var b [8]byte
+	binary.LittleEndian.PutUint64(b[:], uint64(s.Rows))
+	h.Write(b[:])
+	binary.LittleEndian.PutUint64(b[:], uint64(s.Cols))
+	h.Write(b[:])
+	s.Fingerprint = hex.EncodeToString(h.Sum(nil))
+	// the sample in file order, so that it does not depend on how the
+	// reservoir met the rows
+	order := make([]int, len(resLine))
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortFunc(order, func(a, b int) int { return resLine[a] - resLine[b] })
+	sd := &Dataset{Rows: len(order), Cols: s.Cols, X: make([]float32, len(order)*s.Cols), Columns: s.Columns}
+	for k, i := range order {
+		copy(sd.X[k*s.Cols:], res[i*s.Cols:(i+1)*s.Cols])
+	}
+	s.Sample = sd
+	return s, nil
+}
+
+func filled(n int, v float64) []float64 {
+	out := make([]float64, n)
+	for i := range out {
+		out[i] = v
+	}
+	return out
+}
+
+// pass reads the file once, handing f each batch's rows with, for each,
+// whether it is a validation row and its line.
+func (s *Stream) pass(part Part, f func(x []float32, val []bool, lines []int, rows int) error) error {
+	split := rand.New(rand.NewPCG(s.splitSeed, stream.Split))
+	var val []bool
+	c := s.cfg
+	c.emit = func(b *csvBatch, d *Dataset) error {
+		if s.Cols == 0 {
+			s.Cols, s.Columns = d.Cols, d.Columns
+		} else if d.Cols != s.Cols || !slices.Equal(d.Columns, s.Columns) {
+			return &ParseError{File: s.Path, Msg: "the file changed since it was first read (its columns differ)"}
+		}
+		n := len(b.rowLines)
+		val = val[:0]
+		for range n {
+			val = append(val, s.valFrac > 0 && split.Float64() < s.valFrac)
+		}
+		return f(b.x, val, b.rowLines, n)
+	}
+	fh, err := os.Open(s.Path)
+	if err != nil {
+		return fmt.Errorf("data: %w", err)
+	}
+	defer fh.Close()
+	r, _, err := maybeGzip(fh)
+	if err != nil {
+		return &ParseError{File: s.Path, Msg: err.Error()}
+	}
+	_, err = readCSV(r, s.Path, c, -1)
+	var pe *ParseError
+	if errors.As(err, &pe) && pe.text {
+		return fmt.Errorf("%w: %s (a streamed table holds numbers only: categories and missing cells need the table in memory)", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
+	}
+	if err != nil {
+		return err
+	}
+	return nil
+}
+
+// Each reads the file again and hands f the part's rows in file order, a
+// run at a time (x holds rows*Cols values; f must not keep it). A file
+// that no longer holds the rows the first pass counted is an error.
+func (s *Stream) Each(part Part, f func(x []float32, rows int) error) error {
+	var out []float32
+	total := 0
+	err := s.pass(part, func(x []float32, val []bool, _ []int, rows int) error {
+		total += rows
+		if part == AllRows {
+			return f(x, rows)
+		}
+		out = out[:0]
+		n := 0
+		for r := range rows {
+			if val[r] == (part == ValRows) {
+				out = append(out, x[r*s.Cols:(r+1)*s.Cols]...)
+				n++
+			}
+		}
+		if n == 0 {
+			return nil
+		}
+		return f(out, n)
+	})
+	if err == nil && total != s.Rows {
+		err = &ParseError{File: s.Path, Msg: fmt.Sprintf("the file changed since it was first read: %d rows, then %d", s.Rows, total)}
+	}
+	return err
+}
+
+// Bounds is a two-row stand-in for the part's rows (TrainRows or
+// ValRows): each column's least value, then its greatest, with the
+// stream's columns. Whatever depends on the rows only through their
+// ranges (a min-max scaler, a check that values lie in [0, 1], the
+// scaled columns' ranges) gets from it what it would from all of them;
+// Fit on the training part's bounds fits on the stream's statistics of
+// every training row. Nil for an empty part.
+func (s *Stream) Bounds(part Part) *Dataset {
+	lo, hi, rows := s.lo, s.hi, s.TrainRows
+	if part == ValRows {
+		lo, hi, rows = s.valLo, s.vHi, s.ValRows
+	}
+	if rows == 0 {
+		return nil
+	}
+	d := &Dataset{Rows: 2, Cols: s.Cols, X: make([]float32, 2*s.Cols), Columns: s.Columns}
+	for j := range s.Cols {
+		d.X[j], d.X[s.Cols+j] = float32(lo[j]), float32(hi[j])
+	}
+	if part == TrainRows {
+		d.fit = s.fit
+	}
+	return d
+}
+
+// fit is Fit on every training row, from the first pass's statistics
+// (the population standard deviation, as Fit's).
+func (s *Stream) fit(kind ScaleKind) (*Scaler, error) {
+	sc := &Scaler{Kind: kind, Offset: make([]float64, s.Cols), Factor: make([]float64, s.Cols)}
+	switch kind {
+	case ScaleNone, "":
+		sc.Kind = ScaleNone
+		for j := range sc.Factor {
+			sc.Factor[j] = 1
+		}
+	case ScaleStandard:
+		for j := range s.Cols {
+			sd := math.Sqrt(s.m2[j] / float64(s.TrainRows))
+			sc.Offset[j], sc.Factor[j] = s.mean[j], 1
+			if sd > 0 {
+				sc.Factor[j] = 1 / sd
+			}
+		}
+	case ScaleMinMax:
+		for j := range s.Cols {
+			sc.Offset[j], sc.Factor[j] = s.lo[j], 1
+			if s.hi[j] > s.lo[j] {
+				sc.Factor[j] = 1 / (s.hi[j] - s.lo[j])
+			}
+		}
+	default:
+		return nil, fmt.Errorf("%w: unknown scaling %q", ErrConfig, kind)
+	}
+	return sc, nil
+}
+
+// Constant names the columns whose training rows all hold one value.
+func (s *Stream) Constant() []string {
+	var out []string
+	for j := range s.Cols {
+		if s.lo[j] == s.hi[j] {
+			out = append(out, s.Columns[j])
+		}
+	}
+	return out
+}

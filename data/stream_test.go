@@ -1,0 +1,116 @@
+package data
+
+import (
+	"bytes"
+	"compress/gzip"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+func writeNumbers(t *testing.T, path string, rows, cols int, zip bool) {
+	t.Helper()
+	rng := rand.New(rand.NewPCG(3, 4))
+	var b bytes.Buffer
+	for j := range cols {
+		if j > 0 {
+			b.WriteByte(',')
+		}
+		fmt.Fprintf(&b, "x%d", j)
+	}
+	b.WriteByte('\n')
+	for range rows {
+		for j := range cols {
+			if j > 0 {
+				b.WriteByte(',')
+			}
+			fmt.Fprintf(&b, "%.5f", float64(j)+rng.NormFloat64()*float64(j+1))
+		}
+		b.WriteByte('\n')
+	}
+	out := b.Bytes()
+	if zip {
+		var z bytes.Buffer
+		w := gzip.NewWriter(&z)
+		w.Write(out)
+		w.Close()
+		out = z.Bytes()
+	}
+	require.NoError(t, os.WriteFile(path, out, 0o644))
+}
+
+// A stream gives the file's rows as LoadCSV reads them, splits them the
+// same way on every pass, and fits scalers on all training rows as Fit
+// does in memory (the running mean and squared deviations of Welford,
+// "Note on a method for calculating corrected sums of squares and
+// products", Technometrics 4, 1962, against Fit's two passes: 1e-9).
+func TestStreamMatchesLoad(t *testing.T) {
+	dir := t.TempDir()
+	for _, zip := range []bool{false, true} {
+		path := filepath.Join(dir, fmt.Sprintf("t%v.csv", zip))
+		writeNumbers(t, path, 50000, 5, zip)
+		d, err := LoadCSV(path, CSVConfig{})
+		require.NoError(t, err)
+		s, err := OpenStream(path, StreamConfig{Validation: 0.2, SplitSeed: 9, Sample: 1000})
+		require.NoError(t, err)
+		require.Equal(t, d.Rows, s.Rows)
+		require.Equal(t, d.Columns, s.Columns)
+		require.Equal(t, s.Rows, s.TrainRows+s.ValRows)
+		require.InDelta(t, 0.2, float64(s.ValRows)/float64(s.Rows), 0.01)
+		require.Equal(t, 1000, s.Sample.Rows)
+		var all, tr, va []float32
+		require.NoError(t, s.Each(AllRows, func(x []float32, n int) error { all = append(all, x...); return nil }))
+		require.Equal(t, d.X, all)
+		require.NoError(t, s.Each(TrainRows, func(x []float32, n int) error { tr = append(tr, x...); return nil }))
+		require.NoError(t, s.Each(ValRows, func(x []float32, n int) error { va = append(va, x...); return nil }))
+		require.Len(t, tr, s.TrainRows*5)
+		require.Len(t, va, s.ValRows*5)
+		// the same split twice
+		var tr2 []float32
+		require.NoError(t, s.Each(TrainRows, func(x []float32, n int) error { tr2 = append(tr2, x...); return nil }))
+		require.Equal(t, tr, tr2)
+		want, err := Fit(ScaleStandard, &Dataset{Rows: s.TrainRows, Cols: 5, X: tr})
+		require.NoError(t, err)
+		got, err := Fit(ScaleStandard, s.Bounds(TrainRows))
+		require.NoError(t, err)
+		for j := range 5 {
+			require.InDelta(t, want.Offset[j], got.Offset[j], 1e-9*math.Max(1, math.Abs(want.Offset[j])))
+			require.InDelta(t, want.Factor[j], got.Factor[j], 1e-9*want.Factor[j])
+		}
+		wmm, _ := Fit(ScaleMinMax, &Dataset{Rows: s.TrainRows, Cols: 5, X: tr})
+		gmm, _ := Fit(ScaleMinMax, s.Bounds(TrainRows))
+		require.Equal(t, wmm, gmm)
+		// the sample is training rows, in file order
+		in := map[string]bool{}
+		for i := 0; i < s.TrainRows; i++ {
+			in[fmt.Sprint(tr[i*5:(i+1)*5])] = true
+		}
+		for i := range s.Sample.Rows {
+			require.True(t, in[fmt.Sprint(s.Sample.Row(i))])
+		}
+		require.NotEmpty(t, s.Fingerprint)
+	}
+}
+
+func TestStreamRefuses(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "t.csv")
+	require.NoError(t, os.WriteFile(path, []byte("a,b\n1,2\n3,x\n"), 0o644))
+	_, err := OpenStream(path, StreamConfig{})
+	require.ErrorIs(t, err, ErrStream)
+	require.ErrorContains(t, err, "t.csv:3: column 2 (b): \"x\" is not a finite number")
+	require.ErrorContains(t, err, "categories and missing cells need the table in memory")
+	_, err = OpenStream(path, StreamConfig{CSV: CSVConfig{Label: "a"}})
+	require.ErrorIs(t, err, ErrStream)
+	writeNumbers(t, path, 100, 3, false)
+	s, err := OpenStream(path, StreamConfig{})
+	require.NoError(t, err)
+	writeNumbers(t, path, 90, 3, false)
+	err = s.Each(AllRows, func([]float32, int) error { return nil })
+	require.ErrorContains(t, err, "the file changed since it was first read: 100 rows, then 90")
+}
