@@ -233,6 +233,7 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 		}
 	}
 	first, firstLine, err := lr.record()
+	firstOff := lr.recOff
 	if err == io.EOF {
 		return nil, &ParseError{File: name, Line: lr.line + 1, Msg: "no data"}
 	}
@@ -367,7 +368,7 @@ func readCSV(r io.Reader, name string, cfg CSVConfig, size int64) (*Dataset, err
 	if cfg.NoHeader {
 		// the first record is a row
 		pending = &csvBatch{}
-		pending.add(first, firstLine)
+		pending.add(first, firstLine, firstOff)
 	}
 	if err := p.readAll(d, lim, pending); err != nil {
 		return nil, err

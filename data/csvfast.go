@@ -25,6 +25,8 @@ type lineReader struct {
 	rec   []byte // a record of several lines
 	// maxRecord bounds a record of several lines (0: no bound)
 	maxRecord int
+	// off counts the bytes read; recOff is where the last record began
+	off, recOff int64
 }
 
 // next returns the next physical line without its line end (\n or
@@ -45,6 +47,7 @@ func (lr *lineReader) next() ([]byte, error) {
 	if len(b) == 0 && err == io.EOF {
 		return nil, io.EOF
 	}
+	lr.off += int64(len(b))
 	lr.line++
 	b = bytes.TrimSuffix(b, []byte{'\n'})
 	b = bytes.TrimSuffix(b, []byte{'\r'})
@@ -56,6 +59,7 @@ func (lr *lineReader) next() ([]byte, error) {
 // call; io.EOF at the end.
 func (lr *lineReader) record() ([]byte, int, error) {
 	for {
+		lr.recOff = lr.off
 		b, err := lr.next()
 		if err != nil {
 			if err == io.EOF {
@@ -157,13 +161,15 @@ func splitRecord(dst []string, rec []byte, comma rune, name string, line int) ([
 // csvBatch is a run of records read together and parsed by one worker.
 type csvBatch struct {
 	text   []byte
-	ends   []int // each record's end in text
-	starts []int // each record's first line
+	ends   []int   // each record's end in text
+	starts []int   // each record's first line
+	offs   []int64 // each record's first byte in the text read
 	// results
 	x        []float32
 	labels   []int
 	kept     []string
 	rowLines []int           // the line of each parsed row
+	rowOffs  []int64         // the first byte of each parsed row
 	notes    []RowNote       // an encoding pass's notes, Row counted in the batch
 	survey   []*columnSurvey // a survey pass's counts of this batch
 	stats    *columnStats    // a typed reading's numbers: each column's range
@@ -177,10 +183,11 @@ const (
 	batchRecords = 16384
 )
 
-func (b *csvBatch) add(rec []byte, line int) {
+func (b *csvBatch) add(rec []byte, line int, off int64) {
 	b.text = append(b.text, rec...)
 	b.ends = append(b.ends, len(b.text))
 	b.starts = append(b.starts, line)
+	b.offs = append(b.offs, off)
 }
 
 func (b *csvBatch) full() bool { return len(b.text) >= batchBytes || len(b.ends) >= batchRecords }
@@ -300,6 +307,7 @@ func (p *rowParser) parse(b *csvBatch) {
 			b.kept = append(b.kept, strings.Clone(fields[i])) // fields view the batch
 		}
 		b.rowLines = append(b.rowLines, line)
+		b.rowOffs = append(b.rowOffs, b.offs[k])
 	}
 }
 
@@ -411,7 +419,7 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 			return err
 		}
 		if err == nil {
-			b.add(rec, line)
+			b.add(rec, line, p.lr.recOff)
 		}
 		if len(b.ends) > 0 && (err == io.EOF || b.full()) {
 			launch(b)

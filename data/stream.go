@@ -1,16 +1,19 @@
 package data
 
 import (
+	"bytes"
 	"crypto/sha256"
 	"encoding/binary"
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"math/rand/v2"
 	"os"
 	"slices"
 	"strings"
+	"time"
 
 	"github.com/quernlab/quern/internal/stream"
 )
@@ -24,9 +27,10 @@ import (
 // rows whatever the file's size.
 //
 // Rows go to validation one by one, each with probability Validation,
-// from a generator seeded with the split seed and drawn in file order:
-// every pass splits the file the same way, and the validation rows are
-// about (not exactly) that share of them.
+// by a seeded hash of its place in the file: every pass splits the file
+// the same way, in any order, and the validation rows are about (not
+// exactly) that share of them. EachShuffled reads a plain file's rows in
+// runs of blockRows in a random order, for training.
 type Stream struct {
 	// Path is the file.
 	Path string
@@ -44,9 +48,19 @@ type Stream struct {
 	// order: a stream and a Dataset of the same rows differ in it).
 	Fingerprint string
 
-	cfg        CSVConfig
-	valFrac    float64
-	splitSeed  uint64
+	cfg       CSVConfig
+	valFrac   float64
+	splitSeed uint64
+	// blocks are runs of blockRows rows (a plain file's: a gzip file's
+	// bytes cannot be read out of order), where each begins in the file
+	// and which row it begins with; prefix is the bytes before the first
+	// row (skipped lines, the header); size and mod are the file's, to
+	// notice it change
+	blocks     []block
+	prefix     int64
+	size       int64
+	modified   time.Time
+	gzip       bool
 	lo, hi     []float64 // the training rows' range per column
 	mean, m2   []float64 // their mean and sum of squared deviations
 	valLo, vHi []float64 // the validation rows' range
@@ -70,6 +84,34 @@ type StreamConfig struct {
 // the principal components and covariances of tables hundreds of columns
 // wide, and a few MiB.
 const DefaultSampleRows = 20000
+
+// block is a run of rows of a plain file.
+type block struct {
+	off int64
+	row int
+}
+
+// blockRows is the rows of a block: a shuffled pass reads the blocks in
+// a random order, so that the rows a shuffle buffer holds come from many
+// places in the file, not from one stretch of it.
+const blockRows = 1024
+
+// isVal says whether row i (counted from 0 in file order) is held out:
+// a draw of SplitMix64 (Steele, Lea and Flood, "Fast splittable
+// pseudorandom number generators", OOPSLA 2014) seeded with the split
+// seed, the stream's name and i, so that a row's part does not depend on
+// the order it is read in.
+func (s *Stream) isVal(i int) bool {
+	if s.valFrac == 0 {
+		return false
+	}
+	const golden = 0x9e3779b97f4a7c15
+	z := (s.splitSeed ^ stream.Split<<32) + uint64(i+1)*golden
+	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9
+	z = (z ^ (z >> 27)) * 0x94d049bb133111eb
+	z ^= z >> 31
+	return float64(z>>11)/(1<<53) < s.valFrac
+}
 
 // Part names the rows a pass over a Stream gives.
 type Part int
@@ -113,7 +155,7 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 	h := sha256.New()
 	var buf []byte
 	first := true
-	err := s.pass(AllRows, func(x []float32, val []bool, lines []int, rows int) error {
+	err := s.pass(nil, func(x []float32, val []bool, lines []int, offs []int64, rows int) error {
 		if first {
 			first = false
 			s.lo, s.hi = filled(s.Cols, math.Inf(1)), filled(s.Cols, math.Inf(-1))
@@ -128,6 +170,9 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 		h.Write(buf)
 		for r := range rows {
 			row := x[r*s.Cols : (r+1)*s.Cols]
+			if s.Rows%blockRows == 0 {
+				s.blocks = append(s.blocks, block{offs[r], s.Rows})
+			}
 			s.Rows++
 			if val[r] {
 				s.ValRows++
@@ -166,6 +211,11 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 	if s.TrainRows == 0 {
 		return nil, &ParseError{File: path, Msg: fmt.Sprintf("no training rows among the %d (validation share %v)", s.Rows, cfg.Validation)}
 	}
+	if s.gzip {
+		s.blocks = nil
+	} else if len(s.blocks) > 0 {
+		s.prefix = s.blocks[0].off
+	}
 	var b [8]byte
 	binary.LittleEndian.PutUint64(b[:], uint64(s.Rows))
 	h.Write(b[:])
@@ -196,10 +246,57 @@ func filled(n int, v float64) []float64 {
 }
 
 // pass reads the file once, handing f each batch's rows with, for each,
-// whether it is a validation row and its line.
-func (s *Stream) pass(part Part, f func(x []float32, val []bool, lines []int, rows int) error) error {
-	split := rand.New(rand.NewPCG(s.splitSeed, stream.Split))
+// whether it is a validation row, its line and its first byte: in file
+// order when order is nil, else the plain file's blocks in that order
+// (a permutation of their indices).
+func (s *Stream) pass(order []int, f func(x []float32, val []bool, lines []int, offs []int64, rows int) error) error {
 	var val []bool
+	fh, err := os.Open(s.Path)
+	if err != nil {
+		return fmt.Errorf("data: %w", err)
+	}
+	defer fh.Close()
+	st, err := fh.Stat()
+	if err != nil {
+		return fmt.Errorf("data: %w", err)
+	}
+	if s.Cols == 0 {
+		s.size, s.modified = st.Size(), st.ModTime()
+	} else if st.Size() != s.size || !st.ModTime().Equal(s.modified) {
+		return &ParseError{File: s.Path, Msg: "the file changed since it was first read (its size or time differs)"}
+	}
+	var in io.Reader = fh
+	// index maps the k-th row read to its place in the file
+	index := func(k int) int { return k }
+	if order != nil && s.blocks != nil {
+		parts := []io.Reader{io.NewSectionReader(fh, 0, s.prefix)}
+		starts := make([]int, len(order)+1) // rows read before each block
+		for k, bi := range order {
+			end, rows := s.size, s.Rows-s.blocks[bi].row
+			if bi+1 < len(s.blocks) {
+				end, rows = s.blocks[bi+1].off, s.blocks[bi+1].row-s.blocks[bi].row
+			}
+			// a newline after each block: the file's last row may lack one
+			parts = append(parts, io.NewSectionReader(fh, s.blocks[bi].off, end-s.blocks[bi].off), bytes.NewReader([]byte{'\n'}))
+			starts[k+1] = starts[k] + rows
+		}
+		in = io.MultiReader(parts...)
+		k := 0
+		index = func(t int) int {
+			for t >= starts[k+1] {
+				k++
+			}
+			return s.blocks[order[k]].row + t - starts[k]
+		}
+	}
+	r, gz, err := maybeGzip(in)
+	if err != nil {
+		return &ParseError{File: s.Path, Msg: err.Error()}
+	}
+	if s.Cols == 0 {
+		s.gzip = gz
+	}
+	read := 0
 	c := s.cfg
 	c.emit = func(b *csvBatch, d *Dataset) error {
 		if s.Cols == 0 {
@@ -210,37 +307,41 @@ func (s *Stream) pass(part Part, f func(x []float32, val []bool, lines []int, ro
 		n := len(b.rowLines)
 		val = val[:0]
 		for range n {
-			val = append(val, s.valFrac > 0 && split.Float64() < s.valFrac)
+			val = append(val, s.isVal(index(read)))
+			read++
 		}
-		return f(b.x, val, b.rowLines, n)
-	}
-	fh, err := os.Open(s.Path)
-	if err != nil {
-		return fmt.Errorf("data: %w", err)
-	}
-	defer fh.Close()
-	r, _, err := maybeGzip(fh)
-	if err != nil {
-		return &ParseError{File: s.Path, Msg: err.Error()}
+		return f(b.x, val, b.rowLines, b.rowOffs, n)
 	}
 	_, err = readCSV(r, s.Path, c, -1)
 	var pe *ParseError
 	if errors.As(err, &pe) && pe.text {
-		return fmt.Errorf("%w: %s (a streamed table holds numbers only: categories and missing cells need the table in memory)", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
+		return fmt.Errorf("%w: %s (a streamed table holds numbers only: -columns picks the numeric ones; categories and missing cells need the table in memory)", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
 	}
-	if err != nil {
-		return err
-	}
-	return nil
+	return err
 }
 
 // Each reads the file again and hands f the part's rows in file order, a
 // run at a time (x holds rows*Cols values; f must not keep it). A file
 // that no longer holds the rows the first pass counted is an error.
 func (s *Stream) Each(part Part, f func(x []float32, rows int) error) error {
+	return s.each(nil, part, f)
+}
+
+// EachShuffled is Each with a plain file's rows read in runs of 1024 in
+// an order drawn from rng (a gzip file's in file order): what a shuffle
+// buffer then mixes comes from all over the file.
+func (s *Stream) EachShuffled(part Part, rng *rand.Rand, f func(x []float32, rows int) error) error {
+	var order []int
+	if s.blocks != nil {
+		order = rng.Perm(len(s.blocks))
+	}
+	return s.each(order, part, f)
+}
+
+func (s *Stream) each(order []int, part Part, f func(x []float32, rows int) error) error {
 	var out []float32
 	total := 0
-	err := s.pass(part, func(x []float32, val []bool, _ []int, rows int) error {
+	err := s.pass(order, func(x []float32, val []bool, _ []int, _ []int64, rows int) error {
 		total += rows
 		if part == AllRows {
 			return f(x, rows)
@@ -329,4 +430,36 @@ func (s *Stream) Constant() []string {
 		}
 	}
 	return out
+}
+
+// EachCSV reads a CSV table of numbers (plain or gzip) once, in file
+// order, handing f a run of rows at a time, never the whole table: x
+// holds rows*len(columns) values and kept the cfg.Keep columns' texts
+// (rows*len(cfg.Keep)); f must keep neither. columns are the feature
+// columns' names, known before the first call (f may be called for none
+// when the file has no rows: then the error says so). A text cell is an
+// error wrapping ErrStream.
+func EachCSV(path string, cfg CSVConfig, f func(columns []string, x []float32, kept []string, rows int) error) error {
+	if cfg.Label != "" || cfg.Encoding != nil {
+		return fmt.Errorf("%w: %s: a streamed table is read for its numbers only (no labels or a model's encoding)", ErrStream, path)
+	}
+	cfg.Typed, cfg.Types, cfg.Missing = false, nil, nil
+	cfg.emit = func(b *csvBatch, d *Dataset) error {
+		return f(d.Columns, b.x, b.kept, len(b.rowLines))
+	}
+	fh, err := os.Open(path)
+	if err != nil {
+		return fmt.Errorf("data: %w", err)
+	}
+	defer fh.Close()
+	r, _, err := maybeGzip(fh)
+	if err != nil {
+		return &ParseError{File: path, Msg: err.Error()}
+	}
+	_, err = readCSV(r, path, cfg, -1)
+	var pe *ParseError
+	if errors.As(err, &pe) && pe.text {
+		return fmt.Errorf("%w: %s (a streamed table holds numbers only: categories and missing cells need the table in memory)", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
+	}
+	return err
 }

@@ -173,7 +173,7 @@ func readTyped(read func(CSVConfig) (*Dataset, error), name string, cfg CSVConfi
 	}
 	for t := range cfg.Types {
 		if !slices.Contains(sd.Columns, t) {
-			return nil, &ParseError{File: name, Msg: fmt.Sprintf("a type is given for %q, which is not a feature column (columns: %v)", t, sd.Columns)}
+			return nil, &ParseError{File: name, Msg: fmt.Sprintf("a type is given for %q, which is not a feature column (columns: %s)", t, strings.Join(sd.Columns, ", "))}
 		}
 	}
 	enc := &Encoding{Markers: markersOf(&cfg)}

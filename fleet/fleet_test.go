@@ -92,12 +92,12 @@ func TestMerge(t *testing.T) {
 		want  string
 	}{
 		{nil, "no parts"},
-		{[]fleet.Part{part(0, 2, 3, "a", "c")}, "shards 1 of 2 have no part yet"},
+		{[]fleet.Part{part(0, 2, 3, "a", "c")}, "no part of shard 1 (counting from 0, of 2)"},
 		{[]fleet.Part{part(0, 2, 3, "a", "c"), part(1, 3, 3, "b")}, "parts of 2 and of 3 shards"},
 		{[]fleet.Part{part(0, 2, 3, "a", "c"), part(1, 2, 3, "c")}, `group "c" was trained by two shards`},
 		{[]fleet.Part{part(0, 2, 3, "a", "c"), part(1, 2, 3, "b"), part(1, 2, 3, "d")}, "two different parts for shard 1/2"},
 		{[]fleet.Part{part(0, 2, 4, "a", "c"), part(1, 2, 4, "b")}, "the parts hold 3 members, the run planned 4"},
-		{[]fleet.Part{part(0, 2, 3, "a", "c"), func() fleet.Part { p := part(1, 2, 3, "b"); p.Index.Seed = 2; return p }()}, "trained on other data or settings"},
+		{[]fleet.Part{part(0, 2, 3, "a", "c"), func() fleet.Part { p := part(1, 2, 3, "b"); p.Index.Seed = 2; return p }()}, "trained on other data or settings than shard 0/2: the seed (2, against 1)"},
 	} {
 		_, err := fleet.Merge(c.parts)
 		require.ErrorIs(t, err, fleet.ErrFleet)
@@ -178,6 +178,9 @@ func TestOpenRouteReload(t *testing.T) {
 	require.Same(t, before, after)
 	_, err = fleet.Open(dir)
 	require.ErrorContains(t, err, fleet.FileName("c"))
+	// a full reload reads every file: c's no longer matches the index
+	_, err = f.Reload("", false)
+	require.ErrorContains(t, err, "the index says")
 
 	_, err = fleet.Open(t.TempDir())
 	require.ErrorIs(t, err, fleet.ErrFleet)

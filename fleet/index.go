@@ -316,6 +316,11 @@ func ReadIndex(dir string) (*Index, error) {
 	path := filepath.Join(dir, IndexFile)
 	var ix Index
 	if err := readJSON(path, &ix); err != nil {
+		if _, serr := os.Stat(path); os.IsNotExist(serr) {
+			if parts, _ := filepath.Glob(filepath.Join(globQuote(dir), "part-*-of-*.json")); len(parts) > 0 {
+				return nil, &Error{dir, fmt.Sprintf("holds a shard's part (%s), not a fleet: assemble the shards' folders with quern merge -out FLEET FOLDER...", filepath.Base(parts[0]))}
+			}
+		}
 		return nil, err
 	}
 	if err := ix.check(); err != nil {
@@ -360,10 +365,23 @@ func Hash(b []byte) string {
 func ReadParts(dirs ...string) ([]Part, []string, error) {
 	var parts []Part
 	var from []string
+	seen := map[string]bool{}
 	for _, dir := range dirs {
-		names, err := filepath.Glob(filepath.Join(dir, "part-*-of-*.json"))
+		if seen[filepath.Clean(dir)] {
+			continue // a folder named twice is read once
+		}
+		seen[filepath.Clean(dir)] = true
+		if st, err := os.Stat(dir); err != nil {
+			return nil, nil, &Error{dir, "cannot read: " + errText(err)}
+		} else if !st.IsDir() {
+			return nil, nil, &Error{dir, "not a folder (name the shards' folders, each holding a part-I-of-N.json)"}
+		}
+		names, err := filepath.Glob(filepath.Join(globQuote(dir), "part-*-of-*.json"))
 		if err != nil {
 			return nil, nil, fmt.Errorf("fleet: %w", err)
+		}
+		if len(names) == 0 {
+			return nil, nil, &Error{dir, "holds no part-I-of-N.json: not the folder of a shard (quern train -group ... -shard I/N writes one)"}
 		}
 		slices.Sort(names)
 		for _, n := range names {
@@ -416,7 +434,11 @@ func Merge(parts []Part) (*Index, error) {
 		}
 	}
 	if len(missing) > 0 {
-		return nil, fmt.Errorf("%w: shards %s of %d have no part yet", ErrFleet, strings.Join(missing, ", "), of)
+		what := "shard " + missing[0]
+		if len(missing) > 1 {
+			what = "shards " + strings.Join(missing, ", ")
+		}
+		return nil, fmt.Errorf("%w: no part of %s (counting from 0, of %d): run it, or name its folder", ErrFleet, what, of)
 	}
 	first := byShard[0]
 	ix := first.Index
@@ -431,7 +453,7 @@ func Merge(parts []Part) (*Index, error) {
 	for i := range of {
 		p := byShard[i]
 		if !bytes.Equal(head(p), want) {
-			return nil, fmt.Errorf("%w: shard %s was trained on other data or settings than shard %s (their parts' common fields differ)", ErrFleet, p.Shard, first.Shard)
+			return nil, fmt.Errorf("%w: shard %s was trained on other data or settings than shard %s: %s", ErrFleet, p.Shard, first.Shard, headDiff(&p.Index, &first.Index))
 		}
 		if p.Groups != first.Groups {
 			return nil, fmt.Errorf("%w: shard %s planned %d members, shard %s %d", ErrFleet, p.Shard, p.Groups, first.Shard, first.Groups)
@@ -457,4 +479,85 @@ func Merge(parts []Part) (*Index, error) {
 		return nil, fmt.Errorf("%w: %v", ErrFleet, err)
 	}
 	return &ix, nil
+}
+
+// headDiff says where two parts' common fields differ, a's value first.
+func headDiff(a, b *Index) string {
+	type field struct {
+		name string
+		a, b any
+	}
+	for _, f := range []field{
+		{"the data's fingerprint", a.Data.Fingerprint, b.Data.Fingerprint},
+		{"the data's rows", a.Data.Rows, b.Data.Rows},
+		{"the data's file name", a.Data.Path, b.Data.Path},
+		{"the group column", a.GroupColumn, b.GroupColumn},
+		{"the kind", a.Kind, b.Kind},
+		{"the seed", a.Seed, b.Seed},
+		{"the training flags", strings.Join(a.Settings, " "), strings.Join(b.Settings, " ")},
+		{"-min-rows", a.MinRows, b.MinRows},
+		{"the groups with too few rows", len(a.Fallback), len(b.Fallback)},
+		{"the rows with no group", a.Ungrouped, b.Ungrouped},
+		{"the format", fmt.Sprint(a.Format, a.Version), fmt.Sprint(b.Format, b.Version)},
+	} {
+		if fmt.Sprint(f.a) != fmt.Sprint(f.b) {
+			return fmt.Sprintf("%s (%v, against %v)", f.name, f.a, f.b)
+		}
+	}
+	return "their common fields"
+}
+
+// globQuote quotes the pattern characters of a folder name.
+func globQuote(s string) string {
+	var b strings.Builder
+	for _, r := range s {
+		if strings.ContainsRune(`*?[\`, r) {
+			b.WriteByte('\\')
+		}
+		b.WriteRune(r)
+	}
+	return b.String()
+}
+
+// memberFile reports whether name is a member model file's name.
+func memberFile(name string) bool {
+	if !strings.HasPrefix(name, "g-") || !strings.HasSuffix(name, ".qm") || len(name) < 2+1+16+3 {
+		return false
+	}
+	hexPart := name[len(name)-3-16 : len(name)-3]
+	for _, c := range hexPart {
+		if !(c >= '0' && c <= '9' || c >= 'a' && c <= 'f') {
+			return false
+		}
+	}
+	return name[len(name)-3-16-1] == '-'
+}
+
+// RemoveOthers removes from dir the member model files (and a shared
+// model file) that ix does not name: what an earlier fleet in the same
+// folder left. It returns how many it removed.
+func RemoveOthers(dir string, ix *Index) (int, error) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return 0, fmt.Errorf("fleet: %w", err)
+	}
+	named := map[string]bool{}
+	for _, m := range ix.Members {
+		named[m.File] = true
+	}
+	if ix.Shared != nil {
+		named[ix.Shared.File] = true
+	}
+	n := 0
+	for _, e := range ents {
+		name := e.Name()
+		if !e.Type().IsRegular() || named[name] || !(memberFile(name) || name == SharedFile) {
+			continue
+		}
+		if err := os.Remove(filepath.Join(dir, name)); err != nil {
+			return n, fmt.Errorf("fleet: %w", err)
+		}
+		n++
+	}
+	return n, nil
 }

@@ -118,9 +118,9 @@ type Reloaded struct {
 	Removed int
 }
 
-// Reload reads the index again and opens the members whose hash changed
-// (or that are new), keeping the others as they are; members the index
-// no longer names are dropped. With group set, only that member (or,
+// Reload reads the index again and every member's file, opens the
+// members whose hash changed (or that are new) and keeps the others as
+// they are; members the index no longer names are dropped. With group set, only that member (or,
 // with group "" and shared, the shared model) is read again, the rest
 // kept as they were loaded. Anything wrong (an index that does not
 // parse, a file whose hash is not the index's, a model the opener
@@ -211,7 +211,11 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 	}
 	// the members to open, opened side by side on the cores (each file
 	// is read, hashed and decoded on its own)
+	// a full reload reads every file: one whose hash no longer matches
+	// the index is refused even if the index did not change
+	verify := old != nil && only == "\x00all"
 	var todo []int
+	keep := map[int]*Entry[T]{} // members kept as loaded, once their file checks
 	for i, m := range ix.Members {
 		var prev *Entry[T]
 		if old != nil {
@@ -220,6 +224,10 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 		if !want(m.Group, m, prev) {
 			if prev != nil {
 				st.members[m.Group] = prev
+				if verify {
+					keep[i] = prev
+					todo = append(todo, i)
+				}
 			}
 			continue
 		}
@@ -239,6 +247,10 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 					return
 				}
 				m := ix.Members[todo[k]]
+				if prev := keep[todo[k]]; prev != nil {
+					opened[k], errs[k] = prev, f.check(m)
+					continue
+				}
 				opened[k], errs[k] = f.openMember(m.Group, m)
 			}
 		}()
@@ -260,13 +272,25 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 				return nil, err
 			}
 		} else {
+			if verify {
+				if err := f.check(*ix.Shared); err != nil {
+					return nil, err
+				}
+			}
 			st.shared = prev
 		}
 	}
 	return st, nil
 }
 
-func (f *Fleet[T]) openMember(group string, m Member) (*Entry[T], error) {
+// check reads a member's file and compares its hash with the index's.
+func (f *Fleet[T]) check(m Member) error {
+	_, err := f.read(m)
+	return err
+}
+
+// read reads a member's file, checked against the index's hash.
+func (f *Fleet[T]) read(m Member) ([]byte, error) {
 	path := filepath.Join(f.dir, m.File)
 	b, err := readFile(path)
 	if err != nil {
@@ -274,6 +298,15 @@ func (f *Fleet[T]) openMember(group string, m Member) (*Entry[T], error) {
 	}
 	if h := Hash(b); h != m.SHA256 {
 		return nil, &Error{path, fmt.Sprintf("its SHA-256 is %.12s..., the index says %.12s... (a file from another run, or changed after the index was written)", h, m.SHA256)}
+	}
+	return b, nil
+}
+
+func (f *Fleet[T]) openMember(group string, m Member) (*Entry[T], error) {
+	path := filepath.Join(f.dir, m.File)
+	b, err := f.read(m)
+	if err != nil {
+		return nil, err
 	}
 	v, err := f.open(path, b)
 	if err != nil {

@@ -1,6 +1,7 @@
 package serve
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 	"io"
@@ -36,9 +37,22 @@ func (s *Server) fleetRoutes() {
 	s.mux.HandleFunc("/v1/groups/{group}/{op}", only("POST", s.groupRoute))
 	s.mux.HandleFunc("/admin/reload", only("POST", func(w http.ResponseWriter, r *http.Request) {
 		q := r.URL.Query()
+		for k := range q {
+			if k != "group" && k != "shared" {
+				writeError(w, http.StatusBadRequest, "unknown parameter %q: /admin/reload takes ?group=G (one member), ?shared=true (the shared model) or nothing (every file that changed)", k)
+				return
+			}
+		}
 		group, shared := q.Get("group"), q.Get("shared") == "true" || q.Get("shared") == "1"
-		if q.Has("group") && group == "" {
+		switch {
+		case q.Has("group") && group == "":
 			writeError(w, http.StatusBadRequest, "?group= names no group")
+			return
+		case q.Has("shared") && !shared && q.Get("shared") != "false" && q.Get("shared") != "0":
+			writeError(w, http.StatusBadRequest, "?shared=%s: want true or false", q.Get("shared"))
+			return
+		case group != "" && shared:
+			writeError(w, http.StatusBadRequest, "?group and ?shared=true: reload one member or the shared model, not both at once")
 			return
 		}
 		got, err := s.reloadFleet(group, shared)
@@ -46,7 +60,7 @@ func (s *Server) fleetRoutes() {
 			writeError(w, http.StatusUnprocessableEntity, "reload refused, the fleet kept as it was: %v", err)
 			return
 		}
-		writeJSON(w, http.StatusOK, map[string]any{"status": "reloaded", "opened": got.Opened, "kept": got.Kept, "removed": got.Removed, "models": s.fleet.Len()})
+		writeJSON(w, http.StatusOK, map[string]any{"status": "reloaded", "opened": got.Opened, "kept": got.Kept, "removed": got.Removed, "models": s.fleet.Len(), "shared": s.fleet.Shared() != nil})
 	}))
 	s.common("POST /v1/score and /v1/encode (records with the group column), /v1/groups/{group}/score, .../encode, .../reconstruct, .../sample, /admin/reload[?group=G|?shared=true]")
 }
@@ -93,9 +107,31 @@ func (s *Server) groupRoute(w http.ResponseWriter, r *http.Request) {
 	if !ok {
 		return
 	}
-	s.m.routed(routed, 1)
 	w.Header().Set("Quern-Routed", routed)
-	h(w, r, e.Value)
+	rec := &recorder{ResponseWriter: w, code: http.StatusOK}
+	h(rec, r.WithContext(context.WithValue(r.Context(), routedKey{}, routed)), e.Value)
+	if rec.code == http.StatusOK {
+		s.m.routed(routed, 1) // answered, not refused
+	}
+}
+
+// routedKey carries, in a request's context, where a fleet's path route
+// sent it.
+type routedKey struct{}
+
+// routedOf is where a fleet's path route sent r ("" for a one-model
+// server's request).
+func routedOf(r *http.Request) string {
+	v, _ := r.Context().Value(routedKey{}).(string)
+	return v
+}
+
+// withRouted adds "routed" to an answer of a fleet's path route.
+func withRouted(r *http.Request, v map[string]any) map[string]any {
+	if to := routedOf(r); to != "" {
+		v["routed"] = to
+	}
+	return v
 }
 
 // fleetBatch is the records of one request that go to one model.

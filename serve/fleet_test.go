@@ -91,7 +91,11 @@ func TestFleetRouting(t *testing.T) {
 	// the group in the path: escaped, as a client must send a slash
 	code, v = post(t, c, l.url+"/v1/groups/south%2F2/score", rowsBody(bcData, 0, 1))
 	require.Equal(t, 200, code, "%v", v)
+	require.Equal(t, "own", v["routed"])
 	require.InDelta(t, want["south/2"], v["results"].([]any)[0].(map[string]any)["score"].(float64), 1e-9*want["south/2"])
+	code, v = post(t, c, l.url+"/v1/groups/Sout/score", rowsBody(bcData, 0, 1))
+	require.Equal(t, 200, code, "%v", v)
+	require.Equal(t, "shared", v["routed"], "a group with no model of its own, named in the path, is not said to be scored by the shared model")
 	code, v = post(t, c, l.url+"/v1/groups/north/encode", rowsBody(bcData, 0, 2))
 	require.Equal(t, 200, code, "%v", v)
 	require.Len(t, v["codes"], 2)
@@ -128,9 +132,9 @@ func TestFleetRouting(t *testing.T) {
 	_, err = fmt.Fprint(&b, readAll(t, resp))
 	require.NoError(t, err)
 	// records routed by column (2 + 2 own, 2 + 2 shared), requests by
-	// path (2 own); nothing of the refused requests
+	// path (2 own, 1 shared); nothing of the refused requests
 	require.Contains(t, b.String(), `quern_fleet_routed_total{to="own"} 6`)
-	require.Contains(t, b.String(), `quern_fleet_routed_total{to="shared"} 4`)
+	require.Contains(t, b.String(), `quern_fleet_routed_total{to="shared"} 5`)
 	require.Contains(t, b.String(), "quern_fleet_models 2")
 	require.NotContains(t, b.String(), "north", "a metric label names a group")
 }
@@ -220,6 +224,10 @@ func TestFleetReloadUnderLoad(t *testing.T) {
 	require.NoError(t, err)
 	b[len(b)-1] ^= 1
 	require.NoError(t, os.WriteFile(path, b, 0o644))
+	for _, q := range []string{"?foo=1", "?group=north&shared=true", "?shared=maybe", "?group="} {
+		code, _ = post(t, c, l.url+"/admin/reload"+q, nil)
+		require.Equal(t, 400, code, q)
+	}
 	code, v = post(t, c, l.url+"/admin/reload?group=south", nil)
 	require.Equal(t, 422, code)
 	require.Contains(t, v["error"], "the index says")

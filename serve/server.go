@@ -578,7 +578,10 @@ func chunk(x []float32, rows, cols int) [][]float32 {
 
 type scoreResponse struct {
 	Results []anomaly.Score `json:"results"`
-	Caution string          `json:"caution"`
+	// Routed, for a fleet's group named in the path, says whether its
+	// own model or the shared model answered.
+	Routed  string `json:"routed,omitempty"`
+	Caution string `json:"caution"`
 }
 
 // capability returns the served model as capability C, or answers 422
@@ -630,7 +633,7 @@ func (s *Server) score(w http.ResponseWriter, r *http.Request, m *Loaded) {
 		if err != nil {
 			return nil, err
 		}
-		return scoreResponse{Results: res, Caution: anomaly.Caution}, nil
+		return scoreResponse{Results: res, Routed: routedOf(r), Caution: anomaly.Caution}, nil
 	})
 }
 
@@ -688,7 +691,7 @@ func (s *Server) encode(w http.ResponseWriter, r *http.Request, m *Loaded) {
 			if err != nil {
 				return nil, err
 			}
-			return withReads(map[string]any{"codes": chunk(codes, n, enc.CodeWidth())}, reads), nil
+			return withRouted(r, withReads(map[string]any{"codes": chunk(codes, n, enc.CodeWidth())}, reads)), nil
 		})
 	}
 }
@@ -700,7 +703,7 @@ func (s *Server) reconstruct(w http.ResponseWriter, r *http.Request, m *Loaded) 
 			if err != nil {
 				return nil, err
 			}
-			return withReads(withRecords(map[string]any{"rows": chunk(out, n, m.Model.Width())}, m, out, n), reads), nil
+			return withRouted(r, withReads(withRecords(map[string]any{"rows": chunk(out, n, m.Model.Width())}, m, out, n), reads)), nil
 		})
 	}
 }
@@ -744,7 +747,7 @@ func (s *Server) sample(w http.ResponseWriter, r *http.Request, m *Loaded) {
 		writeError(w, http.StatusBadRequest, "%v", err)
 		return
 	}
-	writeJSON(w, http.StatusOK, withRecords(map[string]any{"rows": chunk(out, req.Count, m.Model.Width())}, m, out, req.Count))
+	writeJSON(w, http.StatusOK, withRouted(r, withRecords(map[string]any{"rows": chunk(out, req.Count, m.Model.Width())}, m, out, req.Count)))
 }
 
 // Serve answers on ln until ctx ends, then stops accepting connections and

@@ -117,7 +117,7 @@ func (m *streamSource) epoch() error {
 			}
 			return nil
 		}
-		err := m.s.Each(data.TrainRows, func(x []float32, rows int) error {
+		err := m.s.EachShuffled(data.TrainRows, m.rng, func(x []float32, rows int) error {
 			for r := range rows {
 				row := x[r*cols : (r+1)*cols]
 				if filled < m.buffer {

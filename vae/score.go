@@ -154,3 +154,8 @@ func (m *Model) RowScores(x []float32, rows int) ([]float64, error) { return m.N
 
 // Calibrated returns the model's threshold (nil before calibration).
 func (m *Model) Calibrated() *anomaly.Threshold { return m.Threshold }
+
+// SetThreshold sets a threshold found elsewhere (from scores of rows
+// streamed past the model, say). Like Calibrate, it must not run while
+// other goroutines use the model.
+func (m *Model) SetThreshold(t anomaly.Threshold) { m.Threshold = &t }

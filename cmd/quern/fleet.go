@@ -15,6 +15,7 @@ import (
 	"strings"
 	"sync"
 	"sync/atomic"
+	"time"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
@@ -63,11 +64,13 @@ func (o *trainOpts) checkFleet(set map[string]bool) error {
 	}
 	if st, err := os.Stat(o.out); err == nil && !st.IsDir() {
 		return usagef("-out %s is a file; with -group it names the fleet's folder", o.out)
-	}
-	if err := os.MkdirAll(o.out, 0o755); err != nil {
-		return fmt.Errorf("-out %s: cannot make the fleet's folder: %v", o.out, errText(err))
-	}
-	if err := writable(filepath.Join(o.out, fleet.IndexFile), "-out"); err != nil {
+	} else if err == nil {
+		if err := writable(filepath.Join(o.out, fleet.IndexFile), "-out"); err != nil {
+			return err
+		}
+	} else if err := writable(filepath.Clean(o.out), "-out"); err != nil {
+		// made once the data are read and grouped: a run that fails
+		// before leaves no empty folder
 		return err
 	}
 	o.data.keep, o.data.exclude = o.group, o.group
@@ -111,12 +114,31 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 		st.warn("%s", w)
 	}
 	st.begin("group", nil)
+	// the data's file name, not its folder: shards on other machines
+	// may see the file elsewhere
 	ix := fleet.Index{Format: fleet.FormatName, Version: fleet.Version, GroupColumn: o.group, Kind: o.kind, Seed: o.seed,
-		Settings: o.settings, Data: fleet.Data{Path: o.data.path, Fingerprint: full.Fingerprint(), Rows: full.Rows}, MinRows: o.minRows}
+		Settings: o.settings, Data: fleet.Data{Path: filepath.Base(o.data.path), Fingerprint: full.Fingerprint(), Rows: full.Rows}, MinRows: o.minRows}
+	// a group cell that marks a missing value (-missing) names no group
+	missing := map[string]bool{}
+	switch strings.TrimSpace(o.data.missing) {
+	case "":
+		for _, m := range data.DefaultMissing {
+			missing[m] = true
+		}
+	case "none":
+	default:
+		for _, m := range splitList(o.data.missing) {
+			missing[m] = true
+		}
+	}
 	keys := make([]string, full.Rows)
 	w := len(full.KeptColumns)
 	for i := range keys {
-		keys[i] = full.Kept[i*w+col]
+		k := strings.TrimSpace(full.Kept[i*w+col])
+		if missing[k] {
+			k = ""
+		}
+		keys[i] = k
 	}
 	groups, ungrouped, err := full.GroupBy(keys)
 	if err != nil {
@@ -153,6 +175,9 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	if len(members) == 0 && o.shared == 0 {
 		return fmt.Errorf("%s: no group of %s has %d rows or more (-min-rows), and -shared 0 asks for no shared model: nothing to train", o.data.path, o.group, o.minRows)
 	}
+	if len(fallback) > 0 && len(fallback) >= 4*max(len(members), 1) {
+		st.warn("warning: %d of the %d groups of %s have fewer than %d rows (-min-rows) and fall back to the shared model: is %s the column that names the groups?", len(fallback), len(fallback)+len(members), o.group, o.minRows, o.group)
+	}
 	if o.shared == 0 && (len(fallback) > 0 || ungrouped > 0) {
 		st.warn("warning: -shared 0: %s with fewer than %d rows and %s with no %s have no model; quern serve refuses their rows", plural(len(fallback), "group"), o.minRows, plural(ungrouped, "row"), o.group)
 	}
@@ -162,6 +187,9 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	par.Limit(1)
 	defer par.Limit(0)
 	modelfile.RemoveStale(o.out)
+	if err := os.MkdirAll(o.out, 0o755); err != nil {
+		return fmt.Errorf("-out %s: cannot make the fleet's folder: %v", o.out, errText(err))
+	}
 	var done atomic.Int64
 	st.begin("train fleet", func() string {
 		return fmt.Sprintf("%d of %d models trained", done.Load(), len(jobs))
@@ -232,7 +260,15 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 		if err := fleet.WriteIndex(o.out, merged); err != nil {
 			return err
 		}
+		// an earlier fleet's members the new one has not
+		gone, err := fleet.RemoveOthers(o.out, merged)
+		if err != nil {
+			return err
+		}
 		st.end()
+		if gone > 0 {
+			st.warn("removed %s an earlier fleet left in %s", plural(gone, "model file"), o.out)
+		}
 		ix = *merged
 	} else {
 		st.begin("write", nil)
@@ -266,6 +302,10 @@ func trainMember(e *env, o trainOpts, set map[string]bool, d *data.Dataset, form
 	var buf bytes.Buffer
 	st := newStatus(&buf, true)
 	o.seed, o.member = seed, true
+	// what the member's file records of its data: the file's name (as
+	// the index), no limits (they change no model), so that every shard
+	// writes the same file wherever the data lie
+	o.data.path, o.data.limits = filepath.Base(o.data.path), limitFlag{}
 	res, err := trainLoaded(e, st, &o, set, d, format, path, "", "", "")
 	st.end()
 	if err != nil {
@@ -371,15 +411,27 @@ func fleetSummary(ix *fleet.Index, sh fleet.Shard, o *trainOpts, planned int) []
 		out = append(out, fmt.Sprintf("%s with fewer than %d rows (-min-rows), %s: %s", plural(n, "group"), ix.MinRows, to, strings.Join(names, ", ")))
 	}
 	if ix.Ungrouped > 0 {
-		out = append(out, fmt.Sprintf("%s with an empty %s: in no group's model (only in the shared model's draw)", plural(ix.Ungrouped, "row"), ix.GroupColumn))
+		where := "only in the shared model's draw"
+		if ix.Shared == nil && sh.Index == 0 {
+			where = "and no shared model (-shared 0): their rows are refused"
+		}
+		out = append(out, fmt.Sprintf("%s with an empty %s: in no group's model (%s)", plural(ix.Ungrouped, "row"), ix.GroupColumn, where))
 	}
 	warned := 0
 	var first []string
-	for _, m := range ix.Members {
+	all := ix.Members
+	if ix.Shared != nil {
+		all = append([]fleet.Member{*ix.Shared}, all...)
+	}
+	for _, m := range all {
 		if len(m.Warnings) > 0 {
 			warned++
 			if len(first) < 3 {
-				first = append(first, fmt.Sprintf("%s: %s", m.Group, m.Warnings[0]))
+				name := m.Group
+				if m.File == fleet.SharedFile {
+					name = "the shared model"
+				}
+				first = append(first, fmt.Sprintf("%s: %s", name, m.Warnings[0]))
 			}
 		}
 	}
@@ -394,7 +446,7 @@ func fleetSummary(ix *fleet.Index, sh fleet.Shard, o *trainOpts, planned int) []
 
 // writeFleetReport writes a fleet's page and members.csv into dir.
 func writeFleetReport(dir string, ix *fleet.Index, sh fleet.Shard) error {
-	rows := [][]string{{"group", "file", "rows", "epochs", "validation_loss", "threshold", "warnings"}}
+	rows := [][]string{{"group", "model", "file", "rows", "epochs", "validation_loss", "threshold", "warnings"}}
 	num := func(p *float64) string {
 		if p == nil {
 			return ""
@@ -406,11 +458,11 @@ func writeFleetReport(dir string, ix *fleet.Index, sh fleet.Shard) error {
 		all = append([]fleet.Member{*ix.Shared}, all...)
 	}
 	for _, m := range all {
-		g := m.Group
+		kind := "own"
 		if m.File == fleet.SharedFile {
-			g = "(shared)"
+			kind = "shared"
 		}
-		rows = append(rows, []string{g, m.File, strconv.Itoa(m.Rows), strconv.Itoa(m.Epochs), num(m.ValidationLoss), num(m.Threshold), strings.Join(m.Warnings, "; ")})
+		rows = append(rows, []string{m.Group, kind, m.File, strconv.Itoa(m.Rows), strconv.Itoa(m.Epochs), num(m.ValidationLoss), num(m.Threshold), strings.Join(m.Warnings, "; ")})
 	}
 	var b bytes.Buffer
 	cw := csv.NewWriter(&b)
@@ -420,9 +472,13 @@ func writeFleetReport(dir string, ix *fleet.Index, sh fleet.Shard) error {
 	}
 	// the page lists the members worst first: highest validation loss
 	table := slices.Clone(rows[1:])
+	caption := "Members, highest validation loss first (all of them in members.csv)"
+	if spreadOf(all, valLoss).n == 0 {
+		caption = "Members (all of them in members.csv; no validation losses: the models were cross-fitted, -folds, or trained without -val rows)"
+	}
 	slices.SortStableFunc(table, func(a, b []string) int {
-		va, ea := strconv.ParseFloat(a[4], 64)
-		vb, eb := strconv.ParseFloat(b[4], 64)
+		va, ea := strconv.ParseFloat(a[5], 64)
+		vb, eb := strconv.ParseFloat(b[5], 64)
 		switch {
 		case ea != nil && eb != nil:
 			return 0
@@ -437,11 +493,17 @@ func writeFleetReport(dir string, ix *fleet.Index, sh fleet.Shard) error {
 	if sh.Of > 1 {
 		title = fmt.Sprintf("Shard %s of a fleet by %s: %d models", sh, ix.GroupColumn, len(ix.Members))
 	}
-	pg := report.Page{Title: title, Caution: anomaly.Caution,
-		Paragraphs: fleetSummary(ix, sh, &trainOpts{out: "."}, len(ix.Members))[1:],
+	var paras []string
+	for _, p := range fleetSummary(ix, sh, &trainOpts{out: "."}, len(ix.Members))[1:] {
+		if p != anomaly.Caution { // the page says it once, on its own
+			paras = append(paras, p)
+		}
+	}
+	pg := report.Page{Title: title, Caution: anomaly.Caution, Generated: time.Now().UTC().Format("2006-01-02 15:04 UTC"), Version: version(),
+		Paragraphs: paras,
 		Summary: []report.Setting{{Name: "kind", Value: ix.Kind}, {Name: "group column", Value: ix.GroupColumn}, {Name: "models", Value: strconv.Itoa(len(ix.Members))},
 			{Name: "rows read", Value: strconv.Itoa(ix.Data.Rows)}, {Name: "seed", Value: strconv.FormatUint(ix.Seed, 10)}},
-		Tables:   []report.Table{{Caption: "Members, highest validation loss first (all of them in members.csv)", Header: rows[0], Rows: table}},
+		Tables:   []report.Table{{Caption: caption, Header: rows[0], Rows: table}},
 		Settings: []report.Setting{{Name: "training flags", Value: strings.Join(ix.Settings, " ")}, {Name: "data", Value: ix.Data.Path}, {Name: "min rows", Value: strconv.Itoa(ix.MinRows)}},
 	}
 	return pg.Write(dir)
@@ -468,11 +530,9 @@ func cmdMerge(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if err := os.MkdirAll(*out, 0o755); err != nil {
-		return fmt.Errorf("-out %s: %v", *out, errText(err))
-	}
 	// every model file comes from the folder of the part that names it,
-	// checked against its hash, and is copied when that is not -out
+	// checked against its hash before anything is written, and is copied
+	// when that is not -out
 	where := map[string]string{}
 	for i, p := range parts {
 		for _, m := range p.Index.Members {
@@ -486,26 +546,53 @@ func cmdMerge(e *env, args []string) error {
 	if ix.Shared != nil {
 		all = append([]fleet.Member{*ix.Shared}, all...)
 	}
-	copied := 0
-	for _, m := range all {
+	check := func(m fleet.Member) ([]byte, error) {
 		src := filepath.Join(where[m.File], m.File)
 		b, err := os.ReadFile(src)
 		if err != nil {
-			return fmt.Errorf("%s: %v (its shard's part names it)", src, errText(err))
+			return nil, fmt.Errorf("%s: %v (its shard's part names it)", src, errText(err))
 		}
 		if h := fleet.Hash(b); h != m.SHA256 {
-			return fmt.Errorf("%s: its SHA-256 is %.12s..., its shard's part says %.12s... (changed since the shard ran; run the shard again)", src, h, m.SHA256)
+			return nil, fmt.Errorf("%s: its SHA-256 is %.12s..., its shard's part says %.12s... (changed since the shard ran; run the shard again)", src, h, m.SHA256)
 		}
-		if !sameFile(where[m.File], *out) {
-			if err := fleet.WriteFile(filepath.Join(*out, m.File), b); err != nil {
-				return err
-			}
-			copied++
+		return b, nil
+	}
+	for _, m := range all {
+		if _, err := check(m); err != nil {
+			return err
 		}
+	}
+	if st, err := os.Stat(*out); err == nil && !st.IsDir() {
+		return usagef("-out %s is a file, not a folder", *out)
+	}
+	if err := os.MkdirAll(*out, 0o755); err != nil {
+		return fmt.Errorf("-out %s: %v", *out, errText(err))
+	}
+	copied := 0
+	for _, m := range all {
+		if sameFile(where[m.File], *out) {
+			continue
+		}
+		b, err := check(m) // again: the copy is of the bytes checked
+		if err != nil {
+			return err
+		}
+		if err := fleet.WriteFile(filepath.Join(*out, m.File), b); err != nil {
+			return err
+		}
+		copied++
 	}
 	if err := fleet.WriteIndex(*out, ix); err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stderr, "wrote the fleet %s: %d models by %s from %s (%d model files copied)\n", filepath.Join(*out, fleet.IndexFile), len(ix.Members), ix.GroupColumn, plural(parts[0].Shard.Of, "shard"), copied)
+	gone, err := fleet.RemoveOthers(*out, ix)
+	if err != nil {
+		return err
+	}
+	line := fmt.Sprintf("wrote the fleet %s: %d models by %s from %s (%s copied", filepath.Join(*out, fleet.IndexFile), len(ix.Members), ix.GroupColumn, plural(parts[0].Shard.Of, "shard"), plural(copied, "model file"))
+	if gone > 0 {
+		line += fmt.Sprintf("; %s an earlier fleet left there removed", plural(gone, "model file"))
+	}
+	fmt.Fprintln(e.stderr, line+")")
 	return nil
 }

@@ -90,7 +90,12 @@ func TestFleetShardsMergeBitwise(t *testing.T) {
 	require.Len(t, single, 8) // the index, six members, the shared model
 	require.Contains(t, single, fleet.FileName("depot 7/b"))
 
-	ok(t, quern(t, dir, []string{"GOMAXPROCS=1"}, append(fleetArgs, "-out", "one-thread")...))
+	// a model file an earlier fleet left in the folder goes
+	stale := filepath.Join(dir, "one-thread", "g-gone-0123456789abcdef.qm")
+	require.NoError(t, os.MkdirAll(filepath.Dir(stale), 0o755))
+	require.NoError(t, os.WriteFile(stale, []byte("x"), 0o644))
+	r = ok(t, quern(t, dir, []string{"GOMAXPROCS=1"}, append(fleetArgs, "-out", "one-thread")...))
+	require.Contains(t, r.stderr, "removed 1 model file an earlier fleet left in one-thread")
 	require.Equal(t, single, fleetFiles(t, filepath.Join(dir, "one-thread")), "a fleet trained at 1 thread differs from one at 2")
 
 	var wg sync.WaitGroup
@@ -99,7 +104,14 @@ func TestFleetShardsMergeBitwise(t *testing.T) {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			res[i] = quern(t, dir, []string{"GOMAXPROCS=1"}, append(fleetArgs, "-out", fmt.Sprintf("shard%d", i), "-shard", fmt.Sprintf("%d/4", i))...)
+			args := append(fleetArgs, "-out", fmt.Sprintf("shard%d", i), "-shard", fmt.Sprintf("%d/4", i))
+			if i == 3 {
+				// the data named another way, and a default given: the
+				// same run
+				args = slices.Replace(slices.Clone(args), 2, 3, "./sites.csv")
+				args = append(args, "-batch", "64")
+			}
+			res[i] = quern(t, dir, []string{"GOMAXPROCS=1"}, args...)
 		}()
 	}
 	wg.Wait()
@@ -108,7 +120,7 @@ func TestFleetShardsMergeBitwise(t *testing.T) {
 	}
 	r = quern(t, dir, nil, "merge", "-out", "merged", "shard0", "shard1", "shard2")
 	require.Equal(t, 1, r.code)
-	require.Contains(t, r.stderr, "shards 3 of 4 have no part yet")
+	require.Contains(t, r.stderr, "no part of shard 3 (counting from 0, of 4)")
 	_, err := os.Stat(filepath.Join(dir, "merged", fleet.IndexFile))
 	require.True(t, os.IsNotExist(err), "a failed merge wrote an index")
 
@@ -176,7 +188,7 @@ func TestFleetBadFlags(t *testing.T) {
 		{[]string{"-group", "site", "-out", "afile"}, 2, "-out afile is a file; with -group it names the fleet's folder"},
 		{[]string{"-group", "site", "-out", "f", "-columns", "temp,site"}, 2, "-group site is also in -columns"},
 		{[]string{"-out", "m.qm", "-shard", "0/2"}, 2, "-min-rows, -shared and -shard are for fleets"},
-		{[]string{"-group", "nosuch", "-out", "f"}, 1, "nosuch"},
+		{[]string{"-group", "nosuch", "-out", "f"}, 2, "-group nosuch: sites.csv has no such column (its columns: site, reading, temp, pressure, flow, mode)"},
 		{[]string{"-group", "site", "-out", "f", "-shared", "0"}, 1, "no group of site has 100 rows or more (-min-rows), and -shared 0 asks for no shared model: nothing to train"},
 	} {
 		r := quern(t, dir, nil, append([]string{"train", "-data", "sites.csv", "-quiet"}, c.args...)...)
@@ -184,9 +196,16 @@ func TestFleetBadFlags(t *testing.T) {
 		require.Contains(t, r.stderr, c.want, "%v", c.args)
 		require.Equal(t, 1, strings.Count(strings.TrimSpace(r.stderr), "\n")+1, "%v: more than one line: %s", c.args, r.stderr)
 	}
+	_, err := os.Stat(filepath.Join(dir, "f"))
+	require.True(t, os.IsNotExist(err), "a run that failed left its -out folder")
 	r := quern(t, dir, nil, "merge", "-out", "f2")
 	require.Equal(t, 2, r.code)
 	r = quern(t, dir, nil, "merge", "-out", "f2", dir)
 	require.Equal(t, 1, r.code)
-	require.Contains(t, r.stderr, "no parts to merge")
+	require.Contains(t, r.stderr, "holds no part-I-of-N.json: not the folder of a shard")
+	r = quern(t, dir, nil, "merge", "-out", "f2", "sites.csv")
+	require.Equal(t, 1, r.code)
+	require.Contains(t, r.stderr, "sites.csv: not a folder")
+	_, err = os.Stat(filepath.Join(dir, "f2"))
+	require.True(t, os.IsNotExist(err), "a merge that failed left its -out folder")
 }

@@ -76,6 +76,8 @@ type trainOpts struct {
 	shared  int
 	shard   string
 	member  bool // training one member of a fleet
+	stream  bool
+	buffer  int
 	// settings are the flags given that shape the models (fleets record
 	// them: shards must agree)
 	settings []string
@@ -128,6 +130,8 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.StringVar(&o.group, "group", "", "train a fleet: one model per value of this CSV `COLUMN` (each with its own scaling and threshold, seeded from -seed and the value), side by side on the cores; -out names the fleet's folder")
 	fs.IntVar(&o.minRows, "min-rows", defaultMinGroupRows, "-group: the fewest rows a group needs for a model of its own; smaller groups are scored by the shared model")
 	fs.IntVar(&o.shared, "shared", defaultSharedRows, "-group: rows drawn (seeded) from all groups to train the shared model, which scores small groups and groups not seen in training (0: no shared model; their rows are refused)")
+	fs.BoolVar(&o.stream, "stream", false, "read the CSV file again on every epoch instead of holding it: for tables of numbers larger than memory (ae and vae; the rows are shuffled through a buffer of -buffer rows, the threshold set on the -val rows streamed)")
+	fs.IntVar(&o.buffer, "buffer", 0, fmt.Sprintf("-stream: rows of the shuffle buffer; each batch draws from the next this many rows of the file, so a file sorted by time trains on a sliding window of it (default %d)", train.DefaultShuffleBuffer))
 	fs.StringVar(&o.shard, "shard", "", "-group: train only shard `I/N` of the fleet (I from 0), for an array job; quern merge assembles the shards' folders into the fleet")
 	return fs
 }
@@ -167,9 +171,11 @@ func cmdTrain(e *env, args []string) error {
 	}
 	set := map[string]bool{}
 	o.settings = []string{}
-	fs.Visit(func(f *flag.Flag) {
-		set[f.Name] = true
-		if !nonSettings[f.Name] {
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	// the flags that shape the models, where they differ from the
+	// default (a default given or left out is the same run)
+	fs.VisitAll(func(f *flag.Flag) {
+		if !nonSettings[f.Name] && f.Value.String() != f.DefValue {
 			o.settings = append(o.settings, "-"+f.Name+"="+f.Value.String())
 		}
 	})
@@ -187,6 +193,13 @@ func cmdTrain(e *env, args []string) error {
 	}
 	if err := o.checkNumbers(); err != nil {
 		return err
+	}
+	if o.stream {
+		if err := o.checkStream(set); err != nil {
+			return err
+		}
+	} else if set["buffer"] {
+		return usagef("-buffer is the shuffle buffer of a streamed run: give -stream")
 	}
 	if o.group != "" {
 		if err := o.checkFleet(set); err != nil {
@@ -227,8 +240,16 @@ func cmdTrain(e *env, args []string) error {
 	}
 	st := newStatus(e.stderr, o.quiet)
 	defer st.end() // an error return leaves no phase drawn or ticking
+	if o.stream {
+		return trainStream(e, st, &o, set)
+	}
 	full, format, err := o.data.load(st)
 	if err != nil {
+		var pe *data.ParseError
+		if o.group != "" && errors.As(err, &pe) && strings.Contains(pe.Msg, "to keep is not in the header") {
+			_, cols, _ := strings.Cut(pe.Msg, "(columns: ")
+			return usagef("-group %s: %s has no such column (its columns: %s", o.group, o.data.path, cols)
+		}
 		return err
 	}
 	if o.group != "" {

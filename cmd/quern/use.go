@@ -5,6 +5,7 @@ import (
 	"bytes"
 	"encoding/csv"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"github.com/quernlab/quern/layers"
 	"io"
@@ -95,6 +96,67 @@ func openAs[C any](command, needs string, paths map[string]string) (*loaded, C, 
 		return nil, c, l.cannot(command, needs)
 	}
 	return l, c, nil
+}
+
+// streamable checks that the model's rows can be streamed from the data
+// flags' file (a CSV table of numbers the model reads by name or place)
+// and returns the model's features and the columns kept.
+func (l *loaded) streamable(d *dataFlags) (features int, kept []string, err error) {
+	if d.path == "" || d.path == "-" {
+		return 0, nil, usagef("-stream reads a file: give -data FILE")
+	}
+	if f, err := data.Detect(d.path); err != nil {
+		return 0, nil, fmt.Errorf("cannot read data: %w", err)
+	} else if f != data.FormatCSV {
+		return 0, nil, usagef("-stream reads CSV files (plain or gzip); %s is %s", d.path, f)
+	}
+	if d.label != "" {
+		return 0, nil, usagef("-label with -stream: a streamed table is read for its numbers")
+	}
+	if enc := l.model.Schema().Encoding; enc != nil && !enc.Plain() {
+		return 0, nil, usagef("-stream: %s reads a table with categories or missing cells (%s), which needs the table in memory; score without -stream", l.path, enc.Describe())
+	}
+	return l.model.Width(), splitList(d.keep), nil
+}
+
+// streamScores reads the data flags' CSV file a run of rows at a time,
+// by the model's column names where the file has a header, scores each
+// run and hands it to write, in file order.
+func (l *loaded) streamScores(d *dataFlags, st *status, sc model.Scorer, top int, write func(x []float32, kept []string, rows int, scores []anomaly.Score) error) error {
+	comma, err := d.separator()
+	if err != nil {
+		return err
+	}
+	cfg := data.CSVConfig{NoHeader: d.noHeader, SkipLines: d.skip, Columns: splitList(d.columns), Keep: splitList(d.keep), Comma: comma, Limits: d.limits.l}
+	names := l.model.Schema().Columns
+	byName := cfg.Columns == nil && !d.noHeader && len(names) == l.model.Width() && names[0] != "" && names[0] != "c0"
+	if byName {
+		cfg.Columns = names
+	}
+	done := 0
+	st.begin("score", func() string { return fmt.Sprintf("%d rows, streamed", done) })
+	defer st.end()
+	err = data.EachCSV(d.path, cfg, func(cols []string, x []float32, kept []string, rows int) error {
+		if len(cols) != l.model.Width() {
+			return fmt.Errorf("%s has %d feature columns, the model takes %d", d.path, len(cols), l.model.Width())
+		}
+		scores, err := sc.Score(x, rows, top)
+		if err != nil {
+			return err
+		}
+		done += rows
+		return write(x, kept, rows, scores)
+	})
+	var pe *data.ParseError
+	if byName && errors.As(err, &pe) && strings.HasPrefix(pe.Msg, "no column ") {
+		return fmt.Errorf("%s: the model's column %s is not in the header (the model reads %s by name, in any order); give -columns with the file's names for them in that order, or -no-header to read by position",
+			d.path, strings.TrimPrefix(pe.Msg, "no column "), strings.Join(names, ", "))
+	}
+	var le *data.LimitError
+	if errors.As(err, &le) {
+		return fmt.Errorf("%w (raise it with -limit %s=N)", err, le.Key)
+	}
+	return err
 }
 
 // loadRows loads the data flags' rows for the model: by its column names
@@ -244,12 +306,16 @@ func cmdScore(e *env, args []string) error {
 	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share (its fraction of the parts of the score the row's columns add; negative parts count as none), the value the model expected (its reconstruction, kept within the training range, or a category's level) and the direction (above, below, other, missing)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp); one named like a column of the score file (row, score, status, ...) is written as NAME (kept)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
+	streamed := fs.Bool("stream", false, "read the CSV file a few MiB at a time, writing each run of scores before reading on, instead of holding the file: for tables of numbers larger than memory (not with -heatmaps)")
 	heat := fs.String("heatmaps", "", "images: folder (made if need be) for a PNG of each flagged image, row-N.png, with the map of its pixels' parts in the score to its right (beyond what each would cost if given back exactly), white for none to dark red for the image's largest")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
 	}
 	if *top < 0 {
 		return usagef("-top %d: want 0 or more", *top)
+	}
+	if *streamed && *heat != "" {
+		return usagef("-heatmaps with -stream: heat maps draw images, and -stream reads CSV tables")
 	}
 	if *heat != "" && sameFile(*heat, d.path) {
 		return usagef("-heatmaps %s is the -data folder: no command writes among its own input", *heat)
@@ -270,9 +336,25 @@ func cmdScore(e *env, args []string) error {
 		}
 		return fmt.Errorf("%s has no threshold (train it with -val > 0)", *modelPath)
 	}
-	ds, err := l.loadRows(&d, st)
-	if err != nil {
-		return err
+	// the rows: held (ds), or streamed from the file, a run at a time
+	var ds *data.Dataset
+	var keptColumns []string
+	var features int
+	if *streamed {
+		var err error
+		if features, keptColumns, err = l.streamable(&d); err != nil {
+			return err
+		}
+	} else {
+		var err error
+		if ds, err = l.loadRows(&d, st); err != nil {
+			return err
+		}
+		keptColumns = ds.KeptColumns
+		features = ds.Cols
+		if enc := ds.Encoding; enc != nil && !enc.Plain() {
+			features = len(enc.Fields) // contributions by the file's columns
+		}
 	}
 	var explainer model.Explainer
 	if *heat != "" {
@@ -289,12 +371,8 @@ func cmdScore(e *env, args []string) error {
 		}
 	}
 	heatWritten := 0
-	if l.trainedOn(ds) {
+	if ds != nil && l.trainedOn(ds) {
 		st.warn("warning: %s holds the rows the model was trained on: their scores are in-sample, lower than new rows' would be, so fewer rows are flagged than the expected false-alarm rate; score rows the model has not seen to check the threshold", d.path)
-	}
-	features := ds.Cols
-	if enc := ds.Encoding; enc != nil && !enc.Plain() {
-		features = len(enc.Fields) // contributions by the file's columns
 	}
 	if *top > features {
 		*top = features // the file stays rectangular: one pair per feature at most
@@ -308,15 +386,15 @@ func cmdScore(e *env, args []string) error {
 	for k := 1; k <= *top; k++ {
 		own = append(own, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k), fmt.Sprintf("expected%d", k), fmt.Sprintf("direction%d", k))
 	}
-	kept := make([]string, len(ds.KeptColumns))
-	for i, k := range ds.KeptColumns {
+	kept := make([]string, len(keptColumns))
+	for i, k := range keptColumns {
 		kept[i] = k
 		if slices.Contains(own, k) {
 			kept[i] = k + " (kept)" // a column of the file named like one of the score file's
 		}
 	}
 	header := append(append([]string{"row"}, kept...), "score", "threshold", "anomaly")
-	nk := len(ds.KeptColumns)
+	nk := len(keptColumns)
 	header = append(header, own[5:]...)
 	cw.Write(append(header, "status"))
 	flagged, unscorable, noted, unseenRows := 0, 0, 0, 0
@@ -324,11 +402,14 @@ func cmdScore(e *env, args []string) error {
 	// said out loud, not only row by row
 	unread := map[string]int{}
 	unreadText := map[string]string{}
-	notes := ds.Notes // in row order
+	var notes []data.RowNote // in row order
+	if ds != nil {
+		notes = ds.Notes
+	}
 	rec := make([]string, 0, len(header)+1)
-	err = inChunks(st, "score", ds.Rows, func(lo, hi int) ([]anomaly.Score, error) {
-		return sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
-	}, func(lo, hi int, scores []anomaly.Score) error {
+	// writeScores writes the scores of the rows from lo on, keptAt(i)
+	// being the kept texts of the i-th of them
+	writeScores := func(lo int, scores []anomaly.Score, keptAt func(i int) []string) error {
 		for i, s := range scores {
 			var note *data.RowNote
 			for len(notes) > 0 && notes[0].Row <= lo+i {
@@ -343,7 +424,7 @@ func cmdScore(e *env, args []string) error {
 				note = nil
 			}
 			rec = append(rec[:0], strconv.Itoa(lo+i+1))
-			rec = append(rec, ds.Kept[(lo+i)*nk:(lo+i+1)*nk]...)
+			rec = append(rec, keptAt(i)...)
 			value := strconv.FormatFloat(s.Value, 'g', 8, 64)
 			if s.Unscorable != "" {
 				value = ""
@@ -390,16 +471,31 @@ func cmdScore(e *env, args []string) error {
 			cw.Write(append(rec, status))
 		}
 		cw.Flush()
-		if err := cw.Error(); err != nil {
-			return err
-		}
-		if explainer != nil {
-			n, err := writeHeatMaps(*heat, explainer, ds, lo, scores)
-			heatWritten += n
-			return err
-		}
-		return nil
-	})
+		return cw.Error()
+	}
+	total := 0
+	if ds != nil {
+		total = ds.Rows
+		err = inChunks(st, "score", ds.Rows, func(lo, hi int) ([]anomaly.Score, error) {
+			return sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
+		}, func(lo, hi int, scores []anomaly.Score) error {
+			if err := writeScores(lo, scores, func(i int) []string { return ds.Kept[(lo+i)*nk : (lo+i+1)*nk] }); err != nil {
+				return err
+			}
+			if explainer != nil {
+				n, err := writeHeatMaps(*heat, explainer, ds, lo, scores)
+				heatWritten += n
+				return err
+			}
+			return nil
+		})
+	} else {
+		err = l.streamScores(&d, st, sc, *top, func(x []float32, kept []string, rows int, scores []anomaly.Score) error {
+			lo := total
+			total += rows
+			return writeScores(lo, scores, func(i int) []string { return kept[i*nk : (i+1)*nk] })
+		})
+	}
 	if err != nil {
 		return err
 	}
@@ -408,7 +504,7 @@ func cmdScore(e *env, args []string) error {
 		return err
 	}
 	st.end()
-	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%%s)", ds.Rows, flagged, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(*th))
+	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%%s)", total, flagged, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(*th))
 	if unscorable > 0 {
 		line += fmt.Sprintf("; %s, flagged (see the status column)", plural(unscorable, "unscorable row"))
 	}
@@ -428,8 +524,8 @@ func cmdScore(e *env, args []string) error {
 	}
 	slices.Sort(cols)
 	for _, name := range cols {
-		if n := unread[name]; 2*n > ds.Rows {
-			fmt.Fprintf(e.stderr, "warning: column %q: %d of %d cells are not numbers (such as %s), read as missing: these rows' scores say little of that column (quern reads numbers with a decimal point; a decimal comma is not read)\n", name, n, ds.Rows, unreadText[name])
+		if n := unread[name]; 2*n > total {
+			fmt.Fprintf(e.stderr, "warning: column %q: %d of %d cells are not numbers (such as %s), read as missing: these rows' scores say little of that column (quern reads numbers with a decimal point; a decimal comma is not read)\n", name, n, total, unreadText[name])
 		}
 	}
 	fmt.Fprintln(e.stderr, anomaly.Caution)

@@ -1,0 +1,207 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"os"
+	"os/signal"
+	"strings"
+	"syscall"
+
+	"github.com/quernlab/quern/anomaly"
+	"github.com/quernlab/quern/data"
+	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/model"
+	"github.com/quernlab/quern/modelfile"
+	"github.com/quernlab/quern/train"
+)
+
+// checkStream refuses what a streamed training run cannot do, in the
+// flags' words, before any work.
+func (o *trainOpts) checkStream(set map[string]bool) error {
+	for _, f := range []string{"group", "every", "checkpoint", "watch", "report", "label", "labels", "keep", "supervised", "conditional", "channels"} {
+		if set[f] {
+			return usagef("-%s with -stream: a streamed run trains an autoencoder or a VAE on a CSV table of numbers, written once at the end (no -group, -every, -checkpoint, -watch, -report, labels or convolutions yet)", f)
+		}
+	}
+	switch {
+	case o.kind == gan.Kind:
+		return usagef("-stream with -kind gan: a GAN trains on a table in memory")
+	case set["folds"] && o.folds > 0:
+		return usagef("-folds %d with -stream: cross-fitting trains a model per fold on rows held in memory; a streamed run holds out -val rows instead", o.folds)
+	case o.buffer < 0:
+		return usagef("-buffer %d: want a number of rows (0: the default %d)", o.buffer, train.DefaultShuffleBuffer)
+	case o.val == 0 && o.patience > 0:
+		return usagef("-patience needs a validation split (-val > 0)")
+	}
+	return nil
+}
+
+// trainStream trains one model on a CSV table read from its file on
+// every epoch: the first pass checks it and gathers what training needs
+// (the split, each column's statistics, a sample of rows for the
+// defaults and the distance score), the epochs read it again through a
+// shuffle buffer, and the threshold is set on the validation rows
+// streamed.
+func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
+	if o.data.path == "" || o.data.path == "-" {
+		return usagef("-stream reads a file again on every epoch: give -data FILE (not standard input)")
+	}
+	if f, err := data.Detect(o.data.path); err != nil {
+		return fmt.Errorf("cannot read data: %w", err)
+	} else if f != data.FormatCSV {
+		return usagef("-stream reads CSV files (plain or gzip); %s is %s", o.data.path, f)
+	}
+	comma, err := o.data.separator()
+	if err != nil {
+		return err
+	}
+	cfg := data.StreamConfig{
+		CSV:        data.CSVConfig{NoHeader: o.data.noHeader, SkipLines: o.data.skip, Columns: splitList(o.data.columns), Comma: comma, Limits: o.data.limits.l},
+		Validation: o.val,
+		SplitSeed:  o.seed,
+	}
+	st.begin("read", func() string { return o.data.path })
+	s, err := data.OpenStream(o.data.path, cfg)
+	st.end()
+	var le *data.LimitError
+	if errors.As(err, &le) {
+		return fmt.Errorf("%w (raise it with -limit %s=N)", err, le.Key)
+	}
+	if err != nil {
+		return err
+	}
+	why, err := o.chooseDefaults(s.Sample, s.TrainRows, "training rows", set)
+	if err != nil {
+		return err
+	}
+	why = append(why, fmt.Sprintf("streamed: %d rows read again on every epoch through a shuffle buffer of %d rows; %d held out for validation and the threshold (each row with probability %v); the scaler fitted on every training row, the defaults and the distance score on a seeded sample of %d of them",
+		s.Rows, min(o.bufferRows(), s.TrainRows), s.ValRows, o.val, s.Sample.Rows))
+	m, obj, err := o.build(s.Sample)
+	if err != nil {
+		return err
+	}
+	for _, c := range s.Constant() {
+		st.warn("warning: %s never changes: no information to learn (leave it out with -columns)", c)
+	}
+	if enc, ok := m.(model.Encoder); ok && enc.CodeWidth() >= s.Cols {
+		st.warn("warning: the code is %d wide for %d input columns: it can pass the input through unchanged; give -latent below %d", enc.CodeWidth(), s.Cols, s.Cols)
+	}
+	ts := train.Settings{Epochs: o.epochs, BatchSize: o.batch, Patience: o.patience, Objective: obj,
+		Optimizer: train.Optimizer{Rate: o.rate, WeightDecay: o.decay, Beta1: o.beta1, Beta2: o.beta2, ClipNorm: o.clip}}
+	t, err := train.New(m, ts)
+	if err != nil {
+		return usageError{err.Error()}
+	}
+	var cb train.Callbacks
+	cb.OnStep = st.step
+	cb.OnEpoch = func(p train.Progress, h *train.History) error { st.epoch(p, h); return nil }
+	cb.OnWarning = func(w train.Warning) { st.warn("warning at step %d: %s", w.Step, w.Message) }
+	t.SetCallbacks(cb)
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	st.begin("train", nil)
+	h, err := t.RunStream(ctx, s, train.StreamSettings{Buffer: o.bufferRows()})
+	st.end()
+	if err != nil {
+		if errors.Is(err, context.Canceled) {
+			return fmt.Errorf("interrupted; a streamed run writes no checkpoint: start it again")
+		}
+		return err
+	}
+	mm := t.Model().(model.Model)
+	scoreLine := ""
+	if p, ok := mm.(model.Profiler); ok && cmpScore(o.score) == scoreDistance {
+		st.begin("profile", func() string { return fmt.Sprintf("a sample of %d training rows", s.Sample.Rows) })
+		err := p.FitProfile(s.Sample.X, s.Sample.Rows)
+		st.end()
+		if err != nil && !errors.Is(err, anomaly.ErrNoProfile) {
+			return err
+		}
+		if err == nil {
+			scoreLine = profileLine(mm)
+		}
+	}
+	var th *anomaly.Threshold
+	if sc, ok := mm.(model.Scorer); ok && s.ValRows > 0 {
+		st.begin("calibrate", func() string { return fmt.Sprintf("%d validation rows, streamed", s.ValRows) })
+		scores := make([]float64, 0, s.ValRows)
+		err := s.Each(data.ValRows, func(x []float32, rows int) error {
+			v, err := sc.RowScores(x, rows)
+			scores = append(scores, v...)
+			return err
+		})
+		if err != nil {
+			return err
+		}
+		cal := anomaly.Config{Method: anomaly.Method(o.method), FalseAlarm: o.falseAlarm}
+		got, err := anomaly.Calibrate(scores, cal)
+		if err != nil && o.method == string(anomaly.Quantile) && strings.Contains(err.Error(), "needs at least") {
+			st.warn("warning: %v; using the largest validation score instead", err)
+			got, err = anomaly.Calibrate(scores, anomaly.Config{Method: anomaly.Max})
+		}
+		st.end()
+		if err != nil {
+			st.warn("no threshold set: %v", err)
+		} else if setter, ok := mm.(thresholdSetter); ok {
+			setter.SetThreshold(got)
+			th = &got
+		}
+	}
+	st.begin("write", nil)
+	prov := &modelfile.Provenance{DataFile: o.data.path, DataFormat: string(data.FormatCSV), DataFingerprint: s.Fingerprint, DataRows: s.Rows}
+	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Score: cmpScore(o.score), Chosen: why}
+	f, err := t.File(prov)
+	if err == nil {
+		err = f.SetSection(commandSection, rec)
+	}
+	if err == nil {
+		err = modelfile.Write(o.out, f)
+	}
+	if err != nil {
+		return err
+	}
+	st.end()
+	tl, vl := h.Loss(len(h.Epochs))
+	line := fmt.Sprintf("wrote %s: %s, %d epochs on %d streamed rows, final training loss %.6g", o.out, kindPhrase(mm.Kind()), len(h.Epochs), s.TrainRows, tl)
+	if s.ValRows > 0 {
+		line += fmt.Sprintf(", validation loss %.6g (lowest at epoch %d", vl, h.BestEpoch)
+		if ts := t.Settings(); ts.Patience > 0 && !ts.KeepLast {
+			line += ", whose weights are kept)"
+		} else {
+			line += "; the last epoch's weights are kept)"
+		}
+	}
+	if h.StoppedEarly {
+		line += ", stopped early"
+	}
+	st.result("%s", line)
+	for _, c := range why {
+		st.say("chosen: %s", c)
+	}
+	if scoreLine != "" {
+		st.say("%s", scoreLine)
+	}
+	if th != nil {
+		st.result("threshold %.6g (%s), expected false-alarm rate %.2f%%, below %.2f%% with %.0f%% confidence, on data like the %s", th.Value, th.Method, 100*th.ExpectedFalseAlarm, 100*th.FalseAlarmBound, 100*anomaly.BoundConfidence, plural(th.Rows, "validation row"))
+	}
+	st.done()
+	return nil
+}
+
+// bufferRows is the -buffer flag's rows (0: the default).
+func (o *trainOpts) bufferRows() int {
+	if o.buffer > 0 {
+		return o.buffer
+	}
+	return train.DefaultShuffleBuffer
+}
+
+// cmpScore is the -score flag with its default.
+func cmpScore(s string) string {
+	if s == "" {
+		return scoreDistance
+	}
+	return s
+}
