@@ -20,9 +20,10 @@ const (
 )
 
 // Detect tells the format of path by its content, not its name: a
-// directory is a folder of PNG images; a file whose (decompressed) first
-// bytes are an idx header (two zero bytes, a known type, 1 to 4
-// dimensions) is idx; anything else is read as CSV.
+// directory is a folder of PNG images; a file that starts with PAR1 is
+// Parquet; a file whose (decompressed) first bytes are an idx header (two
+// zero bytes, a known type, 1 to 4 dimensions) is idx; anything else is
+// read as CSV.
 func Detect(path string) (Format, error) {
 	st, err := os.Stat(path)
 	if err != nil {
@@ -37,6 +38,9 @@ func Detect(path string) (Format, error) {
 	}
 	defer f.Close()
 	br := bufio.NewReader(f)
+	if h, _ := br.Peek(4); string(h) == parquetMagic {
+		return FormatParquet, nil
+	}
 	var r io.Reader = br
 	if h, _ := br.Peek(2); len(h) == 2 && h[0] == 0x1f && h[1] == 0x8b {
 		zr, err := gzip.NewReader(br)
@@ -92,6 +96,8 @@ func Load(path string, cfg LoadConfig) (*Dataset, Format, error) {
 		d, _, err = LoadImages(path, cfg.Images)
 	case FormatIDX:
 		d, err = LoadIDX(path, cfg.IDX)
+	case FormatParquet:
+		d, err = LoadParquet(path, cfg.CSV)
 	default:
 		d, err = LoadCSV(path, cfg.CSV)
 	}

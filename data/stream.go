@@ -56,11 +56,15 @@ type Stream struct {
 	// and which row it begins with; prefix is the bytes before the first
 	// row (skipped lines, the header); size and mod are the file's, to
 	// notice it change
-	blocks     []block
-	prefix     int64
-	size       int64
-	modified   time.Time
-	gzip       bool
+	blocks   []block
+	prefix   int64
+	size     int64
+	modified time.Time
+	gzip     bool
+	// parquet: the file is a Parquet table of groups row groups, which
+	// a shuffled pass reads in a random order
+	parquet    bool
+	groups     int
 	lo, hi     []float64 // the training rows' range per column
 	mean, m2   []float64 // their mean and sum of squared deviations
 	valLo, vHi []float64 // the validation rows' range
@@ -141,7 +145,7 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 		return nil, fmt.Errorf("%w: sample of %d rows", ErrConfig, cfg.Sample)
 	}
 	c.Typed, c.Types, c.Missing = false, nil, nil
-	s := &Stream{Path: path, cfg: c, valFrac: cfg.Validation, splitSeed: cfg.SplitSeed}
+	s := &Stream{Path: path, cfg: c, valFrac: cfg.Validation, splitSeed: cfg.SplitSeed, parquet: isParquet(path)}
 	sample := cfg.Sample
 	if sample == 0 {
 		sample = DefaultSampleRows
@@ -170,7 +174,7 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 		h.Write(buf)
 		for r := range rows {
 			row := x[r*s.Cols : (r+1)*s.Cols]
-			if s.Rows%blockRows == 0 {
+			if s.Rows%blockRows == 0 && offs != nil {
 				s.blocks = append(s.blocks, block{offs[r], s.Rows})
 			}
 			s.Rows++
@@ -265,6 +269,9 @@ func (s *Stream) pass(order []int, f func(x []float32, val []bool, lines []int, 
 	} else if st.Size() != s.size || !st.ModTime().Equal(s.modified) {
 		return &ParseError{File: s.Path, Msg: "the file changed since it was first read (its size or time differs)"}
 	}
+	if s.parquet {
+		return s.parquetPass(order, f)
+	}
 	var in io.Reader = fh
 	// index maps the k-th row read to its place in the file
 	index := func(k int) int { return k }
@@ -327,12 +334,16 @@ func (s *Stream) Each(part Part, f func(x []float32, rows int) error) error {
 	return s.each(nil, part, f)
 }
 
-// EachShuffled is Each with a plain file's rows read in runs of 1024 in
-// an order drawn from rng (a gzip file's in file order): what a shuffle
-// buffer then mixes comes from all over the file.
+// EachShuffled is Each with a plain CSV file's rows read in runs of 1024
+// in an order drawn from rng, a Parquet file's row groups in such an
+// order (a gzip file's rows in file order): what a shuffle buffer then
+// mixes comes from all over the file.
 func (s *Stream) EachShuffled(part Part, rng *rand.Rand, f func(x []float32, rows int) error) error {
 	var order []int
-	if s.blocks != nil {
+	switch {
+	case s.parquet:
+		order = rng.Perm(s.groups)
+	case s.blocks != nil:
 		order = rng.Perm(len(s.blocks))
 	}
 	return s.each(order, part, f)
@@ -432,6 +443,25 @@ func (s *Stream) Constant() []string {
 	return out
 }
 
+// EachRows is EachCSV for a CSV file, and for a Parquet file its rows
+// read likewise (no kept columns: kept texts are CSV's).
+func EachRows(path string, cfg CSVConfig, f func(columns []string, x []float32, kept []string, rows int) error) error {
+	if !isParquet(path) {
+		return EachCSV(path, cfg, f)
+	}
+	t, err := openParquet(path, cfg)
+	if err != nil {
+		return err
+	}
+	defer t.close()
+	err = t.each(nil, func(x []float32, rows, _ int) error { return f(t.columns, x, nil, rows) })
+	var pe *ParseError
+	if errors.As(err, &pe) && pe.text {
+		return fmt.Errorf("%w: %s", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
+	}
+	return err
+}
+
 // EachCSV reads a CSV table of numbers (plain or gzip) once, in file
 // order, handing f a run of rows at a time, never the whole table: x
 // holds rows*len(columns) values and kept the cfg.Keep columns' texts
@@ -460,6 +490,36 @@ func EachCSV(path string, cfg CSVConfig, f func(columns []string, x []float32, k
 	var pe *ParseError
 	if errors.As(err, &pe) && pe.text {
 		return fmt.Errorf("%w: %s (a streamed table holds numbers only: categories and missing cells need the table in memory)", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
+	}
+	return err
+}
+
+// parquetPass is pass over a Parquet file: its row groups in order (nil:
+// the file's).
+func (s *Stream) parquetPass(order []int, f func(x []float32, val []bool, lines []int, offs []int64, rows int) error) error {
+	t, err := openParquet(s.Path, s.cfg)
+	if err != nil {
+		return err
+	}
+	defer t.close()
+	if s.Cols == 0 {
+		s.Cols, s.Columns, s.groups = len(t.columns), t.columns, t.groups()
+	} else if len(t.columns) != s.Cols || t.groups() != s.groups {
+		return &ParseError{File: s.Path, Msg: "the file changed since it was first read (its columns or row groups differ)"}
+	}
+	var val []bool
+	var lines []int
+	err = t.each(order, func(x []float32, rows, first int) error {
+		val, lines = val[:0], lines[:0]
+		for r := range rows {
+			val = append(val, s.isVal(first-1+r))
+			lines = append(lines, first+r)
+		}
+		return f(x, val, lines, nil, rows)
+	})
+	var pe *ParseError
+	if errors.As(err, &pe) && pe.text {
+		return fmt.Errorf("%w: %s", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
 	}
 	return err
 }

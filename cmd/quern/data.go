@@ -60,7 +60,7 @@ func (d *dataFlags) registerTyped(fs *flag.FlagSet) {
 }
 
 func (d *dataFlags) register(fs *flag.FlagSet, required bool) {
-	what := "input data: a CSV file (plain or gzip; - reads standard input), an idx file (raw or gzip) or a folder of PNG images, told apart by content"
+	what := "input data: a CSV file (plain or gzip; - reads standard input), a Parquet file (a table of numbers), an idx file (raw or gzip) or a folder of PNG images, told apart by content"
 	if required {
 		what += " (required)"
 	}

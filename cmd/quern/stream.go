@@ -48,10 +48,11 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 	if o.data.path == "" || o.data.path == "-" {
 		return usagef("-stream reads a file again on every epoch: give -data FILE (not standard input)")
 	}
-	if f, err := data.Detect(o.data.path); err != nil {
+	format, err := data.Detect(o.data.path)
+	if err != nil {
 		return fmt.Errorf("cannot read data: %w", err)
-	} else if f != data.FormatCSV {
-		return usagef("-stream reads CSV files (plain or gzip); %s is %s", o.data.path, f)
+	} else if format != data.FormatCSV && format != data.FormatParquet {
+		return usagef("-stream reads CSV files (plain or gzip) and Parquet files; %s is %s", o.data.path, format)
 	}
 	comma, err := o.data.separator()
 	if err != nil {
@@ -150,7 +151,7 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 		}
 	}
 	st.begin("write", nil)
-	prov := &modelfile.Provenance{DataFile: o.data.path, DataFormat: string(data.FormatCSV), DataFingerprint: s.Fingerprint, DataRows: s.Rows}
+	prov := &modelfile.Provenance{DataFile: o.data.path, DataFormat: string(format), DataFingerprint: s.Fingerprint, DataRows: s.Rows}
 	rec := runRecord{Data: o.data.spec(), Validation: o.val, SplitSeed: o.seed, FalseAlarm: o.falseAlarm, Threshold: o.method, Score: cmpScore(o.score), Chosen: why}
 	f, err := t.File(prov)
 	if err == nil {

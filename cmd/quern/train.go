@@ -130,7 +130,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.StringVar(&o.group, "group", "", "train a fleet: one model per value of this CSV `COLUMN` (each with its own scaling and threshold, seeded from -seed and the value), side by side on the cores; -out names the fleet's folder")
 	fs.IntVar(&o.minRows, "min-rows", defaultMinGroupRows, "-group: the fewest rows a group needs for a model of its own; smaller groups are scored by the shared model")
 	fs.IntVar(&o.shared, "shared", defaultSharedRows, "-group: rows drawn (seeded) from all groups to train the shared model, which scores small groups and groups not seen in training (0: no shared model; their rows are refused)")
-	fs.BoolVar(&o.stream, "stream", false, "read the CSV file again on every epoch instead of holding it: for tables of numbers larger than memory (ae and vae; the rows are shuffled through a buffer of -buffer rows, the threshold set on the -val rows streamed)")
+	fs.BoolVar(&o.stream, "stream", false, "read the CSV or Parquet file again on every epoch instead of holding it: for tables of numbers larger than memory (ae and vae; the rows are shuffled through a buffer of -buffer rows, the threshold set on the -val rows streamed)")
 	fs.IntVar(&o.buffer, "buffer", 0, fmt.Sprintf("-stream: rows of the shuffle buffer; each batch draws from the next this many rows of the file, so a file sorted by time trains on a sliding window of it (default %d)", train.DefaultShuffleBuffer))
 	fs.StringVar(&o.shard, "shard", "", "-group: train only shard `I/N` of the fleet (I from 0), for an array job; quern merge assembles the shards' folders into the fleet")
 	return fs

@@ -107,8 +107,10 @@ func (l *loaded) streamable(d *dataFlags) (features int, kept []string, err erro
 	}
 	if f, err := data.Detect(d.path); err != nil {
 		return 0, nil, fmt.Errorf("cannot read data: %w", err)
-	} else if f != data.FormatCSV {
-		return 0, nil, usagef("-stream reads CSV files (plain or gzip); %s is %s", d.path, f)
+	} else if f != data.FormatCSV && f != data.FormatParquet {
+		return 0, nil, usagef("-stream reads CSV files (plain or gzip) and Parquet files; %s is %s", d.path, f)
+	} else if f == data.FormatParquet && d.keep != "" {
+		return 0, nil, usagef("-keep with a Parquet file: kept columns are copied from CSV files")
 	}
 	if d.label != "" {
 		return 0, nil, usagef("-label with -stream: a streamed table is read for its numbers")
@@ -136,7 +138,7 @@ func (l *loaded) streamScores(d *dataFlags, st *status, sc model.Scorer, top int
 	done := 0
 	st.begin("score", func() string { return fmt.Sprintf("%d rows, streamed", done) })
 	defer st.end()
-	err = data.EachCSV(d.path, cfg, func(cols []string, x []float32, kept []string, rows int) error {
+	err = data.EachRows(d.path, cfg, func(cols []string, x []float32, kept []string, rows int) error {
 		if len(cols) != l.model.Width() {
 			return fmt.Errorf("%s has %d feature columns, the model takes %d", d.path, len(cols), l.model.Width())
 		}
