@@ -109,7 +109,9 @@ func (s *Server) groupRoute(w http.ResponseWriter, r *http.Request) {
 	}
 	w.Header().Set("Quern-Routed", routed)
 	rec := &recorder{ResponseWriter: w, code: http.StatusOK}
-	h(rec, r.WithContext(context.WithValue(r.Context(), routedKey{}, routed)), e.Value)
+	ctx := context.WithValue(r.Context(), routedKey{}, routed)
+	ctx = context.WithValue(ctx, pathGroupKey{}, pathGroup{column: s.fleet.Index().GroupColumn, group: group})
+	h(rec, r.WithContext(ctx), e.Value)
 	if rec.code == http.StatusOK {
 		s.m.routed(routed, 1) // answered, not refused
 	}
@@ -118,6 +120,11 @@ func (s *Server) groupRoute(w http.ResponseWriter, r *http.Request) {
 // routedKey carries, in a request's context, where a fleet's path route
 // sent it.
 type routedKey struct{}
+
+// pathGroupKey carries the group a fleet's path names and its column.
+type pathGroupKey struct{}
+
+type pathGroup struct{ column, group string }
 
 // routedOf is where a fleet's path route sent r ("" for a one-model
 // server's request).

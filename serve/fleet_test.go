@@ -114,6 +114,7 @@ func TestFleetRouting(t *testing.T) {
 		{"/v1/score", `{"records":[{"site":[1]}]}`, 400, `record 1: "site" is [1]`},
 		{"/v1/reconstruct", `{}`, 400, "POST /v1/groups/{site}/reconstruct"},
 		{"/v1/groups/north/explode", `{}`, 404, "a group's routes are score, encode, reconstruct and sample"},
+		{"/v1/groups/north/score", `{"records":[{"site":"south/2","f00":1}]}`, 400, `record 1 has site "south/2", but the path names "north"`},
 	} {
 		code, v := post(t, c, l.url+bad.url, []byte(bad.body))
 		require.Equal(t, bad.code, code, "%s %s: %v", bad.url, bad.body, v)

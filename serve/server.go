@@ -441,6 +441,18 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 	if !decodeJSON(w, r, &req) {
 		return nil, nil, nil, false
 	}
+	if g, ok := r.Context().Value(pathGroupKey{}).(pathGroup); ok {
+		// a record that names another group than the path is refused,
+		// never scored by the path's model
+		for i, rec := range req.Records {
+			if raw, ok := rec[g.column]; ok {
+				if t, err := cellText(raw); err != nil || t != g.group {
+					writeError(w, http.StatusBadRequest, "record %d has %s %s, but the path names %q", i+1, g.column, raw, g.group)
+					return nil, nil, nil, false
+				}
+			}
+		}
+	}
 	x, reads, ok := s.readRows(w, &req, cols, names, cells, fields, nil)
 	return &req, x, reads, ok
 }
