@@ -40,15 +40,8 @@ func Fit(kind ScaleKind, d *Dataset) (*Scaler, error) {
 	if d.Rows == 0 {
 		return nil, fmt.Errorf("data: cannot fit a %s scaler on no rows", kind)
 	}
-	s := &Scaler{Kind: kind, Offset: make([]float64, d.Cols), Factor: make([]float64, d.Cols)}
-	switch kind {
-	case ScaleNone, "":
-		s.Kind = ScaleNone
-		for j := range s.Factor {
-			s.Factor[j] = 1
-		}
-	case ScaleStandard:
-		mean := make([]float64, d.Cols)
+	standard := func() (mean, sd []float64) {
+		mean = make([]float64, d.Cols)
 		for i := 0; i < d.Rows; i++ {
 			for j, v := range d.Row(i) {
 				mean[j] += float64(v)
@@ -57,24 +50,20 @@ func Fit(kind ScaleKind, d *Dataset) (*Scaler, error) {
 		for j := range mean {
 			mean[j] /= float64(d.Rows)
 		}
-		ss := make([]float64, d.Cols)
+		sd = make([]float64, d.Cols)
 		for i := 0; i < d.Rows; i++ {
 			for j, v := range d.Row(i) {
 				e := float64(v) - mean[j]
-				ss[j] += e * e
+				sd[j] += e * e
 			}
 		}
-		for j := range ss {
-			sd := math.Sqrt(ss[j] / float64(d.Rows))
-			s.Offset[j] = mean[j]
-			s.Factor[j] = 1
-			if sd > 0 {
-				s.Factor[j] = 1 / sd
-			}
+		for j := range sd {
+			sd[j] = math.Sqrt(sd[j] / float64(d.Rows))
 		}
-	case ScaleMinMax:
-		lo := make([]float64, d.Cols)
-		hi := make([]float64, d.Cols)
+		return mean, sd
+	}
+	ranges := func() (lo, hi []float64) {
+		lo, hi = make([]float64, d.Cols), make([]float64, d.Cols)
 		for j := range lo {
 			lo[j], hi[j] = math.Inf(1), math.Inf(-1)
 		}
@@ -84,9 +73,35 @@ func Fit(kind ScaleKind, d *Dataset) (*Scaler, error) {
 				hi[j] = math.Max(hi[j], float64(v))
 			}
 		}
-		for j := range lo {
-			s.Offset[j] = lo[j]
+		return lo, hi
+	}
+	return scalerOf(kind, d.Cols, standard, ranges)
+}
+
+// scalerOf is the scaler of kind for cols columns whose means and
+// population standard deviations standard gives, and whose least and
+// greatest values ranges gives (each called only when the kind needs
+// it): Fit's, and a Stream's from its statistics.
+func scalerOf(kind ScaleKind, cols int, standard func() (mean, sd []float64), ranges func() (lo, hi []float64)) (*Scaler, error) {
+	s := &Scaler{Kind: kind, Offset: make([]float64, cols), Factor: make([]float64, cols)}
+	switch kind {
+	case ScaleNone, "":
+		s.Kind = ScaleNone
+		for j := range s.Factor {
 			s.Factor[j] = 1
+		}
+	case ScaleStandard:
+		mean, sd := standard()
+		for j := range cols {
+			s.Offset[j], s.Factor[j] = mean[j], 1
+			if sd[j] > 0 {
+				s.Factor[j] = 1 / sd[j]
+			}
+		}
+	case ScaleMinMax:
+		lo, hi := ranges()
+		for j := range cols {
+			s.Offset[j], s.Factor[j] = lo[j], 1
 			if hi[j] > lo[j] {
 				s.Factor[j] = 1 / (hi[j] - lo[j])
 			}

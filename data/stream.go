@@ -404,32 +404,13 @@ func (s *Stream) Bounds(part Part) *Dataset {
 // fit is Fit on every training row, from the first pass's statistics
 // (the population standard deviation, as Fit's).
 func (s *Stream) fit(kind ScaleKind) (*Scaler, error) {
-	sc := &Scaler{Kind: kind, Offset: make([]float64, s.Cols), Factor: make([]float64, s.Cols)}
-	switch kind {
-	case ScaleNone, "":
-		sc.Kind = ScaleNone
-		for j := range sc.Factor {
-			sc.Factor[j] = 1
+	return scalerOf(kind, s.Cols, func() (mean, sd []float64) {
+		sd = make([]float64, s.Cols)
+		for j := range sd {
+			sd[j] = math.Sqrt(s.m2[j] / float64(s.TrainRows))
 		}
-	case ScaleStandard:
-		for j := range s.Cols {
-			sd := math.Sqrt(s.m2[j] / float64(s.TrainRows))
-			sc.Offset[j], sc.Factor[j] = s.mean[j], 1
-			if sd > 0 {
-				sc.Factor[j] = 1 / sd
-			}
-		}
-	case ScaleMinMax:
-		for j := range s.Cols {
-			sc.Offset[j], sc.Factor[j] = s.lo[j], 1
-			if s.hi[j] > s.lo[j] {
-				sc.Factor[j] = 1 / (s.hi[j] - s.lo[j])
-			}
-		}
-	default:
-		return nil, fmt.Errorf("%w: unknown scaling %q", ErrConfig, kind)
-	}
-	return sc, nil
+		return s.mean, sd
+	}, func() (lo, hi []float64) { return s.lo, s.hi })
 }
 
 // Constant names the columns whose training rows all hold one value.

@@ -317,7 +317,7 @@ func ReadIndex(dir string) (*Index, error) {
 	var ix Index
 	if err := readJSON(path, &ix); err != nil {
 		if _, serr := os.Stat(path); os.IsNotExist(serr) {
-			if parts, _ := filepath.Glob(filepath.Join(globQuote(dir), "part-*-of-*.json")); len(parts) > 0 {
+			if parts, _ := partFiles(dir); len(parts) > 0 {
 				return nil, &Error{dir, fmt.Sprintf("holds a shard's part (%s), not a fleet: assemble the shards' folders with quern merge -out FLEET FOLDER...", filepath.Base(parts[0]))}
 			}
 		}
@@ -376,9 +376,9 @@ func ReadParts(dirs ...string) ([]Part, []string, error) {
 		} else if !st.IsDir() {
 			return nil, nil, &Error{dir, "not a folder (name the shards' folders, each holding a part-I-of-N.json)"}
 		}
-		names, err := filepath.Glob(filepath.Join(globQuote(dir), "part-*-of-*.json"))
+		names, err := partFiles(dir)
 		if err != nil {
-			return nil, nil, fmt.Errorf("fleet: %w", err)
+			return nil, nil, err
 		}
 		if len(names) == 0 {
 			return nil, nil, &Error{dir, "holds no part-I-of-N.json: not the folder of a shard (quern train -group ... -shard I/N writes one)"}
@@ -507,16 +507,20 @@ func headDiff(a, b *Index) string {
 	return "their common fields"
 }
 
-// globQuote quotes the pattern characters of a folder name.
-func globQuote(s string) string {
-	var b strings.Builder
-	for _, r := range s {
-		if strings.ContainsRune(`*?[\`, r) {
-			b.WriteByte('\\')
-		}
-		b.WriteRune(r)
+// partFiles lists the shards' parts in dir (part-I-of-N.json), sorted.
+func partFiles(dir string) ([]string, error) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return nil, &Error{dir, "cannot read: " + errText(err)}
 	}
-	return b.String()
+	var out []string
+	for _, e := range ents {
+		if n := e.Name(); strings.HasPrefix(n, "part-") && strings.Contains(n, "-of-") && strings.HasSuffix(n, ".json") {
+			out = append(out, filepath.Join(dir, n))
+		}
+	}
+	slices.Sort(out)
+	return out, nil
 }
 
 // memberFile reports whether name is a member model file's name.

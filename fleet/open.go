@@ -10,7 +10,6 @@ import (
 	"sync/atomic"
 
 	"github.com/quernlab/quern/model"
-	"github.com/quernlab/quern/modelfile"
 )
 
 // maxModelBytes bounds one member file read (as model.Open does).
@@ -30,7 +29,7 @@ type Entry[T any] struct {
 // reload finishes with the model it got.
 type Fleet[T any] struct {
 	dir   string
-	open  func(path string, b []byte) (T, error)
+	open  func(b []byte, path string) (T, error)
 	state atomic.Pointer[state[T]]
 	mu    sync.Mutex // one Reload at a time
 }
@@ -44,24 +43,14 @@ type state[T any] struct {
 // Open opens the fleet in dir for inference, each member with model.Open's
 // reading of a model file.
 func Open(dir string) (*Fleet[model.Model], error) {
-	return OpenWith(dir, func(path string, b []byte) (model.Model, error) {
-		f, err := modelfile.Decode(b, path)
-		if err != nil {
-			return nil, err
-		}
-		m, err := model.FromFile(f)
-		if err != nil {
-			return nil, fmt.Errorf("%s: %w", path, err)
-		}
-		return m, nil
-	})
+	return OpenWith(dir, model.Decode)
 }
 
 // OpenWith opens the fleet in dir with open turning each member's file
-// (its path and bytes) into a T: the HTTP server's loaded model, say.
+// (its bytes and path) into a T: the HTTP server's loaded model, say.
 // Every file must match its hash in the index: a fleet whose files were
 // mixed from two runs is refused, never served.
-func OpenWith[T any](dir string, open func(path string, b []byte) (T, error)) (*Fleet[T], error) {
+func OpenWith[T any](dir string, open func(b []byte, path string) (T, error)) (*Fleet[T], error) {
 	f := &Fleet[T]{dir: dir, open: open}
 	st, err := f.load(nil, "")
 	if err != nil {
@@ -308,7 +297,7 @@ func (f *Fleet[T]) openMember(group string, m Member) (*Entry[T], error) {
 	if err != nil {
 		return nil, err
 	}
-	v, err := f.open(path, b)
+	v, err := f.open(b, path)
 	if err != nil {
 		return nil, err
 	}

@@ -131,6 +131,20 @@ func Open(path string) (Model, error) {
 	return modelio.Open(path, FromFile)
 }
 
+// Decode returns the model of a model file's bytes (path names it in
+// errors): Open for a file already read.
+func Decode(b []byte, path string) (Model, error) {
+	f, err := modelfile.Decode(b, path)
+	if err != nil {
+		return nil, err
+	}
+	m, err := FromFile(f)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return m, nil
+}
+
 // FromFile returns the model a model file holds.
 func FromFile(f *modelfile.File) (Model, error) {
 	var m Model

@@ -22,7 +22,6 @@ import (
 	"github.com/quernlab/quern/fleet"
 	"github.com/quernlab/quern/internal/modelio"
 	"github.com/quernlab/quern/model"
-	"github.com/quernlab/quern/modelfile"
 )
 
 // Loaded is the model being served: the model, the file it came from and
@@ -57,19 +56,15 @@ func LoadModel(path string) (l *Loaded, err error) {
 
 // loadBytes is LoadModel of a file already read (a fleet member, checked
 // against its hash).
-func loadBytes(path string, b []byte) (l *Loaded, err error) {
+func loadBytes(b []byte, path string) (l *Loaded, err error) {
 	defer func() {
 		if r := recover(); r != nil {
 			l, err = nil, fmt.Errorf("serve: loading %s failed inside quern (please report it): %v", path, r)
 		}
 	}()
-	f, err := modelfile.Decode(b, path)
+	m, err := model.Decode(b, path)
 	if err != nil {
 		return nil, err
-	}
-	m, err := model.FromFile(f)
-	if err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
 	}
 	return loaded(m, path)
 }
