@@ -1,6 +1,7 @@
 package data
 
 import (
+	"bufio"
 	"bytes"
 	"crypto/sha256"
 	"encoding/binary"
@@ -11,6 +12,8 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
+	"path/filepath"
+	"runtime"
 	"slices"
 	"strings"
 	"time"
@@ -63,8 +66,12 @@ type Stream struct {
 	gzip     bool
 	// parquet: the file is a Parquet table of groups row groups, which
 	// a shuffled pass reads in a random order
-	parquet    bool
-	groups     int
+	parquet bool
+	groups  int
+	// cache is the binary copy of the rows (nil: none), cacheName its
+	// name while it has one
+	cache      *os.File
+	cacheName  string
 	lo, hi     []float64 // the training rows' range per column
 	mean, m2   []float64 // their mean and sum of squared deviations
 	valLo, vHi []float64 // the validation rows' range
@@ -82,6 +89,11 @@ type StreamConfig struct {
 	SplitSeed uint64
 	// Sample is the most training rows kept in Stream.Sample.
 	Sample int
+	// CacheDir, when set, is a folder for a binary copy of the rows
+	// (4 bytes a value) that the first pass writes and every later pass
+	// reads instead of parsing the file again; Close removes it. ""
+	// means no copy.
+	CacheDir string
 }
 
 // DefaultSampleRows is the sample a Stream keeps by default: enough for
@@ -159,6 +171,13 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 	h := sha256.New()
 	var buf []byte
 	first := true
+	var cw *bufio.Writer
+	if cfg.CacheDir != "" {
+		if err := s.makeCache(cfg.CacheDir); err != nil {
+			return nil, err
+		}
+		cw = bufio.NewWriterSize(s.cache, 1<<20)
+	}
 	err := s.pass(nil, func(x []float32, val []bool, lines []int, offs []int64, rows int) error {
 		if first {
 			first = false
@@ -172,6 +191,11 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 			buf = binary.LittleEndian.AppendUint32(buf, math.Float32bits(v))
 		}
 		h.Write(buf)
+		if cw != nil {
+			if _, err := cw.Write(buf); err != nil {
+				return s.cacheErr(err)
+			}
+		}
 		for r := range rows {
 			row := x[r*s.Cols : (r+1)*s.Cols]
 			if s.Rows%blockRows == 0 && offs != nil {
@@ -209,10 +233,17 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 		}
 		return nil
 	})
+	if err == nil && cw != nil {
+		if err = cw.Flush(); err != nil {
+			err = s.cacheErr(err)
+		}
+	}
 	if err != nil {
+		s.Close()
 		return nil, err
 	}
 	if s.TrainRows == 0 {
+		s.Close()
 		return nil, &ParseError{File: path, Msg: fmt.Sprintf("no training rows among the %d (validation share %v)", s.Rows, cfg.Validation)}
 	}
 	if s.gzip {
@@ -254,6 +285,10 @@ func filled(n int, v float64) []float64 {
 // order when order is nil, else the plain file's blocks in that order
 // (a permutation of their indices).
 func (s *Stream) pass(order []int, f func(x []float32, val []bool, lines []int, offs []int64, rows int) error) error {
+	if s.cache != nil && s.Cols > 0 {
+		// the binary copy: the file is not read again
+		return s.cachePass(order, f)
+	}
 	var val []bool
 	fh, err := os.Open(s.Path)
 	if err != nil {
@@ -341,6 +376,8 @@ func (s *Stream) Each(part Part, f func(x []float32, rows int) error) error {
 func (s *Stream) EachShuffled(part Part, rng *rand.Rand, f func(x []float32, rows int) error) error {
 	var order []int
 	switch {
+	case s.cache != nil:
+		order = rng.Perm((s.Rows + blockRows - 1) / blockRows)
 	case s.parquet:
 		order = rng.Perm(s.groups)
 	case s.blocks != nil:
@@ -503,4 +540,80 @@ func (s *Stream) parquetPass(order []int, f func(x []float32, val []bool, lines 
 		return fmt.Errorf("%w: %s", ErrStream, strings.TrimPrefix(err.Error(), "data: "))
 	}
 	return err
+}
+
+// makeCache creates the binary copy's file in dir. Where the system
+// allows, its name is removed at once: the open file is all there is, and
+// nothing is left behind whatever ends the process.
+func (s *Stream) makeCache(dir string) error {
+	fh, err := os.CreateTemp(dir, "quern-stream-*.rows")
+	if err != nil {
+		return fmt.Errorf("data: a folder for the rows' binary copy: %w", err)
+	}
+	s.cache, s.cacheName = fh, fh.Name()
+	if runtime.GOOS != "windows" && os.Remove(fh.Name()) == nil {
+		s.cacheName = ""
+	}
+	return nil
+}
+
+func (s *Stream) cacheErr(err error) error {
+	var pe *os.PathError
+	if errors.As(err, &pe) {
+		err = pe.Err
+	}
+	return fmt.Errorf("data: writing the rows' binary copy in %s: %w (give another folder, or none)", filepath.Dir(s.cache.Name()), err)
+}
+
+// Close removes the binary copy of the rows, if any. A Stream without
+// one needs no Close; one with one reads nothing after it.
+func (s *Stream) Close() error {
+	if s.cache == nil {
+		return nil
+	}
+	err := s.cache.Close()
+	if s.cacheName != "" {
+		os.Remove(s.cacheName)
+	}
+	s.cache = nil
+	return err
+}
+
+// cachePass is pass over the binary copy: runs of rows in file order, or
+// blocks of blockRows rows in order (a permutation of their indices).
+func (s *Stream) cachePass(order []int, f func(x []float32, val []bool, lines []int, offs []int64, rows int) error) error {
+	rowBytes := int64(s.Cols) * 4
+	const run = 4096 // rows a read
+	raw := make([]byte, run*rowBytes)
+	x := make([]float32, run*s.Cols)
+	val := make([]bool, run)
+	lines := make([]int, run)
+	read := func(first, n int) error {
+		b := raw[:int64(n)*rowBytes]
+		if _, err := s.cache.ReadAt(b, int64(first)*rowBytes); err != nil {
+			return fmt.Errorf("data: reading the rows' binary copy: %w", err)
+		}
+		for i := range x[:n*s.Cols] {
+			x[i] = math.Float32frombits(binary.LittleEndian.Uint32(b[4*i:]))
+		}
+		for r := range n {
+			val[r], lines[r] = s.isVal(first+r), first+r+1
+		}
+		return f(x[:n*s.Cols], val[:n], lines[:n], nil, n)
+	}
+	if order == nil {
+		for first := 0; first < s.Rows; first += run {
+			if err := read(first, min(run, s.Rows-first)); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	for _, b := range order {
+		first := b * blockRows
+		if err := read(first, min(blockRows, s.Rows-first)); err != nil {
+			return err
+		}
+	}
+	return nil
 }

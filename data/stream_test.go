@@ -95,6 +95,24 @@ func TestStreamMatchesLoad(t *testing.T) {
 			require.True(t, in[fmt.Sprint(s.Sample.Row(i))])
 		}
 		require.NotEmpty(t, s.Fingerprint)
+		// with a binary copy of the rows: the same passes, and the file
+		// is not read again
+		cached, err := OpenStream(path, StreamConfig{Validation: 0.2, SplitSeed: 9, Sample: 1000, CacheDir: dir})
+		require.NoError(t, err)
+		var ctr, csh, wsh []float32
+		require.NoError(t, cached.Each(TrainRows, func(x []float32, n int) error { ctr = append(ctr, x...); return nil }))
+		require.Equal(t, tr, ctr)
+		require.NoError(t, cached.EachShuffled(TrainRows, rand.New(rand.NewPCG(5, 5)), func(x []float32, n int) error { csh = append(csh, x...); return nil }))
+		require.Equal(t, sortedRows(tr, 5), sortedRows(csh, 5))
+		if !zip {
+			// the same blocks in the same order as the text's
+			require.NoError(t, s.EachShuffled(TrainRows, rand.New(rand.NewPCG(5, 5)), func(x []float32, n int) error { wsh = append(wsh, x...); return nil }))
+			require.Equal(t, wsh, csh)
+		}
+		require.Equal(t, s.Sample.X, cached.Sample.X)
+		require.NoError(t, cached.Close())
+		left, _ := filepath.Glob(filepath.Join(dir, "quern-stream-*"))
+		require.Empty(t, left, "the binary copy outlived Close")
 		// shuffled: the same training rows, in another order (a gzip
 		// file's in file order: its bytes are read in turn)
 		var sh []float32

@@ -63,9 +63,22 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 		Validation: o.val,
 		SplitSeed:  o.seed,
 	}
+	switch o.cache {
+	case "none":
+	case "":
+		cfg.CacheDir = os.TempDir()
+	default:
+		if st, err := os.Stat(o.cache); err != nil || !st.IsDir() {
+			return usagef("-cache %s: not a folder (give a folder for the rows' binary copy, or none)", o.cache)
+		}
+		cfg.CacheDir = o.cache
+	}
 	st.begin("read", func() string { return o.data.path })
 	s, err := data.OpenStream(o.data.path, cfg)
 	st.end()
+	if err == nil {
+		defer s.Close()
+	}
 	var le *data.LimitError
 	if errors.As(err, &le) {
 		return fmt.Errorf("%w (raise it with -limit %s=N)", err, le.Key)
@@ -77,8 +90,12 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 	if err != nil {
 		return err
 	}
-	why = append(why, fmt.Sprintf("streamed: %d rows read again on every epoch through a shuffle buffer of %d rows; %d held out for validation and the threshold (each row with probability %v); the scaler fitted on every training row, the defaults and the distance score on a seeded sample of %d of them",
-		s.Rows, min(o.bufferRows(), s.TrainRows), s.ValRows, o.val, s.Sample.Rows))
+	from := "read again from the file"
+	if cfg.CacheDir != "" {
+		from = fmt.Sprintf("read from a binary copy in %s (%s, removed at the end)", cfg.CacheDir, sizeText(int64(s.Rows)*int64(s.Cols)*4))
+	}
+	why = append(why, fmt.Sprintf("streamed: %d rows %s on every epoch through a shuffle buffer of %d rows; %d held out for validation and the threshold (each row with probability %v); the scaler fitted on every training row, the defaults and the distance score on a seeded sample of %d of them",
+		s.Rows, from, min(o.bufferRows(), s.TrainRows), s.ValRows, o.val, s.Sample.Rows))
 	m, obj, err := o.build(s.Sample)
 	if err != nil {
 		return err
@@ -205,4 +222,12 @@ func cmpScore(s string) string {
 		return scoreDistance
 	}
 	return s
+}
+
+// sizeText writes a byte count in MiB or GiB.
+func sizeText(n int64) string {
+	if n >= 1<<30 {
+		return fmt.Sprintf("%.1f GiB", float64(n)/(1<<30))
+	}
+	return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20))
 }

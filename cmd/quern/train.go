@@ -78,6 +78,7 @@ type trainOpts struct {
 	member  bool // training one member of a fleet
 	stream  bool
 	buffer  int
+	cache   string
 	// settings are the flags given that shape the models (fleets record
 	// them: shards must agree)
 	settings []string
@@ -132,6 +133,7 @@ func trainFlags(e *env, o *trainOpts) *flag.FlagSet {
 	fs.IntVar(&o.shared, "shared", defaultSharedRows, "-group: rows drawn (seeded) from all groups to train the shared model, which scores small groups and groups not seen in training (0: no shared model; their rows are refused)")
 	fs.BoolVar(&o.stream, "stream", false, "read the CSV or Parquet file again on every epoch instead of holding it: for tables of numbers larger than memory (ae and vae; the rows are shuffled through a buffer of -buffer rows, the threshold set on the -val rows streamed)")
 	fs.IntVar(&o.buffer, "buffer", 0, fmt.Sprintf("-stream: rows of the shuffle buffer; each batch draws from the next this many rows of the file, so a file sorted by time trains on a sliding window of it (default %d)", train.DefaultShuffleBuffer))
+	fs.StringVar(&o.cache, "cache", "", "-stream: `FOLDER` for a binary copy of the rows (4 bytes a value), which every epoch reads instead of parsing the file again; none: parse it every time (default: the system's temporary folder)")
 	fs.StringVar(&o.shard, "shard", "", "-group: train only shard `I/N` of the fleet (I from 0), for an array job; quern merge assembles the shards' folders into the fleet")
 	return fs
 }
@@ -198,8 +200,12 @@ func cmdTrain(e *env, args []string) error {
 		if err := o.checkStream(set); err != nil {
 			return err
 		}
-	} else if set["buffer"] {
-		return usagef("-buffer is the shuffle buffer of a streamed run: give -stream")
+	} else if set["buffer"] || set["cache"] {
+		name := "buffer"
+		if !set["buffer"] {
+			name = "cache"
+		}
+		return usagef("-%s is for a streamed run: give -stream", name)
 	}
 	if o.group != "" {
 		if err := o.checkFleet(set); err != nil {
