@@ -335,8 +335,12 @@ func (p *rowParser) readAll(d *Dataset, lim Limits, first *csvBatch) error {
 		b := j.b
 		n := len(b.rowLines)
 		if p.emit != nil {
-			// a stream's pass: the rows go on, none is held
+			// a stream's pass: the rows go on, none is held (the bad
+			// record's values, parsed before its bad cell, do not)
 			if n > 0 {
+				if len(b.x) > n*d.Cols {
+					b.x = b.x[:n*d.Cols]
+				}
 				if err := p.emit(b, d); err != nil {
 					return err
 				}

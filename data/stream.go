@@ -81,7 +81,8 @@ type Stream struct {
 // validation rows, split seed 0, a sample of DefaultSampleRows rows.
 type StreamConfig struct {
 	// CSV is how the file is read (Typed, Label, Keep and Encoding are
-	// not for streams: a stream reads numbers).
+	// not for streams: a stream reads numbers). Of its Limits, rows and
+	// values do not apply (nothing is held) and bytes defaults to none.
 	CSV CSVConfig
 	// Validation is the share of rows held out, in [0, 1).
 	Validation float64
@@ -157,6 +158,10 @@ func OpenStream(path string, cfg StreamConfig) (*Stream, error) {
 		return nil, fmt.Errorf("%w: sample of %d rows", ErrConfig, cfg.Sample)
 	}
 	c.Typed, c.Types, c.Missing = false, nil, nil
+	if c.Limits.Bytes == 0 {
+		// the file's size costs no memory here: only what is asked for
+		c.Limits.Bytes = math.MaxInt64
+	}
 	s := &Stream{Path: path, cfg: c, valFrac: cfg.Validation, splitSeed: cfg.SplitSeed, parquet: isParquet(path)}
 	sample := cfg.Sample
 	if sample == 0 {
@@ -492,6 +497,9 @@ func EachCSV(path string, cfg CSVConfig, f func(columns []string, x []float32, k
 		return fmt.Errorf("%w: %s: a streamed table is read for its numbers only (no labels or a model's encoding)", ErrStream, path)
 	}
 	cfg.Typed, cfg.Types, cfg.Missing = false, nil, nil
+	if cfg.Limits.Bytes == 0 {
+		cfg.Limits.Bytes = math.MaxInt64 // as a Stream's
+	}
 	cfg.emit = func(b *csvBatch, d *Dataset) error {
 		return f(d.Columns, b.x, b.kept, len(b.rowLines))
 	}

@@ -293,7 +293,7 @@ func (d *dataFlags) loadFor(schema data.Schema, cols int, st *status) (*data.Dat
 		}
 	}
 	if d.columns == "" && !d.noHeader && len(columns) == cols && columns[0] != "" && columns[0] != "c0" {
-		if f, err := data.Detect(d.path); d.path == "-" || (err == nil && f == data.FormatCSV) {
+		if f, err := data.Detect(d.path); d.path == "-" || (err == nil && (f == data.FormatCSV || f == data.FormatParquet)) {
 			saved := d.columns
 			d.columns = strings.Join(columns, ",")
 			ds, _, err := d.load(st)

@@ -9,9 +9,11 @@ import (
 	"strings"
 	"syscall"
 
+	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/gan"
+	"github.com/quernlab/quern/layers"
 	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/train"
@@ -26,6 +28,8 @@ func (o *trainOpts) checkStream(set map[string]bool) error {
 		}
 	}
 	switch {
+	case o.data.types != "" || o.data.missing != "":
+		return usagef("-types and -missing with -stream: a streamed table is read as numbers, every cell (categories and missing cells need the table in memory)")
 	case o.kind == gan.Kind:
 		return usagef("-stream with -kind gan: a GAN trains on a table in memory")
 	case set["folds"] && o.folds > 0:
@@ -94,7 +98,7 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 	if cfg.CacheDir != "" {
 		from = fmt.Sprintf("read from a binary copy in %s (%s, removed at the end)", cfg.CacheDir, sizeText(int64(s.Rows)*int64(s.Cols)*4))
 	}
-	why = append(why, fmt.Sprintf("streamed: %d rows %s on every epoch through a shuffle buffer of %d rows; %d held out for validation and the threshold (each row with probability %v); the scaler fitted on every training row, the defaults and the distance score on a seeded sample of %d of them",
+	why = append(why, fmt.Sprintf("streamed: %d rows %s on every epoch through a shuffle buffer of %d rows; %d held out for validation and the threshold (each row with probability %v); the scaler fitted on every training row, the defaults (and an autoencoder's distance score) on a seeded sample of %d of them",
 		s.Rows, from, min(o.bufferRows(), s.TrainRows), s.ValRows, o.val, s.Sample.Rows))
 	m, obj, err := o.build(s.Sample)
 	if err != nil {
@@ -102,6 +106,19 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 	}
 	for _, c := range s.Constant() {
 		st.warn("warning: %s never changes: no information to learn (leave it out with -columns)", c)
+	}
+	// the warnings of a run in memory about the rows' number
+	params := 0
+	if p, ok := m.(interface{ Params() []*layers.Param }); ok {
+		for _, x := range p.Params() {
+			params += x.Len()
+		}
+	}
+	switch {
+	case s.TrainRows < minRows:
+		st.warn("warning: %s: too few to learn from (fewer than %d); expect scores that mean little", plural(s.TrainRows, "training row"), minRows)
+	case params > 0 && s.TrainRows*weightsPerRow < params:
+		st.warn("warning: %d training rows for %d parameters (more than %d a row): the model can memorise the rows; consider narrower -hidden and -latent", s.TrainRows, params, weightsPerRow)
 	}
 	if enc, ok := m.(model.Encoder); ok && enc.CodeWidth() >= s.Cols {
 		st.warn("warning: the code is %d wide for %d input columns: it can pass the input through unchanged; give -latent below %d", enc.CodeWidth(), s.Cols, s.Cols)
@@ -132,7 +149,13 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 	scoreLine := ""
 	if p, ok := mm.(model.Profiler); ok && cmpScore(o.score) == scoreDistance {
 		st.begin("profile", func() string { return fmt.Sprintf("a sample of %d training rows", s.Sample.Rows) })
-		err := p.FitProfile(s.Sample.X, s.Sample.Rows)
+		var err error
+		if rf, ok := mm.(residualFitter); ok {
+			// too few rows for the autoencoder's part, as in memory
+			err = rf.FitProfileWith(s.Sample.X, s.Sample.Rows, ae.ProfileSettings{InputOnly: s.TrainRows < minRows})
+		} else {
+			err = p.FitProfile(s.Sample.X, s.Sample.Rows)
+		}
 		st.end()
 		if err != nil && !errors.Is(err, anomaly.ErrNoProfile) {
 			return err
@@ -159,6 +182,9 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 			st.warn("warning: %v; using the largest validation score instead", err)
 			got, err = anomaly.Calibrate(scores, anomaly.Config{Method: anomaly.Max})
 		}
+		if err == nil && got.Rows < anomaly.MinCalibrationRows {
+			st.warn("warning: the threshold rests on %s (fewer than %d): its false-alarm rate is only known to be below %.1f%% (%.0f%% confidence)", plural(got.Rows, "validation row"), anomaly.MinCalibrationRows, 100*got.FalseAlarmBound, 100*anomaly.BoundConfidence)
+		}
 		st.end()
 		if err != nil {
 			st.warn("no threshold set: %v", err)
@@ -182,7 +208,7 @@ func trainStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
 	}
 	st.end()
 	tl, vl := h.Loss(len(h.Epochs))
-	line := fmt.Sprintf("wrote %s: %s, %d epochs on %d streamed rows, final training loss %.6g", o.out, kindPhrase(mm.Kind()), len(h.Epochs), s.TrainRows, tl)
+	line := fmt.Sprintf("wrote %s: %s, %s on %d streamed rows, final training loss %.6g", o.out, kindPhrase(mm.Kind()), plural(len(h.Epochs), "epoch"), s.TrainRows, tl)
 	if s.ValRows > 0 {
 		line += fmt.Sprintf(", validation loss %.6g (lowest at epoch %d", vl, h.BestEpoch)
 		if ts := t.Settings(); ts.Patience > 0 && !ts.KeepLast {

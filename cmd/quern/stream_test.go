@@ -98,6 +98,33 @@ func TestStreamCommands(t *testing.T) {
 		require.Equal(t, string(mem), string(got), f)
 	}
 
+	// an empty cell past the first column, far into the file: the error
+	// names it, and no scores file stands for a whole one
+	whole, err := os.ReadFile(csvPath)
+	require.NoError(t, err)
+	lines := strings.Split(string(whole), "\n")
+	cells := strings.Split(lines[4500], ",")
+	cells[2] = ""
+	lines[4500] = strings.Join(cells, ",")
+	require.NoError(t, os.WriteFile(filepath.Join(dir, "holes.csv"), []byte(strings.Join(lines, "\n")), 0o644))
+	r = quern(t, dir, nil, "score", "-model", "s1.qm", "-data", "holes.csv", "-stream", "-out", "holes-scores.csv")
+	require.Equal(t, 1, r.code, r.stderr)
+	require.Contains(t, r.stderr, `holes.csv:4501: column 3 (c): "" is not a finite number`)
+	left, _ = filepath.Glob(filepath.Join(dir, "*holes-scores*"))
+	require.Empty(t, left, "a scores file cut short was left")
+
+	// a Parquet file with text columns, scored in memory by the model's
+	// column names as a CSV file is (testdata/parquet/README.md)
+	at := abs("../../testdata/parquet/alltypes_plain.parquet")
+	num := "id,bool_col,tinyint_col,smallint_col,int_col,bigint_col,float_col,double_col"
+	ok(t, quern(t, dir, nil, "train", "-data", at, "-columns", num, "-hidden", "4", "-latent", "2", "-epochs", "2", "-val", "0.25", "-folds", "0", "-out", "at.qm", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "at.qm", "-data", at, "-out", "at-mem.csv", "-quiet"))
+	ok(t, quern(t, dir, nil, "score", "-model", "at.qm", "-data", at, "-stream", "-out", "at-str.csv", "-quiet"))
+	am, _ := os.ReadFile(filepath.Join(dir, "at-mem.csv"))
+	as, _ := os.ReadFile(filepath.Join(dir, "at-str.csv"))
+	require.Equal(t, string(am), string(as))
+	require.Equal(t, 9, strings.Count(string(am), "\n"))
+
 	require.NoError(t, os.WriteFile(filepath.Join(dir, "text.csv"), []byte("a,b\n1,2\n3,high\n"), 0o644))
 	for _, c := range []struct {
 		args []string
@@ -112,6 +139,7 @@ func TestStreamCommands(t *testing.T) {
 		{[]string{"train", "-stream", "-data", "-", "-out", "x.qm"}, 2, "give -data FILE (not standard input)"},
 		{[]string{"train", "-stream", "-data", "text.csv", "-out", "x.qm"}, 1, `text.csv:3: column 2 (b): "high" is not a finite number`},
 		{[]string{"score", "-stream", "-heatmaps", "h", "-model", "s1.qm", "-data", csvPath}, 2, "-heatmaps with -stream"},
+		{[]string{"train", "-stream", "-types", "a=categorical", "-data", csvPath, "-out", "x.qm"}, 2, "-types and -missing with -stream"},
 	} {
 		r := quern(t, dir, nil, c.args...)
 		require.Equal(t, c.code, r.code, "%v: %s", c.args, r.stderr)

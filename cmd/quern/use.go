@@ -167,6 +167,45 @@ func (l *loaded) loadRows(d *dataFlags, st *status) (*data.Dataset, error) {
 	return d.loadFor(l.model.Schema(), l.model.Width(), st)
 }
 
+// outputWhole is output for a file written as rows are read: it is
+// written beside path and takes path's place only when done returns
+// nil; abort (deferred) removes it otherwise. Standard output cannot be
+// taken back: what was written stays.
+func outputWhole(e *env, path string) (w io.Writer, done func() error, abort func(), err error) {
+	if isStdout(path) {
+		return e.stdout, func() error { return nil }, func() {}, nil
+	}
+	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	bw := bufio.NewWriter(f)
+	finished := false
+	done = func() error {
+		if err := bw.Flush(); err != nil {
+			return err
+		}
+		if err := f.Close(); err != nil {
+			return err
+		}
+		if err := os.Chmod(f.Name(), 0o644); err != nil {
+			return err
+		}
+		if err := os.Rename(f.Name(), path); err != nil {
+			return err
+		}
+		finished = true
+		return nil
+	}
+	abort = func() {
+		if !finished {
+			f.Close()
+			os.Remove(f.Name())
+		}
+	}
+	return bw, done, abort, nil
+}
+
 // output opens path for writing ("-" or empty: standard output).
 func output(e *env, path string) (io.Writer, func() error, error) {
 	if isStdout(path) {
@@ -308,7 +347,7 @@ func cmdScore(e *env, args []string) error {
 	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share (its fraction of the parts of the score the row's columns add; negative parts count as none), the value the model expected (its reconstruction, kept within the training range, or a category's level) and the direction (above, below, other, missing)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp); one named like a column of the score file (row, score, status, ...) is written as NAME (kept)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
-	streamed := fs.Bool("stream", false, "read the CSV file a few MiB at a time, writing each run of scores before reading on, instead of holding the file: for tables of numbers larger than memory (not with -heatmaps)")
+	streamed := fs.Bool("stream", false, "read the CSV or Parquet file a few MiB at a time, writing each run of scores before reading on, instead of holding the file: for tables of numbers larger than memory (not with -heatmaps; -out is written beside and takes its name only when every row is scored)")
 	heat := fs.String("heatmaps", "", "images: folder (made if need be) for a PNG of each flagged image, row-N.png, with the map of its pixels' parts in the score to its right (beyond what each would cost if given back exactly), white for none to dark red for the image's largest")
 	if _, err := parse(e, fs, args, 0); err != nil {
 		return err
@@ -379,7 +418,17 @@ func cmdScore(e *env, args []string) error {
 	if *top > features {
 		*top = features // the file stays rectangular: one pair per feature at most
 	}
-	w, closeOut, err := output(e, *out)
+	var w io.Writer
+	var closeOut func() error
+	if *streamed {
+		// the scores are written as the rows are read: a file cut short
+		// by a bad row further on must not stand for a complete one
+		var abort func()
+		w, closeOut, abort, err = outputWhole(e, *out)
+		defer abort()
+	} else {
+		w, closeOut, err = output(e, *out)
+	}
 	if err != nil {
 		return err
 	}
