@@ -6,6 +6,7 @@ import (
 	"encoding/csv"
 	"errors"
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -22,6 +23,7 @@ import (
 	"github.com/quernlab/quern/fleet"
 	"github.com/quernlab/quern/internal/kernel/par"
 	"github.com/quernlab/quern/internal/stream"
+	"github.com/quernlab/quern/model"
 	"github.com/quernlab/quern/modelfile"
 	"github.com/quernlab/quern/report"
 )
@@ -595,4 +597,135 @@ func cmdMerge(e *env, args []string) error {
 	}
 	fmt.Fprintln(e.stderr, line+")")
 	return nil
+}
+
+// scoringFleet scores rows each with its group's model: quern score
+// -fleet. Its counts are what the closing line says.
+type scoringFleet struct {
+	f   *fleet.Fleet[model.Model]
+	col string
+	// own, shared and none count the rows by where they went
+	own, shared, none int
+}
+
+// fleetScores are a run of rows' scores and, for a fleet, where each
+// row went ("own", "shared", or "none").
+type fleetScores struct {
+	scores []anomaly.Score
+	routes []string
+}
+
+// openFleetForScoring opens a fleet for quern score: its models must
+// score anomalies; the group column is read beside the rows (first of
+// the kept columns), and the rows are read by a member's schema (every
+// member reads the same columns).
+func openFleetForScoring(dir string, d *dataFlags, out string) (*loaded, *scoringFleet, error) {
+	if err := distinctPaths(map[string]string{"-data": d.path, "-out": out, "-fleet": filepath.Join(dir, fleet.IndexFile)}); err != nil {
+		return nil, nil, err
+	}
+	if out != "" && out != "-" {
+		if err := writable(out, "-out"); err != nil {
+			return nil, nil, err
+		}
+	}
+	f, err := fleet.Open(dir)
+	if err != nil {
+		return nil, nil, err
+	}
+	any := f.Any()
+	if any == nil {
+		return nil, nil, fmt.Errorf("the fleet %s has no models", dir)
+	}
+	path := filepath.Join(dir, any.Member.File)
+	file, err := modelfile.Read(path, 0)
+	if err != nil {
+		return nil, nil, err
+	}
+	l := &loaded{path: path, file: file, model: any.Value}
+	if _, ok := any.Value.(model.Scorer); !ok {
+		return nil, nil, fmt.Errorf("score -fleet needs models with anomaly scores; the fleet %s holds models of kind %q", dir, any.Value.Kind())
+	}
+	col := f.Index().GroupColumn
+	keep := splitList(d.keep)
+	if slices.Contains(keep, col) {
+		return nil, nil, usagef("-keep %s: the fleet's group column is kept beside the scores already", col)
+	}
+	d.keep = strings.Join(append([]string{col}, keep...), ",")
+	return l, &scoringFleet{f: f, col: col}, nil
+}
+
+// score scores n rows x, each with the model of its group (the first of
+// its nk kept texts); a row whose group has no model and the fleet no
+// shared model is flagged unscorable, never scored by another group's.
+func (sf *scoringFleet) score(x []float32, n, top int, kept []string, nk int) (fleetScores, error) {
+	cols := len(x) / max(n, 1)
+	out := fleetScores{scores: make([]anomaly.Score, n), routes: make([]string, n)}
+	type batch struct {
+		e      *fleet.Entry[model.Model]
+		shared bool
+		rows   []int
+	}
+	var order []*batch
+	byEntry := map[*fleet.Entry[model.Model]]*batch{}
+	for i := range n {
+		g := strings.TrimSpace(kept[i*nk])
+		e, shared, ok := sf.f.Route(g)
+		if !ok {
+			out.routes[i] = "none"
+			out.scores[i] = anomaly.Score{Value: math.NaN(), Threshold: math.NaN(), Anomaly: true,
+				Unscorable: fmt.Sprintf("no model for %s %q, and the fleet has no shared model", sf.col, g)}
+			continue
+		}
+		b := byEntry[e]
+		if b == nil {
+			b = &batch{e: e, shared: shared}
+			byEntry[e] = b
+			order = append(order, b)
+		}
+		b.rows = append(b.rows, i)
+	}
+	var buf []float32
+	for _, b := range order {
+		buf = buf[:0]
+		for _, i := range b.rows {
+			buf = append(buf, x[i*cols:(i+1)*cols]...)
+		}
+		sc := b.e.Value.(model.Scorer)
+		route := "own"
+		if b.shared {
+			route = "shared"
+		}
+		if sc.Calibrated() == nil {
+			for _, i := range b.rows {
+				out.routes[i] = route
+				out.scores[i] = anomaly.Score{Value: math.NaN(), Threshold: math.NaN(), Anomaly: true, Unscorable: fmt.Sprintf("the model of %s %q has no threshold", sf.col, b.e.Group)}
+			}
+			continue
+		}
+		res, err := sc.Score(buf, len(b.rows), top)
+		if err != nil {
+			return out, fmt.Errorf("%s %q: %w", sf.col, b.e.Group, err)
+		}
+		for k, i := range b.rows {
+			out.scores[i], out.routes[i] = res[k], route
+		}
+	}
+	return out, nil
+}
+
+// count adds a run's routes to the fleet's counts (nil: one model).
+func (sf *scoringFleet) count(r fleetScores) {
+	if sf == nil {
+		return
+	}
+	for _, to := range r.routes {
+		switch to {
+		case "own":
+			sf.own++
+		case "shared":
+			sf.shared++
+		default:
+			sf.none++
+		}
+	}
 }

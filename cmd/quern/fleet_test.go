@@ -12,6 +12,7 @@ import (
 	"sync"
 	"testing"
 
+	"github.com/quernlab/quern/data"
 	"github.com/quernlab/quern/fleet"
 	"github.com/stretchr/testify/require"
 )
@@ -157,6 +158,40 @@ func TestFleetShardsMergeBitwise(t *testing.T) {
 	require.Equal(t, 1, r.code)
 	require.Contains(t, r.stderr, "changed since the shard ran")
 
+	// scoring with the fleet: each row by its group's model, as the
+	// member's own file scores it; small and empty groups by the shared
+	// model
+	ok(t, quern(t, dir, nil, "score", "-fleet", "single", "-data", "sites.csv", "-keep", "reading", "-out", "fleet-scores.csv", "-quiet"))
+	fsc, err := data.LoadCSV(filepath.Join(dir, "fleet-scores.csv"), data.CSVConfig{Columns: []string{"score"}, Keep: []string{"site", "model"}})
+	require.NoError(t, err)
+	require.Equal(t, 745, fsc.Rows)
+	var north []float32
+	for i := range fsc.Rows {
+		site, route := fsc.Kept[2*i], fsc.Kept[2*i+1]
+		switch site {
+		case "kiosk", "":
+			require.Equal(t, "shared", route, "row %d", i+1)
+		default:
+			require.Equal(t, "own", route, "row %d", i+1)
+		}
+		if site == "north" {
+			north = append(north, fsc.X[i])
+		}
+	}
+	whole, err := os.ReadFile(filepath.Join(dir, "sites.csv"))
+	require.NoError(t, err)
+	var nb bytes.Buffer
+	for k, line := range strings.Split(strings.TrimSpace(string(whole)), "\n") {
+		if k == 0 || strings.HasPrefix(line, "north,") {
+			nb.WriteString(line + "\n")
+		}
+	}
+	require.NoError(t, os.WriteFile(filepath.Join(dir, "north.csv"), nb.Bytes(), 0o644))
+	ok(t, quern(t, dir, nil, "score", "-model", filepath.Join("single", fleet.FileName("north")), "-data", "north.csv", "-out", "north-scores.csv", "-quiet"))
+	nsc, err := data.LoadCSV(filepath.Join(dir, "north-scores.csv"), data.CSVConfig{Columns: []string{"score"}})
+	require.NoError(t, err)
+	require.Equal(t, nsc.X, north, "the fleet scored north's rows otherwise than north's model")
+
 	// the index says what a reader needs
 	var ix fleet.Index
 	require.NoError(t, json.Unmarshal(single[fleet.IndexFile], &ix))
@@ -198,7 +233,17 @@ func TestFleetBadFlags(t *testing.T) {
 	}
 	_, err := os.Stat(filepath.Join(dir, "f"))
 	require.True(t, os.IsNotExist(err), "a run that failed left its -out folder")
-	r := quern(t, dir, nil, "merge", "-out", "f2")
+	// a fleet without a shared model: a group it has no model for is
+	// flagged unscorable, never scored by another group's model
+	writeFleetCSV(t, filepath.Join(dir, "big.csv"), map[string]int{"a": 120, "b": 120}, 3)
+	ok(t, quern(t, dir, nil, "train", "-data", "big.csv", "-group", "site", "-shared", "0", "-epochs", "2", "-folds", "0", "-out", "noshared", "-quiet"))
+	writeFleetCSV(t, filepath.Join(dir, "newsite.csv"), map[string]int{"a": 3, "zz": 2}, 4)
+	r := ok(t, quern(t, dir, nil, "score", "-fleet", "noshared", "-data", "newsite.csv", "-out", "ns.csv"))
+	require.Contains(t, r.stderr, "2 with no model: flagged, unscored")
+	ns, err := os.ReadFile(filepath.Join(dir, "ns.csv"))
+	require.NoError(t, err)
+	require.Equal(t, 2, strings.Count(string(ns), `unscorable: no model for site ""zz""`))
+	r = quern(t, dir, nil, "merge", "-out", "f2")
 	require.Equal(t, 2, r.code)
 	r = quern(t, dir, nil, "merge", "-out", "f2", dir)
 	require.Equal(t, 1, r.code)

@@ -32,15 +32,15 @@ var commands map[string]command
 
 func init() {
 	commands = map[string]command{
-		"train":       {"train a model on CSV, idx or a folder of PNG images", cmdTrain},
-		"score":       {"score rows against an autoencoder's or VAE's anomaly threshold", cmdScore},
+		"train":       {"train a model (or a fleet of one per group, -group) on CSV, Parquet, idx or a folder of PNG images", cmdTrain},
+		"score":       {"score rows against an autoencoder's or VAE's anomaly threshold (or a fleet's, each row by its group's model)", cmdScore},
 		"encode":      {"write the codes (embeddings) of rows", cmdEncode},
 		"sample":      {"draw samples from a VAE or GAN (CSV or PNG grid)", cmdSample},
 		"interpolate": {"decode a path between two rows' codes", cmdInterpolate},
 		"fidelity":    {"measure a VAE's or GAN's samples against held-out rows: per column, pairs, copies", cmdFidelity},
 		"inspect":     {"describe a model file and check it", cmdInspect},
 		"demo":        {"run the whole job on an invented scenario: a pump fleet, or card payments (-scenario payments)", cmdDemo},
-		"serve":       {"serve a model over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
+		"serve":       {"serve a model or a fleet over HTTP (JSON): score, encode, reconstruct, sample", cmdServe},
 		"evaluate":    {"measure anomaly scores against labelled rows (ROC, precision, recall); set a threshold again", cmdEvaluate},
 		"merge":       {"assemble a fleet from the folders of its shards (quern train -group COLUMN -shard I/N)", cmdMerge},
 		"version":     {"print the version, the Go toolchain, the build settings and the matrix kernel", cmdVersion},

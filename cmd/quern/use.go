@@ -122,9 +122,9 @@ func (l *loaded) streamable(d *dataFlags) (features int, kept []string, err erro
 }
 
 // streamScores reads the data flags' CSV file a run of rows at a time,
-// by the model's column names where the file has a header, scores each
-// run and hands it to write, in file order.
-func (l *loaded) streamScores(d *dataFlags, st *status, sc model.Scorer, top int, write func(x []float32, kept []string, rows int, scores []anomaly.Score) error) error {
+// by the model's column names where the file has a header, and hands
+// each run to write (which scores it), in file order.
+func (l *loaded) streamScores(d *dataFlags, st *status, write func(x []float32, kept []string, rows int) error) error {
 	comma, err := d.separator()
 	if err != nil {
 		return err
@@ -142,12 +142,8 @@ func (l *loaded) streamScores(d *dataFlags, st *status, sc model.Scorer, top int
 		if len(cols) != l.model.Width() {
 			return fmt.Errorf("%s has %d feature columns, the model takes %d", d.path, len(cols), l.model.Width())
 		}
-		scores, err := sc.Score(x, rows, top)
-		if err != nil {
-			return err
-		}
 		done += rows
-		return write(x, kept, rows, scores)
+		return write(x, kept, rows)
 	})
 	var pe *data.ParseError
 	if byName && errors.As(err, &pe) && strings.HasPrefix(pe.Msg, "no column ") {
@@ -347,6 +343,7 @@ func cmdScore(e *env, args []string) error {
 	top := fs.Int("top", 3, "features to list per row, most contributing first, each with its share (its fraction of the parts of the score the row's columns add; negative parts count as none), the value the model expected (its reconstruction, kept within the training range, or a category's level) and the direction (above, below, other, missing)")
 	fs.StringVar(&d.keep, "keep", "", "comma-separated CSV columns to copy, as they are, into the score file beside each row (an identifier, a timestamp); one named like a column of the score file (row, score, status, ...) is written as NAME (kept)")
 	quiet := fs.Bool("quiet", false, "no progress output (the summary and the caution are still printed)")
+	fleetDir := fs.String("fleet", "", "a fleet's `FOLDER` (quern train -group) to score with instead of one -model: each row by its group's model (the fleet's group column), or the shared model; a \"model\" column says which")
 	streamed := fs.Bool("stream", false, "read the CSV or Parquet file a few MiB at a time, writing each run of scores before reading on, instead of holding the file: for tables of numbers larger than memory (not with -heatmaps; -out is written beside and takes its name only when every row is scored)")
 	heat := fs.String("heatmaps", "", "images: folder (made if need be) for a PNG of each flagged image, row-N.png, with the map of its pixels' parts in the score to its right (beyond what each would cost if given back exactly), white for none to dark red for the image's largest")
 	if _, err := parse(e, fs, args, 0); err != nil {
@@ -364,14 +361,28 @@ func cmdScore(e *env, args []string) error {
 	st := newStatus(e.stderr, *quiet)
 	defer st.end() // an error return leaves no phase drawn or ticking
 	st.begin("open", nil)
-	l, sc, err := openAs[model.Scorer]("score", "a model with anomaly scores (an autoencoder or a VAE)",
-		map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
-	if err != nil {
-		return err
+	var l *loaded
+	var sc model.Scorer
+	var fl *scoringFleet
+	var err error
+	if *fleetDir != "" {
+		if *modelPath != "" {
+			return usagef("give -model MODEL or -fleet FOLDER, not both")
+		}
+		if l, fl, err = openFleetForScoring(*fleetDir, &d, *out); err != nil {
+			return err
+		}
+		sc = l.model.(model.Scorer)
+	} else {
+		l, sc, err = openAs[model.Scorer]("score", "a model with anomaly scores (an autoencoder or a VAE)",
+			map[string]string{"-data": d.path, "-out": *out, "-model": *modelPath})
+		if err != nil {
+			return err
+		}
 	}
 	st.end()
 	th := sc.Calibrated()
-	if th == nil {
+	if th == nil && fl == nil {
 		if l.isCheckpoint() {
 			return fmt.Errorf("%s is a checkpoint, written before the threshold is set at the end of training; score with the model file", *modelPath)
 		}
@@ -437,6 +448,9 @@ func cmdScore(e *env, args []string) error {
 	for k := 1; k <= *top; k++ {
 		own = append(own, fmt.Sprintf("feature%d", k), fmt.Sprintf("share%d", k), fmt.Sprintf("expected%d", k), fmt.Sprintf("direction%d", k))
 	}
+	if fl != nil {
+		keptColumns = append(slices.Clone(keptColumns), "model")
+	}
 	kept := make([]string, len(keptColumns))
 	for i, k := range keptColumns {
 		kept[i] = k
@@ -446,6 +460,9 @@ func cmdScore(e *env, args []string) error {
 	}
 	header := append(append([]string{"row"}, kept...), "score", "threshold", "anomaly")
 	nk := len(keptColumns)
+	if fl != nil {
+		nk-- // the file's kept columns; "model" is the fleet's
+	}
 	header = append(header, own[5:]...)
 	cw.Write(append(header, "status"))
 	flagged, unscorable, noted, unseenRows := 0, 0, 0, 0
@@ -525,26 +542,48 @@ func cmdScore(e *env, args []string) error {
 		return cw.Error()
 	}
 	total := 0
+	// score scores n rows x, whose kept texts are kept (n*nk of them):
+	// with the model, or each with its group's model (routes says which)
+	score := func(x []float32, n int, kept []string) (fleetScores, error) {
+		if fl != nil {
+			return fl.score(x, n, *top, kept, nk)
+		}
+		v, err := sc.Score(x, n, *top)
+		return fleetScores{scores: v}, err
+	}
+	keptOf := func(kept []string, r fleetScores, i int) []string {
+		k := kept[i*nk : (i+1)*nk]
+		if fl != nil {
+			k = append(slices.Clone(k), r.routes[i])
+		}
+		return k
+	}
 	if ds != nil {
 		total = ds.Rows
-		err = inChunks(st, "score", ds.Rows, func(lo, hi int) ([]anomaly.Score, error) {
-			return sc.Score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, *top)
-		}, func(lo, hi int, scores []anomaly.Score) error {
-			if err := writeScores(lo, scores, func(i int) []string { return ds.Kept[(lo+i)*nk : (lo+i+1)*nk] }); err != nil {
+		err = inChunks(st, "score", ds.Rows, func(lo, hi int) (fleetScores, error) {
+			return score(ds.X[lo*ds.Cols:hi*ds.Cols], hi-lo, ds.Kept[lo*nk:hi*nk])
+		}, func(lo, hi int, r fleetScores) error {
+			if err := writeScores(lo, r.scores, func(i int) []string { return keptOf(ds.Kept[lo*nk:hi*nk], r, i) }); err != nil {
 				return err
 			}
+			fl.count(r)
 			if explainer != nil {
-				n, err := writeHeatMaps(*heat, explainer, ds, lo, scores)
+				n, err := writeHeatMaps(*heat, explainer, ds, lo, r.scores)
 				heatWritten += n
 				return err
 			}
 			return nil
 		})
 	} else {
-		err = l.streamScores(&d, st, sc, *top, func(x []float32, kept []string, rows int, scores []anomaly.Score) error {
+		err = l.streamScores(&d, st, func(x []float32, kept []string, rows int) error {
+			r, err := score(x, rows, kept)
+			if err != nil {
+				return err
+			}
 			lo := total
 			total += rows
-			return writeScores(lo, scores, func(i int) []string { return kept[i*nk : (i+1)*nk] })
+			fl.count(r)
+			return writeScores(lo, r.scores, func(i int) []string { return keptOf(kept, r, i) })
 		})
 	}
 	if err != nil {
@@ -555,7 +594,16 @@ func cmdScore(e *env, args []string) error {
 		return err
 	}
 	st.end()
-	line := fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%%s)", total, flagged, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(*th))
+	var line string
+	if fl != nil {
+		line = fmt.Sprintf("scored %d rows with the fleet %s by %s: %d above their models' thresholds (%d rows by their group's own model, %d by the shared model", total, *fleetDir, fl.col, flagged, fl.own, fl.shared)
+		if fl.none > 0 {
+			line += fmt.Sprintf(", %d with no model: flagged, unscored", fl.none)
+		}
+		line += ")"
+	} else {
+		line = fmt.Sprintf("scored %d rows: %d above the threshold %.6g (expected false-alarm rate %.2f%%%s)", total, flagged, th.Value, 100*th.ExpectedFalseAlarm, boundPhrase(*th))
+	}
 	if unscorable > 0 {
 		line += fmt.Sprintf("; %s, flagged (see the status column)", plural(unscorable, "unscorable row"))
 	}
