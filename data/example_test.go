@@ -3,6 +3,8 @@ package data_test
 import (
 	"fmt"
 	"math/rand/v2"
+	"os"
+	"path/filepath"
 	"strings"
 
 	"github.com/quernlab/quern/data"
@@ -41,4 +43,35 @@ func ExampleDataset_Split() {
 	train, val, _ := d.Split(0.2, rand.New(rand.NewPCG(1, 1)))
 	fmt.Println(train.Rows, val.Rows)
 	// Output: 8 2
+}
+
+// A table read from its file on every pass: the first pass learns what
+// training needs, later passes hand on runs of rows, never the table.
+func ExampleOpenStream() {
+	dir, _ := os.MkdirTemp("", "stream")
+	defer os.RemoveAll(dir)
+	path := filepath.Join(dir, "readings.csv")
+	var b strings.Builder
+	b.WriteString("flow,pressure\n")
+	for i := range 1000 {
+		fmt.Fprintf(&b, "%d,%d\n", i%10, 100+i%7)
+	}
+	os.WriteFile(path, []byte(b.String()), 0o644)
+
+	s, err := data.OpenStream(path, data.StreamConfig{Validation: 0.2, SplitSeed: 1, CacheDir: dir})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	defer s.Close()
+	fmt.Println(s.Rows, "rows of", s.Columns, "held out about a fifth:", s.ValRows > 150 && s.ValRows < 250)
+	sc, _ := data.Fit(data.ScaleMinMax, s.Bounds(data.TrainRows)) // on every training row
+	fmt.Println("min-max offsets", sc.Offset)
+	sum := 0
+	s.Each(data.ValRows, func(x []float32, rows int) error { sum += rows; return nil })
+	fmt.Println(sum == s.ValRows)
+	// Output:
+	// 1000 rows of [flow pressure] held out about a fifth: true
+	// min-max offsets [0 100]
+	// true
 }

@@ -4,6 +4,9 @@ import (
 	"context"
 	"fmt"
 	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"strings"
 
 	"github.com/quernlab/quern/ae"
 	"github.com/quernlab/quern/data"
@@ -63,4 +66,38 @@ func ExampleResume() {
 	h, _ := r.Run(context.Background(), rows, nil)
 	fmt.Println("epochs:", len(h.Epochs), "batch size kept:", r.Settings().BatchSize)
 	// Output: epochs: 5 batch size kept: 32
+}
+
+// Training on a file read again on every epoch, never held: the same
+// model for a seed whatever the thread count.
+func ExampleTrainer_RunStream() {
+	dir, _ := os.MkdirTemp("", "runstream")
+	defer os.RemoveAll(dir)
+	d := readings(3000, 3)
+	var b strings.Builder
+	b.WriteString("speed,current,temperature\n")
+	for i := range d.Rows {
+		r := d.Row(i)
+		fmt.Fprintf(&b, "%g,%g,%g\n", r[0], r[1], r[2])
+	}
+	path := filepath.Join(dir, "readings.csv")
+	os.WriteFile(path, []byte(b.String()), 0o644)
+
+	s, err := data.OpenStream(path, data.StreamConfig{Validation: 0.2, SplitSeed: 1})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	m, _ := ae.New(ae.Config{Inputs: s.Cols, Hidden: []int{8}, Latent: 1, Seed: 1})
+	t, _ := train.New(m, train.Settings{Epochs: 20, BatchSize: 32})
+	h, err := t.RunStream(context.Background(), s, train.StreamSettings{Buffer: 500})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	first, _ := h.Loss(1)
+	_, last := h.Loss(len(h.Epochs))
+	fmt.Println("columns", m.Columns, "; validation loss below the first epoch's training loss:", last < first)
+	// Output:
+	// columns [speed current temperature] ; validation loss below the first epoch's training loss: true
 }
