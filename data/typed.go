@@ -286,7 +286,6 @@ const fillSample = 1 << 16
 // whole, with its range and its median as the fill for missing cells in
 // later files.
 func plainEncoding(d *Dataset, markers []string) *Encoding {
-	e := &Encoding{Markers: markers, Fields: make([]Field, d.Cols)}
 	// the ranges as the parse gathered them, else one pass in row order
 	// (the table is row-major: a pass per column would walk all of
 	// memory once per column)
@@ -299,18 +298,28 @@ func plainEncoding(d *Dataset, markers []string) *Encoding {
 			}
 		}
 	}
-	lo, hi, whole := st.lo, st.hi, st.whole
 	step := max(1, d.Rows/fillSample)
-	vals := make([]float64, 0, min(d.Rows, fillSample+1))
-	for j := range d.Cols {
-		f := Field{Name: d.Columns[j], Type: Numeric, Min: float64(lo[j]), Max: float64(hi[j])}
-		if whole[j] {
-			f.Type = Integer
-		}
-		vals = vals[:0]
+	return plainEncodingOf(d.Columns, st, func(j int, vals []float64) []float64 {
 		for r := 0; r < d.Rows; r += step {
 			vals = append(vals, float64(d.X[r*d.Cols+j]))
 		}
+		return vals
+	}, markers)
+}
+
+// plainEncodingOf is plainEncoding of a table whose columns' ranges are
+// st and whose fill sample (every max(1, rows/fillSample)-th row, from
+// the first) of column j sample appends to vals.
+func plainEncodingOf(columns []string, st *columnStats, sample func(j int, vals []float64) []float64, markers []string) *Encoding {
+	e := &Encoding{Markers: markers, Fields: make([]Field, len(columns))}
+	lo, hi, whole := st.lo, st.hi, st.whole
+	var vals []float64
+	for j := range columns {
+		f := Field{Name: columns[j], Type: Numeric, Min: float64(lo[j]), Max: float64(hi[j])}
+		if whole[j] {
+			f.Type = Integer
+		}
+		vals = sample(j, vals[:0])
 		f.Fill = float32(median(vals))
 		if f.Type == Integer {
 			f.Fill = float32(math.Round(float64(f.Fill)))

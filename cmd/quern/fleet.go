@@ -39,7 +39,7 @@ const (
 
 // nonSettings are the train flags that do not change a fleet's models:
 // where things are written or read from, and what is printed.
-var nonSettings = map[string]bool{"out": true, "shard": true, "quiet": true, "report": true, "data": true, "watch": true, "limit": true}
+var nonSettings = map[string]bool{"out": true, "shard": true, "quiet": true, "report": true, "data": true, "watch": true, "limit": true, "stream": true, "cache": true}
 
 // checkFleet validates the fleet flags before any work and prepares the
 // read: the group column kept as text beside each row, not an input.
@@ -91,7 +91,8 @@ func errText(err error) string {
 // fleetJob is one model of a fleet to train.
 type fleetJob struct {
 	group string // "" for the shared model
-	d     *data.Dataset
+	rows  int
+	load  func() (*data.Dataset, error) // its rows, read when it trains
 	file  string
 	res   fleet.Member
 	err   error
@@ -108,19 +109,39 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	if col < 0 {
 		return fmt.Errorf("%s: no column %s to group by", o.data.path, o.group)
 	}
-	sh := fleet.All
-	if o.shard != "" {
-		sh, _ = fleet.ParseShard(o.shard) // checked in checkFleet
-	}
 	for _, w := range dataWarnings(full) {
 		st.warn("%s", w)
 	}
 	st.begin("group", nil)
-	// the data's file name, not its folder: shards on other machines
-	// may see the file elsewhere
-	ix := fleet.Index{Format: fleet.FormatName, Version: fleet.Version, GroupColumn: o.group, Kind: o.kind, Seed: o.seed,
-		Settings: o.settings, Data: fleet.Data{Path: filepath.Base(o.data.path), Fingerprint: full.Fingerprint(), Rows: full.Rows}, MinRows: o.minRows}
-	// a group cell that marks a missing value (-missing) names no group
+	keys := make([]string, full.Rows)
+	w := len(full.KeptColumns)
+	missing := o.missingMarkers()
+	for i := range keys {
+		k := strings.TrimSpace(full.Kept[i*w+col])
+		if missing[k] {
+			k = ""
+		}
+		keys[i] = k
+	}
+	fingerprint := full.Fingerprint()
+	groups, ungrouped, err := full.GroupBy(keys)
+	if err != nil {
+		return err
+	}
+	keys = nil
+	fr := fleetRows{rows: full.Rows, ungrouped: ungrouped, fingerprint: fingerprint, counts: make(map[string]int, len(groups))}
+	byKey := make(map[string]*data.Dataset, len(groups))
+	for _, g := range groups {
+		fr.counts[g.Key], byKey[g.Key] = g.Data.Rows, g.Data
+	}
+	fr.group = func(k string) (*data.Dataset, error) { return byKey[k], nil }
+	fr.sample = func(idx []int) (*data.Dataset, error) { return full.Subset(idx), nil }
+	return trainFleetFrom(e, st, o, set, fr, format)
+}
+
+// missingMarkers are the texts that mark a missing cell (-missing), which
+// name no group.
+func (o *trainOpts) missingMarkers() map[string]bool {
 	missing := map[string]bool{}
 	switch strings.TrimSpace(o.data.missing) {
 	case "":
@@ -133,25 +154,33 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 			missing[m] = true
 		}
 	}
-	keys := make([]string, full.Rows)
-	w := len(full.KeptColumns)
-	for i := range keys {
-		k := strings.TrimSpace(full.Kept[i*w+col])
-		if missing[k] {
-			k = ""
-		}
-		keys[i] = k
+	return missing
+}
+
+// fleetRows is where a fleet's rows come from: a table in memory,
+// grouped in place, or a file regrouped on disk (-stream).
+type fleetRows struct {
+	rows, ungrouped int
+	fingerprint     string
+	counts          map[string]int // each group's rows
+	// group gives a group's rows, sample the rows at places of the
+	// grouped order (the shared model's)
+	group  func(key string) (*data.Dataset, error)
+	sample func(idx []int) (*data.Dataset, error)
+}
+
+// trainFleetFrom trains the fleet of fr's groups: the shard's members,
+// and the shared model in shard 0, side by side on the cores.
+func trainFleetFrom(e *env, st *status, o *trainOpts, set map[string]bool, fr fleetRows, format data.Format) error {
+	sh := fleet.All
+	if o.shard != "" {
+		sh, _ = fleet.ParseShard(o.shard) // checked in checkFleet
 	}
-	groups, ungrouped, err := full.GroupBy(keys)
-	if err != nil {
-		return err
-	}
-	keys = nil
-	counts := make(map[string]int, len(groups))
-	byKey := make(map[string]*data.Dataset, len(groups))
-	for _, g := range groups {
-		counts[g.Key], byKey[g.Key] = g.Data.Rows, g.Data
-	}
+	// the data's file name, not its folder: shards on other machines
+	// may see the file elsewhere
+	ix := fleet.Index{Format: fleet.FormatName, Version: fleet.Version, GroupColumn: o.group, Kind: o.kind, Seed: o.seed,
+		Settings: o.settings, Data: fleet.Data{Path: filepath.Base(o.data.path), Fingerprint: fr.fingerprint, Rows: fr.rows}, MinRows: o.minRows}
+	counts, ungrouped := fr.counts, fr.ungrouped
 	members, fallback, err := fleet.Plan(counts, o.minRows)
 	if err != nil {
 		return err
@@ -160,17 +189,17 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 	var jobs []*fleetJob
 	defer st.end()
 	sharedSeed := fleet.SeedFor(o.seed, "")
-	if o.shared > 0 && sh.Index == 0 && full.Rows > 0 {
+	if o.shared > 0 && sh.Index == 0 && fr.rows > 0 {
 		// a seeded draw from every row, grouped or not, in the grouped
 		// order (which does not depend on the file's order of groups)
-		n := min(o.shared, full.Rows)
-		idx := rand.New(rand.NewPCG(sharedSeed, stream.Split)).Perm(full.Rows)[:n]
+		n := min(o.shared, fr.rows)
+		idx := rand.New(rand.NewPCG(sharedSeed, stream.Split)).Perm(fr.rows)[:n]
 		slices.Sort(idx)
-		jobs = append(jobs, &fleetJob{d: full.Subset(idx), file: fleet.SharedFile})
+		jobs = append(jobs, &fleetJob{rows: n, load: func() (*data.Dataset, error) { return fr.sample(idx) }, file: fleet.SharedFile})
 	}
 	for k, g := range members {
 		if sh.Owns(k) {
-			jobs = append(jobs, &fleetJob{group: g, d: byKey[g], file: fleet.FileName(g)})
+			jobs = append(jobs, &fleetJob{group: g, rows: counts[g], load: func() (*data.Dataset, error) { return fr.group(g) }, file: fleet.FileName(g)})
 		}
 	}
 	st.end()
@@ -208,8 +237,11 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 					continue
 				}
 				seed := fleet.SeedFor(o.seed, j.group)
-				j.res, j.err = trainMember(e, *o, set, j.d, format, filepath.Join(o.out, j.file), seed)
-				j.res.Group = j.group
+				d, err := j.load()
+				if err == nil {
+					j.res, err = trainMember(e, *o, set, d, format, filepath.Join(o.out, j.file), seed)
+				}
+				j.res.Group, j.err = j.group, err
 				if j.err != nil {
 					failed.Store(true)
 				}
@@ -243,7 +275,7 @@ func trainFleet(e *env, st *status, o *trainOpts, set map[string]bool, full *dat
 			if j.group != "" {
 				what = fmt.Sprintf("%s %s", o.group, j.group)
 			}
-			return fmt.Errorf("%s (%s): %w", what, plural(j.d.Rows, "row"), j.err)
+			return fmt.Errorf("%s (%s): %w", what, plural(j.rows, "row"), j.err)
 		}
 		if j.file == fleet.SharedFile {
 			m := j.res

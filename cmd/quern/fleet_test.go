@@ -207,6 +207,31 @@ func TestFleetShardsMergeBitwise(t *testing.T) {
 	}
 }
 
+// A fleet trained from the file regrouped on disk (-stream) is the
+// fleet trained in memory, file for file, bit for bit; the index names
+// no flag that changes no model (-stream, -cache).
+func TestFleetStreamed(t *testing.T) {
+	dir := t.TempDir()
+	writeFleetCSV(t, filepath.Join(dir, "sites.csv"), map[string]int{"north": 150, "south": 120, "east": 90, "kiosk": 20, "": 15}, 6)
+	args := []string{"train", "-data", "sites.csv", "-group", "site", "-columns", "temp,pressure,flow", "-epochs", "3", "-hidden", "6", "-latent", "2", "-folds", "0", "-seed", "2", "-shared", "200", "-min-rows", "60", "-quiet"}
+	ok(t, quern(t, dir, nil, append(args, "-out", "mem")...))
+	ok(t, quern(t, dir, []string{"GOMAXPROCS=1"}, append(args, "-stream", "-cache", dir, "-out", "str")...))
+	mem, str := fleetFiles(t, filepath.Join(dir, "mem")), fleetFiles(t, filepath.Join(dir, "str"))
+	require.Len(t, mem, 5) // the index, three members, the shared model
+	require.Equal(t, len(mem), len(str))
+	for name, b := range mem {
+		require.True(t, bytes.Equal(b, str[name]), "%s differs between the fleet trained in memory and the streamed one", name)
+	}
+	left, _ := filepath.Glob(filepath.Join(dir, "quern-groups-*"))
+	require.Empty(t, left, "the regrouped rows outlived the run")
+	r := quern(t, dir, nil, append(args, "-stream", "-cache", "none", "-out", "x")...)
+	require.Equal(t, 2, r.code)
+	require.Contains(t, r.stderr, "-cache none with -group")
+	r = quern(t, dir, nil, "train", "-data", "sites.csv", "-group", "site", "-stream", "-out", "y", "-quiet")
+	require.Equal(t, 1, r.code)
+	require.Contains(t, r.stderr, `column 6 (mode): "`)
+}
+
 func TestFleetBadFlags(t *testing.T) {
 	dir := t.TempDir()
 	writeFleetCSV(t, filepath.Join(dir, "sites.csv"), map[string]int{"a": 30, "b": 30}, 2)

@@ -22,10 +22,16 @@ import (
 // checkStream refuses what a streamed training run cannot do, in the
 // flags' words, before any work.
 func (o *trainOpts) checkStream(set map[string]bool) error {
-	for _, f := range []string{"group", "every", "checkpoint", "watch", "report", "label", "labels", "keep", "supervised", "conditional", "channels"} {
+	for _, f := range []string{"every", "checkpoint", "watch", "label", "labels", "keep", "supervised", "conditional", "channels"} {
 		if set[f] {
-			return usagef("-%s with -stream: a streamed run trains an autoencoder or a VAE on a CSV table of numbers, written once at the end (no -group, -every, -checkpoint, -watch, -report, labels or convolutions yet)", f)
+			return usagef("-%s with -stream: a streamed run trains an autoencoder or a VAE on a table of numbers, written once at the end (no -every, -checkpoint, -watch, labels or convolutions yet)", f)
 		}
+	}
+	if set["report"] && o.group == "" {
+		return usagef("-report with -stream: a streamed run of one model writes no report yet (a fleet's, -group, does)")
+	}
+	if o.group != "" && o.cache == "none" {
+		return usagef("-cache none with -group: a streamed fleet regroups its rows on disk, in -cache's folder")
 	}
 	switch {
 	case o.data.types != "" || o.data.missing != "":
@@ -256,4 +262,53 @@ func sizeText(n int64) string {
 		return fmt.Sprintf("%.1f GiB", float64(n)/(1<<30))
 	}
 	return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20))
+}
+
+// trainFleetStream trains a fleet from a CSV file too large to hold: the
+// file is read twice and its rows regrouped on disk (data.PartitionCSV),
+// then each member reads its group's rows alone. The fleet is the one
+// the same rows give in memory, bit for bit.
+func trainFleetStream(e *env, st *status, o *trainOpts, set map[string]bool) error {
+	if o.data.path == "" || o.data.path == "-" {
+		return usagef("-stream reads a file twice: give -data FILE (not standard input)")
+	}
+	if f, err := data.Detect(o.data.path); err != nil {
+		return fmt.Errorf("cannot read data: %w", err)
+	} else if f != data.FormatCSV {
+		return usagef("-group with -stream: a streamed fleet is read from a CSV file (plain or gzip); %s is %s", o.data.path, f)
+	}
+	comma, err := o.data.separator()
+	if err != nil {
+		return err
+	}
+	dir := os.TempDir()
+	if o.cache != "" {
+		if fi, err := os.Stat(o.cache); err != nil || !fi.IsDir() {
+			return usagef("-cache %s: not a folder (give a folder for the regrouped rows)", o.cache)
+		}
+		dir = o.cache
+	}
+	cfg := data.CSVConfig{NoHeader: o.data.noHeader, SkipLines: o.data.skip, Columns: splitList(o.data.columns), Comma: comma, Limits: o.data.limits.l}
+	// the markers a typed reading in memory records in the encoding
+	// (-missing is refused with -stream: the default ones)
+	markers := data.DefaultMissing
+	st.begin("group", func() string { return "regrouping " + o.data.path + " on disk" })
+	p, err := data.PartitionCSV(o.data.path, cfg, o.group, markers, dir)
+	if err != nil {
+		var pe *data.ParseError
+		if errors.As(err, &pe) && strings.Contains(pe.Msg, "to keep is not in the header") {
+			_, cols, _ := strings.Cut(pe.Msg, "(columns: ")
+			return usagef("-group %s: %s has no such column (its columns: %s", o.group, o.data.path, cols)
+		}
+		return err
+	}
+	defer p.Close()
+	fr := fleetRows{rows: p.Rows, ungrouped: p.Ungrouped, fingerprint: p.Fingerprint, counts: make(map[string]int, len(p.Groups))}
+	at := make(map[string]int, len(p.Groups))
+	for i, g := range p.Groups {
+		fr.counts[g.Key], at[g.Key] = g.Rows, i
+	}
+	fr.group = func(k string) (*data.Dataset, error) { return p.Group(at[k]) }
+	fr.sample = p.Sample
+	return trainFleetFrom(e, st, o, set, fr, data.FormatCSV)
 }

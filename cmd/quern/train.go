@@ -246,6 +246,9 @@ func cmdTrain(e *env, args []string) error {
 	}
 	st := newStatus(e.stderr, o.quiet)
 	defer st.end() // an error return leaves no phase drawn or ticking
+	if o.stream && o.group != "" {
+		return trainFleetStream(e, st, &o, set)
+	}
 	if o.stream {
 		return trainStream(e, st, &o, set)
 	}
