@@ -132,7 +132,7 @@ func TestStreamCommands(t *testing.T) {
 		want string
 	}{
 		{[]string{"train", "-stream", "-kind", "gan", "-data", csvPath, "-out", "x.qm"}, 2, "-stream with -kind gan"},
-		{[]string{"train", "-stream", "-group", "a", "-data", csvPath, "-out", "x"}, 2, "-group with -stream"},
+		{[]string{"train", "-stream", "-report", "rep", "-data", csvPath, "-out", "x.qm"}, 2, "-report with -stream"},
 		{[]string{"train", "-stream", "-folds", "3", "-data", csvPath, "-out", "x.qm"}, 2, "-folds 3 with -stream"},
 		{[]string{"train", "-buffer", "10", "-data", csvPath, "-out", "x.qm"}, 2, "-buffer is for a streamed run: give -stream"},
 		{[]string{"train", "-stream", "-cache", "nosuch", "-data", csvPath, "-out", "x.qm"}, 2, "-cache nosuch: not a folder"},
