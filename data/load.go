@@ -20,8 +20,8 @@ const (
 )
 
 // Detect tells the format of path by its content, not its name: a
-// directory is a folder of PNG images; a file that starts with PAR1 is
-// Parquet; a file whose (decompressed) first bytes are an idx header (two
+// directory is a folder of PNG images; a file that starts and ends with
+// PAR1 is Parquet; a file whose (decompressed) first bytes are an idx header (two
 // zero bytes, a known type, 1 to 4 dimensions) is idx; anything else is
 // read as CSV.
 func Detect(path string) (Format, error) {
@@ -38,7 +38,7 @@ func Detect(path string) (Format, error) {
 	}
 	defer f.Close()
 	br := bufio.NewReader(f)
-	if h, _ := br.Peek(4); string(h) == parquetMagic {
+	if h, _ := br.Peek(4); string(h) == parquetMagic && isParquet(path) {
 		return FormatParquet, nil
 	}
 	var r io.Reader = br

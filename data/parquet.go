@@ -225,16 +225,26 @@ func parquetNumber(v parquet.Value) (float32, string) {
 	return g, ""
 }
 
-// isParquet reports whether path starts with the Parquet magic bytes.
+// isParquet reports whether path starts and ends with the Parquet magic
+// bytes (a CSV file whose first cell is PAR1 does not end with them).
 func isParquet(path string) bool {
 	fh, err := os.Open(path)
 	if err != nil {
 		return false
 	}
 	defer fh.Close()
-	var head [4]byte
-	n, _ := io.ReadFull(fh, head[:])
-	return n == 4 && string(head[:]) == parquetMagic
+	st, err := fh.Stat()
+	if err != nil || st.Size() < 12 {
+		return false
+	}
+	var head, tail [4]byte
+	if _, err := fh.ReadAt(head[:], 0); err != nil {
+		return false
+	}
+	if _, err := fh.ReadAt(tail[:], st.Size()-4); err != nil {
+		return false
+	}
+	return string(head[:]) == parquetMagic && string(tail[:]) == parquetMagic
 }
 
 // LoadParquet reads a Parquet file's table of numbers into memory (every

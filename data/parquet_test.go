@@ -107,3 +107,13 @@ func TestParquetStreamMatchesCSV(t *testing.T) {
 	}))
 	require.Equal(t, d.Rows, n)
 }
+
+// A CSV file whose first cell is PAR1 is a CSV file: a Parquet file ends
+// with the magic bytes too.
+func TestParquetMagicInCSV(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "genes.csv")
+	require.NoError(t, os.WriteFile(path, []byte("PAR1,x\n1,2\n"), 0o644))
+	f, err := Detect(path)
+	require.NoError(t, err)
+	require.Equal(t, FormatCSV, f)
+}

@@ -90,7 +90,7 @@ func PartitionCSV(path string, cfg CSVConfig, key string, missing []string, dir 
 		for r := range rows {
 			k := keyOf(kept[r])
 			if _, ok := counts[k]; !ok && len(counts) >= maxPartitionKeys {
-				return &LimitError{File: path, Key: "rows", Limit: maxPartitionKeys, What: fmt.Sprintf("more than %d distinct values of %s", maxPartitionKeys, key)}
+				return &ParseError{File: path, Msg: fmt.Sprintf("more than %d distinct values of %s: not a column that names groups?", maxPartitionKeys, key)}
 			}
 			counts[k]++
 		}

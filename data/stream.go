@@ -330,8 +330,11 @@ func (s *Stream) pass(order []int, f func(x []float32, val []bool, lines []int, 
 		in = io.MultiReader(parts...)
 		k := 0
 		index = func(t int) int {
-			for t >= starts[k+1] {
+			for k+1 < len(starts) && t >= starts[k+1] {
 				k++
+			}
+			if k+1 == len(starts) {
+				return -1 // more rows than the blocks held: the file changed
 			}
 			return s.blocks[order[k]].row + t - starts[k]
 		}
@@ -354,7 +357,11 @@ func (s *Stream) pass(order []int, f func(x []float32, val []bool, lines []int, 
 		n := len(b.rowLines)
 		val = val[:0]
 		for range n {
-			val = append(val, s.isVal(index(read)))
+			i := index(read)
+			if i < 0 {
+				return &ParseError{File: s.Path, Msg: "the file changed since it was first read (it holds more rows)"}
+			}
+			val = append(val, s.isVal(i))
 			read++
 		}
 		return f(b.x, val, b.rowLines, b.rowOffs, n)
@@ -374,10 +381,13 @@ func (s *Stream) Each(part Part, f func(x []float32, rows int) error) error {
 	return s.each(nil, part, f)
 }
 
-// EachShuffled is Each with a plain CSV file's rows read in runs of 1024
-// in an order drawn from rng, a Parquet file's row groups in such an
-// order (a gzip file's rows in file order): what a shuffle buffer then
-// mixes comes from all over the file.
+// EachShuffled is Each with the rows read in runs of 1024 in an order
+// drawn from rng, so that what a shuffle buffer then mixes comes from all
+// over the file: from the binary copy (StreamConfig.CacheDir) whatever the
+// format; without one, a plain CSV file's runs in the same order (the
+// same rows in the same order as with the copy), a Parquet file's row
+// groups in an order drawn from rng, a gzip file's rows in file order (a
+// stream read without a copy then trains another model than with one).
 func (s *Stream) EachShuffled(part Part, rng *rand.Rand, f func(x []float32, rows int) error) error {
 	var order []int
 	switch {

@@ -15,11 +15,12 @@
 // process equals, bit for bit, one trained in shards on many machines and
 // merged: each group's seed comes from the run's seed and the group's name
 // alone (SeedFor), each group belongs to one shard by its place among the
-// sorted names (ShardOf), and the index holds no time, host or shard.
+// sorted names (Shard.Owns), and the index holds no time, host or shard.
 //
-// Open reads a fleet for inference: each member is opened through
-// model.Open, and Fleet.Route finds the model for a group, falling back to
-// the shared model for a group without one of its own. A Fleet is safe
-// for concurrent use; Reload swaps in the files that changed, one member
-// at a time, while requests keep being answered.
+// Open reads a fleet for inference: each member's file is checked against
+// its hash and decoded (model.Decode), and Fleet.Route finds the model for
+// a group, falling back to the shared model for a group without one of
+// its own. A Fleet is safe for concurrent use; Reload opens the files
+// that changed (or one member) and swaps the new set in at once, while
+// requests keep being answered.
 package fleet

@@ -24,9 +24,9 @@ type Entry[T any] struct {
 }
 
 // Fleet is an opened fleet: every member's file read once, checked
-// against the index and opened. Route and Members are safe for
-// concurrent use, also while Reload runs; a request that routed before a
-// reload finishes with the model it got.
+// against the index and opened. Route, Shared, Any, Len and Index are
+// safe for concurrent use, also while Reload runs; a request that routed
+// before a reload finishes with the model it got.
 type Fleet[T any] struct {
 	dir   string
 	open  func(b []byte, path string) (T, error)
@@ -76,6 +76,8 @@ func (f *Fleet[T]) Route(group string) (e *Entry[T], shared, ok bool) {
 	if e, ok := st.members[group]; ok {
 		return e, false, true
 	}
+	// a group with no model of its own, an empty cell or a missing-value
+	// marker (which named no group in training): the shared model
 	if st.shared != nil {
 		return st.shared, true, true
 	}
@@ -147,7 +149,8 @@ func (f *Fleet[T]) Reload(group string, shared bool) (Reloaded, error) {
 			next.members[group] = e
 		}
 		f.state.Store(next)
-		return Reloaded{Opened: 1, Kept: len(old.members) + btoi(old.shared != nil) - 1}, nil
+		kept := len(next.members) + btoi(next.shared != nil) - 1
+		return Reloaded{Opened: 1, Kept: kept}, nil
 	}
 	r := Reloaded{}
 	for g, e := range st.members {
@@ -161,6 +164,9 @@ func (f *Fleet[T]) Reload(group string, shared bool) (Reloaded, error) {
 		if _, ok := st.members[g]; !ok {
 			r.Removed++
 		}
+	}
+	if old.shared != nil && st.shared == nil {
+		r.Removed++
 	}
 	f.state.Store(st)
 	return r, nil
@@ -187,6 +193,9 @@ func (f *Fleet[T]) load(old *state[T], only string) (*state[T], error) {
 	ix, err := ReadIndex(f.dir)
 	if err != nil {
 		return nil, err
+	}
+	if len(ix.Members) == 0 && ix.Shared == nil {
+		return nil, &Error{filepath.Join(f.dir, IndexFile), "names no model"}
 	}
 	st := &state[T]{index: ix, members: make(map[string]*Entry[T], len(ix.Members))}
 	want := func(group string, m Member, prev *Entry[T]) bool {

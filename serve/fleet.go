@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"net/http"
+	"strings"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/fleet"
@@ -77,6 +78,22 @@ func (s *Server) reloadFleet(group string, shared bool) (fleet.Reloaded, error) 
 	s.m.reloads.Add(1)
 	s.log.Info("fleet reloaded", "fleet", s.cfg.FleetPath, "group", group, "opened", got.Opened, "kept", got.Kept, "removed", got.Removed)
 	return got, nil
+}
+
+// groupText is a record's group cell as the training file's text would
+// be: a string trimmed, a number as written (1234567, not 1.234567e+06;
+// 7.0 stays 7.0), a boolean as true or false, null as no group.
+func groupText(raw json.RawMessage) (string, error) {
+	t := strings.TrimSpace(string(raw))
+	if len(t) > 0 && (t[0] == '-' || t[0] >= '0' && t[0] <= '9') {
+		var n json.Number
+		if err := json.Unmarshal(raw, &n); err != nil {
+			return "", err
+		}
+		return n.String(), nil
+	}
+	s, err := cellText(raw)
+	return strings.TrimSpace(s), err
 }
 
 // route finds a group's model, or answers 404 when the fleet has neither
@@ -175,7 +192,7 @@ func (s *Server) splitRecords(w http.ResponseWriter, r *http.Request) (*rowsRequ
 			writeError(w, http.StatusBadRequest, "record %d has no %q, the column that picks its model", i+1, col)
 			return nil, nil, false
 		}
-		g, err := cellText(raw)
+		g, err := groupText(raw)
 		if err != nil {
 			writeError(w, http.StatusBadRequest, "record %d: %q is %s: %v", i+1, col, raw, err)
 			return nil, nil, false

@@ -74,7 +74,7 @@ func record(site any, from int) map[string]any {
 // model, says which, and takes the group from the path too.
 func TestFleetRouting(t *testing.T) {
 	dir := t.TempDir()
-	want := writeFleet(t, dir, []string{"north", "south/2"}, true, 1)
+	want := writeFleet(t, dir, []string{"1234567", "north", "south/2"}, true, 1)
 	l := start(t, Config{FleetPath: dir})
 	c := &http.Client{Timeout: 5 * time.Second}
 	body, _ := json.Marshal(map[string]any{"records": []any{record("south/2", 0), record("elsewhere", 0), record("north", 0), record(7, 0)}})
@@ -86,6 +86,13 @@ func TestFleetRouting(t *testing.T) {
 		require.InDelta(t, want[g], res[i].(map[string]any)["score"].(float64), 1e-9*want[g], "record %d", i+1)
 	}
 	require.Equal(t, []any{"own", "shared", "own", "shared"}, v["routed"])
+	// a group named by a number is the number as written, as in the
+	// training file's text (not 1.234567e+06)
+	numeric, _ := json.Marshal(map[string]any{"records": []any{record(json.RawMessage("1234567"), 0), record(" north ", 0)}})
+	code, v = post(t, c, l.url+"/v1/score", numeric)
+	require.Equal(t, 200, code, "%v", v)
+	require.Equal(t, []any{"own", "own"}, v["routed"])
+	require.InDelta(t, want["1234567"], v["results"].([]any)[0].(map[string]any)["score"].(float64), 1e-9*want["1234567"])
 	require.Contains(t, v["caution"], "decision aid")
 
 	// the group in the path: escaped, as a client must send a slash
@@ -132,11 +139,11 @@ func TestFleetRouting(t *testing.T) {
 	var b strings.Builder
 	_, err = fmt.Fprint(&b, readAll(t, resp))
 	require.NoError(t, err)
-	// records routed by column (2 + 2 own, 2 + 2 shared), requests by
-	// path (2 own, 1 shared); nothing of the refused requests
-	require.Contains(t, b.String(), `quern_fleet_routed_total{to="own"} 6`)
+	// records routed by column (2 + 2 + 2 own, 2 + 2 shared), requests
+	// by path (2 own, 1 shared); nothing of the refused requests
+	require.Contains(t, b.String(), `quern_fleet_routed_total{to="own"} 8`)
 	require.Contains(t, b.String(), `quern_fleet_routed_total{to="shared"} 5`)
-	require.Contains(t, b.String(), "quern_fleet_models 2")
+	require.Contains(t, b.String(), "quern_fleet_models 3")
 	require.NotContains(t, b.String(), "north", "a metric label names a group")
 }
 

@@ -441,7 +441,7 @@ func (s *Server) decodeRows(w http.ResponseWriter, r *http.Request, cols int, na
 		// never scored by the path's model
 		for i, rec := range req.Records {
 			if raw, ok := rec[g.column]; ok {
-				if t, err := cellText(raw); err != nil || t != g.group {
+				if t, err := groupText(raw); err != nil || t != g.group {
 					writeError(w, http.StatusBadRequest, "record %d has %s %s, but the path names %q", i+1, g.column, raw, g.group)
 					return nil, nil, nil, false
 				}

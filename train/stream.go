@@ -50,7 +50,7 @@ func (t *Trainer) RunStream(ctx context.Context, s *data.Stream, set StreamSetti
 	// the rows' ranges stand in for the rows where prepare looks at
 	// them, and the scaler is fitted on the stream's statistics
 	if _, _, err := t.r.prepare(s.Bounds(data.TrainRows), s.Bounds(data.ValRows)); err != nil {
-		return t.history, err
+		return t.history, fmt.Errorf("%w (of the streamed rows' range: row 1 stands for each column's least value, row 2 for its greatest)", err)
 	}
 	l := &loop{r: t.r, s: t.s, shuffle: rand.New(t.shuffle), seed: t.seed, h: t.history, mid: &t.midEpoch, best: &t.best}
 	src := &streamSource{s: s, size: t.s.BatchSize, buffer: min(set.Buffer, s.TrainRows), rng: l.shuffle}

@@ -193,9 +193,13 @@ func trainFleetFrom(e *env, st *status, o *trainOpts, set map[string]bool, fr fl
 		// a seeded draw from every row, grouped or not, in the grouped
 		// order (which does not depend on the file's order of groups)
 		n := min(o.shared, fr.rows)
-		idx := rand.New(rand.NewPCG(sharedSeed, stream.Split)).Perm(fr.rows)[:n]
-		slices.Sort(idx)
-		jobs = append(jobs, &fleetJob{rows: n, load: func() (*data.Dataset, error) { return fr.sample(idx) }, file: fleet.SharedFile})
+		idx := sampleRows(rand.New(rand.NewPCG(sharedSeed, stream.Split)), fr.rows, n)
+		// read now: the members' runs reorder their rows in place
+		d, err := fr.sample(idx)
+		if err != nil {
+			return err
+		}
+		jobs = append(jobs, &fleetJob{rows: n, load: func() (*data.Dataset, error) { return d, nil }, file: fleet.SharedFile})
 	}
 	for k, g := range members {
 		if sh.Owns(k) {
@@ -217,10 +221,18 @@ func trainFleetFrom(e *env, st *status, o *trainOpts, set map[string]bool, fr fl
 	// each other (the results are the same either way)
 	par.Limit(1)
 	defer par.Limit(0)
-	modelfile.RemoveStale(o.out)
 	if err := os.MkdirAll(o.out, 0o755); err != nil {
 		return fmt.Errorf("-out %s: cannot make the fleet's folder: %v", o.out, errText(err))
 	}
+	// the members are written in a folder of their own and take their
+	// places only once every one is trained: a run that fails or is
+	// stopped leaves the fleet already in -out as it was
+	staging := filepath.Join(o.out, fmt.Sprintf(".training-%d-of-%d", sh.Index, sh.Of))
+	os.RemoveAll(staging) // an earlier run's, stopped
+	if err := os.Mkdir(staging, 0o755); err != nil {
+		return fmt.Errorf("-out %s: cannot make a folder for the models being trained: %v", o.out, errText(err))
+	}
+	defer os.RemoveAll(staging)
 	var done atomic.Int64
 	st.begin("train fleet", func() string {
 		return fmt.Sprintf("%d of %d models trained", done.Load(), len(jobs))
@@ -239,7 +251,7 @@ func trainFleetFrom(e *env, st *status, o *trainOpts, set map[string]bool, fr fl
 				seed := fleet.SeedFor(o.seed, j.group)
 				d, err := j.load()
 				if err == nil {
-					j.res, err = trainMember(e, *o, set, d, format, filepath.Join(o.out, j.file), seed)
+					j.res, err = trainMember(e, *o, set, d, format, filepath.Join(staging, j.file), seed)
 				}
 				j.res.Group, j.err = j.group, err
 				if j.err != nil {
@@ -256,11 +268,21 @@ func trainFleetFrom(e *env, st *status, o *trainOpts, set map[string]bool, fr fl
 	wg.Wait()
 	st.end()
 	if !failed.Load() {
-		// the members on disk before the index that names them
+		// the members on disk, then in their places, before the index
+		// that names them
 		st.begin("sync", nil)
 		paths := make([]string, len(jobs))
 		for i, j := range jobs {
+			paths[i] = filepath.Join(staging, j.file)
+		}
+		if err := modelfile.Sync(paths...); err != nil {
+			return err
+		}
+		for i, j := range jobs {
 			paths[i] = filepath.Join(o.out, j.file)
+			if err := os.Rename(filepath.Join(staging, j.file), paths[i]); err != nil {
+				return fmt.Errorf("-out %s: %v", o.out, errText(err))
+			}
 		}
 		if err := modelfile.Sync(paths...); err != nil {
 			return err
@@ -677,6 +699,9 @@ func openFleetForScoring(dir string, d *dataFlags, out string) (*loaded, *scorin
 	if _, ok := any.Value.(model.Scorer); !ok {
 		return nil, nil, fmt.Errorf("score -fleet needs models with anomaly scores; the fleet %s holds models of kind %q", dir, any.Value.Kind())
 	}
+	if fm, err := data.Detect(d.path); err == nil && fm == data.FormatParquet {
+		return nil, nil, usagef("score -fleet reads CSV files: the group column is read as text beside the rows, and %s is a Parquet file", d.path)
+	}
 	col := f.Index().GroupColumn
 	keep := splitList(d.keep)
 	if slices.Contains(keep, col) {
@@ -760,4 +785,23 @@ func (sf *scoringFleet) count(r fleetScores) {
 			sf.none++
 		}
 	}
+}
+
+// sampleRows draws n distinct places of N (n <= N), sorted, by Floyd's
+// algorithm (Bentley and Floyd, "Programming pearls: a sample of
+// brilliance", Communications of the ACM 30(9), 1987): memory for the n
+// places only, whatever N.
+func sampleRows(rng *rand.Rand, N, n int) []int {
+	chosen := make(map[int]bool, n)
+	out := make([]int, 0, n)
+	for j := N - n; j < N; j++ {
+		t := rng.IntN(j + 1)
+		if chosen[t] {
+			t = j
+		}
+		chosen[t] = true
+		out = append(out, t)
+	}
+	slices.Sort(out)
+	return out
 }

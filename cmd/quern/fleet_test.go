@@ -279,3 +279,17 @@ func TestFleetBadFlags(t *testing.T) {
 	_, err = os.Stat(filepath.Join(dir, "f2"))
 	require.True(t, os.IsNotExist(err), "a merge that failed left its -out folder")
 }
+
+// Floyd's sample: n distinct places of N, sorted, the same for a seed.
+func TestSampleRows(t *testing.T) {
+	for _, c := range [][2]int{{10, 10}, {1000, 7}, {5, 0}, {100000, 2000}} {
+		got := sampleRows(rand.New(rand.NewPCG(1, 2)), c[0], c[1])
+		require.Len(t, got, c[1])
+		require.True(t, slices.IsSorted(got))
+		require.Equal(t, len(got), len(slices.Compact(slices.Clone(got))), "repeated places")
+		if len(got) > 0 {
+			require.Less(t, got[len(got)-1], c[0])
+		}
+		require.Equal(t, got, sampleRows(rand.New(rand.NewPCG(1, 2)), c[0], c[1]))
+	}
+}

@@ -173,7 +173,7 @@ func outputWhole(e *env, path string) (w io.Writer, done func() error, abort fun
 	}
 	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
 	if err != nil {
-		return nil, nil, nil, err
+		return nil, nil, func() {}, err
 	}
 	bw := bufio.NewWriter(f)
 	finished := false

@@ -40,9 +40,6 @@ const (
 	Group uint64 = 0x6a0c
 	// Sample draws a streamed table's sample of its training rows.
 	Sample uint64 = 0x5a3b
-	// Buffer draws a streamed table's shuffle buffer: which buffered row
-	// each incoming row replaces.
-	Buffer uint64 = 0xb0f
 )
 
 // ScoreSeed is the seed of a VAE's density score: its draws come from
