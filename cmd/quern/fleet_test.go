@@ -232,6 +232,24 @@ func TestFleetStreamed(t *testing.T) {
 	require.Contains(t, r.stderr, `column 6 (mode): "`)
 }
 
+// A re-train that fails leaves the fleet already in the folder as it
+// was: the members train in a staging folder and take their places only
+// when every one is done.
+func TestFleetFailedRetrainKeepsFleet(t *testing.T) {
+	dir := t.TempDir()
+	writeFleetCSV(t, filepath.Join(dir, "sites.csv"), map[string]int{"north": 150, "south": 120}, 7)
+	args := []string{"train", "-data", "sites.csv", "-group", "site", "-columns", "temp,pressure,flow", "-epochs", "2", "-folds", "0", "-out", "fleet", "-quiet"}
+	ok(t, quern(t, dir, nil, args...))
+	before := fleetFiles(t, filepath.Join(dir, "fleet"))
+	// a learning rate that sends every loss to infinity
+	r := quern(t, dir, nil, append(args, "-rate", "1e30", "-seed", "9")...)
+	require.Equal(t, 1, r.code, r.stderr)
+	require.Contains(t, r.stderr, "non-finite")
+	require.Equal(t, before, fleetFiles(t, filepath.Join(dir, "fleet")), "a failed re-train changed the fleet in the folder")
+	left, _ := filepath.Glob(filepath.Join(dir, "fleet", ".training-*"))
+	require.Empty(t, left, "the staging folder was left")
+}
+
 func TestFleetBadFlags(t *testing.T) {
 	dir := t.TempDir()
 	writeFleetCSV(t, filepath.Join(dir, "sites.csv"), map[string]int{"a": 30, "b": 30}, 2)
