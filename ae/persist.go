@@ -23,6 +23,7 @@ func (md *meta) Apply(m *Model, _ *modelfile.File) error {
 		if err := md.Profile.check(md.Config.withDefaults()); err != nil {
 			return err
 		}
+		md.Profile.compact()
 	}
 	m.Fitted, m.Threshold, m.Profile = md.Fitted, md.Threshold, md.Profile
 	return nil

@@ -2,6 +2,7 @@ package ae
 
 import (
 	"fmt"
+	"slices"
 
 	"github.com/quernlab/quern/anomaly"
 	"github.com/quernlab/quern/data"
@@ -377,3 +378,15 @@ func (m *Model) profileScores(dst, contrib []float64, recon, x []float32, rows i
 // SetThreshold sets the model's threshold to one calibrated elsewhere (by
 // cross-fitting, say). Like Calibrate it changes the model.
 func (m *Model) SetThreshold(t anomaly.Threshold) { m.Threshold = &t }
+
+// compact copies the profile's slices to their lengths: JSON decoding
+// grows them by doubling, and a server of ten thousand models holds all
+// of them (the precision matrices are most of a served model's memory).
+func (p *Profile) compact() {
+	for _, g := range []*anomaly.Gaussian{p.Code, p.Residual, p.Input} {
+		if g != nil {
+			g.Mean, g.Precision, g.Variance = slices.Clone(g.Mean), slices.Clone(g.Precision), slices.Clone(g.Variance)
+		}
+	}
+	p.Scored = slices.Clone(p.Scored)
+}
