@@ -126,6 +126,17 @@ func TestOpenRouteReload(t *testing.T) {
 	require.True(t, ok)
 	require.True(t, shared)
 	require.Equal(t, f.Shared(), other)
+	// rows dealt to their models, each model's rows in order, the
+	// models in the order first met
+	keys := []string{"b", "zzz", "a", "b", ""}
+	batches, none := f.Deal(len(keys), func(i int) string { return keys[i] })
+	require.Empty(t, none)
+	require.Len(t, batches, 3)
+	require.Equal(t, "b", batches[0].Entry.Group)
+	require.Equal(t, []int{0, 3}, batches[0].Rows)
+	require.True(t, batches[1].Shared)
+	require.Equal(t, []int{1, 4}, batches[1].Rows)
+	require.Equal(t, []int{2}, batches[2].Rows)
 
 	// routes answer while reloads swap members in
 	var wg sync.WaitGroup

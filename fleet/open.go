@@ -84,6 +84,41 @@ func (f *Fleet[T]) Route(group string) (e *Entry[T], shared, ok bool) {
 	return nil, false, false
 }
 
+// Batch is the rows of a call that go to one model: its entry, whether
+// it is the shared model, and the rows' places in the call.
+type Batch[T any] struct {
+	Entry  *Entry[T]
+	Shared bool
+	Rows   []int
+}
+
+// Deal routes n rows by their groups (key(i) is row i's) as Route does,
+// all of them by the same loaded members, and returns a batch per model
+// in the order each model is first met, and the rows with no model (a
+// group of none of its own in a fleet without a shared model).
+func (f *Fleet[T]) Deal(n int, key func(i int) string) (batches []*Batch[T], none []int) {
+	st := f.state.Load()
+	byEntry := map[*Entry[T]]*Batch[T]{}
+	for i := range n {
+		e, shared := st.members[key(i)], false
+		if e == nil {
+			e, shared = st.shared, true
+		}
+		if e == nil {
+			none = append(none, i)
+			continue
+		}
+		b := byEntry[e]
+		if b == nil {
+			b = &Batch[T]{Entry: e, Shared: shared}
+			byEntry[e] = b
+			batches = append(batches, b)
+		}
+		b.Rows = append(b.Rows, i)
+	}
+	return batches, none
+}
+
 // Shared is the shared model, or nil.
 func (f *Fleet[T]) Shared() *Entry[T] { return f.state.Load().shared }
 

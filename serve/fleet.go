@@ -158,16 +158,9 @@ func withRouted(r *http.Request, v map[string]any) map[string]any {
 	return v
 }
 
-// fleetBatch is the records of one request that go to one model.
-type fleetBatch struct {
-	e      *fleet.Entry[*Loaded]
-	routed string
-	nums   []int // the records' places in the request
-}
-
 // splitRecords reads a fleet request's records and deals them to their
-// groups' models, in the order each group first appears.
-func (s *Server) splitRecords(w http.ResponseWriter, r *http.Request) (*rowsRequest, []*fleetBatch, bool) {
+// groups' models, in the order each model is first met.
+func (s *Server) splitRecords(w http.ResponseWriter, r *http.Request) (*rowsRequest, []*fleet.Batch[*Loaded], bool) {
 	var req rowsRequest
 	if !decodeJSON(w, r, &req) {
 		return nil, nil, false
@@ -184,8 +177,7 @@ func (s *Server) splitRecords(w http.ResponseWriter, r *http.Request) (*rowsRequ
 		writeError(w, http.StatusRequestEntityTooLarge, "%d records, the limit is %d", len(req.Records), s.cfg.MaxRows)
 		return nil, nil, false
 	}
-	byEntry := map[*fleet.Entry[*Loaded]]*fleetBatch{}
-	var batches []*fleetBatch
+	keys := make([]string, len(req.Records))
 	for i, rec := range req.Records {
 		raw, ok := rec[col]
 		if !ok {
@@ -197,19 +189,23 @@ func (s *Server) splitRecords(w http.ResponseWriter, r *http.Request) (*rowsRequ
 			writeError(w, http.StatusBadRequest, "record %d: %q is %s: %v", i+1, col, raw, err)
 			return nil, nil, false
 		}
-		e, routed, ok := s.route(w, g, fmt.Sprintf(" (record %d)", i+1))
-		if !ok {
-			return nil, nil, false
-		}
-		b := byEntry[e]
-		if b == nil {
-			b = &fleetBatch{e: e, routed: routed}
-			byEntry[e] = b
-			batches = append(batches, b)
-		}
-		b.nums = append(b.nums, i)
+		keys[i] = g
+	}
+	batches, none := s.fleet.Deal(len(keys), func(i int) string { return keys[i] })
+	if len(none) > 0 {
+		s.m.refused.Add(1)
+		writeError(w, http.StatusNotFound, "no model for %s %q (record %d): the fleet has none of its own for it and no shared model (train with -shared N for one)", col, keys[none[0]], none[0]+1)
+		return nil, nil, false
 	}
 	return &req, batches, true
+}
+
+// routedName says where a batch went, as answers and metrics say it.
+func routedName[T any](b *fleet.Batch[T]) string {
+	if b.Shared {
+		return routedShared
+	}
+	return routedOwn
 }
 
 // fleetRows runs f on each batch's rows, read by its model, after
@@ -224,19 +220,19 @@ func (s *Server) fleetRows(w http.ResponseWriter, r *http.Request, need func(htt
 	routed := make([]string, len(req.Records))
 	var read []string
 	for _, b := range batches {
-		m := b.e.Value
+		m := b.Entry.Value
 		if !need(w, m) {
 			return nil, nil, nil, false
 		}
-		sub := &rowsRequest{Records: make([]map[string]json.RawMessage, len(b.nums)), Top: req.Top}
-		for k, i := range b.nums {
+		sub := &rowsRequest{Records: make([]map[string]json.RawMessage, len(b.Rows)), Top: req.Top}
+		for k, i := range b.Rows {
 			sub.Records[k] = req.Records[i]
 		}
 		var fields []string
 		if enc := m.Model.Schema().Encoding; enc != nil {
 			fields = enc.Names()
 		}
-		x, reads, ok := s.readRows(w, sub, m.Model.Width(), namedColumns(m.Model.Schema().Columns), m.cells, fields, b.nums)
+		x, reads, ok := s.readRows(w, sub, m.Model.Width(), namedColumns(m.Model.Schema().Columns), m.cells, fields, b.Rows)
 		if !ok {
 			return nil, nil, nil, false
 		}
@@ -244,19 +240,19 @@ func (s *Server) fleetRows(w http.ResponseWriter, r *http.Request, need func(htt
 			read = make([]string, len(req.Records))
 		}
 		for k, rd := range reads {
-			read[b.nums[k]] = rd.text
+			read[b.Rows[k]] = rd.text
 		}
-		err := f(m, x, len(b.nums), sub, reads, func(k int, v any) { out[b.nums[k]] = v })
+		err := f(m, x, len(b.Rows), sub, reads, func(k int, v any) { out[b.Rows[k]] = v })
 		if err != nil {
-			writeError(w, http.StatusBadRequest, "%s %q: %v", s.fleet.Index().GroupColumn, b.e.Group, err)
+			writeError(w, http.StatusBadRequest, "%s %q: %v", s.fleet.Index().GroupColumn, b.Entry.Group, err)
 			return nil, nil, nil, false
 		}
-		for _, i := range b.nums {
-			routed[i] = b.routed
+		for _, i := range b.Rows {
+			routed[i] = routedName(b)
 		}
 	}
 	for _, b := range batches {
-		s.m.routed(b.routed, len(b.nums))
+		s.m.routed(routedName(b), len(b.Rows))
 	}
 	return out, routed, read, true
 }

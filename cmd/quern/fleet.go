@@ -717,53 +717,36 @@ func openFleetForScoring(dir string, d *dataFlags, out string) (*loaded, *scorin
 func (sf *scoringFleet) score(x []float32, n, top int, kept []string, nk int) (fleetScores, error) {
 	cols := len(x) / max(n, 1)
 	out := fleetScores{scores: make([]anomaly.Score, n), routes: make([]string, n)}
-	type batch struct {
-		e      *fleet.Entry[model.Model]
-		shared bool
-		rows   []int
-	}
-	var order []*batch
-	byEntry := map[*fleet.Entry[model.Model]]*batch{}
-	for i := range n {
-		g := strings.TrimSpace(kept[i*nk])
-		e, shared, ok := sf.f.Route(g)
-		if !ok {
-			out.routes[i] = "none"
-			out.scores[i] = anomaly.Score{Value: math.NaN(), Threshold: math.NaN(), Anomaly: true,
-				Unscorable: fmt.Sprintf("no model for %s %q, and the fleet has no shared model", sf.col, g)}
-			continue
-		}
-		b := byEntry[e]
-		if b == nil {
-			b = &batch{e: e, shared: shared}
-			byEntry[e] = b
-			order = append(order, b)
-		}
-		b.rows = append(b.rows, i)
+	keys := func(i int) string { return strings.TrimSpace(kept[i*nk]) }
+	order, none := sf.f.Deal(n, keys)
+	for _, i := range none {
+		out.routes[i] = "none"
+		out.scores[i] = anomaly.Score{Value: math.NaN(), Threshold: math.NaN(), Anomaly: true,
+			Unscorable: fmt.Sprintf("no model for %s %q, and the fleet has no shared model", sf.col, keys(i))}
 	}
 	var buf []float32
 	for _, b := range order {
 		buf = buf[:0]
-		for _, i := range b.rows {
+		for _, i := range b.Rows {
 			buf = append(buf, x[i*cols:(i+1)*cols]...)
 		}
-		sc := b.e.Value.(model.Scorer)
+		sc := b.Entry.Value.(model.Scorer)
 		route := "own"
-		if b.shared {
+		if b.Shared {
 			route = "shared"
 		}
 		if sc.Calibrated() == nil {
-			for _, i := range b.rows {
+			for _, i := range b.Rows {
 				out.routes[i] = route
-				out.scores[i] = anomaly.Score{Value: math.NaN(), Threshold: math.NaN(), Anomaly: true, Unscorable: fmt.Sprintf("the model of %s %q has no threshold", sf.col, b.e.Group)}
+				out.scores[i] = anomaly.Score{Value: math.NaN(), Threshold: math.NaN(), Anomaly: true, Unscorable: fmt.Sprintf("the model of %s %q has no threshold", sf.col, b.Entry.Group)}
 			}
 			continue
 		}
-		res, err := sc.Score(buf, len(b.rows), top)
+		res, err := sc.Score(buf, len(b.Rows), top)
 		if err != nil {
-			return out, fmt.Errorf("%s %q: %w", sf.col, b.e.Group, err)
+			return out, fmt.Errorf("%s %q: %w", sf.col, b.Entry.Group, err)
 		}
-		for k, i := range b.rows {
+		for k, i := range b.Rows {
 			out.scores[i], out.routes[i] = res[k], route
 		}
 	}
