@@ -75,6 +75,7 @@ type streamSource struct {
 	free         chan []float32
 	done         chan struct{} // closed to stop the reader
 	err          error         // the reader's, read after batches closes
+	buf          []float32     // the shuffle buffer, kept from epoch to epoch
 }
 
 func (m *streamSource) rows() int      { return m.s.TrainRows }
@@ -93,10 +94,13 @@ func (m *streamSource) epoch() error {
 		m.free <- make([]float32, m.size*cols)
 	}
 	m.err = nil
+	if m.buf == nil {
+		m.buf = make([]float32, m.buffer*cols)
+	}
 	batches, free, done := m.batches, m.free, m.done
 	go func() {
 		defer close(batches)
-		buf := make([]float32, m.buffer*cols)
+		buf := m.buf // the last epoch's reader has ended (close waits for it)
 		filled := 0
 		cur, k := <-free, 0
 		emit := func(row []float32) error {
